@@ -1,0 +1,1 @@
+//! `check`: validates layout, circuits and counts together and summarises them.

@@ -1,0 +1,109 @@
+//! Circuits: layers of operations on a layout's qubits, ending in a measurement.
+//!
+//! A [`Circuit`] is layer-structured because contexts are defined per layer (method.md
+//! section 1). Measured qubits that a timed layer does not act on idle implicitly; an
+//! explicit `id` is also an idle. Readers live in [`json`] (the tool's format) and
+//! [`qasm`] (the OpenQASM 3 subset); [`validate`] checks a set against a layout.
+
+use std::collections::HashMap;
+
+use crate::gate::Gate;
+use crate::layout::{Layout, QubitIx};
+
+pub mod json;
+pub mod qasm;
+pub mod validate;
+
+/// One gate application. `qubits[1]` is meaningful only for two-qubit gates and `angle`
+/// only for rotation gates (it is 0 otherwise).
+#[derive(Copy, Clone, Debug, PartialEq)]
+pub struct Op {
+    /// The gate.
+    pub gate: Gate,
+    /// Operands; use [`Op::qubits`] to get exactly `gate.arity()` of them.
+    pub operands: [QubitIx; 2],
+    /// Rotation angle in radians for `rx`, `ry`, `rz`.
+    pub angle: f64,
+}
+
+impl Op {
+    /// A parameter-free one-qubit gate.
+    pub fn one(gate: Gate, q: QubitIx) -> Op {
+        Op { gate, operands: [q, q], angle: 0.0 }
+    }
+
+    /// A rotation gate.
+    pub fn rot(gate: Gate, q: QubitIx, angle: f64) -> Op {
+        Op { gate, operands: [q, q], angle }
+    }
+
+    /// A two-qubit gate.
+    pub fn two(gate: Gate, a: QubitIx, b: QubitIx) -> Op {
+        Op { gate, operands: [a, b], angle: 0.0 }
+    }
+
+    /// The operands, exactly `gate.arity()` of them.
+    pub fn qubits(&self) -> &[QubitIx] {
+        &self.operands[..self.gate.arity()]
+    }
+}
+
+/// One time step: operations on disjoint qubits.
+pub type Layer = Vec<Op>;
+
+/// A circuit: layers, then a measurement of `measured` in order. Bit i of an outcome is
+/// the i-th measured qubit.
+#[derive(Clone, Debug, PartialEq)]
+pub struct Circuit {
+    /// Identifier used by counts files.
+    pub id: String,
+    /// Time steps, in order.
+    pub layers: Vec<Layer>,
+    /// Measured qubits, in outcome bit order.
+    pub measured: Vec<QubitIx>,
+}
+
+impl Circuit {
+    /// True when layer `t` takes time on this layout: it holds at least one operation that
+    /// is not a virtual frame change (an explicit `id` takes a time step). A layer of only
+    /// virtual gates takes no time: nobody idles in it and it is no context for anyone.
+    pub fn is_timed(&self, layout: &Layout, t: usize) -> bool {
+        self.layers[t].iter().any(|op| !layout.is_virtual(op.gate))
+    }
+}
+
+/// A set of circuits with unique ids, in file order.
+#[derive(Clone, Debug, Default)]
+pub struct CircuitSet {
+    /// The circuits.
+    pub circuits: Vec<Circuit>,
+    index: HashMap<String, usize>,
+}
+
+impl CircuitSet {
+    /// Builds a set; fails with the first duplicate id.
+    pub fn new(circuits: Vec<Circuit>) -> Result<CircuitSet, String> {
+        let mut index = HashMap::with_capacity(circuits.len());
+        for (i, c) in circuits.iter().enumerate() {
+            if index.insert(c.id.clone(), i).is_some() {
+                return Err(format!("duplicate circuit id '{}'", c.id));
+            }
+        }
+        Ok(CircuitSet { circuits, index })
+    }
+
+    /// Position of a circuit id.
+    pub fn position(&self, id: &str) -> Option<usize> {
+        self.index.get(id).copied()
+    }
+
+    /// Number of circuits.
+    pub fn len(&self) -> usize {
+        self.circuits.len()
+    }
+
+    /// True when there are no circuits.
+    pub fn is_empty(&self) -> bool {
+        self.circuits.is_empty()
+    }
+}

@@ -1,0 +1,1 @@
+//! OpenQASM 3 import and export (the documented subset).

@@ -1,0 +1,1 @@
+//! Validation of a circuit set against a layout.

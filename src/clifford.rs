@@ -1,0 +1,1 @@
+//! The one-qubit Clifford group, its compilation to native gates, and a stabilizer tableau.

@@ -1,0 +1,1 @@
+//! Experiment design: reference, pair, all-active and all-idle contexts, packed by colouring.

@@ -1,0 +1,255 @@
+//! Chip layouts: qubits, couplers, native gates and the neighbourhood that defines contexts.
+//!
+//! A [`Layout`] is validated once at construction (ids unique, couplers between distinct
+//! known qubits, gate names known) and is immutable afterwards, so every later stage can
+//! index qubits by [`QubitIx`] without re-checking. The TOML file format is documented in
+//! the README ("Layout files").
+
+use std::collections::{BTreeSet, HashMap};
+
+pub mod generate;
+
+use crate::gate::Gate;
+
+/// Index of a qubit in its layout's `qubits` list. Valid only for the layout it came from.
+pub type QubitIx = usize;
+
+/// One qubit: its id as written in files, and an optional position for drawing.
+#[derive(Clone, Debug, PartialEq)]
+pub struct Qubit {
+    /// The id used in every file (for example `q7`).
+    pub id: String,
+    /// Drawing position (x, y), arbitrary units.
+    pub position: Option<[f64; 2]>,
+}
+
+/// The layout's native gate set.
+#[derive(Clone, Debug, PartialEq, Eq)]
+pub struct NativeGates {
+    /// One-qubit gates the chip runs (virtual ones included).
+    pub one_qubit: Vec<Gate>,
+    /// The subset of `one_qubit` that are frame changes: no duration, no error.
+    pub virtual_gates: Vec<Gate>,
+    /// The two-qubit gate.
+    pub two_qubit: Gate,
+}
+
+/// How the neighbourhood N(q) that defines an occurrence's context is built.
+#[derive(Clone, Debug, PartialEq, Eq)]
+pub struct NeighbourhoodSpec {
+    /// Graph radius over couplers: 1 (coupler neighbours, the default) or 2.
+    pub radius: usize,
+    /// Extra spectator pairs (for example physically close but uncoupled qubits).
+    pub extra_pairs: Vec<(QubitIx, QubitIx)>,
+}
+
+impl Default for NeighbourhoodSpec {
+    fn default() -> Self {
+        NeighbourhoodSpec { radius: 1, extra_pairs: Vec::new() }
+    }
+}
+
+/// A validated chip layout.
+///
+/// Invariants: qubit ids are unique and non-empty; every coupler joins two distinct
+/// qubits, is stored as (lower index, higher index), and appears once; `virtual_gates` is a
+/// subset of `one_qubit`; the two-qubit gate has arity 2 and the others arity 1.
+#[derive(Clone, Debug)]
+pub struct Layout {
+    /// The layout's name.
+    pub name: String,
+    /// The qubits, in file order.
+    pub qubits: Vec<Qubit>,
+    /// Couplers as (a, b) with a < b, sorted.
+    pub couplers: Vec<(QubitIx, QubitIx)>,
+    /// Native gates.
+    pub gates: NativeGates,
+    /// The neighbourhood definition.
+    pub neighbourhood: NeighbourhoodSpec,
+    index: HashMap<String, QubitIx>,
+    coupler_index: HashMap<(QubitIx, QubitIx), usize>,
+    adjacency: Vec<Vec<QubitIx>>,
+    neighbours: Vec<Vec<QubitIx>>,
+}
+
+impl Layout {
+    /// Builds and validates a layout. Errors name the offending id or gate; the caller adds
+    /// the file location.
+    pub fn new(
+        name: String,
+        qubits: Vec<Qubit>,
+        couplers: Vec<(String, String)>,
+        gates: NativeGates,
+        radius: usize,
+        extra_pairs: Vec<(String, String)>,
+    ) -> std::result::Result<Layout, String> {
+        if qubits.is_empty() {
+            return Err("a layout needs at least one qubit".into());
+        }
+        let mut index = HashMap::new();
+        for (i, q) in qubits.iter().enumerate() {
+            if q.id.is_empty() || q.id.chars().any(|c| c.is_whitespace() || c == ',') {
+                return Err(format!(
+                    "qubit id {:?} is not valid: ids are non-empty and contain no spaces or commas",
+                    q.id
+                ));
+            }
+            if index.insert(q.id.clone(), i).is_some() {
+                return Err(format!("duplicate qubit id '{}'", q.id));
+            }
+            if let Some(p) = q.position {
+                if !p.iter().all(|v| v.is_finite()) {
+                    return Err(format!("qubit '{}': position must be two finite numbers", q.id));
+                }
+            }
+        }
+        let lookup = |id: &str, what: &str| -> std::result::Result<QubitIx, String> {
+            index.get(id).copied().ok_or_else(|| format!("{what} names unknown qubit '{id}'"))
+        };
+        let mut set = BTreeSet::new();
+        for (a, b) in &couplers {
+            let (ia, ib) = (lookup(a, "a coupler")?, lookup(b, "a coupler")?);
+            if ia == ib {
+                return Err(format!("coupler {a}-{b} joins a qubit to itself"));
+            }
+            if !set.insert((ia.min(ib), ia.max(ib))) {
+                return Err(format!("duplicate coupler {a}-{b}"));
+            }
+        }
+        let couplers: Vec<(QubitIx, QubitIx)> = set.into_iter().collect();
+        if gates.two_qubit.arity() != 2 {
+            return Err(format!("two_qubit gate '{}' is not a two-qubit gate", gates.two_qubit));
+        }
+        if let Some(g) = gates.one_qubit.iter().find(|g| g.arity() != 1) {
+            return Err(format!("one_qubit gate '{g}' is not a one-qubit gate"));
+        }
+        if let Some(g) = gates.virtual_gates.iter().find(|g| !gates.one_qubit.contains(g)) {
+            return Err(format!("virtual gate '{g}' is not listed among one_qubit gates"));
+        }
+        if !(1..=2).contains(&radius) {
+            return Err(format!("neighbourhood radius {radius} is not supported (valid: 1 or 2)"));
+        }
+        let mut extra = BTreeSet::new();
+        for (a, b) in &extra_pairs {
+            let (ia, ib) =
+                (lookup(a, "an extra spectator pair")?, lookup(b, "an extra spectator pair")?);
+            if ia == ib {
+                return Err(format!("extra spectator pair {a}-{b} joins a qubit to itself"));
+            }
+            extra.insert((ia.min(ib), ia.max(ib)));
+        }
+        let n = qubits.len();
+        let mut adjacency = vec![Vec::new(); n];
+        for &(a, b) in &couplers {
+            adjacency[a].push(b);
+            adjacency[b].push(a);
+        }
+        for list in &mut adjacency {
+            list.sort_unstable();
+        }
+        let mut neighbours: Vec<BTreeSet<QubitIx>> =
+            adjacency.iter().map(|l| l.iter().copied().collect()).collect();
+        if radius == 2 {
+            for q in 0..n {
+                for &r in &adjacency[q] {
+                    for &s in &adjacency[r] {
+                        if s != q {
+                            neighbours[q].insert(s);
+                        }
+                    }
+                }
+            }
+        }
+        for &(a, b) in &extra {
+            neighbours[a].insert(b);
+            neighbours[b].insert(a);
+        }
+        let coupler_index = couplers.iter().enumerate().map(|(i, &c)| (c, i)).collect();
+        Ok(Layout {
+            name,
+            qubits,
+            couplers,
+            gates,
+            neighbourhood: NeighbourhoodSpec { radius, extra_pairs: extra.into_iter().collect() },
+            index,
+            coupler_index,
+            adjacency,
+            neighbours: neighbours.into_iter().map(|s| s.into_iter().collect()).collect(),
+        })
+    }
+
+    /// Number of qubits.
+    pub fn n_qubits(&self) -> usize {
+        self.qubits.len()
+    }
+
+    /// The index of a qubit id, if the layout has it.
+    pub fn qubit(&self, id: &str) -> Option<QubitIx> {
+        self.index.get(id).copied()
+    }
+
+    /// The id of a qubit index.
+    pub fn id(&self, q: QubitIx) -> &str {
+        &self.qubits[q].id
+    }
+
+    /// The coupler index of an unordered pair, if it is a coupler.
+    pub fn coupler(&self, a: QubitIx, b: QubitIx) -> Option<usize> {
+        self.coupler_index.get(&(a.min(b), a.max(b))).copied()
+    }
+
+    /// Coupler neighbours of q (sorted).
+    pub fn coupled(&self, q: QubitIx) -> &[QubitIx] {
+        &self.adjacency[q]
+    }
+
+    /// The context neighbourhood N(q) (sorted): coupler neighbours, widened by the radius
+    /// and the extra spectator pairs.
+    pub fn neighbours(&self, q: QubitIx) -> &[QubitIx] {
+        &self.neighbours[q]
+    }
+
+    /// True when r is in N(q) (symmetric).
+    pub fn are_neighbours(&self, q: QubitIx, r: QubitIx) -> bool {
+        self.neighbours[q].binary_search(&r).is_ok()
+    }
+
+    /// The analysis edges: unordered neighbour pairs (a, b), a < b, sorted.
+    pub fn neighbour_pairs(&self) -> Vec<(QubitIx, QubitIx)> {
+        (0..self.n_qubits())
+            .flat_map(|a| self.neighbours[a].iter().filter(move |&&b| b > a).map(move |&b| (a, b)))
+            .collect()
+    }
+
+    /// True when the gate is a virtual frame change on this layout.
+    pub fn is_virtual(&self, g: Gate) -> bool {
+        self.gates.virtual_gates.contains(&g)
+    }
+
+    /// True when the gate is native on this layout.
+    pub fn is_native(&self, g: Gate) -> bool {
+        g == Gate::Id || g == self.gates.two_qubit || self.gates.one_qubit.contains(&g)
+    }
+
+    /// Maximum coupler degree.
+    pub fn max_degree(&self) -> usize {
+        self.adjacency.iter().map(Vec::len).max().unwrap_or(0)
+    }
+
+    /// True when the coupler graph is connected.
+    pub fn is_connected(&self) -> bool {
+        let n = self.n_qubits();
+        let mut seen = vec![false; n];
+        let mut stack = vec![0];
+        seen[0] = true;
+        while let Some(q) = stack.pop() {
+            for &r in &self.adjacency[q] {
+                if !seen[r] {
+                    seen[r] = true;
+                    stack.push(r);
+                }
+            }
+        }
+        seen.into_iter().all(|s| s)
+    }
+}

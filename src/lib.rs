@@ -1,0 +1,24 @@
+//! slackmap: a crosstalk audit for multi-qubit processors.
+//!
+//! The library holds every computation; the `slackmap` binary only parses arguments,
+//! calls in here and prints. Modules follow the data flow: layout, circuit and counts
+//! (inputs), design and simulate (making circuits and data), rows (blocks, occurrences and
+//! contexts), model (the crosstalk-free fit), slack (requirements and covering LPs),
+//! and the audit that ties them together. See DEVELOPERS.md for the architecture.
+#![warn(missing_docs)]
+
+pub mod check;
+pub mod circuit;
+pub mod clifford;
+pub mod counts;
+pub mod design;
+pub mod error;
+pub mod gate;
+pub mod layout;
+pub mod model;
+pub mod rows;
+pub mod simulate;
+pub mod slack;
+pub mod stats;
+
+pub use error::{Error, Result, Warning};

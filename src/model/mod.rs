@@ -1,0 +1,1 @@
+//! The crosstalk-free product model: channels, row predictions and the maximum-likelihood fit.

@@ -1,0 +1,1 @@
+//! Rows of the analysis: blocks, occurrences, contexts and marginal counts.

@@ -1,0 +1,1 @@
+//! The crosstalk simulator: noise files, context-conditioned channels, shot sampling.

@@ -1,0 +1,1 @@
+//! Slack: weakened predictions, row requirements and the two-stage covering LPs.
