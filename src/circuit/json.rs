@@ -48,3 +48,55 @@ pub struct OpWire {
     /// Operand qubit ids.
     pub qubits: Vec<String>,
 }
+
+use super::{Circuit, CircuitSet, Op};
+use crate::layout::Layout;
+
+/// Converts a circuit set to its wire form (ids from the layout; idles left implicit).
+pub fn to_wire(set: &CircuitSet, layout: &Layout) -> FileWire {
+    let circuits = set
+        .circuits
+        .iter()
+        .map(|c| CircuitWire {
+            id: c.id.clone(),
+            measured: c.measured.iter().map(|&q| layout.id(q).to_string()).collect(),
+            layers: c
+                .layers
+                .iter()
+                .map(|l| l.iter().map(|op| op_wire(op, layout)).collect())
+                .collect(),
+        })
+        .collect();
+    FileWire { schema: SCHEMA, circuits }
+}
+
+fn op_wire(op: &Op, layout: &Layout) -> OpWire {
+    OpWire {
+        gate: op.gate.name().to_string(),
+        params: if op.gate.n_params() == 1 { vec![op.angle] } else { Vec::new() },
+        qubits: op.qubits().iter().map(|&q| layout.id(q).to_string()).collect(),
+    }
+}
+
+/// Serialises a circuit set in the tool's JSON format: one circuit per line, so files
+/// stay compact and diff well.
+pub fn to_json(set: &CircuitSet, layout: &Layout) -> String {
+    let wire = to_wire(set, layout);
+    let mut s = format!("{{\"schema\": {}, \"circuits\": [\n", wire.schema);
+    for (i, c) in wire.circuits.iter().enumerate() {
+        s.push_str(&serde_json::to_string(c).expect("wire types always serialise"));
+        s.push_str(if i + 1 < wire.circuits.len() { ",\n" } else { "\n" });
+    }
+    s.push_str("]}\n");
+    s
+}
+
+/// Borrowed view used by writers that want a single circuit.
+pub fn circuit_to_json(c: &Circuit, layout: &Layout) -> String {
+    let wire = CircuitWire {
+        id: c.id.clone(),
+        measured: c.measured.iter().map(|&q| layout.id(q).to_string()).collect(),
+        layers: c.layers.iter().map(|l| l.iter().map(|op| op_wire(op, layout)).collect()).collect(),
+    };
+    serde_json::to_string(&wire).expect("wire types always serialise")
+}

@@ -107,3 +107,66 @@ impl CircuitSet {
         self.circuits.is_empty()
     }
 }
+
+impl Circuit {
+    /// Qubits acted on by a non-idle, non-virtual operation in layer `t` (the qubits that
+    /// can be aggressors there), sorted.
+    pub fn active_qubits(&self, layout: &Layout, t: usize) -> Vec<QubitIx> {
+        let mut v: Vec<QubitIx> = self.layers[t]
+            .iter()
+            .filter(|op| op.gate != Gate::Id && !layout.is_virtual(op.gate))
+            .flat_map(|op| op.qubits().iter().copied())
+            .collect();
+        v.sort_unstable();
+        v
+    }
+
+    /// The blocks: connected components of the measured qubits under this circuit's
+    /// two-qubit gates, each sorted, in order of their first measured qubit. Qubits a
+    /// two-qubit gate joins to a measured qubit are included even if unmeasured, so a
+    /// caller can reject such blocks.
+    pub fn blocks(&self) -> Vec<Vec<QubitIx>> {
+        let mut parent: HashMap<QubitIx, QubitIx> = HashMap::new();
+        fn find(p: &mut HashMap<QubitIx, QubitIx>, x: QubitIx) -> QubitIx {
+            let mut r = x;
+            while let Some(&up) = p.get(&r) {
+                if up == r {
+                    break;
+                }
+                r = up;
+            }
+            p.insert(x, r);
+            r
+        }
+        for &q in &self.measured {
+            parent.insert(q, q);
+        }
+        for op in self.layers.iter().flatten().filter(|op| op.gate.arity() == 2) {
+            let [a, b] = op.operands;
+            if !(parent.contains_key(&a) || parent.contains_key(&b)) {
+                continue;
+            }
+            parent.entry(a).or_insert(a);
+            parent.entry(b).or_insert(b);
+            let (ra, rb) = (find(&mut parent, a), find(&mut parent, b));
+            if ra != rb {
+                parent.insert(ra.max(rb), ra.min(rb));
+            }
+        }
+        let mut groups: HashMap<QubitIx, Vec<QubitIx>> = HashMap::new();
+        let keys: Vec<QubitIx> = parent.keys().copied().collect();
+        for q in keys {
+            let r = find(&mut parent, q);
+            groups.entry(r).or_default().push(q);
+        }
+        let mut out: Vec<Vec<QubitIx>> = groups.into_values().collect();
+        for g in &mut out {
+            g.sort_unstable();
+        }
+        let first_measured = |g: &Vec<QubitIx>| {
+            self.measured.iter().position(|m| g.contains(m)).unwrap_or(usize::MAX)
+        };
+        out.sort_by_key(first_measured);
+        out
+    }
+}
