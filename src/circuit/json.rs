@@ -100,3 +100,94 @@ pub fn circuit_to_json(c: &Circuit, layout: &Layout) -> String {
     };
     serde_json::to_string(&wire).expect("wire types always serialise")
 }
+
+use std::path::Path;
+
+use crate::error::{Error, Result};
+use crate::gate::Gate;
+
+/// Reads a circuit file in the tool's JSON format. Structural problems (bad JSON, unknown
+/// fields, unknown gates or qubits, wrong operand or parameter counts) are errors naming
+/// the file and, for JSON syntax, the line; layout-level rules are checked by
+/// [`super::validate`].
+pub fn read_json(path: &Path, layout: &Layout) -> Result<CircuitSet> {
+    let file = std::fs::File::open(path).map_err(|e| Error::io(path, e))?;
+    let reader = std::io::BufReader::new(file);
+    let wire: FileWire = serde_json::from_reader(reader).map_err(|e| {
+        let line = (e.line() > 0).then_some(e.line());
+        Error::input(path, line, format!("not a valid slackmap circuit file: {e}"))
+    })?;
+    from_wire(wire, path, layout)
+}
+
+/// Converts the wire form to circuits, resolving ids against the layout.
+pub fn from_wire(wire: FileWire, path: &Path, layout: &Layout) -> Result<CircuitSet> {
+    if wire.schema != SCHEMA {
+        return Err(Error::input(
+            path,
+            None,
+            format!("schema {} is not supported (this build reads schema {SCHEMA})", wire.schema),
+        ));
+    }
+    let qubit = |cid: &str, id: &str| {
+        layout.qubit(id).ok_or_else(|| {
+            Error::input(
+                path,
+                None,
+                format!("circuit {cid}: qubit '{id}' is not in layout '{}'", layout.name),
+            )
+        })
+    };
+    let mut circuits = Vec::with_capacity(wire.circuits.len());
+    for cw in wire.circuits {
+        let measured =
+            cw.measured.iter().map(|id| qubit(&cw.id, id)).collect::<Result<Vec<_>>>()?;
+        let mut layers = Vec::with_capacity(cw.layers.len());
+        for (t, lw) in cw.layers.iter().enumerate() {
+            let mut layer = Vec::with_capacity(lw.len());
+            for ow in lw {
+                let here = format!("circuit {} layer {t}", cw.id);
+                let gate = Gate::from_name(&ow.gate).ok_or_else(|| {
+                    Error::input(
+                        path,
+                        None,
+                        format!(
+                            "{here}: unknown gate '{}' (known: {})",
+                            ow.gate,
+                            Gate::known_names()
+                        ),
+                    )
+                })?;
+                if ow.qubits.len() != gate.arity() {
+                    return Err(Error::input(
+                        path,
+                        None,
+                        format!(
+                            "{here}: gate {gate} takes {} qubit(s), got {}",
+                            gate.arity(),
+                            ow.qubits.len()
+                        ),
+                    ));
+                }
+                if ow.params.len() != gate.n_params() || !ow.params.iter().all(|p| p.is_finite()) {
+                    return Err(Error::input(
+                        path,
+                        None,
+                        format!(
+                            "{here}: gate {gate} takes {} finite angle(s), got {:?}",
+                            gate.n_params(),
+                            ow.params
+                        ),
+                    ));
+                }
+                let qs =
+                    ow.qubits.iter().map(|id| qubit(&cw.id, id)).collect::<Result<Vec<_>>>()?;
+                let angle = ow.params.first().copied().unwrap_or(0.0);
+                layer.push(Op { gate, operands: [qs[0], *qs.last().unwrap_or(&qs[0])], angle });
+            }
+            layers.push(layer);
+        }
+        circuits.push(Circuit { id: cw.id, layers, measured });
+    }
+    CircuitSet::new(circuits).map_err(|m| Error::input(path, None, m))
+}
