@@ -16,6 +16,7 @@ pub mod error;
 pub mod gate;
 pub mod layout;
 pub mod model;
+pub mod report;
 pub mod rows;
 pub mod simulate;
 pub mod slack;

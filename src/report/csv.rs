@@ -1,0 +1,141 @@
+//! CSV outputs: `edges.csv` (ranked edges), `adjacency.csv` (the full victim x aggressor
+//! matrix) and `intrinsic.csv` (per-kind intrinsic slack). Full precision, TVD per layer.
+
+use std::collections::HashMap;
+
+use super::{AuditReport, Render};
+
+fn to_bytes(header: &[&str], rows: Vec<Vec<String>>) -> Vec<u8> {
+    let mut w = csv::Writer::from_writer(Vec::new());
+    let _ = w.write_record(header);
+    for r in rows {
+        let _ = w.write_record(&r);
+    }
+    w.into_inner().unwrap_or_default()
+}
+
+fn opt<T: ToString>(v: Option<T>) -> String {
+    v.map(|x| x.to_string()).unwrap_or_default()
+}
+
+/// Renders `edges.csv`.
+pub struct EdgesCsv;
+
+impl Render for EdgesCsv {
+    fn file_name(&self) -> &'static str {
+        "edges.csv"
+    }
+
+    fn render(&self, r: &AuditReport) -> Vec<u8> {
+        let header = [
+            "rank",
+            "a",
+            "b",
+            "coupled",
+            "score_tvd_per_layer",
+            "a_from_b_tvd_per_layer",
+            "b_from_a_tvd_per_layer",
+            "detection_limit_tvd_per_layer",
+            "p_value",
+            "attribution_min_tvd_per_layer",
+            "attribution_max_tvd_per_layer",
+            "supporting_rows",
+            "supporting_circuits",
+            "leave_one_out_tvd_per_layer",
+            "most_influential_circuit",
+            "confounded_with",
+            "verdict",
+        ];
+        let rows = r
+            .edges
+            .iter()
+            .map(|e| {
+                vec![
+                    opt(e.rank),
+                    e.a.clone(),
+                    e.b.clone(),
+                    e.coupled.to_string(),
+                    e.score_tvd_per_layer.to_string(),
+                    e.a_from_b_tvd_per_layer.to_string(),
+                    e.b_from_a_tvd_per_layer.to_string(),
+                    e.detection_limit_tvd_per_layer.to_string(),
+                    e.p_value.to_string(),
+                    e.attribution_min_tvd_per_layer.to_string(),
+                    e.attribution_max_tvd_per_layer.to_string(),
+                    e.supporting_rows.to_string(),
+                    e.supporting_circuits.to_string(),
+                    e.leave_one_out_tvd_per_layer.to_string(),
+                    opt(e.most_influential_circuit.clone()),
+                    e.confounded_with.join(";"),
+                    e.verdict.word().to_string(),
+                ]
+            })
+            .collect();
+        to_bytes(&header, rows)
+    }
+}
+
+/// Renders `adjacency.csv`: one row per victim, one column per aggressor (every qubit),
+/// the directed score where the two are neighbours and empty otherwise.
+pub struct AdjacencyCsv;
+
+impl Render for AdjacencyCsv {
+    fn file_name(&self) -> &'static str {
+        "adjacency.csv"
+    }
+
+    fn render(&self, r: &AuditReport) -> Vec<u8> {
+        let ids = &r.layout.qubits;
+        let scores: HashMap<(&str, &str), f64> = r
+            .directed
+            .iter()
+            .map(|d| ((d.victim.as_str(), d.aggressor.as_str()), d.score_tvd_per_layer))
+            .collect();
+        let mut header = vec!["victim"];
+        header.extend(ids.iter().map(String::as_str));
+        let rows = ids
+            .iter()
+            .map(|v| {
+                let mut row = vec![v.clone()];
+                row.extend(ids.iter().map(|a| opt(scores.get(&(v.as_str(), a.as_str())).copied())));
+                row
+            })
+            .collect();
+        to_bytes(&header, rows)
+    }
+}
+
+/// Renders `intrinsic.csv`.
+pub struct IntrinsicCsv;
+
+impl Render for IntrinsicCsv {
+    fn file_name(&self) -> &'static str {
+        "intrinsic.csv"
+    }
+
+    fn render(&self, r: &AuditReport) -> Vec<u8> {
+        let header = [
+            "kind",
+            "occurrences",
+            "reference_occurrences",
+            "slack_tvd_per_occurrence",
+            "fitted_error_rate",
+            "fitted_on_all_rows",
+        ];
+        let rows = r
+            .intrinsic
+            .iter()
+            .map(|k| {
+                vec![
+                    k.kind.clone(),
+                    k.occurrences.to_string(),
+                    k.reference_occurrences.to_string(),
+                    k.slack_tvd_per_occurrence.to_string(),
+                    k.fitted_error_rate.to_string(),
+                    k.fitted_on_all_rows.to_string(),
+                ]
+            })
+            .collect();
+        to_bytes(&header, rows)
+    }
+}
