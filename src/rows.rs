@@ -2,8 +2,13 @@
 //! occurrences and their contexts, and the aggregates the fit and the LPs need.
 //!
 //! Definitions follow method.md section 2: an occurrence of kind k in a timed layer t on
-//! qubits S has context A = { r in N(S) minus S : r active in t }; a row is a reference row
-//! when every occurrence has A empty. Rows are built once, in parallel over circuits, in a
+//! qubits S has context A = { r in N(S) minus B : r active in t }, where B is the row's
+//! block; a row is a reference row when every occurrence has A empty. B equals S for
+//! one-qubit blocks. In a two-qubit block the partner is not an aggressor of the block's
+//! own one-qubit operations and idles: the block is simulated jointly, and counting the
+//! partner would leave no two-qubit reference rows at all (an idle beside a driven partner
+//! would always have a context), against the coupler reference context of section 7
+//! ("block active, all neighbours idle"). Rows are built once, in parallel over circuits, in a
 //! deterministic order (circuit order, then block order) and stored compactly: kinds are
 //! indices into one [`KindTable`].
 
@@ -339,7 +344,7 @@ fn circuit_rows(
                 let mut agg: Vec<QubitIx> = qs
                     .iter()
                     .flat_map(|&q| layout.neighbours(q).iter().copied())
-                    .filter(|r| !qs.contains(r) && active[t].binary_search(r).is_ok())
+                    .filter(|r| !block.contains(r) && active[t].binary_search(r).is_ok())
                     .collect();
                 agg.sort_unstable();
                 agg.dedup();
@@ -514,10 +519,34 @@ mod tests {
         assert_eq!(r.count(cz), 1);
         assert!(r.aggressors(&r.occurrences[0]).is_empty());
         let (sx0, sx1) = (kind(&rows, &l, "sx@q0"), kind(&rows, &l, "sx@q1"));
-        assert_eq!(r.context_count(sx0, 1), 1, "the block partner is a neighbour of a 1q op");
-        assert_eq!((r.context_count(sx1, 0), r.context_count(sx1, 4)), (1, 1));
-        assert!(!r.is_reference);
+        assert_eq!(r.context_count(sx0, 1), 0, "the block partner is no aggressor");
+        assert_eq!((r.context_count(sx1, 0), r.context_count(sx1, 4)), (0, 1));
+        assert_eq!(r.context_count(sx0, 3), 0, "q3 idles");
+        assert!(!r.is_reference, "x on q4 is a context of sx@q1");
         assert_eq!(r.steps[0].operands, [1, 0], "steps keep operand order (cx needs it)");
+    }
+
+    #[test]
+    fn two_qubit_reference_row() {
+        let l = grid(2, 3);
+        // Partner driven while the other idles, cz, and spectators that are not neighbours
+        // of the block (q2 neighbours q1; q5 is two steps from both q0 and q3).
+        let c = Circuit {
+            id: "ref-cz".into(),
+            layers: vec![
+                vec![Op::one(Gate::Sx, 0), Op::one(Gate::Sx, 5)],
+                vec![Op::two(Gate::Cz, 0, 3)],
+                vec![Op::one(Gate::X, 3)],
+            ],
+            measured: vec![0, 3, 5],
+        };
+        let rows = build(&l, &set(vec![c]), None).unwrap();
+        let r = &rows.rows[0];
+        assert_eq!(r.block, vec![0, 3]);
+        assert!(r.is_reference);
+        assert_eq!(r.count(kind(&rows, &l, "id@q3")), 1);
+        assert_eq!(r.count(kind(&rows, &l, "id@q0")), 1);
+        assert_eq!(r.occurrences.len(), 5);
     }
 
     #[test]
