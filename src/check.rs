@@ -203,3 +203,45 @@ pub fn summarise_rows(
         warnings: warnings.into_iter().collect(),
     }
 }
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::circuit::{Circuit, Op};
+    use crate::gate::Gate;
+    use crate::layout::generate::chain;
+
+    #[test]
+    fn spread_uses_the_lower_median() {
+        assert_eq!(Spread::of(vec![5, 1, 3, 9]), Some(Spread { min: 1, median: 3, max: 9 }));
+        assert_eq!(Spread::<u64>::of(Vec::new()), None);
+    }
+
+    #[test]
+    fn gaps_in_references_and_contexts_are_listed() {
+        // chain(3): q0 - q1 - q2. q0 alone is a reference; q1 with q2 active is a context.
+        let l = chain(3);
+        let set = CircuitSet::new(vec![
+            Circuit {
+                id: "r0".into(),
+                layers: vec![vec![Op::one(Gate::Sx, 0)]],
+                measured: vec![0],
+            },
+            Circuit {
+                id: "p12".into(),
+                layers: vec![vec![Op::one(Gate::Sx, 1), Op::one(Gate::X, 2)]],
+                measured: vec![1, 2],
+            },
+        ])
+        .unwrap();
+        let s = summarise(&l, &set, None).unwrap();
+        assert_eq!((s.blocks_1q, s.blocks_2q), (3, 0));
+        assert_eq!(s.qubits_with_reference, vec![0]);
+        assert_eq!(s.qubits_without_reference, vec![1, 2]);
+        assert_eq!(s.couplers_without_reference, vec![(0, 1), (1, 2)]);
+        assert_eq!(s.directed_pairs, 4);
+        assert_eq!(s.pairs_never_context, vec![(0, 1), (1, 0)]);
+        assert!(s.warnings.iter().any(|w| w.code == "pair-never-context"));
+        assert!(s.shots.is_none() && s.circuits_without_counts.is_empty());
+    }
+}

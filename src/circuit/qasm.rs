@@ -11,7 +11,7 @@
 //! statement  = "include" string ";"                 (only "stdgates.inc")
 //!            | "qubit" [ "[" int "]" ] ident ";"
 //!            | "bit" [ "[" int "]" ] ident ";"
-//!            | "barrier" [ operand { "," operand } ] ";"
+//!            | "barrier" [ target { "," target } ] ";"    (target = operand | register)
 //!            | gate [ "(" expr ")" ] operand { "," operand } ";"
 //!            | bitref "=" "measure" operand ";"
 //!            | "measure" operand "->" bitref ";" ;
@@ -305,8 +305,8 @@ fn unsupported(word: &str) -> Option<&'static str> {
         "gate" | "def" | "opaque" => "gate and subroutine definitions",
         "if" | "else" | "switch" | "case" => "classical control flow",
         "for" | "while" | "break" | "continue" => "loops",
-        "reset" => "'reset'",
-        "gphase" => "'gphase'",
+        "reset" => "reset operations",
+        "gphase" => "global phase statements",
         "ctrl" | "negctrl" | "inv" | "pow" => "gate modifiers such as 'ctrl @'",
         "int" | "uint" | "float" | "angle" | "bool" | "complex" | "duration" | "stretch"
         | "const" | "input" | "output" | "let" | "array" => {
@@ -508,10 +508,10 @@ impl<'a> Parser<'a> {
             "barrier" => {
                 self.pos += 1;
                 if !self.is_punct(";") {
-                    self.operand()?;
+                    self.barrier_operand()?;
                     while self.is_punct(",") {
                         self.pos += 1;
-                        self.operand()?;
+                        self.barrier_operand()?;
                     }
                 }
                 self.expect_punct(";", "after the barrier")?;
@@ -561,7 +561,7 @@ impl<'a> Parser<'a> {
             Some(g) => g,
             None => {
                 let msg = match unsupported(word) {
-                    Some(what) => format!("{what} ('{word}') are not supported by this importer"),
+                    Some(what) => format!("'{word}': {what} are not supported by this importer"),
                     None => format!(
                         "unknown gate or statement '{word}' (supported gates: {})",
                         Gate::known_names()
@@ -698,6 +698,19 @@ impl<'a> Parser<'a> {
                 ))
             }
         }
+    }
+
+    /// A barrier may name a whole register; it separates layers whatever it names.
+    fn barrier_operand(&mut self) -> Result<()> {
+        if let Some(Tok::Ident(name)) = self.peek() {
+            if self.qregs.contains_key(name)
+                && !matches!(self.toks.get(self.pos + 1).map(|t| &t.tok), Some(Tok::Punct("[")))
+            {
+                self.pos += 1;
+                return Ok(());
+            }
+        }
+        self.operand().map(|_| ())
     }
 
     fn bitref(&mut self) -> Result<(usize, usize)> {
@@ -1007,7 +1020,7 @@ mod tests {
             ("bit c;\nsx $0;\ngate foo a { x a; }\n", "line 3", "definitions"),
             ("bit c;\n\nif (c == 1) x $0;\n", "line 3", "control flow"),
             ("bit c;\nfor i in [0:2] { x $0; }\n", "line 2", "loops"),
-            ("bit c;\nreset $0;\n", "line 2", "reset"),
+            ("bit c;\nreset $0;\n", "line 2", "'reset': reset operations"),
             ("int i;\n", "line 1", "classical declarations"),
             ("gphase(pi);\n", "line 1", "gphase"),
             ("bit c;\nctrl @ x $0, $1;\n", "line 2", "modifiers"),
