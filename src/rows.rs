@@ -275,6 +275,20 @@ fn circuit_rows(
         .map(|t| if timed[t] { c.active_qubits(layout, t) } else { Vec::new() })
         .collect();
     let n_timed = timed.iter().filter(|&&t| t).count();
+    // Which op of layer t acts on qubit q, so each block reads only its own ops instead of
+    // scanning whole layers (blocks x layer width would dominate on large layouts).
+    const NONE: u32 = u32::MAX;
+    let n = layout.n_qubits();
+    let mut op_at = vec![NONE; n * c.layers.len()];
+    for (t, layer) in c.layers.iter().enumerate() {
+        for (i, op) in layer.iter().enumerate() {
+            for &q in op.qubits() {
+                if q < n {
+                    op_at[t * n + q] = i as u32;
+                }
+            }
+        }
+    }
     let mut rows = Vec::new();
     for block in c.blocks() {
         let positions: Vec<usize> = block
@@ -308,20 +322,23 @@ fn circuit_rows(
         let mut ever_active: Vec<Vec<QubitIx>> = vec![Vec::new(); block.len()];
         for (t, layer) in c.layers.iter().enumerate() {
             let mut touched = vec![false; block.len()];
-            let mut layer_ops: Vec<(Gate, Vec<QubitIx>, f64)> = Vec::new();
-            for op in layer {
+            let mut layer_ops: Vec<(Gate, [QubitIx; 2], f64)> = Vec::new();
+            let mut ixs: Vec<u32> =
+                block.iter().map(|&q| op_at[t * n + q]).filter(|&i| i != NONE).collect();
+            ixs.sort_unstable();
+            ixs.dedup();
+            for i in ixs {
+                let op = &layer[i as usize];
                 let qs = op.qubits();
-                if qs.iter().any(|q| block.contains(q)) {
-                    for &q in qs {
-                        touched[pos_in_block(q) as usize] = true;
-                    }
-                    layer_ops.push((op.gate, qs.to_vec(), op.angle));
+                for &q in qs {
+                    touched[pos_in_block(q) as usize] = true;
                 }
+                layer_ops.push((op.gate, op.operands, op.angle));
             }
             if timed[t] {
                 for (j, &q) in block.iter().enumerate() {
                     if !touched[j] {
-                        layer_ops.push((Gate::Id, vec![q], 0.0));
+                        layer_ops.push((Gate::Id, [q, q], 0.0));
                     }
                 }
                 for (j, &q) in block.iter().enumerate() {
@@ -335,8 +352,9 @@ fn circuit_rows(
                     }
                 }
             }
-            for (gate, qs, angle) in layer_ops {
-                let kind = (!layout.is_virtual(gate)).then(|| local.intern(OpKind::new(gate, &qs)));
+            for (gate, operands, angle) in layer_ops {
+                let qs = &operands[..gate.arity()];
+                let kind = (!layout.is_virtual(gate)).then(|| local.intern(OpKind::new(gate, qs)));
                 let operands = [pos_in_block(qs[0]), pos_in_block(*qs.last().unwrap_or(&qs[0]))];
                 steps.push(Step { layer: t as u32, gate, operands, angle, kind });
                 let Some(k) = kind else { continue };
