@@ -1,14 +1,46 @@
-//! OpenQASM 3 import and export (the documented subset).
+//! OpenQASM 3 import and export (the subset a characterization experiment uses).
 //!
 //! Export writes physical qubits `$k` (k = the qubit's position in the layout), one
 //! `barrier` between layers, explicit `id` for every measured qubit that idles in a timed
-//! layer, and measurement into a bit array in measured order.
+//! layer, and measurement into a bit array in measured order. Import is a small
+//! hand-written tokenizer and recursive-descent parser for the grammar below (OpenQASM 3
+//! specification, "Language"); everything outside it is an error naming file and line.
+//!
+//! ```text
+//! program    = [ "OPENQASM" version ";" ] { statement } ;
+//! statement  = "include" string ";"                 (only "stdgates.inc")
+//!            | "qubit" [ "[" int "]" ] ident ";"
+//!            | "bit" [ "[" int "]" ] ident ";"
+//!            | "barrier" [ target { "," target } ] ";"    (target = operand | register)
+//!            | gate [ "(" expr ")" ] operand { "," operand } ";"
+//!            | bitref "=" "measure" operand ";"
+//!            | "measure" operand "->" bitref ";" ;
+//! gate       = "id" | "x" | "y" | "z" | "h" | "s" | "sdg" | "sx"
+//!            | "rx" | "ry" | "rz" | "cz" | "cx" ;
+//! operand    = "$" int | ident "[" int "]" | ident ;   (ident alone: a one-qubit register)
+//! bitref     = ident "[" int "]" | ident ;
+//! expr       = term { ("+" | "-") term } ;
+//! term       = unary { ("*" | "/") unary } ;
+//! unary      = ("-" | "+") unary | primary ;
+//! primary    = number | "pi" | "π" | "tau" | "τ" | "(" expr ")" ;
+//! ```
+//! Comments `//` and `/* */` are skipped. Layers: with any `barrier` in the program, the
+//! operations between two barriers form one layer (a partial `barrier q...;` separates
+//! layers just the same; empty layers are dropped); with no barrier at all, operations are
+//! layered as soon as possible. All measurements come after the last gate; the measured
+//! list is ordered by bit (registers in declaration order, then index), and every
+//! declared bit must be measured exactly once. Explicit `id` operations are kept: they
+//! are idles, which the analysis treats exactly like implicit ones, so an export-import
+//! round trip gives the same circuit up to `id` operations on measured qubits.
 
+use std::collections::{BTreeMap, HashMap};
 use std::fmt::Write;
+use std::path::Path;
 
-use super::Circuit;
+use super::{Circuit, Layer, Op};
+use crate::error::{Error, Result};
 use crate::gate::Gate;
-use crate::layout::Layout;
+use crate::layout::{Layout, QubitIx};
 
 /// Writes one circuit as an OpenQASM 3 program on physical qubits.
 pub fn export(c: &Circuit, layout: &Layout) -> String {
@@ -46,4 +78,1075 @@ pub fn export(c: &Circuit, layout: &Layout) -> String {
         let _ = writeln!(s, "c[{i}] = measure ${q};");
     }
     s
+}
+
+/// Where declared qubit-register elements sit on the layout: `q[0]=q3, q[1]=q4`.
+///
+/// Syntax: entries `NAME[INDEX]=QUBIT_ID` (or `NAME=QUBIT_ID` for a one-qubit register
+/// `qubit NAME;`), separated by commas or newlines; `#` starts a comment that runs to the
+/// end of the line. Invariant: each register element appears once and no two elements
+/// share a layout qubit id.
+#[derive(Clone, Debug, Default, PartialEq, Eq)]
+pub struct QubitMap {
+    entries: BTreeMap<(String, usize), String>,
+}
+
+impl QubitMap {
+    /// Parses map text; an error carries the 1-based line and what was wrong.
+    pub fn parse(text: &str) -> std::result::Result<QubitMap, (usize, String)> {
+        let mut entries = BTreeMap::new();
+        let mut targets: HashMap<String, String> = HashMap::new();
+        for (ln, raw) in text.lines().enumerate() {
+            let line = ln + 1;
+            let body = raw.split('#').next().unwrap_or("");
+            for item in body.split(',').map(str::trim).filter(|s| !s.is_empty()) {
+                let bad = || {
+                    (
+                        line,
+                        format!(
+                            "qubit map entry '{item}' is not NAME[INDEX]=QUBIT or NAME=QUBIT \
+                             (for example q[0]=q3)"
+                        ),
+                    )
+                };
+                let (lhs, rhs) = item.split_once('=').ok_or_else(bad)?;
+                let (lhs, rhs) = (lhs.trim(), rhs.trim());
+                let (name, index) = match lhs.split_once('[') {
+                    Some((n, rest)) => {
+                        let idx = rest.strip_suffix(']').ok_or_else(bad)?.trim();
+                        (n.trim(), idx.parse::<usize>().map_err(|_| bad())?)
+                    }
+                    None => (lhs, 0),
+                };
+                let ident_ok = |s: &str| {
+                    s.chars().next().is_some_and(|c| c.is_alphabetic() || c == '_')
+                        && s.chars().all(|c| c.is_alphanumeric() || c == '_')
+                };
+                if !ident_ok(name) || rhs.is_empty() || rhs.contains(char::is_whitespace) {
+                    return Err(bad());
+                }
+                let key = (name.to_string(), index);
+                let shown = format!("{name}[{index}]");
+                if let Some(prev) = targets.insert(rhs.to_string(), shown.clone()) {
+                    return Err((
+                        line,
+                        format!("qubit map sends both {prev} and {shown} to qubit '{rhs}'"),
+                    ));
+                }
+                if entries.insert(key, rhs.to_string()).is_some() {
+                    return Err((line, format!("qubit map gives {shown} twice")));
+                }
+            }
+        }
+        Ok(QubitMap { entries })
+    }
+
+    /// Reads a map from a command-line value: inline entries when it contains `=`,
+    /// otherwise the path of a map file.
+    pub fn from_arg(arg: &str) -> Result<QubitMap> {
+        if arg.contains('=') {
+            return QubitMap::parse(arg)
+                .map_err(|(_, m)| Error::Usage(format!("--qubit-map: {m}")));
+        }
+        let path = Path::new(arg);
+        let text = std::fs::read_to_string(path).map_err(|e| Error::io(path, e))?;
+        QubitMap::parse(&text).map_err(|(line, m)| Error::input(path, Some(line), m))
+    }
+
+    /// The layout qubit id of register element `name[index]`.
+    pub fn get(&self, name: &str, index: usize) -> Option<&str> {
+        self.entries.get(&(name.to_string(), index)).map(String::as_str)
+    }
+
+    /// Number of entries.
+    pub fn len(&self) -> usize {
+        self.entries.len()
+    }
+
+    /// True when the map has no entries.
+    pub fn is_empty(&self) -> bool {
+        self.entries.is_empty()
+    }
+}
+
+#[derive(Clone, Debug, PartialEq)]
+enum Tok {
+    Ident(String),
+    Num(String),
+    Hw(String),
+    Str(String),
+    Punct(&'static str),
+}
+
+#[derive(Clone, Debug)]
+struct Token {
+    tok: Tok,
+    line: usize,
+}
+
+const PUNCTS: [&str; 24] = [
+    "->", "==", "+=", "-=", "*=", "/=", ";", ",", "(", ")", "[", "]", "{", "}", "=", "+", "-", "*",
+    "/", "@", ":", "<", ">", "!",
+];
+
+fn tokenize(text: &str) -> std::result::Result<Vec<Token>, (usize, String)> {
+    let chars: Vec<char> = text.chars().collect();
+    let mut out = Vec::new();
+    let mut i = 0;
+    let mut line = 1;
+    while i < chars.len() {
+        let c = chars[i];
+        let next = chars.get(i + 1).copied();
+        if c == '\n' {
+            line += 1;
+            i += 1;
+        } else if c.is_whitespace() {
+            i += 1;
+        } else if c == '/' && next == Some('/') {
+            while i < chars.len() && chars[i] != '\n' {
+                i += 1;
+            }
+        } else if c == '/' && next == Some('*') {
+            let start = line;
+            i += 2;
+            loop {
+                match chars.get(i) {
+                    None => return Err((start, "comment '/*' is never closed by '*/'".into())),
+                    Some('*') if chars.get(i + 1) == Some(&'/') => {
+                        i += 2;
+                        break;
+                    }
+                    Some('\n') => line += 1,
+                    Some(_) => {}
+                }
+                i += 1;
+            }
+        } else if c.is_ascii_digit() || (c == '.' && next.is_some_and(|d| d.is_ascii_digit())) {
+            let start = i;
+            while i < chars.len() && chars[i].is_ascii_digit() {
+                i += 1;
+            }
+            if chars.get(i) == Some(&'.') {
+                i += 1;
+                while i < chars.len() && chars[i].is_ascii_digit() {
+                    i += 1;
+                }
+            }
+            if matches!(chars.get(i), Some('e' | 'E')) {
+                let mut j = i + 1;
+                if matches!(chars.get(j), Some('+' | '-')) {
+                    j += 1;
+                }
+                if chars.get(j).is_some_and(|d| d.is_ascii_digit()) {
+                    i = j;
+                    while i < chars.len() && chars[i].is_ascii_digit() {
+                        i += 1;
+                    }
+                }
+            }
+            out.push(Token { tok: Tok::Num(chars[start..i].iter().collect()), line });
+        } else if c.is_alphabetic() || c == '_' {
+            let start = i;
+            while i < chars.len() && (chars[i].is_alphanumeric() || chars[i] == '_') {
+                i += 1;
+            }
+            out.push(Token { tok: Tok::Ident(chars[start..i].iter().collect()), line });
+        } else if c == '$' {
+            let start = i + 1;
+            i += 1;
+            while i < chars.len() && chars[i].is_ascii_digit() {
+                i += 1;
+            }
+            if i == start {
+                return Err((
+                    line,
+                    "'$' must be followed by a physical qubit number, e.g. $3".into(),
+                ));
+            }
+            out.push(Token { tok: Tok::Hw(chars[start..i].iter().collect()), line });
+        } else if c == '"' || c == '\'' {
+            let start = i + 1;
+            i += 1;
+            while i < chars.len() && chars[i] != c && chars[i] != '\n' {
+                i += 1;
+            }
+            if chars.get(i) != Some(&c) {
+                return Err((line, "string is not closed on its line".into()));
+            }
+            out.push(Token { tok: Tok::Str(chars[start..i].iter().collect()), line });
+            i += 1;
+        } else {
+            let two: String = chars[i..chars.len().min(i + 2)].iter().collect();
+            let p = PUNCTS
+                .iter()
+                .find(|p| two.starts_with(**p))
+                .ok_or_else(|| (line, format!("unexpected character '{c}'")))?;
+            i += p.chars().count();
+            out.push(Token { tok: Tok::Punct(p), line });
+        }
+    }
+    Ok(out)
+}
+
+fn describe(t: Option<&Token>) -> String {
+    match t.map(|t| &t.tok) {
+        None => "end of file".into(),
+        Some(Tok::Ident(s)) => format!("'{s}'"),
+        Some(Tok::Num(s)) => format!("number {s}"),
+        Some(Tok::Hw(s)) => format!("'${s}'"),
+        Some(Tok::Str(s)) => format!("string \"{s}\""),
+        Some(Tok::Punct(p)) => format!("'{p}'"),
+    }
+}
+
+/// Constructs of OpenQASM 3 outside the subset, with the name used in the error message.
+fn unsupported(word: &str) -> Option<&'static str> {
+    Some(match word {
+        "gate" | "def" | "opaque" => "gate and subroutine definitions",
+        "if" | "else" | "switch" | "case" => "classical control flow",
+        "for" | "while" | "break" | "continue" => "loops",
+        "reset" => "reset operations",
+        "gphase" => "global phase statements",
+        "ctrl" | "negctrl" | "inv" | "pow" => "gate modifiers such as 'ctrl @'",
+        "int" | "uint" | "float" | "angle" | "bool" | "complex" | "duration" | "stretch"
+        | "const" | "input" | "output" | "let" | "array" => {
+            "classical declarations other than 'bit'"
+        }
+        "qreg" | "creg" => "OpenQASM 2 register declarations (use 'qubit[n] q;' and 'bit[n] c;')",
+        "delay" | "box" | "defcal" | "cal" | "defcalgrammar" | "extern" | "return" | "end" => {
+            "timing, calibration and subroutine constructs"
+        }
+        "U" | "CX" => "built-in gates 'U' and 'CX' (use the stdgates.inc names)",
+        "pragma" => "pragmas",
+        _ => return None,
+    })
+}
+
+/// Deepest parenthesis nesting accepted in an angle, so hostile input cannot overflow
+/// the stack.
+const MAX_DEPTH: usize = 64;
+
+struct Parser<'a> {
+    toks: Vec<Token>,
+    pos: usize,
+    path: &'a Path,
+    id: &'a str,
+    layout: &'a Layout,
+    map: Option<&'a QubitMap>,
+    qregs: HashMap<String, usize>,
+    bregs: HashMap<String, (usize, usize)>,
+    breg_order: Vec<(String, usize)>,
+    items: Vec<Item>,
+    saw_barrier: bool,
+    measures: Vec<((usize, usize), QubitIx, usize)>,
+    n_statements: usize,
+}
+
+enum Item {
+    Op(Op, usize),
+    Barrier,
+}
+
+impl<'a> Parser<'a> {
+    fn line(&self) -> usize {
+        self.toks.get(self.pos).or(self.toks.last()).map_or(1, |t| t.line)
+    }
+
+    fn err(&self, line: usize, msg: impl Into<String>) -> Error {
+        Error::input(self.path, Some(line), format!("circuit {}: {}", self.id, msg.into()))
+    }
+
+    fn peek(&self) -> Option<&Tok> {
+        self.toks.get(self.pos).map(|t| &t.tok)
+    }
+
+    fn bump(&mut self) -> Option<Token> {
+        let t = self.toks.get(self.pos).cloned();
+        self.pos += 1;
+        t
+    }
+
+    fn is_punct(&self, p: &str) -> bool {
+        matches!(self.peek(), Some(Tok::Punct(q)) if *q == p)
+    }
+
+    fn expect_punct(&mut self, p: &str, after: &str) -> Result<()> {
+        if self.is_punct(p) {
+            self.pos += 1;
+            Ok(())
+        } else {
+            Err(self.err(
+                self.line(),
+                format!("expected '{p}' {after}, found {}", describe(self.toks.get(self.pos))),
+            ))
+        }
+    }
+
+    fn ident(&mut self, what: &str) -> Result<String> {
+        match self.peek() {
+            Some(Tok::Ident(s)) => {
+                let s = s.clone();
+                self.pos += 1;
+                Ok(s)
+            }
+            _ => Err(self.err(
+                self.line(),
+                format!("expected {what}, found {}", describe(self.toks.get(self.pos))),
+            )),
+        }
+    }
+
+    fn int(&mut self, what: &str) -> Result<usize> {
+        let line = self.line();
+        match self.peek() {
+            Some(Tok::Num(s)) if s.chars().all(|c| c.is_ascii_digit()) => {
+                let v = s
+                    .parse::<usize>()
+                    .map_err(|_| self.err(line, format!("{what} {s} is too large")));
+                self.pos += 1;
+                v
+            }
+            _ => Err(self.err(
+                line,
+                format!(
+                    "expected {what} (a whole number), found {}",
+                    describe(self.toks.get(self.pos))
+                ),
+            )),
+        }
+    }
+
+    fn optional_size(&mut self) -> Result<Option<usize>> {
+        if !self.is_punct("[") {
+            return Ok(None);
+        }
+        self.pos += 1;
+        let n = self.int("register size")?;
+        self.expect_punct("]", "after the register size")?;
+        Ok(Some(n))
+    }
+
+    fn declared(&self, name: &str) -> bool {
+        self.qregs.contains_key(name) || self.bregs.contains_key(name)
+    }
+
+    fn run(&mut self) -> Result<()> {
+        while self.pos < self.toks.len() {
+            self.statement()?;
+            self.n_statements += 1;
+        }
+        Ok(())
+    }
+
+    fn statement(&mut self) -> Result<()> {
+        let line = self.line();
+        let word = match self.peek() {
+            Some(Tok::Ident(s)) => s.clone(),
+            Some(Tok::Punct("@")) => {
+                return Err(self.err(line, "annotations ('@...') are not supported"))
+            }
+            _ => {
+                return Err(self.err(
+                    line,
+                    format!("expected a statement, found {}", describe(self.toks.get(self.pos))),
+                ))
+            }
+        };
+        match word.as_str() {
+            "OPENQASM" => {
+                self.pos += 1;
+                if self.n_statements > 0 {
+                    return Err(self.err(line, "'OPENQASM' must be the first statement"));
+                }
+                match self.bump().map(|t| t.tok) {
+                    Some(Tok::Num(v)) if v == "3" || v.starts_with("3.") => {}
+                    other => {
+                        let shown = other
+                            .map_or("nothing".into(), |t| describe(Some(&Token { tok: t, line })));
+                        return Err(self.err(
+                            line,
+                            format!("OpenQASM version {shown} is not supported (valid: 3 or 3.0)"),
+                        ));
+                    }
+                }
+                self.expect_punct(";", "after the OpenQASM version")
+            }
+            "include" => {
+                self.pos += 1;
+                match self.bump().map(|t| t.tok) {
+                    Some(Tok::Str(s)) if s == "stdgates.inc" => {}
+                    Some(Tok::Str(s)) => {
+                        return Err(self.err(
+                            line,
+                            format!("include \"{s}\" is not supported (only \"stdgates.inc\")"),
+                        ))
+                    }
+                    _ => return Err(self.err(line, "include needs a file name in quotes")),
+                }
+                self.expect_punct(";", "after the include")
+            }
+            "qubit" | "bit" => {
+                self.pos += 1;
+                let size = self.optional_size()?;
+                let name = self.ident("a register name")?;
+                if self.declared(&name) {
+                    return Err(self.err(line, format!("register '{name}' is declared twice")));
+                }
+                if self.is_punct("=") {
+                    return Err(self.err(line, "initialised declarations are not supported"));
+                }
+                self.expect_punct(";", "after the declaration")?;
+                let size = size.unwrap_or(1);
+                if word == "qubit" {
+                    self.qregs.insert(name, size);
+                } else {
+                    self.bregs.insert(name.clone(), (self.breg_order.len(), size));
+                    self.breg_order.push((name, size));
+                }
+                Ok(())
+            }
+            "barrier" => {
+                self.pos += 1;
+                if !self.is_punct(";") {
+                    self.barrier_operand()?;
+                    while self.is_punct(",") {
+                        self.pos += 1;
+                        self.barrier_operand()?;
+                    }
+                }
+                self.expect_punct(";", "after the barrier")?;
+                self.saw_barrier = true;
+                self.items.push(Item::Barrier);
+                Ok(())
+            }
+            "measure" => {
+                self.pos += 1;
+                let q = self.operand()?;
+                if !self.is_punct("->") {
+                    return Err(self.err(
+                        line,
+                        "expected 'measure $k -> c[i];' (or write 'c[i] = measure $k;')",
+                    ));
+                }
+                self.pos += 1;
+                let bit = self.bitref()?;
+                self.expect_punct(";", "after the measurement")?;
+                self.measures.push((bit, q, line));
+                Ok(())
+            }
+            w if self.bregs.contains_key(w) => {
+                let bit = self.bitref()?;
+                if !self.is_punct("=") {
+                    return Err(self.err(line, format!("expected '=' after bit '{w}'")));
+                }
+                self.pos += 1;
+                if self.peek() != Some(&Tok::Ident("measure".into())) {
+                    return Err(self.err(
+                        line,
+                        "only measurements may be assigned to bits ('c[i] = measure $k;')",
+                    ));
+                }
+                self.pos += 1;
+                let q = self.operand()?;
+                self.expect_punct(";", "after the measurement")?;
+                self.measures.push((bit, q, line));
+                Ok(())
+            }
+            w => self.gate_call(w, line),
+        }
+    }
+
+    fn gate_call(&mut self, word: &str, line: usize) -> Result<()> {
+        let gate = match Gate::from_name(word) {
+            Some(g) => g,
+            None => {
+                let msg = match unsupported(word) {
+                    Some(what) => format!("'{word}': {what} are not supported by this importer"),
+                    None => format!(
+                        "unknown gate or statement '{word}' (supported gates: {})",
+                        Gate::known_names()
+                    ),
+                };
+                return Err(self.err(line, msg));
+            }
+        };
+        self.pos += 1;
+        if self.is_punct("@") {
+            return Err(self.err(line, "gate modifiers ('@') are not supported"));
+        }
+        let mut angle = None;
+        if self.is_punct("(") {
+            self.pos += 1;
+            let v = self.expr(0)?;
+            if self.is_punct(",") {
+                return Err(self.err(line, format!("gate {gate} takes at most one angle")));
+            }
+            self.expect_punct(")", "after the angle")?;
+            if !v.is_finite() {
+                return Err(self.err(line, format!("angle of {gate} is not a finite number")));
+            }
+            angle = Some(v);
+        }
+        match (gate.n_params(), angle) {
+            (1, None) => {
+                return Err(self.err(line, format!("gate {gate} needs an angle, e.g. {gate}(pi/2)")))
+            }
+            (0, Some(_)) => return Err(self.err(line, format!("gate {gate} takes no angle"))),
+            _ => {}
+        }
+        let mut qs = vec![self.operand()?];
+        while self.is_punct(",") {
+            self.pos += 1;
+            qs.push(self.operand()?);
+        }
+        self.expect_punct(";", &format!("after the operands of {gate}"))?;
+        if qs.len() != gate.arity() {
+            return Err(self.err(
+                line,
+                format!("gate {gate} takes {} qubit(s), got {}", gate.arity(), qs.len()),
+            ));
+        }
+        if !self.measures.is_empty() {
+            return Err(self.err(
+                line,
+                "gates after a measurement are not supported: measure at the end of the program",
+            ));
+        }
+        let op = match gate.arity() {
+            2 => Op::two(gate, qs[0], qs[1]),
+            _ => Op::rot(gate, qs[0], angle.unwrap_or(0.0)),
+        };
+        self.items.push(Item::Op(op, line));
+        Ok(())
+    }
+
+    fn index_of(&mut self, name: &str, size: usize, kind: &str) -> Result<usize> {
+        let line = self.line();
+        if !self.is_punct("[") {
+            if size == 1 {
+                return Ok(0);
+            }
+            return Err(self.err(
+                line,
+                format!("'{name}' is a {kind} register of {size}: index it ({name}[i]); broadcasting is not supported"),
+            ));
+        }
+        self.pos += 1;
+        let i = self.int("an index")?;
+        self.expect_punct("]", "after the index")?;
+        if i >= size {
+            return Err(self.err(
+                line,
+                format!("index {name}[{i}] is out of range: '{name}' has {size} {kind}(s)"),
+            ));
+        }
+        Ok(i)
+    }
+
+    fn operand(&mut self) -> Result<QubitIx> {
+        let line = self.line();
+        match self.bump().map(|t| t.tok) {
+            Some(Tok::Hw(k)) => {
+                let n = self.layout.n_qubits();
+                match k.parse::<usize>() {
+                    Ok(k) if k < n => Ok(k),
+                    _ => Err(self.err(
+                        line,
+                        format!(
+                            "physical qubit ${k} is not in layout '{}' (valid: $0 to ${})",
+                            self.layout.name,
+                            n - 1
+                        ),
+                    )),
+                }
+            }
+            Some(Tok::Ident(name)) => {
+                let size = match self.qregs.get(&name) {
+                    Some(&s) => s,
+                    None => {
+                        return Err(self.err(
+                            line,
+                            format!("'{name}' is not a declared qubit register (declare 'qubit[n] {name};' or use physical qubits $k)"),
+                        ))
+                    }
+                };
+                let i = self.index_of(&name, size, "qubit")?;
+                let map = self.map.ok_or_else(|| {
+                    self.err(
+                        line,
+                        format!("{name}[{i}] is a declared qubit but no qubit map was given (e.g. --qubit-map {name}[{i}]=q0)"),
+                    )
+                })?;
+                let target = map.get(&name, i).ok_or_else(|| {
+                    self.err(line, format!("the qubit map has no entry for {name}[{i}]"))
+                })?;
+                self.layout.qubit(target).ok_or_else(|| {
+                    self.err(
+                        line,
+                        format!(
+                            "the qubit map sends {name}[{i}] to '{target}', which is not in layout '{}'",
+                            self.layout.name
+                        ),
+                    )
+                })
+            }
+            other => {
+                let shown = other.map(|tok| Token { tok, line });
+                Err(self.err(
+                    line,
+                    format!("expected a qubit ($k or q[i]), found {}", describe(shown.as_ref())),
+                ))
+            }
+        }
+    }
+
+    /// A barrier may name a whole register; it separates layers whatever it names.
+    fn barrier_operand(&mut self) -> Result<()> {
+        if let Some(Tok::Ident(name)) = self.peek() {
+            if self.qregs.contains_key(name)
+                && !matches!(self.toks.get(self.pos + 1).map(|t| &t.tok), Some(Tok::Punct("[")))
+            {
+                self.pos += 1;
+                return Ok(());
+            }
+        }
+        self.operand().map(|_| ())
+    }
+
+    fn bitref(&mut self) -> Result<(usize, usize)> {
+        let line = self.line();
+        let name = self.ident("a bit")?;
+        let (reg, size) = *self.bregs.get(&name).ok_or_else(|| {
+            self.err(
+                line,
+                format!("'{name}' is not a declared bit register (declare 'bit[n] {name};')"),
+            )
+        })?;
+        let i = self.index_of(&name, size, "bit")?;
+        Ok((reg, i))
+    }
+
+    fn expr(&mut self, depth: usize) -> Result<f64> {
+        let mut v = self.term(depth)?;
+        loop {
+            if self.is_punct("+") {
+                self.pos += 1;
+                v += self.term(depth)?;
+            } else if self.is_punct("-") {
+                self.pos += 1;
+                v -= self.term(depth)?;
+            } else {
+                return Ok(v);
+            }
+        }
+    }
+
+    fn term(&mut self, depth: usize) -> Result<f64> {
+        let mut v = self.unary(depth)?;
+        loop {
+            if self.is_punct("*") {
+                self.pos += 1;
+                v *= self.unary(depth)?;
+            } else if self.is_punct("/") {
+                self.pos += 1;
+                v /= self.unary(depth)?;
+            } else {
+                return Ok(v);
+            }
+        }
+    }
+
+    fn unary(&mut self, depth: usize) -> Result<f64> {
+        if depth > MAX_DEPTH {
+            return Err(self.err(self.line(), "angle expression is nested too deeply"));
+        }
+        if self.is_punct("-") {
+            self.pos += 1;
+            return Ok(-self.unary(depth + 1)?);
+        }
+        if self.is_punct("+") {
+            self.pos += 1;
+            return self.unary(depth + 1);
+        }
+        let line = self.line();
+        match self.bump().map(|t| t.tok) {
+            Some(Tok::Num(s)) => s
+                .parse::<f64>()
+                .map_err(|_| self.err(line, format!("'{s}' is not a number"))),
+            Some(Tok::Ident(s)) => match s.as_str() {
+                "pi" | "π" => Ok(std::f64::consts::PI),
+                "tau" | "τ" => Ok(std::f64::consts::TAU),
+                _ => Err(self.err(
+                    line,
+                    format!("'{s}' is not allowed in an angle (numbers, pi, π, tau, + - * / and parentheses)"),
+                )),
+            },
+            Some(Tok::Punct("(")) => {
+                let v = self.expr(depth + 1)?;
+                self.expect_punct(")", "to close the parenthesis")?;
+                Ok(v)
+            }
+            other => {
+                let shown = other.map(|tok| Token { tok, line });
+                Err(self.err(line, format!("expected an angle, found {}", describe(shown.as_ref()))))
+            }
+        }
+    }
+
+    fn finish(self) -> Result<Circuit> {
+        let layers = if self.saw_barrier { self.barrier_layers()? } else { self.asap_layers() };
+        let mut measures = self.measures.clone();
+        measures.sort_by_key(|&(bit, _, line)| (bit, line));
+        for w in measures.windows(2) {
+            if w[0].0 == w[1].0 {
+                let (reg, i) = w[1].0;
+                return Err(self.err(
+                    w[1].2,
+                    format!("bit {}[{i}] is measured twice", self.breg_order[reg].0),
+                ));
+            }
+        }
+        let mut seen: HashMap<QubitIx, usize> = HashMap::new();
+        for &(_, q, line) in &self.measures {
+            if let Some(prev) = seen.insert(q, line) {
+                return Err(self.err(
+                    line,
+                    format!("qubit {} is measured twice (first on line {prev})", self.layout.id(q)),
+                ));
+            }
+        }
+        for (reg, (name, size)) in self.breg_order.iter().enumerate() {
+            for i in 0..*size {
+                if measures.binary_search_by_key(&(reg, i), |m| m.0).is_err() {
+                    return Err(self.err(
+                        self.line(),
+                        format!("bit {name}[{i}] is declared but never measured"),
+                    ));
+                }
+            }
+        }
+        Ok(Circuit {
+            id: self.id.to_string(),
+            layers,
+            measured: measures.iter().map(|m| m.1).collect(),
+        })
+    }
+
+    fn barrier_layers(&self) -> Result<Vec<Layer>> {
+        let mut layers = Vec::new();
+        let mut current: Vec<(Op, usize)> = Vec::new();
+        let mut close = |current: &mut Vec<(Op, usize)>| -> Result<()> {
+            let mut used: HashMap<QubitIx, usize> = HashMap::new();
+            for (op, line) in current.iter() {
+                for &q in op.qubits() {
+                    if let Some(prev) = used.insert(q, *line) {
+                        return Err(self.err(
+                            *line,
+                            format!(
+                                "qubit {} is acted on twice in one layer (lines {prev} and {line}); separate layers with 'barrier;'",
+                                self.layout.id(q)
+                            ),
+                        ));
+                    }
+                }
+            }
+            if !current.is_empty() {
+                layers.push(current.drain(..).map(|(op, _)| op).collect());
+            }
+            Ok(())
+        };
+        for item in &self.items {
+            match item {
+                Item::Op(op, line) => current.push((*op, *line)),
+                Item::Barrier => close(&mut current)?,
+            }
+        }
+        close(&mut current)?;
+        Ok(layers)
+    }
+
+    fn asap_layers(&self) -> Vec<Layer> {
+        let mut layers: Vec<Layer> = Vec::new();
+        let mut next: HashMap<QubitIx, usize> = HashMap::new();
+        for item in &self.items {
+            if let Item::Op(op, _) = item {
+                let t = op
+                    .qubits()
+                    .iter()
+                    .map(|q| next.get(q).copied().unwrap_or(0))
+                    .max()
+                    .unwrap_or(0);
+                if t == layers.len() {
+                    layers.push(Vec::new());
+                }
+                layers[t].push(*op);
+                for &q in op.qubits() {
+                    next.insert(q, t + 1);
+                }
+            }
+        }
+        layers
+    }
+}
+
+/// Imports one OpenQASM 3 program (the subset in the module doc) as circuit `id`.
+/// Physical qubit `$k` is `layout.qubits[k]`; declared registers need `map`. Errors name
+/// `path`, the line and the construct. Layout-level rules (couplers, native gates,
+/// blocks) are left to [`super::validate`].
+pub fn import(
+    text: &str,
+    path: &Path,
+    id: &str,
+    layout: &Layout,
+    map: Option<&QubitMap>,
+) -> Result<Circuit> {
+    let toks = tokenize(text)
+        .map_err(|(line, m)| Error::input(path, Some(line), format!("circuit {id}: {m}")))?;
+    let mut p = Parser {
+        toks,
+        pos: 0,
+        path,
+        id,
+        layout,
+        map,
+        qregs: HashMap::new(),
+        bregs: HashMap::new(),
+        breg_order: Vec::new(),
+        items: Vec::new(),
+        saw_barrier: false,
+        measures: Vec::new(),
+        n_statements: 0,
+    };
+    p.run()?;
+    p.finish()
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::layout::generate::grid;
+    use proptest::prelude::*;
+    use std::f64::consts::PI;
+
+    fn imp(text: &str) -> Result<Circuit> {
+        import(text, Path::new("t.qasm"), "t", &grid(2, 3), None)
+    }
+
+    fn angle_of(expr: &str) -> f64 {
+        let c = imp(&format!("rz({expr}) $0;\nbit c;\nc = measure $0;\n")).unwrap();
+        c.layers[0][0].angle
+    }
+
+    fn err_text(text: &str) -> String {
+        imp(text).unwrap_err().to_string()
+    }
+
+    #[test]
+    fn angle_expressions() {
+        let cases = [
+            ("pi/2", PI / 2.0),
+            ("-3*pi/4", -3.0 * PI / 4.0),
+            ("1.5e-3", 1.5e-3),
+            ("π", PI),
+            ("tau - pi", PI),
+            ("-(pi + 1) * 2", -(PI + 1.0) * 2.0),
+            ("2 * -pi", -2.0 * PI),
+            (".5", 0.5),
+            ("1 - 2 - 3", -4.0),
+            ("8 / 2 / 2", 2.0),
+            ("1E2", 100.0),
+        ];
+        for (e, want) in cases {
+            assert!((angle_of(e) - want).abs() < 1e-12, "{e}: {} vs {want}", angle_of(e));
+        }
+    }
+
+    #[test]
+    fn asap_layering_without_barriers() {
+        let c = imp("OPENQASM 3;\ninclude \"stdgates.inc\";\nbit[3] c;\nsx $0;\nsx $1;\ncz $0, $1;\nx $2;\nrz(pi) $2;\nc[0] = measure $0;\nc[1] = measure $1;\nc[2] = measure $2;\n").unwrap();
+        assert_eq!(c.layers.len(), 2);
+        assert_eq!(
+            c.layers[0],
+            vec![Op::one(Gate::Sx, 0), Op::one(Gate::Sx, 1), Op::one(Gate::X, 2)]
+        );
+        assert_eq!(c.layers[1][0], Op::two(Gate::Cz, 0, 1));
+        assert_eq!(c.layers[1][1].gate, Gate::Rz);
+        assert_eq!(c.measured, vec![0, 1, 2]);
+    }
+
+    #[test]
+    fn barrier_layering_and_partial_barrier() {
+        let c = imp("bit[2] c;\nsx $0;\nbarrier;\nbarrier;\nsx $1;\nx $0;\nbarrier $0, $1;\nsx $0;\nbarrier;\nc[0] = measure $0;\nc[1] = measure $1;\n").unwrap();
+        assert_eq!(c.layers.len(), 3, "empty segments are dropped");
+        assert_eq!(c.layers[0], vec![Op::one(Gate::Sx, 0)]);
+        assert_eq!(c.layers[1], vec![Op::one(Gate::Sx, 1), Op::one(Gate::X, 0)]);
+        assert_eq!(c.layers[2], vec![Op::one(Gate::Sx, 0)]);
+    }
+
+    #[test]
+    fn both_measurement_syntaxes_order_by_bit() {
+        let c = imp("bit[3] c;\nc[2] = measure $0;\nmeasure $4 -> c[0];\nc[1] = measure $5;\n")
+            .unwrap();
+        assert_eq!(c.measured, vec![4, 5, 0]);
+        let c =
+            imp("bit a;\nbit[2] b;\nmeasure $1 -> b[1];\nb[0] = measure $2;\na = measure $3;\n")
+                .unwrap();
+        assert_eq!(c.measured, vec![3, 2, 1], "registers in declaration order, then index");
+    }
+
+    #[test]
+    fn registers_with_qubit_map() {
+        let map = QubitMap::parse("q[0]=q3, q[1]=q4\n# spare\nr = q5\n").unwrap();
+        let c = import(
+            "qubit[2] q;\nqubit r;\nbit[3] c;\ncz q[0], q[1];\nsx r;\nc[0] = measure q[0];\nc[1] = measure q[1];\nc[2] = measure r;\n",
+            Path::new("m.qasm"),
+            "m",
+            &grid(2, 3),
+            Some(&map),
+        )
+        .unwrap();
+        assert_eq!(c.layers[0], vec![Op::two(Gate::Cz, 3, 4), Op::one(Gate::Sx, 5)]);
+        assert_eq!(c.measured, vec![3, 4, 5]);
+        let e = imp("qubit[2] q;\nbit c;\nsx q[0];\nc = measure q[0];\n").unwrap_err().to_string();
+        assert!(e.contains("line 3") && e.contains("no qubit map"), "{e}");
+        assert!(QubitMap::parse("q[0]=q1\nq[1]=q1").unwrap_err().0 == 2);
+        assert!(QubitMap::parse("q[x]=q1").is_err());
+        assert!(QubitMap::parse("q[0]q1").is_err());
+    }
+
+    #[test]
+    fn errors_name_line_and_construct() {
+        let cases = [
+            ("bit c;\nsx $0;\ngate foo a { x a; }\n", "line 3", "definitions"),
+            ("bit c;\n\nif (c == 1) x $0;\n", "line 3", "control flow"),
+            ("bit c;\nfor i in [0:2] { x $0; }\n", "line 2", "loops"),
+            ("bit c;\nreset $0;\n", "line 2", "'reset': reset operations"),
+            ("int i;\n", "line 1", "classical declarations"),
+            ("gphase(pi);\n", "line 1", "gphase"),
+            ("bit c;\nctrl @ x $0, $1;\n", "line 2", "modifiers"),
+            ("bit c;\nu3(1,2,3) $0;\n", "line 2", "unknown gate"),
+            ("/* a\ncomment */ bit c;\nrz $0;\n", "line 3", "needs an angle"),
+            ("bit c;\nx(0.1) $0;\n", "line 2", "takes no angle"),
+            ("bit c;\ncz $0;\n", "line 2", "takes 2 qubit"),
+            ("bit c;\nx $9;\n", "line 2", "$9"),
+            ("bit c;\nrz(pi/0) $0;\n", "line 2", "finite"),
+            ("bit c;\nrz(foo) $0;\n", "line 2", "'foo'"),
+            ("bit c;\nx $0\nx $1;\n", "line 3", "expected ';'"),
+            ("OPENQASM 2.0;\n", "line 1", "version"),
+            ("include \"qelib1.inc\";\n", "line 1", "qelib1.inc"),
+            ("bit[2] c;\nc[0] = measure $0;\n", "line 2", "c[1] is declared but never measured"),
+            ("bit[2] c;\nc[0] = measure $0;\nc[0] = measure $1;\n", "line 3", "measured twice"),
+            ("bit[2] c;\nc[0] = measure $0;\nc[1] = measure $0;\n", "line 3", "measured twice"),
+            ("bit c;\nc = measure $0;\nx $0;\n", "line 3", "after a measurement"),
+            ("bit c;\nx $0;\nsx $0;\nbarrier;\n", "line 3", "twice in one layer"),
+            ("bit c;\nc[3] = measure $0;\n", "line 2", "out of range"),
+            ("bit c;\n/* never closed\n", "line 2", "never closed"),
+            ("bit c; x $0; # no\n", "line 1", "unexpected character"),
+            ("qreg q[2];\n", "line 1", "OpenQASM 2"),
+        ];
+        for (text, line, frag) in cases {
+            let e = err_text(text);
+            assert!(
+                e.starts_with("t.qasm ") && e.contains(line) && e.contains(frag),
+                "{text:?} -> {e}"
+            );
+        }
+    }
+
+    fn strip_ids(c: &Circuit) -> Vec<Vec<Op>> {
+        c.layers
+            .iter()
+            .map(|l| l.iter().filter(|op| op.gate != Gate::Id).copied().collect())
+            .collect()
+    }
+
+    fn arb_circuit() -> impl Strategy<Value = Circuit> {
+        // Layers on a 2x3 grid: each qubit gets at most one gate per layer; cz on q0-q1.
+        let op = (0usize..8, -10.0f64..10.0);
+        let layer = proptest::collection::vec(op, 6).prop_map(|v| {
+            let mut layer = Vec::new();
+            let cz = v[0].0 == 7;
+            if cz {
+                layer.push(Op::two(Gate::Cz, 0, 1));
+            }
+            for (q, &(g, a)) in v.iter().enumerate() {
+                if cz && q < 2 {
+                    continue;
+                }
+                match g {
+                    0 => layer.push(Op::one(Gate::Sx, q)),
+                    1 => layer.push(Op::one(Gate::X, q)),
+                    2 => layer.push(Op::rot(Gate::Rz, q, a)),
+                    3 => layer.push(Op::rot(Gate::Rx, q, a * 1e-7)),
+                    4 => layer.push(Op::one(Gate::Id, q)),
+                    _ => {}
+                }
+            }
+            layer
+        });
+        (
+            proptest::collection::vec(layer, 1..6),
+            proptest::sample::subsequence(vec![0usize, 1, 2, 3, 4, 5], 1..6),
+            any::<bool>(),
+        )
+            .prop_map(|(layers, mut measured, rev)| {
+                if rev {
+                    measured.reverse();
+                }
+                let layers = layers.into_iter().filter(|l| !l.is_empty()).collect();
+                Circuit { id: "p".into(), layers, measured }
+            })
+    }
+
+    proptest! {
+        #![proptest_config(ProptestConfig::with_cases(128))]
+
+        #[test]
+        fn export_then_import_round_trips(c in arb_circuit()) {
+            let layout = grid(2, 3);
+            let back = import(&export(&c, &layout), Path::new("r.qasm"), "p", &layout, None).unwrap();
+            prop_assert_eq!(&back.measured, &c.measured);
+            let (a, b) = (strip_ids(&c), strip_ids(&back));
+            prop_assert_eq!(a.len(), b.len());
+            for (la, lb) in a.iter().zip(&b) {
+                prop_assert_eq!(la.len(), lb.len());
+                for (x, y) in la.iter().zip(lb) {
+                    prop_assert_eq!(x.gate, y.gate);
+                    prop_assert_eq!(x.qubits(), y.qubits());
+                    prop_assert!((x.angle - y.angle).abs() < 1e-12);
+                }
+            }
+            for t in 0..c.layers.len() {
+                prop_assert_eq!(c.is_timed(&layout, t), back.is_timed(&layout, t));
+            }
+        }
+
+        #[test]
+        fn arbitrary_bytes_never_panic(bytes in proptest::collection::vec(any::<u8>(), 0..300)) {
+            let text = String::from_utf8_lossy(&bytes);
+            let _ = imp(&text);
+        }
+
+        #[test]
+        fn near_valid_mutations_never_panic(
+            c in arb_circuit(),
+            cuts in proptest::collection::vec((any::<prop::sample::Index>(), 0usize..12), 1..4),
+        ) {
+            let layout = grid(2, 3);
+            let mut text: Vec<char> = export(&c, &layout).chars().collect();
+            let pieces = ['(', ')', ';', '$', '9', '[', ']', '-', '>', '/', '*', 'π'];
+            for (at, what) in cuts {
+                let i = at.index(text.len().max(1)).min(text.len());
+                if what % 2 == 0 && i < text.len() {
+                    text.remove(i);
+                } else {
+                    text.insert(i, pieces[what]);
+                }
+            }
+            let s: String = text.into_iter().collect();
+            let _ = import(&s, Path::new("m.qasm"), "m", &layout, None);
+            let deep = format!("rz({}1{}) $0;", "(".repeat(500), ")".repeat(500));
+            prop_assert!(imp(&deep).is_err());
+        }
+    }
 }

@@ -1,1 +1,190 @@
-//! Validation of a circuit set against a layout.
+//! Validation of circuits against a layout, and the one entry point that reads circuit
+//! files of any supported kind.
+//!
+//! Every later stage (rows, model, slack) relies on what is checked here: operations in a
+//! layer are disjoint, two-qubit gates sit on couplers, blocks have one or two qubits and
+//! never reach an unmeasured qubit, and each circuit measures each qubit at most once.
+
+use std::collections::HashSet;
+use std::path::{Path, PathBuf};
+
+use super::qasm::{self, QubitMap};
+use super::{Circuit, CircuitSet};
+use crate::error::{Error, Result};
+use crate::gate::Gate;
+use crate::layout::Layout;
+
+/// How circuit files are read.
+#[derive(Clone, Debug, Default)]
+pub struct ReadOptions {
+    /// Accept gates that are not among the layout's native gates.
+    pub allow_non_native: bool,
+    /// Where declared OpenQASM qubit registers sit on the layout.
+    pub qubit_map: Option<QubitMap>,
+}
+
+/// Checks one circuit against the layout; the error names the circuit and, where there is
+/// one, the layer (0-based) and the qubits.
+pub fn validate_circuit(c: &Circuit, layout: &Layout, allow_non_native: bool) -> Result<()> {
+    let fail = |m: String| Err(Error::circuit(&c.id, m));
+    let n = layout.n_qubits();
+    let name = |q: usize| layout.qubits.get(q).map_or_else(|| format!("#{q}"), |x| x.id.clone());
+    if c.measured.is_empty() {
+        return fail("measures no qubits: a circuit must end by measuring at least one".into());
+    }
+    let mut measured = vec![false; n];
+    for &q in &c.measured {
+        if q >= n {
+            return fail(format!(
+                "measures qubit {} which is not in layout '{}'",
+                name(q),
+                layout.name
+            ));
+        }
+        if measured[q] {
+            return fail(format!("measures qubit {} twice", name(q)));
+        }
+        measured[q] = true;
+    }
+    for (t, layer) in c.layers.iter().enumerate() {
+        let mut used = HashSet::new();
+        for op in layer {
+            let qs = op.qubits();
+            if let Some(&q) = qs.iter().find(|&&q| q >= n) {
+                return fail(format!(
+                    "layer {t}: qubit {} is not in layout '{}'",
+                    name(q),
+                    layout.name
+                ));
+            }
+            if !op.angle.is_finite() {
+                return fail(format!(
+                    "layer {t}: {} on {} has a non-finite angle",
+                    op.gate,
+                    name(qs[0])
+                ));
+            }
+            for &q in qs {
+                if !used.insert(q) {
+                    return fail(format!(
+                        "layer {t}: two operations act on qubit {} (operations in a layer must act on disjoint qubits)",
+                        name(q)
+                    ));
+                }
+            }
+            if !allow_non_native && !layout.is_native(op.gate) {
+                let natives: Vec<&str> = std::iter::once(Gate::Id)
+                    .chain(layout.gates.one_qubit.iter().copied())
+                    .chain(std::iter::once(layout.gates.two_qubit))
+                    .map(Gate::name)
+                    .collect();
+                return fail(format!(
+                    "layer {t}: gate {} on {} is not native on layout '{}' (native: {}; pass --allow-non-native to accept it)",
+                    op.gate,
+                    qs.iter().map(|&q| name(q)).collect::<Vec<_>>().join("-"),
+                    layout.name,
+                    natives.join(", ")
+                ));
+            }
+            if let [a, b] = *qs {
+                if layout.coupler(a, b).is_none() {
+                    return fail(format!(
+                        "layer {t}: {} on {}-{} but that pair is not a coupler of layout '{}'",
+                        op.gate,
+                        name(a),
+                        name(b),
+                        layout.name
+                    ));
+                }
+                if measured[a] != measured[b] {
+                    let (m, u) = if measured[a] { (a, b) } else { (b, a) };
+                    return fail(format!(
+                        "layer {t}: {} joins measured qubit {} to unmeasured qubit {} (measure both or neither)",
+                        op.gate,
+                        name(m),
+                        name(u)
+                    ));
+                }
+            }
+        }
+    }
+    for block in c.blocks() {
+        if block.len() > 2 {
+            let ids: Vec<String> = block.iter().map(|&q| name(q)).collect();
+            return fail(format!(
+                "two-qubit gates join {} measured qubits into one block ({}); at most two are supported",
+                block.len(),
+                ids.join(", ")
+            ));
+        }
+    }
+    Ok(())
+}
+
+/// Checks every circuit of a set; the first problem, in circuit order, is returned.
+pub fn validate(set: &CircuitSet, layout: &Layout, allow_non_native: bool) -> Result<()> {
+    set.circuits.iter().try_for_each(|c| validate_circuit(c, layout, allow_non_native))
+}
+
+fn at_file(path: &Path, e: Error) -> Error {
+    match e {
+        Error::Circuit { circuit, message } => {
+            Error::input(path, None, format!("circuit {circuit}: {message}"))
+        }
+        other => other,
+    }
+}
+
+/// Reads circuits and validates them: a `.json` file in the tool's format, one `.qasm`
+/// file (one circuit, id = file stem), or a folder of `.qasm` files (one circuit per
+/// file, id = file stem, sorted by file name). Validation errors name the file.
+pub fn read_circuits(path: &Path, layout: &Layout, opts: &ReadOptions) -> Result<CircuitSet> {
+    let read_qasm = |p: &Path| -> Result<super::Circuit> {
+        let text = std::fs::read_to_string(p).map_err(|e| Error::io(p, e))?;
+        let id = p.file_stem().map(|s| s.to_string_lossy().into_owned()).unwrap_or_default();
+        let c = qasm::import(&text, p, &id, layout, opts.qubit_map.as_ref())?;
+        validate_circuit(&c, layout, opts.allow_non_native).map_err(|e| at_file(p, e))?;
+        Ok(c)
+    };
+    let ext = path.extension().and_then(|e| e.to_str()).map(str::to_ascii_lowercase);
+    if path.is_dir() {
+        let entries = std::fs::read_dir(path).map_err(|e| Error::io(path, e))?;
+        let mut files: Vec<PathBuf> = Vec::new();
+        for entry in entries {
+            let p = entry.map_err(|e| Error::io(path, e))?.path();
+            if p.extension()
+                .and_then(|e| e.to_str())
+                .is_some_and(|e| e.eq_ignore_ascii_case("qasm"))
+            {
+                files.push(p);
+            }
+        }
+        files.sort();
+        if files.is_empty() {
+            return Err(Error::input(path, None, "folder holds no .qasm files"));
+        }
+        let circuits = files.iter().map(|p| read_qasm(p)).collect::<Result<Vec<_>>>()?;
+        return CircuitSet::new(circuits).map_err(|m| Error::input(path, None, m));
+    }
+    match ext.as_deref() {
+        Some("json") => {
+            let set = super::json::read_json(path, layout)?;
+            validate(&set, layout, opts.allow_non_native).map_err(|e| at_file(path, e))?;
+            Ok(set)
+        }
+        Some("qasm") => {
+            let c = read_qasm(path)?;
+            CircuitSet::new(vec![c]).map_err(|m| Error::input(path, None, m))
+        }
+        _ => {
+            if !path.exists() {
+                return Err(Error::io(path, std::io::Error::from(std::io::ErrorKind::NotFound)));
+            }
+            Err(Error::input(
+                path,
+                None,
+                "circuit files must be .json (slackmap format), .qasm (OpenQASM 3) or a folder of .qasm files",
+            ))
+        }
+    }
+}

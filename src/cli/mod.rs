@@ -5,6 +5,8 @@ use std::process::ExitCode;
 
 use clap::{Parser, Subcommand};
 
+mod check;
+
 /// Exit-code documentation shown at the end of `--help`.
 const EXIT_CODES: &str = "Exit codes: 0 success, 1 the analysis failed, 2 bad input or usage.";
 
@@ -17,12 +19,17 @@ pub struct Cli {
 }
 
 #[derive(Subcommand, Debug)]
-enum Command {}
+enum Command {
+    /// Validate layout, circuits and counts together and show what the data covers.
+    Check(check::CheckArgs),
+}
 
 /// Runs the CLI and maps the outcome to an exit code.
 pub fn main() -> ExitCode {
     let cli = Cli::parse();
-    let result: anyhow::Result<()> = match cli.command {};
+    let result: anyhow::Result<()> = match cli.command {
+        Command::Check(args) => check::run(args),
+    };
     match result {
         Ok(()) => ExitCode::SUCCESS,
         Err(e) => report_error(&e),

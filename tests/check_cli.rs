@@ -1,0 +1,174 @@
+//! `slackmap check` from the outside: every bad circuit fixture is refused with exit code
+//! 2 and a message naming the file (and, for OpenQASM parse errors, the line); good inputs
+//! pass; good OpenQASM fixtures and exported programs parse with the reference parser
+//! when it is installed.
+
+use std::path::Path;
+use std::process::Command;
+
+use assert_cmd::cargo::CommandCargoExt;
+
+const LAYOUT: &str = "tests/fixtures/good/layout.toml";
+
+fn check(args: &[&str]) -> std::process::Output {
+    Command::cargo_bin("slackmap")
+        .expect("binary builds")
+        .args(["check", "--layout", LAYOUT])
+        .args(args)
+        .output()
+        .expect("binary runs")
+}
+
+#[test]
+fn bad_circuit_fixtures_are_refused_with_file_and_reason() {
+    let table = std::fs::read_to_string("tests/fixtures/bad/expect-circuits.tsv").unwrap();
+    let mut n = 0;
+    for line in table.lines().filter(|l| !l.starts_with('#') && !l.trim().is_empty()) {
+        let (file, fragment) = line.split_once('\t').expect("file<TAB>fragment");
+        let path = format!("tests/fixtures/bad/{file}");
+        assert!(Path::new(&path).exists(), "{path} is listed but missing");
+        let out = check(&["--circuits", &path]);
+        let stderr = String::from_utf8_lossy(&out.stderr);
+        assert_eq!(out.status.code(), Some(2), "{file}: {stderr}");
+        assert!(!stderr.contains("panicked"), "{file}: {stderr}");
+        assert!(stderr.contains(&path), "{file}: message does not name the file: {stderr}");
+        assert!(stderr.contains(fragment), "{file}: expected '{fragment}' in: {stderr}");
+        n += 1;
+    }
+    assert!(n >= 20, "only {n} bad circuit fixtures");
+    // Every fixture on disk is listed, so none is silently skipped.
+    for e in std::fs::read_dir("tests/fixtures/bad").unwrap() {
+        let name = e.unwrap().file_name().to_string_lossy().into_owned();
+        if name.starts_with("circuits-") {
+            assert!(table.lines().any(|l| l.split('\t').next() == Some(&name)), "{name} unlisted");
+        }
+    }
+}
+
+#[test]
+fn good_inputs_pass_and_summarise() {
+    for counts in ["tests/fixtures/good/counts.csv", "tests/fixtures/good/counts.json"] {
+        let out = check(&["--circuits", "tests/fixtures/good/circuits.json", "--counts", counts]);
+        let stdout = String::from_utf8_lossy(&out.stdout);
+        assert_eq!(out.status.code(), Some(0), "{}", String::from_utf8_lossy(&out.stderr));
+        // 4 circuits; 1000 shots each (fixture counts sum to 1000 per circuit).
+        assert!(stdout.contains("| 4 "), "{stdout}");
+        assert!(stdout.contains("1000 / 1000 / 1000"), "{stdout}");
+        assert!(stdout.contains("q1 <- q4"), "pair never a context is listed: {stdout}");
+    }
+    let out = check(&[
+        "--circuits",
+        "tests/fixtures/qasm",
+        "--qubit-map",
+        "q[0]=q1,q[1]=q4",
+        "--bit-order",
+        "reversed",
+    ]);
+    assert_eq!(out.status.code(), Some(0), "{}", String::from_utf8_lossy(&out.stderr));
+    assert!(String::from_utf8_lossy(&out.stdout).contains("| 3 "));
+}
+
+#[test]
+fn qubit_map_file_and_bad_map() {
+    let dir = tempfile::tempdir().unwrap();
+    let map = dir.path().join("map.txt");
+    std::fs::write(&map, "# placement\nq[0] = q1\nq[1] = q4\n").unwrap();
+    let out = check(&[
+        "--circuits",
+        "tests/fixtures/qasm/registers.qasm",
+        "--qubit-map",
+        map.to_str().unwrap(),
+    ]);
+    assert_eq!(out.status.code(), Some(0), "{}", String::from_utf8_lossy(&out.stderr));
+    std::fs::write(&map, "q[0] = q1\nq[1] q4\n").unwrap();
+    let out = check(&[
+        "--circuits",
+        "tests/fixtures/qasm/registers.qasm",
+        "--qubit-map",
+        map.to_str().unwrap(),
+    ]);
+    let stderr = String::from_utf8_lossy(&out.stderr);
+    assert_eq!(out.status.code(), Some(2));
+    assert!(stderr.contains("map.txt line 2"), "{stderr}");
+    let out = check(&[
+        "--circuits",
+        "tests/fixtures/qasm/registers.qasm",
+        "--qubit-map",
+        "q[0]=q1,q[1]=q5",
+    ]);
+    let stderr = String::from_utf8_lossy(&out.stderr);
+    assert_eq!(out.status.code(), Some(2));
+    assert!(stderr.contains("cz on q1-q5 but that pair is not a coupler"), "{stderr}");
+    let out = check(&[
+        "--circuits",
+        "tests/fixtures/qasm/registers.qasm",
+        "--qubit-map",
+        "q[0]=q1,q[1]q5",
+    ]);
+    let stderr = String::from_utf8_lossy(&out.stderr);
+    assert_eq!(out.status.code(), Some(2));
+    assert!(stderr.contains("--qubit-map: qubit map entry 'q[1]q5'"), "{stderr}");
+}
+
+/// Parses files with the reference OpenQASM 3 parser (PyPI `openqasm3[parser]`);
+/// `None` when it is not installed.
+fn reference_parse(files: &[&Path]) -> Option<Vec<(String, bool, String)>> {
+    let probe = Command::new("python3")
+        .args(["-c", "import openqasm3; openqasm3.parse('OPENQASM 3;')"])
+        .output();
+    if !probe.map(|o| o.status.success()).unwrap_or(false) {
+        return None;
+    }
+    Some(
+        files
+            .iter()
+            .map(|f| {
+                let out = Command::new("python3")
+                    .args([
+                        "-c",
+                        "import sys, openqasm3; openqasm3.parse(open(sys.argv[1]).read())",
+                    ])
+                    .arg(f)
+                    .output()
+                    .expect("python3 runs");
+                (
+                    f.display().to_string(),
+                    out.status.success(),
+                    String::from_utf8_lossy(&out.stderr).into_owned(),
+                )
+            })
+            .collect(),
+    )
+}
+
+#[test]
+fn good_qasm_and_exports_parse_with_the_reference_parser() {
+    use slackmap::circuit::{qasm, Circuit, Op};
+    use slackmap::gate::Gate;
+    let layout = slackmap::layout::generate::grid(2, 3);
+    let c = Circuit {
+        id: "x".into(),
+        layers: vec![
+            vec![Op::one(Gate::Sx, 0), Op::rot(Gate::Rz, 2, -0.25)],
+            vec![Op::two(Gate::Cz, 0, 1)],
+            vec![Op::rot(Gate::Rz, 1, 3.0)],
+        ],
+        measured: vec![1, 0, 2],
+    };
+    let dir = tempfile::tempdir().unwrap();
+    let exported = dir.path().join("export.qasm");
+    std::fs::write(&exported, qasm::export(&c, &layout)).unwrap();
+    let mut files: Vec<std::path::PathBuf> =
+        std::fs::read_dir("tests/fixtures/qasm").unwrap().map(|e| e.unwrap().path()).collect();
+    files.sort();
+    files.push(exported);
+    let refs: Vec<&Path> = files.iter().map(|p| p.as_path()).collect();
+    match reference_parse(&refs) {
+        None => println!("SKIPPED: python3 module openqasm3[parser] is not installed"),
+        Some(results) => {
+            for (f, ok, err) in results {
+                assert!(ok, "reference parser rejects {f}: {err}");
+            }
+        }
+    }
+}
