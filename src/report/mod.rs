@@ -95,6 +95,12 @@ pub struct Parameters {
     pub seed: u64,
     /// Bit order of the counts file as read: `as-measured` or `reversed`.
     pub bit_order: String,
+    /// Bootstrap replicates (0 = none).
+    pub replicates: usize,
+    /// Bootstrap resampling scheme: `shots` or `circuits`.
+    pub resample: String,
+    /// Two-sided interval level.
+    pub level: f64,
 }
 
 /// Sizes of the data.
@@ -211,10 +217,50 @@ pub struct EdgeReport {
     pub most_influential_circuit: Option<String>,
     /// Other aggressors that could carry this edge's slack (for `confounded`).
     pub confounded_with: Vec<String>,
+    /// Bootstrap confidence for the edge score; null when no replicates were run.
+    pub confidence: Option<Confidence>,
+    /// Bootstrap rank statistics; null when no replicates were run.
+    pub rank_confidence: Option<RankConfidence>,
     /// The verdict.
     pub verdict: Verdict,
     /// Why the verdict is what it is, in words.
     pub reason: String,
+}
+
+/// Bootstrap confidence of one score (method.md section 5).
+#[derive(Clone, Debug, Serialize, Deserialize, PartialEq)]
+pub struct Confidence {
+    /// Two-sided interval level, e.g. 0.95.
+    pub level: f64,
+    /// Interval method, e.g. `basic`.
+    pub method: String,
+    /// Lower end of the interval, TVD per layer (clipped at zero).
+    pub low_tvd_per_layer: f64,
+    /// Upper end of the interval, TVD per layer.
+    pub high_tvd_per_layer: f64,
+    /// One-sided upper bound at `level`, TVD per layer.
+    pub upper_bound_tvd_per_layer: f64,
+    /// Median of the replicate scores, TVD per layer.
+    pub median_tvd_per_layer: f64,
+    /// Fraction of replicates with a positive score.
+    pub p_positive: f64,
+    /// Every replicate score in replicate order, TVD per layer (for merging and comparing).
+    pub replicates_tvd_per_layer: Vec<f64>,
+}
+
+/// Bootstrap rank statistics of one edge.
+#[derive(Clone, Debug, Serialize, Deserialize, PartialEq)]
+pub struct RankConfidence {
+    /// Median rank over replicates (1 = worst).
+    pub median_rank: f64,
+    /// Lower end of the 95% rank interval.
+    pub rank_low: usize,
+    /// Upper end of the 95% rank interval.
+    pub rank_high: usize,
+    /// The k of `p_top_k`.
+    pub top_k: usize,
+    /// Fraction of replicates in which the edge ranks in the top k.
+    pub p_top_k: f64,
 }
 
 /// One directed pair: victim q, aggressor r.
@@ -248,6 +294,8 @@ pub struct DirectedReport {
     pub most_influential_circuit: Option<String>,
     /// Per-kind context slack kappa(k, r), TVD per occurrence, as `kind` to value.
     pub per_kind: Vec<KindValue>,
+    /// Bootstrap confidence for the directed score; null when no replicates were run.
+    pub confidence: Option<Confidence>,
 }
 
 /// A value attached to an operation kind.
@@ -275,6 +323,8 @@ pub struct IntrinsicReport {
     /// True when the kind had no reference rows and was fitted on all its rows (its context
     /// slack is then a lower bound).
     pub fitted_on_all_rows: bool,
+    /// The qubits the kind acts on (ids), for drawing and comparing.
+    pub qubits: Vec<String>,
 }
 
 /// Readout of one qubit.
