@@ -1,0 +1,256 @@
+//! Directed scores, attribution ranges, the context-permutation null, leave-one-out and
+//! verdicts (method.md sections 4-6).
+//!
+//! A directed score X(q <- r) is the context slack per layer that victim q's one-qubit
+//! operations need while r is active: sum_k c_(k,r) kappa_(k,r) / sum_k c_(k,r), with
+//! c_(k,r) the number of occurrences of k during which r was active. It is computed on the
+//! victim's own problem, so the null and leave-one-out re-solve only that problem.
+
+use std::collections::{BTreeSet, HashMap};
+
+use rayon::prelude::*;
+
+use super::problems::{Budget, Problem};
+use super::{check_cancel, Analysis, AuditConfig, Progress, Solved};
+use crate::error::Result;
+use crate::gate::Gate;
+use crate::layout::QubitIx;
+use crate::rows::KindIx;
+use crate::slack::lp::TwoStageSolution;
+
+/// Scores below this are zero: the LP's own precision, far below any reported digit.
+pub const ZERO_SCORE: f64 = 1e-9;
+
+/// Candidate circuits tried for leave-one-out, most loaded first.
+const LEAVE_ONE_OUT_CANDIDATES: usize = 8;
+
+/// The assessment of one directed pair.
+#[derive(Clone, Debug, Default)]
+pub(crate) struct Directed {
+    pub victim: QubitIx,
+    pub aggressor: QubitIx,
+    /// True when the data holds any occurrence of a victim operation with r active.
+    pub tested: bool,
+    pub score: f64,
+    pub driven: f64,
+    pub idle: f64,
+    pub attribution: (f64, f64),
+    pub null: Vec<f64>,
+    pub limit: f64,
+    pub p_value: f64,
+    pub supporting_rows: usize,
+    pub supporting_circuits: usize,
+    pub loo: f64,
+    pub most_influential: Option<u32>,
+    pub per_kind: Vec<(KindIx, f64)>,
+    /// Other aggressors that were active together with r on this victim.
+    pub co_active: Vec<QubitIx>,
+}
+
+/// The assessment of every directed pair, keyed by (victim, aggressor).
+pub(crate) struct Assessed {
+    pub directed: Vec<Directed>,
+    pub index: HashMap<(QubitIx, QubitIx), usize>,
+}
+
+/// Score weights of (victim q, aggressor r) on q's problem: (variable, weight), plus the
+/// driven-only and idle-only weights.
+type Weights = Vec<(usize, f64)>;
+
+fn weights(a: &Analysis, p: &Problem, r: QubitIx) -> (Weights, Weights, Weights) {
+    let mut counts: Vec<(usize, KindIx, f64)> = Vec::new();
+    for (j, &i) in p.rows.iter().enumerate() {
+        let _ = j;
+        for &((k, rr), c) in &a.rows.rows[i].context_counts {
+            if rr != r {
+                continue;
+            }
+            let v = p.index[&Budget::Context(k, r)];
+            match counts.iter_mut().find(|e| e.0 == v) {
+                Some(e) => e.2 += c as f64,
+                None => counts.push((v, k, c as f64)),
+            }
+        }
+    }
+    counts.sort_by_key(|e| e.0);
+    let norm = |sel: &dyn Fn(KindIx) -> bool| -> Weights {
+        let total: f64 = counts.iter().filter(|e| sel(e.1)).map(|e| e.2).sum();
+        if total == 0.0 {
+            return Vec::new();
+        }
+        counts.iter().filter(|e| sel(e.1)).map(|e| (e.0, e.2 / total)).collect()
+    };
+    let is_idle = |k: KindIx| a.rows.kinds.get(k).gate == Gate::Id;
+    (norm(&|_| true), norm(&|k| !is_idle(k)), norm(&is_idle))
+}
+
+fn score(sol: &TwoStageSolution, w: &Weights) -> f64 {
+    let s = sol.score(w);
+    if s < ZERO_SCORE {
+        0.0
+    } else {
+        s
+    }
+}
+
+/// Stratum of a row for permuting aggressor r's labels on victim q: depth (timed layers),
+/// the victim's role, and which of q's other neighbours were active.
+fn stratum(a: &Analysis, row: usize, q: QubitIx, r: QubitIx) -> u64 {
+    use std::hash::{Hash, Hasher};
+    let row = &a.rows.rows[row];
+    let mut h = std::collections::hash_map::DefaultHasher::new();
+    row.n_timed_layers.hash(&mut h);
+    if let Some(v) = row.victims.iter().find(|v| v.qubit == q) {
+        v.driven.hash(&mut h);
+        for &n in v.active_neighbours.iter().filter(|&&n| n != r) {
+            n.hash(&mut h);
+        }
+    }
+    h.finish()
+}
+
+pub(crate) fn assess(
+    a: &Analysis,
+    s: &Solved,
+    cfg: &AuditConfig,
+    progress: &dyn Progress,
+) -> Result<Assessed> {
+    let pairs: Vec<(QubitIx, QubitIx)> = (0..a.layout.n_qubits())
+        .flat_map(|q| a.layout.neighbours(q).iter().map(move |&r| (q, r)))
+        .collect();
+    progress.stage("testing directed pairs", pairs.len() as u64);
+    // Attribution ranges: one batch per victim.
+    let ranges: Vec<HashMap<QubitIx, (f64, f64)>> = (0..a.layout.n_qubits())
+        .into_par_iter()
+        .map(|q| {
+            let (p, sol) = &s.qubit[q];
+            let rs: Vec<QubitIx> = a.layout.neighbours(q).to_vec();
+            let scores: Vec<Weights> = rs.iter().map(|&r| weights(a, p, r).0).collect();
+            let out = p.lp.attribution_ranges(sol, &scores)?;
+            Ok(rs.into_iter().zip(out).collect())
+        })
+        .collect::<Result<_>>()?;
+    check_cancel(progress)?;
+    let directed: Vec<Directed> = pairs
+        .par_iter()
+        .map(|&(q, r)| {
+            let d = assess_pair(a, s, cfg, q, r, &ranges[q]);
+            progress.advance(1);
+            if progress.cancelled() {
+                return Err(crate::Error::Interrupted);
+            }
+            d
+        })
+        .collect::<Result<_>>()?;
+    let index = directed.iter().enumerate().map(|(i, d)| ((d.victim, d.aggressor), i)).collect();
+    Ok(Assessed { directed, index })
+}
+
+fn assess_pair(
+    a: &Analysis,
+    s: &Solved,
+    cfg: &AuditConfig,
+    q: QubitIx,
+    r: QubitIx,
+    ranges: &HashMap<QubitIx, (f64, f64)>,
+) -> Result<Directed> {
+    let (p, sol) = &s.qubit[q];
+    let (w, w_driven, w_idle) = weights(a, p, r);
+    let mut d = Directed { victim: q, aggressor: r, ..Default::default() };
+    if w.is_empty() {
+        d.p_value = 1.0;
+        return Ok(d);
+    }
+    d.tested = true;
+    d.score = score(sol, &w);
+    d.driven = score(sol, &w_driven);
+    d.idle = score(sol, &w_idle);
+    let (lo, hi) = ranges.get(&r).copied().unwrap_or((d.score, d.score));
+    d.attribution = (clip(lo), clip(hi));
+    d.per_kind = w
+        .iter()
+        .map(|&(v, _)| match p.vars[v] {
+            Budget::Context(k, _) => (k, sol.values[v]),
+            _ => unreachable!("score weights are on context budgets only"),
+        })
+        .collect();
+    let r_vars: Vec<usize> = w.iter().map(|e| e.0).collect();
+    let mut co: BTreeSet<QubitIx> = BTreeSet::new();
+    for &i in &p.rows {
+        let row = &a.rows.rows[i];
+        for o in &row.occurrences {
+            let ag = row.aggressors(o);
+            if ag.contains(&r) {
+                co.extend(ag.iter().copied().filter(|&x| x != r));
+            }
+        }
+    }
+    d.co_active = co.into_iter().collect();
+
+    // Context-permutation null on the victim's problem.
+    if cfg.null_replicates > 0 {
+        let strata: Vec<u64> = p.rows.iter().map(|&i| stratum(a, i, q, r)).collect();
+        let seed = pair_seed(cfg.seed, q, r);
+        d.null = crate::slack::null::permutation_null(
+            &p.lp,
+            &r_vars,
+            &strata,
+            &w,
+            cfg.null_replicates,
+            seed,
+        )?
+        .into_iter()
+        .map(clip)
+        .collect();
+        d.limit = crate::slack::null::detection_limit(&d.null, cfg.alpha);
+        d.p_value = crate::slack::null::p_value(&d.null, d.score);
+    } else {
+        d.p_value = 1.0;
+    }
+
+    // Supporting rows and leave-one-out.
+    let support = sol.supporting_rows(&p.lp, &r_vars);
+    d.supporting_rows = support.len();
+    let mut load: HashMap<u32, f64> = HashMap::new();
+    for &j in &support {
+        *load.entry(a.rows.rows[p.rows[j]].circuit).or_default() += p.lp.rows[j].requirement;
+    }
+    d.supporting_circuits = load.len();
+    d.loo = d.score;
+    if d.score > 0.0 {
+        let mut cands: Vec<(u32, f64)> = load.into_iter().collect();
+        cands.sort_by(|x, y| y.1.total_cmp(&x.1).then(x.0.cmp(&y.0)));
+        cands.truncate(LEAVE_ONE_OUT_CANDIDATES);
+        for (c, _) in cands {
+            let reduced = p.without_circuit(&a.rows.rows, c);
+            let rs = reduced.lp.solve()?;
+            let wr: Weights = w
+                .iter()
+                .filter_map(|&(v, wt)| reduced.index.get(&p.vars[v]).map(|&nv| (nv, wt)))
+                .collect();
+            let v = score(&rs, &wr);
+            if v < d.loo {
+                d.loo = v;
+                d.most_influential = Some(c);
+            }
+        }
+    }
+    Ok(d)
+}
+
+fn clip(x: f64) -> f64 {
+    if x < ZERO_SCORE {
+        0.0
+    } else {
+        x
+    }
+}
+
+/// The seed of one directed pair's null: a function of (seed, victim, aggressor) only.
+fn pair_seed(seed: u64, q: QubitIx, r: QubitIx) -> u64 {
+    // SplitMix64 finaliser over the packed indices (Steele, Lea, Flood, OOPSLA 2014).
+    let mut z = seed ^ ((q as u64) << 32 | r as u64).wrapping_mul(0x9E37_79B9_7F4A_7C15);
+    z = (z ^ (z >> 30)).wrapping_mul(0xBF58_476D_1CE4_E5B9);
+    z = (z ^ (z >> 27)).wrapping_mul(0x94D0_49BB_1331_11EB);
+    z ^ (z >> 31)
+}

@@ -1,0 +1,357 @@
+//! Assembles the [`AuditReport`] from the analysis, the LP solutions and the assessment,
+//! and decides verdicts (method.md section 6).
+
+use super::assess::{Assessed, Directed, ZERO_SCORE};
+use super::problems::Budget;
+use super::{kind_occurrences, row_slacks, Analysis, AuditConfig, Solved};
+use crate::report::*;
+use crate::slack::projection::{llr, weaken};
+
+fn excess(llr: f64, dof: f64) -> f64 {
+    if dof > 0.0 {
+        (llr - dof) / (2.0 * dof).sqrt()
+    } else {
+        0.0
+    }
+}
+
+fn median(v: &mut [u64]) -> u64 {
+    if v.is_empty() {
+        return 0;
+    }
+    v.sort_unstable();
+    v[(v.len() - 1) / 2]
+}
+
+/// A direction's verdict and the reason, before edge-level combination.
+fn direction_verdict(d: &Directed, cfg: &AuditConfig) -> (Verdict, String) {
+    let pm = |x: f64| crate::report::terminal::per_mille(x);
+    if !d.tested {
+        return (Verdict::Clean, "never tested: no circuit ran the victim with this aggressor active".into());
+    }
+    if d.score <= 0.0 {
+        return (Verdict::Clean, "no context slack needed".into());
+    }
+    if d.attribution.0 <= ZERO_SCORE {
+        return (
+            Verdict::Confounded,
+            "another aggressor active at the same time could carry this slack".into(),
+        );
+    }
+    if cfg.null_replicates == 0 {
+        return (Verdict::Clean, "no null replicates were run, so nothing can be called detected".into());
+    }
+    if d.score <= d.limit {
+        return (
+            Verdict::Clean,
+            format!("score {} is within the permutation-null limit {}", pm(d.score), pm(d.limit)),
+        );
+    }
+    if d.loo <= d.limit {
+        return (
+            Verdict::Clean,
+            format!(
+                "rests on one circuit: without it the score falls to {}, below the limit {}",
+                pm(d.loo),
+                pm(d.limit)
+            ),
+        );
+    }
+    let lower = d.attribution.0.min(d.loo);
+    if lower > cfg.action_threshold_tvd_per_layer {
+        (
+            Verdict::Recalibrate,
+            format!(
+                "detected (p = {:.3}); even its lower bound {} exceeds the action threshold {}",
+                d.p_value,
+                pm(lower),
+                pm(cfg.action_threshold_tvd_per_layer)
+            ),
+        )
+    } else {
+        (
+            Verdict::Watch,
+            format!(
+                "detected (p = {:.3}) but its lower bound {} is not above the action threshold {}",
+                d.p_value,
+                pm(lower),
+                pm(cfg.action_threshold_tvd_per_layer)
+            ),
+        )
+    }
+}
+
+pub(crate) fn report(a: &Analysis, s: &Solved, x: &Assessed, cfg: &AuditConfig) -> AuditReport {
+    let layout = a.layout;
+    let id = |q: usize| layout.id(q).to_string();
+    let kinds = &a.rows.kinds;
+
+    // Directed reports.
+    let directed: Vec<DirectedReport> = x
+        .directed
+        .iter()
+        .map(|d| DirectedReport {
+            victim: id(d.victim),
+            aggressor: id(d.aggressor),
+            score_tvd_per_layer: d.score,
+            driven_tvd_per_layer: d.driven,
+            idle_tvd_per_layer: d.idle,
+            attribution_min_tvd_per_layer: d.attribution.0,
+            attribution_max_tvd_per_layer: d.attribution.1,
+            detection_limit_tvd_per_layer: d.limit,
+            p_value: d.p_value,
+            supporting_rows: d.supporting_rows,
+            supporting_circuits: d.supporting_circuits,
+            leave_one_out_tvd_per_layer: d.loo,
+            most_influential_circuit: d
+                .most_influential
+                .map(|c| a.circuits.circuits[c as usize].id.clone()),
+            per_kind: d
+                .per_kind
+                .iter()
+                .map(|&(k, v)| KindValue { kind: kinds.get(k).label(layout), value: v })
+                .collect(),
+            confidence: None,
+        })
+        .collect();
+
+    // Edges.
+    let mut edges: Vec<EdgeReport> = layout
+        .neighbour_pairs()
+        .into_iter()
+        .map(|(qa, qb)| {
+            let ab = &x.directed[x.index[&(qa, qb)]];
+            let ba = &x.directed[x.index[&(qb, qa)]];
+            let (va, ra) = direction_verdict(ab, cfg);
+            let (vb, rb) = direction_verdict(ba, cfg);
+            let main = if ba.score > ab.score { ba } else { ab };
+            let (verdict, reason, lead) = if va <= vb { (va, ra, ab) } else { (vb, rb, ba) };
+            let confounded_with = if verdict == Verdict::Confounded {
+                lead.co_active
+                    .iter()
+                    .filter(|&&o| {
+                        x.index
+                            .get(&(lead.victim, o))
+                            .is_some_and(|&i| x.directed[i].attribution.1 > ZERO_SCORE)
+                    })
+                    .map(|&o| id(o))
+                    .collect()
+            } else {
+                Vec::new()
+            };
+            EdgeReport {
+                a: id(qa),
+                b: id(qb),
+                coupled: layout.coupler(qa, qb).is_some(),
+                score_tvd_per_layer: ab.score.max(ba.score),
+                a_from_b_tvd_per_layer: ab.score,
+                b_from_a_tvd_per_layer: ba.score,
+                rank: None,
+                detection_limit_tvd_per_layer: main.limit,
+                p_value: main.p_value,
+                attribution_min_tvd_per_layer: main.attribution.0,
+                attribution_max_tvd_per_layer: main.attribution.1,
+                supporting_rows: main.supporting_rows,
+                supporting_circuits: main.supporting_circuits,
+                leave_one_out_tvd_per_layer: main.loo,
+                most_influential_circuit: main
+                    .most_influential
+                    .map(|c| a.circuits.circuits[c as usize].id.clone()),
+                confounded_with,
+                confidence: None,
+                rank_confidence: None,
+                verdict,
+                reason: format!("{}<-{}: {}", id(lead.victim), id(lead.aggressor), reason),
+            }
+        })
+        .collect();
+    edges.sort_by(|p, q| {
+        let key = |e: &EdgeReport| e.verdict <= Verdict::Watch;
+        key(q)
+            .cmp(&key(p))
+            .then(q.score_tvd_per_layer.total_cmp(&p.score_tvd_per_layer))
+            .then(p.a.cmp(&q.a))
+            .then(p.b.cmp(&q.b))
+    });
+    let mut k = 0;
+    for e in edges.iter_mut() {
+        if e.score_tvd_per_layer > 0.0 {
+            k += 1;
+            e.rank = Some(k);
+        }
+    }
+
+    // Intrinsic slack per kind.
+    let occ = kind_occurrences(a);
+    let fit_of = |k: crate::rows::KindIx| {
+        let kind = kinds.get(k);
+        let fits = if kind.gate.arity() == 1 {
+            a.fitted.qubit_fits[kind.qubits[0]].as_ref()
+        } else {
+            layout.coupler(kind.qubits[0], kind.qubits[1]).and_then(|c| a.fitted.coupler_fits[c].as_ref())
+        };
+        fits.and_then(|f| f.kinds.iter().find(|kf| kf.kind == k as usize)).map(|kf| kf.error_rate)
+    };
+    let omega = |k: crate::rows::KindIx| {
+        let kind = kinds.get(k);
+        let b = Budget::Intrinsic(k);
+        if kind.gate.arity() == 1 {
+            let (p, sol) = &s.qubit[kind.qubits[0]];
+            p.value(sol, b)
+        } else {
+            layout
+                .coupler(kind.qubits[0], kind.qubits[1])
+                .map(|c| {
+                    let (p, sol) = &s.coupler[c];
+                    p.value(sol, b)
+                })
+                .unwrap_or(0.0)
+        }
+    };
+    let mut intrinsic: Vec<IntrinsicReport> = (0..kinds.len() as u32)
+        .filter(|k| occ.contains_key(k))
+        .map(|k| {
+            let kind = kinds.get(k);
+            let all_rows = if kind.gate.arity() == 1 {
+                a.fitted.fitted_on_all_rows_qubits[kind.qubits[0]]
+            } else {
+                layout
+                    .coupler(kind.qubits[0], kind.qubits[1])
+                    .is_some_and(|c| a.fitted.fitted_on_all_rows_couplers[c])
+            };
+            IntrinsicReport {
+                kind: kind.label(layout),
+                occurrences: occ[&k].0,
+                reference_occurrences: occ[&k].1,
+                slack_tvd_per_occurrence: omega(k),
+                fitted_error_rate: fit_of(k).unwrap_or(f64::NAN),
+                fitted_on_all_rows: all_rows,
+                qubits: kind.qubits().iter().map(|&q| id(q)).collect(),
+            }
+        })
+        .collect();
+    intrinsic.sort_by(|p, q| p.kind.cmp(&q.kind));
+    let readout: Vec<ReadoutReport> = (0..layout.n_qubits())
+        .filter(|&q| a.fitted.qubit_fits[q].is_some())
+        .map(|q| {
+            let e = a.fitted.params.readout[q].errors();
+            let (p, sol) = &s.qubit[q];
+            ReadoutReport {
+                qubit: id(q),
+                p1_given_0: e[0],
+                p0_given_1: e[1],
+                slack_tvd: p.value(sol, Budget::Readout(q)),
+            }
+        })
+        .collect();
+
+    // Fit summary.
+    let fits = a.fitted.qubit_fits.iter().chain(&a.fitted.coupler_fits).flatten();
+    let (mut ref_llr, mut ref_dof, mut n_ident) = (0.0, 0.0, 0usize);
+    let mut unidentified = Vec::new();
+    let mut not_converged = Vec::new();
+    for f in fits {
+        ref_llr += f.llr;
+        ref_dof += f.dof as f64;
+        n_ident += f.n_identified;
+        for kf in &f.kinds {
+            for (name, ok) in kf.names.iter().zip(&kf.identified) {
+                if !ok {
+                    unidentified.push(format!("{}:{}", kinds.get(kf.kind as u32).label(layout), name));
+                }
+            }
+        }
+        if !f.converged {
+            not_converged.push(
+                f.kinds.first().map(|k| kinds.get(k.kind as u32).label(layout)).unwrap_or_default(),
+            );
+        }
+    }
+    let slacks = row_slacks(a, s);
+    let (mut before, mut after, mut dof_all, mut needing) = (0.0, 0.0, 0.0, 0usize);
+    let mut threshold = 0.0f64;
+    for &i in &a.used {
+        let Some(m) = &a.rows.rows[i].marginal else { continue };
+        let p = &a.predictions[i];
+        before += llr(m, p);
+        after += llr(m, &weaken(p, m, slacks[i]));
+        dof_all += (m.len() - 1) as f64;
+        if a.requirement[i] > 0.0 {
+            needing += 1;
+        }
+        threshold = threshold.max(crate::stats::bonferroni_threshold(m.len() - 1, cfg.alpha, a.used.len()));
+    }
+    dof_all -= n_ident as f64;
+
+    let mut shots: Vec<u64> = a
+        .circuits
+        .circuits
+        .iter()
+        .enumerate()
+        .filter_map(|(c, _)| {
+            a.used.iter().find(|&&i| a.rows.rows[i].circuit as usize == c).map(|&i| a.rows.rows[i].shots)
+        })
+        .collect();
+    let circuits_with_counts = shots.len();
+    let shots_total = shots.iter().sum();
+    let shots_min = shots.iter().copied().min().unwrap_or(0);
+    let shots_max = shots.iter().copied().max().unwrap_or(0);
+    let shots_median = median(&mut shots);
+
+    let mut warnings: Vec<WarningReport> = a.warnings.iter().map(WarningReport::from).collect();
+    warnings.dedup();
+
+    AuditReport {
+        schema: SCHEMA,
+        tool_version: env!("CARGO_PKG_VERSION").to_string(),
+        caution: CAUTION.to_string(),
+        layout: LayoutSummary {
+            name: layout.name.clone(),
+            qubits: layout.qubits.iter().map(|q| q.id.clone()).collect(),
+            positions: layout.qubits.iter().map(|q| q.position).collect(),
+            couplers: layout.couplers.iter().map(|&(p, q)| [id(p), id(q)]).collect(),
+            neighbour_pairs: layout.neighbour_pairs().len(),
+        },
+        inputs: cfg.inputs.clone(),
+        parameters: Parameters {
+            model: cfg.family.name().to_string(),
+            alpha: cfg.alpha,
+            action_threshold_tvd_per_layer: cfg.action_threshold_tvd_per_layer,
+            null_replicates: cfg.null_replicates,
+            seed: cfg.seed,
+            bit_order: cfg.bit_order.clone(),
+            replicates: 0,
+            resample: "none".into(),
+            level: 0.95,
+        },
+        data: DataSummary {
+            circuits: a.circuits.len(),
+            circuits_with_counts,
+            rows: a.used.len(),
+            reference_rows: a.used.iter().filter(|&&i| a.rows.rows[i].is_reference).count(),
+            shots_min,
+            shots_median,
+            shots_max,
+            shots_total,
+        },
+        fit: FitSummary {
+            reference_llr: ref_llr,
+            reference_dof: ref_dof,
+            reference_excess_sigma: excess(ref_llr, ref_dof),
+            all_llr_before: before,
+            all_dof: dof_all,
+            all_excess_sigma_before: excess(before, dof_all),
+            all_llr_after: after,
+            all_excess_sigma_after: excess(after, dof_all),
+            row_threshold_llr: threshold,
+            rows_needing_slack: needing,
+            unidentified,
+            not_converged,
+        },
+        edges,
+        directed,
+        intrinsic,
+        readout,
+        warnings,
+    }
+}

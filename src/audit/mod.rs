@@ -1,0 +1,469 @@
+//! The audit: from layout, circuits and counts to ranked, explained crosstalk edges.
+//!
+//! One run goes rows -> crosstalk-free fit on reference rows -> row requirements ->
+//! two-stage covering LPs per qubit, then per coupler -> directed scores, attribution
+//! ranges, permutation null, leave-one-out -> verdicts (method.md sections 2-6). Every
+//! stage is a pure function of the previous ones; [`run`] only sequences them.
+
+use std::collections::HashMap;
+use std::sync::atomic::{AtomicBool, Ordering};
+
+use rayon::prelude::*;
+
+use crate::circuit::CircuitSet;
+use crate::counts::Counts;
+use crate::error::{Error, Result, Warning};
+use crate::layout::{Layout, QubitIx};
+use crate::model::{self, Family, FitOptions, FitResult, ModelSpec, Params, PreparedRow};
+use crate::report::{AuditReport, InputFile};
+use crate::rows::{self, Rows};
+use crate::slack::lp::TwoStageSolution;
+
+mod assess;
+mod build;
+pub mod problems;
+
+use problems::{Budget, Problem};
+
+/// Settings of one audit, validated by [`AuditConfig::validate`].
+#[derive(Clone, Debug)]
+pub struct AuditConfig {
+    /// Error family of the crosstalk-free model.
+    pub family: Family,
+    /// Family-wise error level (row thresholds and detection), in (0, 1).
+    pub alpha: f64,
+    /// `recalibrate` needs the edge's lower bound above this, TVD per layer.
+    pub action_threshold_tvd_per_layer: f64,
+    /// Context-permutation null replicates per directed pair.
+    pub null_replicates: usize,
+    /// Seed of every random draw.
+    pub seed: u64,
+    /// How the counts' bit order was read (recorded in the report).
+    pub bit_order: String,
+    /// Input files and digests (recorded in the report).
+    pub inputs: Vec<InputFile>,
+}
+
+impl AuditConfig {
+    /// Checks ranges; errors name the setting and the valid range.
+    pub fn validate(&self) -> Result<()> {
+        if !(self.alpha > 0.0 && self.alpha < 1.0) {
+            return Err(Error::Usage(format!("--alpha {} must lie in (0, 1)", self.alpha)));
+        }
+        if !(self.action_threshold_tvd_per_layer >= 0.0
+            && self.action_threshold_tvd_per_layer.is_finite())
+        {
+            return Err(Error::Usage(format!(
+                "--action-threshold {} must be a non-negative number (TVD per layer)",
+                self.action_threshold_tvd_per_layer
+            )));
+        }
+        Ok(())
+    }
+}
+
+/// Progress of long work, reported by the library and drawn by the caller.
+pub trait Progress: Sync {
+    /// A new stage with `total` units of work.
+    fn stage(&self, _name: &str, _total: u64) {}
+    /// `n` units of the current stage done.
+    fn advance(&self, _n: u64) {}
+    /// True when the user asked to stop; the library then returns [`Error::Interrupted`].
+    fn cancelled(&self) -> bool {
+        false
+    }
+}
+
+/// Progress that shows nothing.
+pub struct Silent;
+impl Progress for Silent {}
+
+/// A flag-based cancellation wrapper (for Ctrl-C handlers).
+pub struct Cancel<'a, P: Progress> {
+    /// The inner progress display.
+    pub inner: &'a P,
+    /// Set to true to stop.
+    pub flag: &'a AtomicBool,
+}
+
+impl<P: Progress> Progress for Cancel<'_, P> {
+    fn stage(&self, name: &str, total: u64) {
+        self.inner.stage(name, total)
+    }
+    fn advance(&self, n: u64) {
+        self.inner.advance(n)
+    }
+    fn cancelled(&self) -> bool {
+        self.flag.load(Ordering::Relaxed)
+    }
+}
+
+/// The fitted crosstalk-free model and its diagnostics.
+pub(crate) struct Fitted {
+    pub params: Params,
+    pub qubit_fits: Vec<Option<FitResult>>,
+    pub coupler_fits: Vec<Option<FitResult>>,
+    /// Qubits and couplers fitted on all their rows for want of reference rows.
+    pub fitted_on_all_rows_qubits: Vec<bool>,
+    pub fitted_on_all_rows_couplers: Vec<bool>,
+}
+
+/// Everything the assessment needs about the data and the model.
+pub(crate) struct Analysis<'a> {
+    pub layout: &'a Layout,
+    pub circuits: &'a CircuitSet,
+    pub rows: Rows,
+    /// Analysis rows that have counts (global indices into `rows.rows`).
+    pub used: Vec<usize>,
+    pub prepared: Vec<Option<PreparedRow>>,
+    pub predictions: Vec<Vec<f64>>,
+    pub requirement: Vec<f64>,
+    /// 1q rows per qubit and 2q rows per coupler (global indices).
+    pub qubit_rows: Vec<Vec<usize>>,
+    pub coupler_rows: Vec<Vec<usize>>,
+    pub fitted: Fitted,
+    pub warnings: Vec<Warning>,
+}
+
+/// The LP solutions of one audit.
+pub(crate) struct Solved {
+    pub qubit: Vec<(Problem, TwoStageSolution)>,
+    pub coupler: Vec<(Problem, TwoStageSolution)>,
+}
+
+fn check_cancel(p: &dyn Progress) -> Result<()> {
+    if p.cancelled() {
+        Err(Error::Interrupted)
+    } else {
+        Ok(())
+    }
+}
+
+/// Runs a whole audit.
+pub fn run(
+    layout: &Layout,
+    circuits: &CircuitSet,
+    counts: &Counts,
+    cfg: &AuditConfig,
+    progress: &dyn Progress,
+) -> Result<AuditReport> {
+    cfg.validate()?;
+    let analysis = analyse(layout, circuits, counts, cfg, progress)?;
+    check_cancel(progress)?;
+    let solved = solve_all(&analysis, progress)?;
+    check_cancel(progress)?;
+    let assessed = assess::assess(&analysis, &solved, cfg, progress)?;
+    check_cancel(progress)?;
+    Ok(build::report(&analysis, &solved, &assessed, cfg))
+}
+
+/// Rows, fit, predictions and requirements.
+pub(crate) fn analyse<'a>(
+    layout: &'a Layout,
+    circuits: &'a CircuitSet,
+    counts: &Counts,
+    cfg: &AuditConfig,
+    progress: &dyn Progress,
+) -> Result<Analysis<'a>> {
+    let rows = rows::build(layout, circuits, Some(counts))?;
+    let mut warnings = Vec::new();
+    let used: Vec<usize> = (0..rows.rows.len())
+        .filter(|&i| rows.rows[i].marginal.is_some() && rows.rows[i].shots > 0)
+        .collect();
+    if used.is_empty() {
+        return Err(Error::Analysis(
+            "no circuit has counts: nothing to analyse (check the circuit ids in the counts file)"
+                .into(),
+        ));
+    }
+    let spec = ModelSpec {
+        family: cfg.family,
+        kind_arity: rows.kinds.kinds().iter().map(|k| k.gate.arity()).collect(),
+        n_qubits: layout.n_qubits(),
+    };
+    progress.stage("preparing rows", used.len() as u64);
+    let prepared: Vec<Option<PreparedRow>> = (0..rows.rows.len())
+        .into_par_iter()
+        .map(|i| {
+            let r = &rows.rows[i];
+            match &r.marginal {
+                Some(m) if r.shots > 0 => {
+                    let pr = PreparedRow::new(&model_row(r, m.clone()), &spec).map(Some);
+                    progress.advance(1);
+                    pr
+                }
+                _ => Ok(None),
+            }
+        })
+        .collect::<Result<_>>()?;
+
+    let mut qubit_rows = vec![Vec::new(); layout.n_qubits()];
+    let mut coupler_rows = vec![Vec::new(); layout.couplers.len()];
+    for &i in &used {
+        let b = &rows.rows[i].block;
+        match b.len() {
+            1 => qubit_rows[b[0]].push(i),
+            _ => {
+                let c = layout.coupler(b[0], b[1]).ok_or_else(|| {
+                    Error::Analysis(format!(
+                        "block {}-{} is not a coupler",
+                        layout.id(b[0]),
+                        layout.id(b[1])
+                    ))
+                })?;
+                coupler_rows[c].push(i)
+            }
+        }
+    }
+
+    let fitted = fit_model(layout, &rows, &prepared, &qubit_rows, &coupler_rows, &spec, progress, &mut warnings)?;
+    check_cancel(progress)?;
+
+    let predictions: Vec<Vec<f64>> = prepared
+        .par_iter()
+        .map(|p| p.as_ref().map(|p| model::predict(p, &fitted.params).probs).unwrap_or_default())
+        .collect();
+    let n_rows = used.len();
+    let requirement: Vec<f64> = (0..rows.rows.len())
+        .into_par_iter()
+        .map(|i| match &rows.rows[i].marginal {
+            Some(m) if rows.rows[i].shots > 0 => {
+                let t = crate::stats::bonferroni_threshold(m.len() - 1, cfg.alpha, n_rows);
+                crate::slack::requirement::requirement(&predictions[i], m, t)
+            }
+            _ => 0.0,
+        })
+        .collect();
+    Ok(Analysis {
+        layout,
+        circuits,
+        rows,
+        used,
+        prepared,
+        predictions,
+        requirement,
+        qubit_rows,
+        coupler_rows,
+        fitted,
+        warnings,
+    })
+}
+
+/// The model's program for one analysis row.
+fn model_row(r: &rows::Row, marginal: Vec<u64>) -> model::Row {
+    use model::{Action, Step};
+    let mut steps: Vec<Step> = Vec::new();
+    let mut current: Option<(u32, [Option<Action>; 2])> = None;
+    for s in &r.steps {
+        let action = Action { gate: s.gate, angle: s.angle, kind: s.kind.map(|k| k as usize) };
+        if s.gate.arity() == 2 {
+            if let Some((_, local)) = current.take() {
+                steps.push(Step::Local(local));
+            }
+            steps.push(Step::Joint { action, reversed: s.operands[0] == 1 });
+            continue;
+        }
+        let slot = s.operands[0] as usize;
+        match &mut current {
+            Some((layer, local)) if *layer == s.layer && local[slot].is_none() => {
+                local[slot] = Some(action)
+            }
+            _ => {
+                if let Some((_, local)) = current.take() {
+                    steps.push(Step::Local(local));
+                }
+                let mut local = [None, None];
+                local[slot] = Some(action);
+                current = Some((s.layer, local));
+            }
+        }
+    }
+    if let Some((_, local)) = current {
+        steps.push(Step::Local(local));
+    }
+    model::Row { steps, readout: r.block.clone(), counts: marginal }
+}
+
+#[allow(clippy::too_many_arguments)]
+fn fit_model(
+    layout: &Layout,
+    rows: &Rows,
+    prepared: &[Option<PreparedRow>],
+    qubit_rows: &[Vec<usize>],
+    coupler_rows: &[Vec<usize>],
+    spec: &ModelSpec,
+    progress: &dyn Progress,
+    warnings: &mut Vec<Warning>,
+) -> Result<Fitted> {
+    let options = FitOptions::default();
+    let select = |list: &[usize]| -> (Vec<PreparedRow>, bool) {
+        let reference: Vec<PreparedRow> = list
+            .iter()
+            .filter(|&&i| rows.rows[i].is_reference)
+            .filter_map(|&i| prepared[i].clone())
+            .collect();
+        if reference.is_empty() {
+            (list.iter().filter_map(|&i| prepared[i].clone()).collect(), true)
+        } else {
+            (reference, false)
+        }
+    };
+    progress.stage("fitting qubits", qubit_rows.len() as u64);
+    let qubit_fits: Vec<(Option<FitResult>, bool)> = qubit_rows
+        .par_iter()
+        .map(|list| {
+            let out = if list.is_empty() {
+                Ok((None, false))
+            } else {
+                let (sel, all) = select(list);
+                model::fit_qubit(&sel, spec, None, &options).map(|f| (Some(f), all))
+            };
+            progress.advance(1);
+            out
+        })
+        .collect::<Result<_>>()?;
+    let mut params = Params::initial(spec)?;
+    let mut touched = vec![false; spec.kind_arity.len()];
+    for (q, (fit, all)) in qubit_fits.iter().enumerate() {
+        let Some(fit) = fit else { continue };
+        params.readout[q] = fit.params.readout[q].clone();
+        for kf in &fit.kinds {
+            params.kinds[kf.kind] = fit.params.kinds[kf.kind].clone();
+            touched[kf.kind] = true;
+        }
+        if *all {
+            warnings.push(Warning::new(
+                "no-reference-rows",
+                format!(
+                    "qubit {} has no reference rows: its model was fitted on all its rows, so its context slack is only a lower bound",
+                    layout.id(q)
+                ),
+                "add circuits where this qubit runs while every neighbour idles",
+            ));
+        }
+        warnings.extend(fit.warnings.iter().cloned().map(|w| prefix(w, layout.id(q))));
+    }
+    check_cancel(progress)?;
+    progress.stage("fitting couplers", coupler_rows.len() as u64);
+    let coupler_fits: Vec<(Option<FitResult>, bool)> = coupler_rows
+        .par_iter()
+        .map(|list| {
+            let out = if list.is_empty() {
+                Ok((None, false))
+            } else {
+                let (sel, all) = select(list);
+                model::fit_coupler(&sel, spec, &params, None, &options).map(|f| (Some(f), all))
+            };
+            progress.advance(1);
+            out
+        })
+        .collect::<Result<_>>()?;
+    for (c, (fit, all)) in coupler_fits.iter().enumerate() {
+        let Some(fit) = fit else { continue };
+        let (a, b) = layout.couplers[c];
+        let name = format!("{}-{}", layout.id(a), layout.id(b));
+        for kf in &fit.kinds {
+            params.kinds[kf.kind] = fit.params.kinds[kf.kind].clone();
+            touched[kf.kind] = true;
+        }
+        if *all {
+            warnings.push(Warning::new(
+                "no-reference-rows",
+                format!(
+                    "coupler {name} has no reference rows: its two-qubit gate was fitted on all its rows, so its context slack is only a lower bound"
+                ),
+                "add circuits where this coupler runs while its neighbours idle",
+            ));
+        }
+        warnings.extend(fit.warnings.iter().cloned().map(|w| prefix(w, &name)));
+    }
+    let mut fitted_on_all_rows_qubits = vec![false; layout.n_qubits()];
+    let mut fitted_on_all_rows_couplers = vec![false; layout.couplers.len()];
+    for (q, (_, all)) in qubit_fits.iter().enumerate() {
+        fitted_on_all_rows_qubits[q] = *all;
+    }
+    for (c, (_, all)) in coupler_fits.iter().enumerate() {
+        fitted_on_all_rows_couplers[c] = *all;
+    }
+    Ok(Fitted {
+        params,
+        qubit_fits: qubit_fits.into_iter().map(|x| x.0).collect(),
+        coupler_fits: coupler_fits.into_iter().map(|x| x.0).collect(),
+        fitted_on_all_rows_qubits,
+        fitted_on_all_rows_couplers,
+    })
+}
+
+fn prefix(w: Warning, who: &str) -> Warning {
+    Warning { message: format!("{who}: {}", w.message), ..w }
+}
+
+/// Solves the qubit problems, then the coupler problems with the qubit budgets fixed.
+pub(crate) fn solve_all(a: &Analysis, progress: &dyn Progress) -> Result<Solved> {
+    let all = &a.rows.rows;
+    progress.stage("solving qubit budgets", a.qubit_rows.len() as u64);
+    let qubit: Vec<(Problem, TwoStageSolution)> = a
+        .qubit_rows
+        .par_iter()
+        .map(|list| {
+            let p = Problem::build(all, list.clone(), &a.requirement, &|_| None);
+            let s = p.lp.solve();
+            progress.advance(1);
+            s.map(|s| (p, s))
+        })
+        .collect::<Result<_>>()?;
+    let kinds = &a.rows.kinds;
+    let owner = |b: Budget| -> Option<QubitIx> {
+        match b {
+            Budget::Readout(q) => Some(q),
+            Budget::Intrinsic(k) | Budget::Context(k, _) => {
+                let kind = kinds.get(k);
+                (kind.gate.arity() == 1).then_some(kind.qubits[0])
+            }
+        }
+    };
+    let fixed = |b: Budget| -> Option<f64> {
+        let q = owner(b)?;
+        let (p, s) = &qubit[q];
+        p.index.get(&b).map(|&v| s.values[v])
+    };
+    progress.stage("solving coupler budgets", a.coupler_rows.len() as u64);
+    let coupler: Vec<(Problem, TwoStageSolution)> = a
+        .coupler_rows
+        .par_iter()
+        .map(|list| {
+            let p = Problem::build(all, list.clone(), &a.requirement, &fixed);
+            let s = p.lp.solve();
+            progress.advance(1);
+            s.map(|s| (p, s))
+        })
+        .collect::<Result<_>>()?;
+    Ok(Solved { qubit, coupler })
+}
+
+/// Row slack of every analysis row under the solved budgets (0 for rows without counts).
+pub(crate) fn row_slacks(a: &Analysis, s: &Solved) -> Vec<f64> {
+    let mut out = vec![0.0; a.rows.rows.len()];
+    for (p, sol) in s.qubit.iter().chain(&s.coupler) {
+        for (j, &i) in p.rows.iter().enumerate() {
+            out[i] = crate::slack::lp::row_slack(&p.lp.rows[j], &sol.values);
+        }
+    }
+    out
+}
+
+/// Frequencies of each kind over all rows (for weighting scores).
+pub(crate) fn kind_occurrences(a: &Analysis) -> HashMap<rows::KindIx, (u64, u64)> {
+    let mut m: HashMap<rows::KindIx, (u64, u64)> = HashMap::new();
+    for &i in &a.used {
+        let r = &a.rows.rows[i];
+        for &(k, c) in &r.kind_counts {
+            let e = m.entry(k).or_default();
+            e.0 += c as u64;
+            if r.is_reference {
+                e.1 += c as u64;
+            }
+        }
+    }
+    m
+}

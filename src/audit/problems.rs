@@ -1,0 +1,104 @@
+//! The covering problems of one audit: budget variables and one LP per qubit and coupler.
+//!
+//! A qubit's problem holds its one-qubit rows and its readout, intrinsic and context
+//! budgets; a coupler's problem holds its two-qubit rows, with every budget that a qubit
+//! problem already set held fixed (method.md section 4, "The stages decompose").
+
+use std::collections::HashMap;
+
+use crate::layout::QubitIx;
+use crate::rows::{KindIx, Row};
+use crate::slack::lp::{CoveringProblem, Row as CoverRow, TwoStageSolution, VarKind};
+
+/// A budget variable, in TVD.
+#[derive(Clone, Copy, Debug, PartialEq, Eq, Hash, PartialOrd, Ord)]
+pub enum Budget {
+    /// Readout slack rho_q, once per row that measures q.
+    Readout(QubitIx),
+    /// Intrinsic slack omega_k, per occurrence of kind k.
+    Intrinsic(KindIx),
+    /// Context slack kappa_(k, r), per occurrence of k while r is active.
+    Context(KindIx, QubitIx),
+}
+
+impl Budget {
+    fn var_kind(self) -> VarKind {
+        match self {
+            Budget::Context(..) => VarKind::Context,
+            _ => VarKind::Intrinsic,
+        }
+    }
+}
+
+/// One covering problem with its variables named.
+#[derive(Clone, Debug)]
+pub struct Problem {
+    /// The budget behind each LP variable.
+    pub vars: Vec<Budget>,
+    /// LP variable of each budget.
+    pub index: HashMap<Budget, usize>,
+    /// The LP; `lp.rows[i]` is analysis row `rows[i]`.
+    pub lp: CoveringProblem,
+    /// Global indices of the analysis rows in this problem.
+    pub rows: Vec<usize>,
+}
+
+/// The coefficient terms of one analysis row, as budgets.
+pub fn row_budgets(row: &Row) -> Vec<(Budget, f64)> {
+    let mut t: Vec<(Budget, f64)> = row.block.iter().map(|&q| (Budget::Readout(q), 1.0)).collect();
+    t.extend(row.kind_counts.iter().map(|&(k, c)| (Budget::Intrinsic(k), c as f64)));
+    t.extend(row.context_counts.iter().map(|&((k, r), c)| (Budget::Context(k, r), c as f64)));
+    t
+}
+
+impl Problem {
+    /// Builds a problem over `rows` (global indices into `all`), with requirements
+    /// `requirement[global index]`; `fixed` gives the value of budgets set elsewhere.
+    pub fn build(
+        all: &[Row],
+        rows: Vec<usize>,
+        requirement: &[f64],
+        fixed: &dyn Fn(Budget) -> Option<f64>,
+    ) -> Problem {
+        let mut vars = Vec::new();
+        let mut index = HashMap::new();
+        let mut lp_rows = Vec::with_capacity(rows.len());
+        for &i in &rows {
+            let terms = row_budgets(&all[i])
+                .into_iter()
+                .map(|(b, c)| {
+                    let v = *index.entry(b).or_insert_with(|| {
+                        vars.push(b);
+                        vars.len() - 1
+                    });
+                    (v, c)
+                })
+                .collect();
+            lp_rows.push(CoverRow {
+                terms,
+                requirement: requirement[i],
+                reference: all[i].is_reference,
+            });
+        }
+        let kinds = vars.iter().map(|b| b.var_kind()).collect();
+        let fixed_values: Vec<Option<f64>> = vars.iter().map(|&b| fixed(b)).collect();
+        let fixed_values =
+            if fixed_values.iter().any(Option::is_some) { fixed_values } else { Vec::new() };
+        Problem { vars, index, lp: CoveringProblem { kinds, fixed: fixed_values, rows: lp_rows }, rows }
+    }
+
+    /// The same problem without the rows of one circuit (for leave-one-out).
+    pub fn without_circuit(&self, all: &[Row], circuit: u32) -> Problem {
+        let keep: Vec<usize> =
+            (0..self.rows.len()).filter(|&j| all[self.rows[j]].circuit != circuit).collect();
+        let mut p = self.clone();
+        p.rows = keep.iter().map(|&j| self.rows[j]).collect();
+        p.lp.rows = keep.iter().map(|&j| self.lp.rows[j].clone()).collect();
+        p
+    }
+
+    /// Value of a budget in a solution of this problem (0 when it is not a variable).
+    pub fn value(&self, sol: &TwoStageSolution, b: Budget) -> f64 {
+        self.index.get(&b).map_or(0.0, |&v| sol.values[v])
+    }
+}

@@ -1,0 +1,163 @@
+//! `slackmap audit` and `slackmap demo`: run the audit, print the report, write the files.
+
+use std::io::{IsTerminal, Write};
+use std::path::{Path, PathBuf};
+use std::sync::atomic::AtomicBool;
+use std::sync::Arc;
+
+use anyhow::Context;
+
+use slackmap::audit::{self, AuditConfig, Cancel};
+use slackmap::model::Family;
+use slackmap::report::{self, terminal};
+
+use super::inputs::InputArgs;
+use super::progress::Bar;
+
+/// Error family of the crosstalk-free model.
+#[derive(clap::ValueEnum, Clone, Copy, Debug, PartialEq, Eq)]
+pub enum ModelArg {
+    /// One depolarizing rate per operation kind (fastest; blind to the error's axis).
+    Depolarizing,
+    /// Stochastic Pauli channel: 3 rates per one-qubit kind, 15 per two-qubit kind.
+    Pauli,
+    /// A Pauli channel composed with a small coherent rotation (6 / 30 parameters).
+    #[value(name = "pauli+coherent")]
+    PauliCoherent,
+}
+
+impl ModelArg {
+    fn family(self) -> Family {
+        match self {
+            ModelArg::Depolarizing => Family::Depolarizing,
+            ModelArg::Pauli => Family::Pauli,
+            ModelArg::PauliCoherent => Family::PauliCoherent,
+        }
+    }
+}
+
+/// Settings of the analysis (shared by `audit` and `demo`).
+#[derive(clap::Args, Debug, Clone)]
+pub struct AnalysisArgs {
+    /// Error family of the crosstalk-free model fitted to the reference circuits.
+    #[arg(long, value_enum, default_value = "depolarizing")]
+    pub model: ModelArg,
+    /// Family-wise error level: each row's threshold is the chi-squared quantile at
+    /// 1 - alpha/R (R rows), and detection uses the (1 - alpha) null quantile.
+    #[arg(long, default_value_t = 0.05)]
+    pub alpha: f64,
+    /// Context slack per layer (TVD) above which a detected edge is worth recalibrating.
+    #[arg(long, default_value_t = 1e-3, value_name = "TVD")]
+    pub action_threshold: f64,
+    /// Replicates of the context-permutation null per directed pair (0 turns detection off).
+    #[arg(long, default_value_t = 200)]
+    pub null_replicates: usize,
+    /// Seed of every random draw; the same seed gives the same numbers on any thread count.
+    #[arg(long, default_value_t = 0)]
+    pub seed: u64,
+    /// Worker threads (default: all cores).
+    #[arg(long)]
+    pub threads: Option<usize>,
+    /// Output folder (written atomically: an existing folder is replaced only when done).
+    #[arg(long, value_name = "DIR")]
+    pub out: PathBuf,
+    /// No progress bars.
+    #[arg(long, short)]
+    pub quiet: bool,
+}
+
+/// Arguments of `slackmap audit`.
+#[derive(clap::Args, Debug)]
+pub struct AuditArgs {
+    #[command(flatten)]
+    inputs: InputArgs,
+    /// Counts file (.csv `circuit,outcome,count`, or .json {circuit: {outcome: count}}).
+    #[arg(long, value_name = "FILE")]
+    counts: PathBuf,
+    #[command(flatten)]
+    analysis: AnalysisArgs,
+}
+
+/// Arguments of `slackmap demo`.
+#[derive(clap::Args, Debug)]
+pub struct DemoArgs {
+    /// The demo scenario folder (layout.toml, circuits.json, counts.csv).
+    #[arg(long, value_name = "DIR", default_value = concat!(env!("CARGO_MANIFEST_DIR"), "/demo-data"))]
+    data: PathBuf,
+    /// Output folder.
+    #[arg(long, value_name = "DIR", default_value = "demo-out")]
+    out: PathBuf,
+    /// No progress bars.
+    #[arg(long, short)]
+    quiet: bool,
+}
+
+/// Runs `slackmap audit`.
+pub fn run(args: AuditArgs) -> anyhow::Result<()> {
+    run_audit(&args.inputs, &args.counts, &args.analysis)
+}
+
+/// Runs `slackmap demo`: the audit on the bundled scenario.
+pub fn demo(args: DemoArgs) -> anyhow::Result<()> {
+    let d = &args.data;
+    let inputs = InputArgs {
+        layout: d.join("layout.toml"),
+        circuits: d.join("circuits.json"),
+        bit_order: super::inputs::BitOrderArg::AsMeasured,
+        allow_non_native: false,
+        qubit_map: None,
+    };
+    let analysis = AnalysisArgs {
+        model: ModelArg::Depolarizing,
+        alpha: 0.05,
+        action_threshold: 1e-3,
+        null_replicates: 200,
+        seed: 0,
+        threads: None,
+        out: args.out.clone(),
+        quiet: args.quiet,
+    };
+    eprintln!("slackmap demo: auditing the bundled scenario in {}", d.display());
+    run_audit(&inputs, &d.join("counts.csv"), &analysis)
+}
+
+fn run_audit(inputs: &InputArgs, counts: &Path, a: &AnalysisArgs) -> anyhow::Result<()> {
+    if let Some(t) = a.threads {
+        rayon::ThreadPoolBuilder::new()
+            .num_threads(t.max(1))
+            .build_global()
+            .context("could not start the worker threads")?;
+    }
+    let loaded = inputs.load(Some(counts))?;
+    let counts = loaded.counts.as_ref().context("counts were not read")?;
+    let cfg = AuditConfig {
+        family: a.model.family(),
+        alpha: a.alpha,
+        action_threshold_tvd_per_layer: a.action_threshold,
+        null_replicates: a.null_replicates,
+        seed: a.seed,
+        bit_order: inputs.bit_order.label().to_string(),
+        inputs: loaded.files.clone(),
+    };
+    let stop = Arc::new(AtomicBool::new(false));
+    {
+        let stop = stop.clone();
+        let _ = ctrlc::set_handler(move || stop.store(true, std::sync::atomic::Ordering::SeqCst));
+    }
+    let bar = Bar::new(a.quiet);
+    let progress = Cancel { inner: &bar, flag: &stop };
+    let mut rep = audit::run(&loaded.layout, &loaded.circuits, counts, &cfg, &progress)?;
+    bar.finish();
+    for w in &loaded.warnings {
+        rep.warnings.insert(0, w.into());
+    }
+    let files = report::audit_files(&rep);
+    report::write_folder(&a.out, &files)?;
+    let color = std::io::stdout().is_terminal() && std::env::var_os("NO_COLOR").is_none();
+    let text = terminal::render(&rep, &terminal::TerminalOptions { color, ..Default::default() });
+    let mut out = std::io::stdout().lock();
+    out.write_all(text.as_bytes())?;
+    let main_file = if files.iter().any(|(n, _)| n == "report.html") { "report.html" } else { "audit.json" };
+    writeln!(out, "\nWrote {}", a.out.join(main_file).display())?;
+    Ok(())
+}

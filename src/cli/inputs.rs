@@ -1,0 +1,114 @@
+//! The input options shared by `check` and `audit`, and loading them once.
+
+use std::path::{Path, PathBuf};
+
+use anyhow::Context;
+use sha2::{Digest, Sha256};
+
+use slackmap::circuit::qasm::QubitMap;
+use slackmap::circuit::validate::{read_circuits, ReadOptions};
+use slackmap::circuit::CircuitSet;
+use slackmap::counts::{read_counts, BitOrder, Counts, CountsOptions};
+use slackmap::layout::{read_layout, Layout};
+use slackmap::report::InputFile;
+use slackmap::Warning;
+
+/// How outcome strings in a counts file are ordered.
+#[derive(clap::ValueEnum, Clone, Copy, Debug, PartialEq, Eq)]
+pub enum BitOrderArg {
+    /// Character i of an outcome is the i-th measured qubit of its circuit.
+    AsMeasured,
+    /// Character i is the i-th measured qubit counted from the end (the other common
+    /// convention).
+    Reversed,
+}
+
+impl BitOrderArg {
+    /// The label recorded in reports.
+    pub fn label(self) -> &'static str {
+        match self {
+            BitOrderArg::AsMeasured => "as-measured",
+            BitOrderArg::Reversed => "reversed",
+        }
+    }
+}
+
+/// Where the data is.
+#[derive(clap::Args, Debug, Clone)]
+pub struct InputArgs {
+    /// Layout file (TOML; see the README, "Layout files").
+    #[arg(long, value_name = "FILE")]
+    pub layout: PathBuf,
+    /// Circuits: a .json file in slackmap's format, a .qasm file, or a folder of .qasm files.
+    #[arg(long, value_name = "PATH")]
+    pub circuits: PathBuf,
+    /// Order of the characters of each outcome string in the counts file: by default
+    /// character i is the i-th measured qubit of the circuit.
+    #[arg(long, value_enum, default_value = "as-measured")]
+    pub bit_order: BitOrderArg,
+    /// Accept gates that are not native on the layout.
+    #[arg(long)]
+    pub allow_non_native: bool,
+    /// Where declared OpenQASM qubits sit on the layout: `q[0]=q3,q[1]=q4`, or a file of
+    /// such entries.
+    #[arg(long, value_name = "MAP|FILE")]
+    pub qubit_map: Option<String>,
+}
+
+/// Loaded, validated inputs.
+pub struct Inputs {
+    pub layout: Layout,
+    pub circuits: CircuitSet,
+    pub counts: Option<Counts>,
+    pub warnings: Vec<Warning>,
+    pub files: Vec<InputFile>,
+}
+
+impl InputArgs {
+    /// Reads layout, circuits and (when given) counts, validating them together.
+    pub fn load(&self, counts: Option<&Path>) -> anyhow::Result<Inputs> {
+        let layout = read_layout(&self.layout)?;
+        let qubit_map = self.qubit_map.as_deref().map(QubitMap::from_arg).transpose()?;
+        let opts = ReadOptions { allow_non_native: self.allow_non_native, qubit_map };
+        let circuits = read_circuits(&self.circuits, &layout, &opts)?;
+        let mut files = vec![digest("layout", &self.layout)?, digest("circuits", &self.circuits)?];
+        let mut warnings = Vec::new();
+        let counts = match counts {
+            Some(p) => {
+                let bit_order = match self.bit_order {
+                    BitOrderArg::AsMeasured => BitOrder::AsMeasured,
+                    BitOrderArg::Reversed => BitOrder::Reversed,
+                };
+                let (c, w) = read_counts(p, &circuits, &CountsOptions { bit_order })?;
+                warnings.extend(w);
+                files.push(digest("counts", p)?);
+                Some(c)
+            }
+            None => None,
+        };
+        Ok(Inputs { layout, circuits, counts, warnings, files })
+    }
+}
+
+/// SHA-256 of a file, or of a folder's files concatenated in name order.
+pub fn digest(role: &str, path: &Path) -> anyhow::Result<InputFile> {
+    let mut h = Sha256::new();
+    let mut files = Vec::new();
+    if path.is_dir() {
+        let mut v: Vec<PathBuf> = std::fs::read_dir(path)
+            .with_context(|| format!("reading folder {}", path.display()))?
+            .filter_map(|e| e.ok().map(|e| e.path()))
+            .filter(|p| p.is_file())
+            .collect();
+        v.sort();
+        files.extend(v);
+    } else {
+        files.push(path.to_path_buf());
+    }
+    for f in &files {
+        let mut file = std::fs::File::open(f).map_err(|e| slackmap::Error::io(f, e))?;
+        std::io::copy(&mut file, &mut h).map_err(|e| slackmap::Error::io(f, e))?;
+    }
+    let hex: String = h.finalize().iter().map(|b| format!("{b:02x}")).collect();
+    Ok(InputFile { role: role.to_string(), path: path.display().to_string(), sha256: hex })
+}
