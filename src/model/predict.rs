@@ -702,4 +702,29 @@ pub(crate) mod tests {
         r.steps = vec![Step::Local([Some(Action::occurrence(Gate::Sx, 0.0, 99)), None])];
         assert!(PreparedRow::new(&r, &s).is_err());
     }
+
+    proptest::proptest! {
+        /// Whatever raw coordinates the optimiser tries, every channel stays CPTP, so every
+        /// prediction is a probability distribution.
+        #[test]
+        fn predictions_stay_in_the_simplex(seed in 0u64..1000, spread in 0.0f64..25.0, fam in 0usize..3) {
+            let family = [Family::Depolarizing, Family::Pauli, Family::PauliCoherent][fam];
+            let mut rng = ChaCha8Rng::seed_from_u64(seed);
+            let n = 1 + (seed % 2) as usize;
+            let row = PreparedRow::new(&random_row(n, 12, &mut rng), &spec(family)).unwrap();
+            let mut params = random_params(family, &mut rng);
+            for k in &mut params.kinds {
+                for x in k.raw_mut() {
+                    *x = rng.random_range(-spread..=spread);
+                }
+            }
+            for r in &mut params.readout {
+                r.raw = [rng.random_range(-spread..=spread), rng.random_range(-spread..=spread)];
+            }
+            let p = predict(&row, &params).probs;
+            let total: f64 = p.iter().sum();
+            proptest::prop_assert!((total - 1.0).abs() < 1e-9);
+            proptest::prop_assert!(p.iter().all(|&x| x > -1e-12 && x < 1.0 + 1e-12), "{:?}", p);
+        }
+    }
 }
