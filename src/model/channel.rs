@@ -91,6 +91,9 @@ pub struct ChannelEval {
     pub e: Ptm,
     /// dE / d raw_i.
     pub de: Vec<Ptm>,
+    /// True when E and every dE are diagonal (the incoherent families), which lets row
+    /// evaluation skip the matrix products.
+    pub diagonal: bool,
 }
 
 impl KindParams {
@@ -268,9 +271,11 @@ impl KindParams {
         let diag = |v: &[f64]| Ptm::from_fn(dim, dim, |i, j| if i == j { v[i] } else { 0.0 });
         let dlam: Vec<Vec<f64>> = dprobs.iter().map(|dp| ptm::pauli_eigenvalues(n, dp)).collect();
         match self.family {
-            Family::Depolarizing | Family::Pauli => {
-                ChannelEval { e: diag(&lam), de: dlam.iter().map(|d| diag(d)).collect() }
-            }
+            Family::Depolarizing | Family::Pauli => ChannelEval {
+                e: diag(&lam),
+                de: dlam.iter().map(|d| diag(d)).collect(),
+                diagonal: true,
+            },
             Family::PauliCoherent => {
                 let m = dim - 1;
                 let gens: Vec<CMat> = (1..dim).map(|p| ptm::pauli(n, p)).collect();
@@ -280,7 +285,7 @@ impl KindParams {
                 let e = &d * &rv;
                 let mut de: Vec<Ptm> = dlam.iter().take(m).map(|dl| diag(dl) * &rv).collect();
                 de.extend(dv.iter().map(|dvj| &d * ptm::unitary_ptm_derivative(&v, dvj)));
-                ChannelEval { e, de }
+                ChannelEval { e, de, diagonal: false }
             }
         }
     }

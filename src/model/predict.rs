@@ -338,6 +338,15 @@ fn apply(e: &Ptm, place: Place, v: &DVector<f64>, out: &mut DVector<f64>) {
     }
 }
 
+/// The diagonal entry of a (possibly slot-embedded) diagonal channel acting on index i.
+fn diag_index(place: Place, i: usize) -> usize {
+    match place {
+        Place::Full => i,
+        Place::Slot(0) => i & 3,
+        Place::Slot(_) => i >> 2,
+    }
+}
+
 /// Readout confusion of one slot: c[x][y] = P(read x | true y).
 fn confusion(e: [f64; 2]) -> [[f64; 2]; 2] {
     [[1.0 - e[0], e[1]], [e[0], 1.0 - e[1]]]
@@ -361,7 +370,14 @@ fn ideal_ptm(c: &Compiled, ch: &Channels, want_grad: bool) -> Ideal {
         if want_grad {
             states.push(s.clone());
         }
-        apply(&ch.get(c.kinds[seg.local]).e, seg.place, &s, &mut tmp);
+        let ev = ch.get(c.kinds[seg.local]);
+        if ev.diagonal {
+            for i in 0..dim {
+                tmp[i] = ev.e[(diag_index(seg.place, i), diag_index(seg.place, i))] * s[i];
+            }
+        } else {
+            apply(&ev.e, seg.place, &s, &mut tmp);
+        }
         match &seg.after {
             Some(m) => s.gemv(1.0, m, &tmp, 0.0),
             None => std::mem::swap(&mut s, &mut tmp),
@@ -383,8 +399,26 @@ fn ideal_ptm(c: &Compiled, ch: &Channels, want_grad: bool) -> Ideal {
             ltmp.gemm(1.0, &l, m, 0.0);
             std::mem::swap(&mut l, &mut ltmp);
         }
-        let e = &ch.get(c.kinds[seg.local]).e;
+        let ev = ch.get(c.kinds[seg.local]);
+        let e = &ev.e;
         let g = &mut grad[seg.local];
+        if ev.diagonal {
+            // Only the diagonal of dq/dE meets a diagonal dE.
+            for (y, gy) in g.iter_mut().enumerate() {
+                for i in 0..dim {
+                    let a = diag_index(seg.place, i);
+                    gy[(a, a)] += l[(y, i)] * sj[i];
+                }
+            }
+            for y in 0..k_out {
+                for i in 0..dim {
+                    let a = diag_index(seg.place, i);
+                    ltmp[(y, i)] = l[(y, i)] * e[(a, a)];
+                }
+            }
+            std::mem::swap(&mut l, &mut ltmp);
+            continue;
+        }
         match seg.place {
             Place::Full => {
                 for (y, gy) in g.iter_mut().enumerate() {
@@ -552,13 +586,15 @@ fn predict_path(row: &PreparedRow, params: &Params, ch: &Channels, counted: bool
 }
 
 /// A row's outcome distribution under `params` and its Jacobian with respect to the raw
-/// coordinates of the row's kinds and readouts.
+/// coordinates of the row's kinds and readouts. `params` must have the shape of the
+/// [`ModelSpec`] the row was prepared with (see [`Params::matches`]).
 pub fn predict(row: &PreparedRow, params: &Params) -> Prediction {
     let ch = Channels::new(std::iter::once(row), params);
     predict_with(row, params, &ch)
 }
 
-/// Outcome distributions of every row (reference and context rows alike).
+/// Outcome distributions of every row (reference and context rows alike); same
+/// precondition as [`predict`].
 pub fn predict_all(rows: &[PreparedRow], params: &Params) -> Vec<Vec<f64>> {
     let ch = Channels::new(rows, params);
     rows.iter().map(|r| probabilities_with(r, params, &ch)).collect()
