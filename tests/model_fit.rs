@@ -410,4 +410,27 @@ fn timing_figures() {
     let t = Instant::now();
     let warm = fit_qubit(&data, &s, Some(&point.params), &FitOptions::default()).unwrap();
     println!("cold fit {:?}, warm refit {:?} ({} steps)", first, t.elapsed(), warm.iterations);
+    // A bootstrap-like replicate: counts resampled from the observed frequencies.
+    let replicate: Vec<PreparedRow> = data
+        .iter()
+        .map(|r| {
+            let n = r.shots();
+            let f: Vec<f64> = r.counts().iter().map(|&c| c as f64 / n as f64).collect();
+            r.with_counts(sample(&f, n, &mut rng)).unwrap()
+        })
+        .collect();
+    for fam in [Family::Depolarizing, Family::Pauli] {
+        let s = spec(fam);
+        let point = fit_qubit(&data, &s, None, &FitOptions::default()).unwrap();
+        let t = Instant::now();
+        let refit = fit_qubit(&replicate, &s, Some(&point.params), &FitOptions::default()).unwrap();
+        println!(
+            "replicate refit {}: {:?} ({} steps, converged {}) {:?}",
+            fam.name(),
+            t.elapsed(),
+            refit.iterations,
+            refit.converged,
+            refit.warnings
+        );
+    }
 }

@@ -132,6 +132,10 @@ pub fn llr(counts: &[u64], probs: &[f64]) -> f64 {
         .sum()
 }
 
+/// Bound on logistic and softmax raw coordinates: rates stay above about 1e-12, where the
+/// likelihood is flat anyway, instead of running off to -infinity.
+const RAW_LIMIT: f64 = 27.0;
+
 /// Probabilities are floored here only inside logarithms, so that an impossible outcome
 /// gives a huge but finite penalty instead of NaN.
 const PROB_FLOOR: f64 = 1e-300;
@@ -175,6 +179,9 @@ pub fn fit_coupler(
 /// The free raw coordinates and the block structure of the natural-coordinate map.
 struct Coords {
     refs: Vec<ParamRef>,
+    /// False for coherent angles; true for logistic and softmax coordinates, which are
+    /// kept within +-[`RAW_LIMIT`] so that d natural / d raw stays invertible.
+    bounded: Vec<bool>,
     index: HashMap<ParamRef, usize>,
     kinds: Vec<KindIx>,
     qubits: Vec<QubitIx>,
@@ -209,7 +216,16 @@ impl Coords {
             refs.extend((0..2).map(|index| ParamRef::Readout { qubit, index }));
         }
         let index = refs.iter().enumerate().map(|(i, r)| (*r, i)).collect();
-        Coords { refs, index, kinds, qubits }
+        let bounded = refs
+            .iter()
+            .map(|r| match *r {
+                ParamRef::Kind { kind, index } => params.kinds[kind]
+                    .coherent_angles()
+                    .is_none_or(|h| index < params.kinds[kind].raw().len() - h.len()),
+                ParamRef::Readout { .. } => true,
+            })
+            .collect();
+        Coords { refs, bounded, index, kinds, qubits }
     }
 
     fn get(&self, p: &Params) -> DVector<f64> {
@@ -400,7 +416,12 @@ pub fn fit(
                 continue;
             };
             let step = &t * (&basis * step_red);
-            let trial_x = &x + &step;
+            let mut trial_x = &x + &step;
+            for (v, &b) in trial_x.iter_mut().zip(&coords.bounded) {
+                if b {
+                    *v = v.clamp(-RAW_LIMIT, RAW_LIMIT);
+                }
+            }
             let mut trial = params.clone();
             coords.set(&mut trial, &trial_x);
             let probe_eval = evaluate(rows, &trial, &coords, false);
