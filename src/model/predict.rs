@@ -1,0 +1,766 @@
+//! Row predictions with analytic derivatives.
+//!
+//! A row is compiled once into its ideal segments between error channels ([`PreparedRow`]);
+//! every evaluation then runs a forward pass over the transfer-matrix product and a
+//! backward pass that collects, per kind, d p / d E = sum_t l_t s_t^T, contracted with each
+//! dE/dtheta once per row. Under `depolarizing`, a one-qubit row needs only its occurrence
+//! count per kind and its ideal outcome, because a depolarizing channel commutes with every
+//! one-qubit unitary (method.md section 8).
+
+use std::collections::HashMap;
+use std::sync::Arc;
+
+use nalgebra::{DMatrix, DVector};
+
+use super::channel::{ChannelEval, Family, KindIx, ModelSpec, Params};
+use super::ptm::{self, Ptm};
+use super::{Action, Row, Step};
+use crate::layout::QubitIx;
+use crate::{Error, Result};
+
+/// Where an error channel acts in its block.
+#[derive(Copy, Clone, Debug, PartialEq, Eq)]
+enum Place {
+    /// On the whole block (a one-qubit row, or a two-qubit kind on a pair).
+    Full,
+    /// A one-qubit kind on one slot of a two-qubit block.
+    Slot(usize),
+}
+
+/// One error channel in a compiled row, and the ideal product that follows it.
+#[derive(Clone, Debug)]
+struct Seg {
+    /// Index into the row's distinct kinds.
+    local: usize,
+    place: Place,
+    /// Ideal transfer matrix up to (and including) the next occurrence's gate; `None` = I.
+    after: Option<Ptm>,
+}
+
+/// The parts of a row that do not depend on its counts.
+#[derive(Debug)]
+struct Compiled {
+    n_slots: usize,
+    readout: Vec<QubitIx>,
+    kinds: Vec<KindIx>,
+    /// State just before the first error channel (or the final state without any).
+    s0: DVector<f64>,
+    segs: Vec<Seg>,
+    functionals: DMatrix<f64>,
+    /// Occurrences per kind (aligned with `kinds`), for the counted fast path.
+    occurrences: Vec<u32>,
+    /// Ideal <Z> of a one-qubit row, for the counted fast path.
+    z_ideal: f64,
+}
+
+/// A validated, compiled row: cheap to clone, and [`PreparedRow::with_counts`] reuses the
+/// compiled program (bootstrap replicates differ only in counts).
+#[derive(Clone, Debug)]
+pub struct PreparedRow {
+    compiled: Arc<Compiled>,
+    counts: Vec<u64>,
+}
+
+/// Identifies one raw coordinate of the model.
+#[derive(Copy, Clone, Debug, PartialEq, Eq, Hash, PartialOrd, Ord)]
+pub enum ParamRef {
+    /// Raw coordinate `index` of kind `kind`'s error channel.
+    Kind {
+        /// The kind.
+        kind: KindIx,
+        /// Coordinate within the kind.
+        index: usize,
+    },
+    /// Raw coordinate `index` (0: P(1|0), 1: P(0|1)) of a qubit's readout.
+    Readout {
+        /// The qubit.
+        qubit: QubitIx,
+        /// 0 or 1.
+        index: usize,
+    },
+}
+
+/// A row's predicted outcome distribution and its Jacobian with respect to the raw
+/// coordinates the row depends on.
+#[derive(Clone, Debug)]
+pub struct Prediction {
+    /// Outcome probabilities (bit j of the index = slot j).
+    pub probs: Vec<f64>,
+    /// The coordinate of each Jacobian column.
+    pub columns: Vec<ParamRef>,
+    /// d probs[x] / d columns[c] at (x, c).
+    pub jacobian: DMatrix<f64>,
+}
+
+type PtmCache = HashMap<(crate::gate::Gate, u64, bool), Ptm>;
+
+fn gate_ptm(cache: &mut PtmCache, a: &Action, reversed: bool) -> Result<Ptm> {
+    let key = (a.gate, a.angle.to_bits(), reversed);
+    if let Some(m) = cache.get(&key) {
+        return Ok(m.clone());
+    }
+    let u = ptm::gate_unitary(a.gate, a.angle, reversed)
+        .ok_or_else(|| Error::Analysis(format!("gate {} has no unitary", a.gate)))?;
+    let m = ptm::unitary_ptm(&u);
+    cache.insert(key, m.clone());
+    Ok(m)
+}
+
+fn times(pending: Option<Ptm>, step: &Ptm) -> Option<Ptm> {
+    Some(match pending {
+        None => step.clone(),
+        Some(p) => step * p,
+    })
+}
+
+impl PreparedRow {
+    /// Validates `row` against `spec` and compiles it.
+    pub fn new(row: &Row, spec: &ModelSpec) -> Result<PreparedRow> {
+        let n = row.readout.len();
+        let bad = |m: String| Err(Error::Analysis(format!("row program: {m}")));
+        if n == 0 || n > 2 {
+            return bad(format!("a row has 1 or 2 slots, not {n}"));
+        }
+        if n == 2 && row.readout[0] == row.readout[1] {
+            return bad(format!("both slots read out qubit {}", row.readout[0]));
+        }
+        if let Some(&q) = row.readout.iter().find(|&&q| q >= spec.n_qubits) {
+            return bad(format!("readout qubit {q} is outside the {} qubits", spec.n_qubits));
+        }
+        if row.counts.len() != 1 << n {
+            return bad(format!(
+                "a {n}-slot row has {} outcomes, got {} counts",
+                1 << n,
+                row.counts.len()
+            ));
+        }
+        let check_kind = |k: KindIx, arity: usize| -> Result<()> {
+            match spec.kind_arity.get(k) {
+                Some(&a) if a == arity => Ok(()),
+                Some(&a) => Err(Error::Analysis(format!(
+                    "row program: kind {k} acts on {a} qubit(s) but is used on {arity}"
+                ))),
+                None => Err(Error::Analysis(format!(
+                    "row program: kind {k} is not in the table of {} kinds",
+                    spec.kind_arity.len()
+                ))),
+            }
+        };
+        let dim = ptm::pauli_dim(n);
+        let r0 = ptm::zero_state(n);
+        let mut cache = PtmCache::new();
+        let mut kinds: Vec<KindIx> = Vec::new();
+        let mut occurrences: Vec<u32> = Vec::new();
+        let mut segs: Vec<Seg> = Vec::new();
+        let mut s0: Option<DVector<f64>> = None;
+        let mut pending: Option<Ptm> = None;
+        let mut ideal = r0.clone();
+        let mut push = |k: KindIx,
+                        place: Place,
+                        pending: &mut Option<Ptm>,
+                        segs: &mut Vec<Seg>,
+                        s0: &mut Option<DVector<f64>>| {
+            let local = match kinds.iter().position(|&x| x == k) {
+                Some(i) => i,
+                None => {
+                    kinds.push(k);
+                    occurrences.push(0);
+                    kinds.len() - 1
+                }
+            };
+            occurrences[local] += 1;
+            let p = pending.take();
+            match segs.last_mut() {
+                Some(last) => last.after = p,
+                None => *s0 = Some(p.map_or_else(|| r0.clone(), |m| m * &r0)),
+            }
+            segs.push(Seg { local, place, after: None });
+        };
+        for (t, step) in row.steps.iter().enumerate() {
+            match step {
+                Step::Local(acts) => {
+                    if n == 1 && acts[1].is_some() {
+                        return bad(format!("layer {t}: slot 1 used in a one-qubit row"));
+                    }
+                    let mut per_slot: Vec<Ptm> = Vec::with_capacity(2);
+                    for a in acts.iter().take(n) {
+                        match a {
+                            Some(a) => {
+                                if a.gate.arity() != 1 || !a.angle.is_finite() {
+                                    return bad(format!(
+                                        "layer {t}: {} (angle {}) is not a one-qubit gate",
+                                        a.gate, a.angle
+                                    ));
+                                }
+                                if let Some(k) = a.kind {
+                                    check_kind(k, 1)?;
+                                }
+                                per_slot.push(gate_ptm(&mut cache, a, false)?);
+                            }
+                            None => per_slot.push(Ptm::identity(4, 4)),
+                        }
+                    }
+                    let m = if n == 1 {
+                        per_slot.swap_remove(0)
+                    } else {
+                        ptm::kron(&per_slot[0], &per_slot[1])
+                    };
+                    ideal = &m * ideal;
+                    pending = times(pending, &m);
+                    for (slot, a) in acts.iter().enumerate().take(n) {
+                        if let Some(k) = a.and_then(|a| a.kind) {
+                            let place = if n == 1 { Place::Full } else { Place::Slot(slot) };
+                            push(k, place, &mut pending, &mut segs, &mut s0);
+                        }
+                    }
+                }
+                Step::Joint { action, reversed } => {
+                    if n != 2 || action.gate.arity() != 2 {
+                        return bad(format!(
+                            "layer {t}: two-qubit step {} in a {n}-slot row",
+                            action.gate
+                        ));
+                    }
+                    if let Some(k) = action.kind {
+                        check_kind(k, 2)?;
+                    }
+                    let m = gate_ptm(&mut cache, action, *reversed)?;
+                    ideal = &m * ideal;
+                    pending = times(pending, &m);
+                    if let Some(k) = action.kind {
+                        push(k, Place::Full, &mut pending, &mut segs, &mut s0);
+                    }
+                }
+            }
+        }
+        match segs.last_mut() {
+            Some(last) => last.after = pending,
+            None => s0 = Some(pending.map_or_else(|| r0.clone(), |m| m * &r0)),
+        }
+        let z_ideal = if n == 1 { ideal[3] } else { 0.0 };
+        let compiled = Compiled {
+            n_slots: n,
+            readout: row.readout.clone(),
+            kinds,
+            s0: s0.unwrap_or_else(|| DVector::zeros(dim)),
+            segs,
+            functionals: ptm::outcome_functionals(n),
+            occurrences,
+            z_ideal,
+        };
+        Ok(PreparedRow { compiled: Arc::new(compiled), counts: row.counts.clone() })
+    }
+
+    /// The same program with other counts (same number of outcomes).
+    pub fn with_counts(&self, counts: Vec<u64>) -> Result<PreparedRow> {
+        if counts.len() != self.counts.len() {
+            return Err(Error::Analysis(format!(
+                "row program: {} counts for a row with {} outcomes",
+                counts.len(),
+                self.counts.len()
+            )));
+        }
+        Ok(PreparedRow { compiled: Arc::clone(&self.compiled), counts })
+    }
+
+    /// Shots per outcome.
+    pub fn counts(&self) -> &[u64] {
+        &self.counts
+    }
+
+    /// Total shots.
+    pub fn shots(&self) -> u64 {
+        self.counts.iter().sum()
+    }
+
+    /// Number of slots (1 or 2).
+    pub fn n_slots(&self) -> usize {
+        self.compiled.n_slots
+    }
+
+    /// The distinct kinds with an occurrence in this row, in order of first occurrence.
+    pub fn kinds(&self) -> &[KindIx] {
+        &self.compiled.kinds
+    }
+
+    /// Occurrences of each of [`PreparedRow::kinds`].
+    pub fn occurrences(&self) -> &[u32] {
+        &self.compiled.occurrences
+    }
+
+    /// Readout qubit per slot.
+    pub fn readout(&self) -> &[QubitIx] {
+        &self.compiled.readout
+    }
+}
+
+/// Channels of the kinds a set of rows needs, built once per parameter point.
+pub(crate) struct Channels {
+    by_kind: HashMap<KindIx, ChannelEval>,
+}
+
+impl Channels {
+    /// Builds the channels of every kind appearing in `rows`.
+    pub(crate) fn new<'a>(
+        rows: impl IntoIterator<Item = &'a PreparedRow>,
+        params: &Params,
+    ) -> Channels {
+        let mut by_kind = HashMap::new();
+        for r in rows {
+            for &k in r.kinds() {
+                by_kind.entry(k).or_insert_with(|| params.kinds[k].channel());
+            }
+        }
+        Channels { by_kind }
+    }
+
+    fn get(&self, k: KindIx) -> &ChannelEval {
+        &self.by_kind[&k]
+    }
+}
+
+/// (E (x) I) v or (I (x) E) v on a two-qubit state.
+fn apply_slot(e: &Ptm, slot: usize, v: &DVector<f64>, out: &mut DVector<f64>) {
+    for i in 0..16 {
+        let (a, b) = (i & 3, i >> 2);
+        out[i] = if slot == 0 {
+            (0..4).map(|x| e[(a, x)] * v[x + 4 * b]).sum()
+        } else {
+            (0..4).map(|x| e[(b, x)] * v[a + 4 * x]).sum()
+        };
+    }
+}
+
+fn apply(e: &Ptm, place: Place, v: &DVector<f64>, out: &mut DVector<f64>) {
+    match place {
+        Place::Full => out.gemv(1.0, e, v, 0.0),
+        Place::Slot(s) => apply_slot(e, s, v, out),
+    }
+}
+
+/// The diagonal entry of a (possibly slot-embedded) diagonal channel acting on index i.
+fn diag_index(place: Place, i: usize) -> usize {
+    match place {
+        Place::Full => i,
+        Place::Slot(0) => i & 3,
+        Place::Slot(_) => i >> 2,
+    }
+}
+
+/// Readout confusion of one slot: c[x][y] = P(read x | true y).
+fn confusion(e: [f64; 2]) -> [[f64; 2]; 2] {
+    [[1.0 - e[0], e[1]], [e[0], 1.0 - e[1]]]
+}
+
+/// Ideal (pre-readout) outcome distribution and, if asked, dq/dE per local kind and outcome.
+struct Ideal {
+    q: Vec<f64>,
+    /// `grad[local][y]`: d q_y / d E (4x4 or 16x16, in the kind's own space).
+    grad: Vec<Vec<Ptm>>,
+}
+
+fn ideal_ptm(c: &Compiled, ch: &Channels, want_grad: bool) -> Ideal {
+    let dim = c.s0.len();
+    let k_out = c.functionals.nrows();
+    let mut s = c.s0.clone();
+    let mut tmp = DVector::zeros(dim);
+    let mut states: Vec<DVector<f64>> =
+        Vec::with_capacity(if want_grad { c.segs.len() } else { 0 });
+    for seg in &c.segs {
+        if want_grad {
+            states.push(s.clone());
+        }
+        let ev = ch.get(c.kinds[seg.local]);
+        if ev.diagonal {
+            for i in 0..dim {
+                tmp[i] = ev.e[(diag_index(seg.place, i), diag_index(seg.place, i))] * s[i];
+            }
+        } else {
+            apply(&ev.e, seg.place, &s, &mut tmp);
+        }
+        match &seg.after {
+            Some(m) => s.gemv(1.0, m, &tmp, 0.0),
+            None => std::mem::swap(&mut s, &mut tmp),
+        }
+    }
+    let qv = &c.functionals * &s;
+    let q: Vec<f64> = qv.iter().copied().collect();
+    if !want_grad {
+        return Ideal { q, grad: Vec::new() };
+    }
+    let kdim = |local: usize| ch.get(c.kinds[local]).e.nrows();
+    let mut grad: Vec<Vec<Ptm>> =
+        (0..c.kinds.len()).map(|l| vec![Ptm::zeros(kdim(l), kdim(l)); k_out]).collect();
+    // l holds the backward functionals as rows (one per ideal outcome).
+    let mut l = c.functionals.clone();
+    let mut ltmp = DMatrix::zeros(k_out, dim);
+    for (seg, sj) in c.segs.iter().zip(&states).rev() {
+        if let Some(m) = &seg.after {
+            ltmp.gemm(1.0, &l, m, 0.0);
+            std::mem::swap(&mut l, &mut ltmp);
+        }
+        let ev = ch.get(c.kinds[seg.local]);
+        let e = &ev.e;
+        let g = &mut grad[seg.local];
+        if ev.diagonal {
+            // Only the diagonal of dq/dE meets a diagonal dE.
+            for (y, gy) in g.iter_mut().enumerate() {
+                for i in 0..dim {
+                    let a = diag_index(seg.place, i);
+                    gy[(a, a)] += l[(y, i)] * sj[i];
+                }
+            }
+            for y in 0..k_out {
+                for i in 0..dim {
+                    let a = diag_index(seg.place, i);
+                    ltmp[(y, i)] = l[(y, i)] * e[(a, a)];
+                }
+            }
+            std::mem::swap(&mut l, &mut ltmp);
+            continue;
+        }
+        match seg.place {
+            Place::Full => {
+                for (y, gy) in g.iter_mut().enumerate() {
+                    gy.ger(1.0, &l.row(y).transpose(), sj, 1.0);
+                }
+                ltmp.gemm(1.0, &l, e, 0.0);
+            }
+            Place::Slot(slot) => {
+                for (y, gy) in g.iter_mut().enumerate() {
+                    for i in 0..16 {
+                        let li = l[(y, i)];
+                        if li == 0.0 {
+                            continue;
+                        }
+                        let (a, b) = (i & 3, i >> 2);
+                        for x in 0..4 {
+                            if slot == 0 {
+                                gy[(a, x)] += li * sj[x + 4 * b];
+                            } else {
+                                gy[(b, x)] += li * sj[a + 4 * x];
+                            }
+                        }
+                    }
+                }
+                for y in 0..k_out {
+                    for j in 0..16 {
+                        let (a, b) = (j & 3, j >> 2);
+                        ltmp[(y, j)] = if slot == 0 {
+                            (0..4).map(|x| l[(y, x + 4 * b)] * e[(x, a)]).sum()
+                        } else {
+                            (0..4).map(|x| l[(y, a + 4 * x)] * e[(x, b)]).sum()
+                        };
+                    }
+                }
+            }
+        }
+        std::mem::swap(&mut l, &mut ltmp);
+    }
+    Ideal { q, grad }
+}
+
+/// The counted fast path: one-qubit row, depolarizing family.
+/// <Z> = z_ideal prod_k lambda_k^{n_k}; returns q and d q_0 / d lambda_k per local kind.
+fn ideal_counted(c: &Compiled, ch: &Channels) -> (Vec<f64>, Vec<f64>) {
+    let lam: Vec<f64> = c.kinds.iter().map(|&k| ch.get(k).e[(1, 1)]).collect();
+    let pw: Vec<f64> = lam.iter().zip(&c.occurrences).map(|(l, &n)| l.powi(n as i32)).collect();
+    let z = c.z_ideal * pw.iter().product::<f64>();
+    let dq0 = (0..lam.len())
+        .map(|i| {
+            let others: f64 =
+                pw.iter().enumerate().filter(|&(j, _)| j != i).map(|(_, p)| p).product();
+            let n = c.occurrences[i] as i32;
+            0.5 * c.z_ideal * others * n as f64 * lam[i].powi(n - 1)
+        })
+        .collect();
+    (vec![0.5 * (1.0 + z), 0.5 * (1.0 - z)], dq0)
+}
+
+fn uses_counted_path(c: &Compiled, params: &Params) -> bool {
+    c.n_slots == 1 && params.family == Family::Depolarizing
+}
+
+/// Applies readout to q; returns p and, if asked, dp/de for (slot, which) pairs.
+fn with_readout(c: &Compiled, params: &Params, q: &[f64]) -> (Vec<f64>, Vec<[Vec<f64>; 2]>) {
+    let n = c.n_slots;
+    let conf: Vec<[[f64; 2]; 2]> =
+        c.readout.iter().map(|&r| confusion(params.readout[r].errors())).collect();
+    let k = q.len();
+    let mut p = vec![0.0; k];
+    let mut dp: Vec<[Vec<f64>; 2]> = (0..n).map(|_| [vec![0.0; k], vec![0.0; k]]).collect();
+    // dc/de0 and dc/de1 of one slot's confusion.
+    let dconf = [[[-1.0, 0.0], [1.0, 0.0]], [[0.0, 1.0], [0.0, -1.0]]];
+    for x in 0..k {
+        for (y, &qy) in q.iter().enumerate() {
+            let f: Vec<f64> = (0..n).map(|s| conf[s][(x >> s) & 1][(y >> s) & 1]).collect();
+            p[x] += f.iter().product::<f64>() * qy;
+            for s in 0..n {
+                let rest: f64 = (0..n).filter(|&t| t != s).map(|t| f[t]).product();
+                for (w, dc) in dconf.iter().enumerate() {
+                    dp[s][w][x] += rest * dc[(x >> s) & 1][(y >> s) & 1] * qy;
+                }
+            }
+        }
+    }
+    (p, dp)
+}
+
+/// The probabilities of a row, without derivatives (faster).
+pub(crate) fn probabilities_with(row: &PreparedRow, params: &Params, ch: &Channels) -> Vec<f64> {
+    let c = &row.compiled;
+    let q = if uses_counted_path(c, params) {
+        ideal_counted(c, ch).0
+    } else {
+        ideal_ptm(c, ch, false).q
+    };
+    with_readout(c, params, &q).0
+}
+
+/// The prediction of a row with its Jacobian, given prebuilt channels.
+pub(crate) fn predict_with(row: &PreparedRow, params: &Params, ch: &Channels) -> Prediction {
+    predict_path(row, params, ch, uses_counted_path(&row.compiled, params))
+}
+
+fn predict_path(row: &PreparedRow, params: &Params, ch: &Channels, counted: bool) -> Prediction {
+    let c = &row.compiled;
+    let k_out = 1 << c.n_slots;
+    let mut columns = Vec::new();
+    for &k in &c.kinds {
+        for index in 0..params.kinds[k].raw().len() {
+            columns.push(ParamRef::Kind { kind: k, index });
+        }
+    }
+    let n_kind_cols = columns.len();
+    for &qubit in &c.readout {
+        for index in 0..2 {
+            columns.push(ParamRef::Readout { qubit, index });
+        }
+    }
+    // dq[y][col] for kind columns.
+    let mut dq = DMatrix::zeros(k_out, n_kind_cols);
+    let q = if counted {
+        let (q, dq0) = ideal_counted(c, ch);
+        // One raw coordinate per kind under `depolarizing`: column = local kind index.
+        for (col, &k) in c.kinds.iter().enumerate() {
+            let dlam = ch.get(k).de[0][(1, 1)];
+            dq[(0, col)] = dq0[col] * dlam;
+            dq[(1, col)] = -dq0[col] * dlam;
+        }
+        q
+    } else {
+        let ideal = ideal_ptm(c, ch, true);
+        let mut col = 0;
+        for (local, &k) in c.kinds.iter().enumerate() {
+            for de in &ch.get(k).de {
+                for y in 0..k_out {
+                    dq[(y, col)] = de.dot(&ideal.grad[local][y]);
+                }
+                col += 1;
+            }
+        }
+        ideal.q
+    };
+    let (p, dp_read) = with_readout(c, params, &q);
+    let mut jac = DMatrix::zeros(k_out, columns.len());
+    // Readout is linear in q: dp/dtheta = C dq/dtheta; build C column by column.
+    for y in 0..k_out {
+        let mut unit = vec![0.0; k_out];
+        unit[y] = 1.0;
+        let cy = with_readout(c, params, &unit).0;
+        for x in 0..k_out {
+            for col in 0..n_kind_cols {
+                jac[(x, col)] += cy[x] * dq[(y, col)];
+            }
+        }
+    }
+    for (s, &r) in c.readout.iter().enumerate() {
+        let de = params.readout[r].derivatives();
+        for w in 0..2 {
+            for x in 0..k_out {
+                jac[(x, n_kind_cols + 2 * s + w)] = dp_read[s][w][x] * de[w];
+            }
+        }
+    }
+    Prediction { probs: p, columns, jacobian: jac }
+}
+
+/// A row's outcome distribution under `params` and its Jacobian with respect to the raw
+/// coordinates of the row's kinds and readouts. `params` must have the shape of the
+/// [`ModelSpec`] the row was prepared with (see [`Params::matches`]).
+pub fn predict(row: &PreparedRow, params: &Params) -> Prediction {
+    let ch = Channels::new(std::iter::once(row), params);
+    predict_with(row, params, &ch)
+}
+
+/// Outcome distributions of every row (reference and context rows alike); same
+/// precondition as [`predict`].
+pub fn predict_all(rows: &[PreparedRow], params: &Params) -> Vec<Vec<f64>> {
+    let ch = Channels::new(rows, params);
+    rows.iter().map(|r| probabilities_with(r, params, &ch)).collect()
+}
+
+#[cfg(test)]
+pub(crate) mod tests {
+    use super::*;
+    use crate::gate::Gate;
+    use crate::model::channel::KindParams;
+    use crate::model::Readout;
+    use rand::{RngExt, SeedableRng};
+    use rand_chacha::ChaCha8Rng;
+
+    /// A random program: one-qubit rotations and occurrences; on two slots also joint cz
+    /// and cx steps. Kinds: 0 = sx-like on slot 0, 1 = id-like, 2 = on slot 1, 3 = pair.
+    pub(crate) fn random_row(n: usize, layers: usize, rng: &mut ChaCha8Rng) -> Row {
+        let mut steps = Vec::new();
+        let one = |rng: &mut ChaCha8Rng, kinds: [usize; 2]| {
+            let g = [Gate::Sx, Gate::Rz, Gate::H, Gate::Id][rng.random_range(0..4)];
+            let angle = if g == Gate::Rz { rng.random_range(-3.0..3.0) } else { 0.0 };
+            match g {
+                Gate::Rz => Some(Action::ideal(g, angle)),
+                Gate::Id => Some(Action::occurrence(g, 0.0, kinds[1])),
+                _ => Some(Action::occurrence(g, angle, kinds[0])),
+            }
+        };
+        for _ in 0..layers {
+            if n == 2 && rng.random_range(0..3) == 0 {
+                let gate = if rng.random::<bool>() { Gate::Cz } else { Gate::Cx };
+                steps.push(Step::Joint {
+                    action: Action::occurrence(gate, 0.0, 3),
+                    reversed: rng.random(),
+                });
+            } else {
+                let a0 = one(rng, [0, 1]);
+                let a1 = if n == 2 { one(rng, [2, 1]) } else { None };
+                steps.push(Step::Local([a0, a1]));
+            }
+        }
+        let counts = vec![10; 1 << n];
+        Row { steps, readout: (0..n).collect(), counts }
+    }
+
+    pub(crate) fn spec(family: Family) -> ModelSpec {
+        ModelSpec { family, kind_arity: vec![1, 1, 1, 2], n_qubits: 2 }
+    }
+
+    pub(crate) fn random_params(family: Family, rng: &mut ChaCha8Rng) -> Params {
+        let mut p = Params::initial(&spec(family)).unwrap();
+        for k in &mut p.kinds {
+            let rates: Vec<f64> =
+                (1..ptm::pauli_dim(k.arity())).map(|_| rng.random_range(0.001..0.01)).collect();
+            let angles: Vec<f64> = rates.iter().map(|_| rng.random_range(-0.1..0.1)).collect();
+            let base = KindParams::pauli_coherent(k.arity(), &rates, &angles).unwrap();
+            *k = base.convert(family);
+        }
+        p.readout = vec![Readout::new(0.02, 0.05).unwrap(), Readout::new(0.03, 0.01).unwrap()];
+        p
+    }
+
+    fn check_jacobian(family: Family, n: usize, counted: bool) {
+        let mut rng = ChaCha8Rng::seed_from_u64(11 + n as u64);
+        let row = PreparedRow::new(&random_row(n, 30, &mut rng), &spec(family)).unwrap();
+        let params = random_params(family, &mut rng);
+        let ch = Channels::new([&row], &params);
+        let pred = predict_path(&row, &params, &ch, counted);
+        let total: f64 = pred.probs.iter().sum();
+        assert!((total - 1.0).abs() < 1e-12);
+        for (col, r) in pred.columns.iter().enumerate() {
+            let h = 1e-6;
+            let (mut pp, mut pm) = (params.clone(), params.clone());
+            match *r {
+                ParamRef::Kind { kind, index } => {
+                    pp.kinds[kind].raw_mut()[index] += h;
+                    pm.kinds[kind].raw_mut()[index] -= h;
+                }
+                ParamRef::Readout { qubit, index } => {
+                    pp.readout[qubit].raw[index] += h;
+                    pm.readout[qubit].raw[index] -= h;
+                }
+            }
+            let fp = predict_path(&row, &pp, &Channels::new([&row], &pp), counted).probs;
+            let fm = predict_path(&row, &pm, &Channels::new([&row], &pm), counted).probs;
+            for x in 0..fp.len() {
+                let fd = (fp[x] - fm[x]) / (2.0 * h);
+                let an = pred.jacobian[(x, col)];
+                assert!(
+                    (fd - an).abs() < 1e-6 * (1.0 + an.abs()),
+                    "{family:?} n={n} {r:?} x={x}: fd {fd} vs {an}"
+                );
+            }
+        }
+    }
+
+    #[test]
+    fn jacobian_matches_central_differences() {
+        for family in [Family::Depolarizing, Family::Pauli, Family::PauliCoherent] {
+            for n in [1, 2] {
+                check_jacobian(family, n, false);
+            }
+        }
+        check_jacobian(Family::Depolarizing, 1, true);
+    }
+
+    #[test]
+    fn counted_path_equals_transfer_matrix_path() {
+        let mut rng = ChaCha8Rng::seed_from_u64(5);
+        for _ in 0..5 {
+            let row = PreparedRow::new(&random_row(1, 40, &mut rng), &spec(Family::Depolarizing))
+                .unwrap();
+            let params = random_params(Family::Depolarizing, &mut rng);
+            let ch = Channels::new([&row], &params);
+            let a = predict_path(&row, &params, &ch, true);
+            let b = predict_path(&row, &params, &ch, false);
+            for x in 0..2 {
+                assert!((a.probs[x] - b.probs[x]).abs() < 1e-12);
+            }
+            assert!((a.jacobian.clone() - b.jacobian).amax() < 1e-10);
+        }
+    }
+
+    #[test]
+    fn invalid_programs_are_errors() {
+        let s = spec(Family::Pauli);
+        let good = Row { steps: vec![], readout: vec![0], counts: vec![1, 2] };
+        assert!(PreparedRow::new(&good, &s).is_ok());
+        let mut r = good.clone();
+        r.counts = vec![1, 2, 3];
+        assert!(PreparedRow::new(&r, &s).is_err());
+        let mut r = good.clone();
+        r.steps = vec![Step::Local([Some(Action::occurrence(Gate::Sx, 0.0, 3)), None])];
+        assert!(PreparedRow::new(&r, &s).is_err(), "two-qubit kind on one slot");
+        let mut r = good.clone();
+        r.steps = vec![Step::Joint { action: Action::ideal(Gate::Cz, 0.0), reversed: false }];
+        assert!(PreparedRow::new(&r, &s).is_err(), "joint step in one-slot row");
+        let mut r = good.clone();
+        r.readout = vec![7];
+        assert!(PreparedRow::new(&r, &s).is_err());
+        let mut r = good;
+        r.steps = vec![Step::Local([Some(Action::occurrence(Gate::Sx, 0.0, 99)), None])];
+        assert!(PreparedRow::new(&r, &s).is_err());
+    }
+
+    proptest::proptest! {
+        /// Whatever raw coordinates the optimiser tries, every channel stays CPTP, so every
+        /// prediction is a probability distribution.
+        #[test]
+        fn predictions_stay_in_the_simplex(seed in 0u64..1000, spread in 0.0f64..25.0, fam in 0usize..3) {
+            let family = [Family::Depolarizing, Family::Pauli, Family::PauliCoherent][fam];
+            let mut rng = ChaCha8Rng::seed_from_u64(seed);
+            let n = 1 + (seed % 2) as usize;
+            let row = PreparedRow::new(&random_row(n, 12, &mut rng), &spec(family)).unwrap();
+            let mut params = random_params(family, &mut rng);
+            for k in &mut params.kinds {
+                for x in k.raw_mut() {
+                    *x = rng.random_range(-spread..=spread);
+                }
+            }
+            for r in &mut params.readout {
+                r.raw = [rng.random_range(-spread..=spread), rng.random_range(-spread..=spread)];
+            }
+            let p = predict(&row, &params).probs;
+            let total: f64 = p.iter().sum();
+            proptest::prop_assert!((total - 1.0).abs() < 1e-9);
+            proptest::prop_assert!(p.iter().all(|&x| x > -1e-12 && x < 1.0 + 1e-12), "{:?}", p);
+        }
+    }
+}
