@@ -5,6 +5,8 @@ use std::process::ExitCode;
 
 use clap::{Parser, Subcommand};
 
+mod layout;
+
 /// Exit-code documentation shown at the end of `--help`.
 const EXIT_CODES: &str = "Exit codes: 0 success, 1 the analysis failed, 2 bad input or usage.";
 
@@ -17,12 +19,17 @@ pub struct Cli {
 }
 
 #[derive(Subcommand, Debug)]
-enum Command {}
+enum Command {
+    /// Check a layout file, or write a generated one.
+    Layout(layout::LayoutArgs),
+}
 
 /// Runs the CLI and maps the outcome to an exit code.
 pub fn main() -> ExitCode {
     let cli = Cli::parse();
-    let result: anyhow::Result<()> = match cli.command {};
+    let result: anyhow::Result<()> = match cli.command {
+        Command::Layout(args) => layout::run(args),
+    };
     match result {
         Ok(()) => ExitCode::SUCCESS,
         Err(e) => report_error(&e),
