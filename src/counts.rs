@@ -168,8 +168,53 @@ pub fn read_counts_from<R: Read>(
     acc.finish()
 }
 
-/// The rows of one circuit while reading: count and the line it came from, by outcome.
-type OutcomeRows = HashMap<Outcome, (u64, Option<usize>)>;
+/// The rows of one circuit while reading, by outcome. Up to 64 measured qubits the key is
+/// the packed word itself: about 20 bytes an entry instead of about 80 for a boxed
+/// [`Outcome`], which is what lets a file with millions of distinct outcomes be read in
+/// memory close to its own size.
+enum OutcomeRows {
+    Packed(HashMap<u64, u64>),
+    Wide(HashMap<Outcome, u64>),
+}
+
+impl OutcomeRows {
+    fn new(n_measured: usize) -> OutcomeRows {
+        if n_measured <= 64 {
+            OutcomeRows::Packed(HashMap::new())
+        } else {
+            OutcomeRows::Wide(HashMap::new())
+        }
+    }
+
+    /// Inserts; false when the outcome was already there.
+    fn insert(&mut self, bits: impl Iterator<Item = bool>, n: usize, count: u64) -> bool {
+        match self {
+            OutcomeRows::Packed(m) => {
+                let word = bits.enumerate().fold(0u64, |w, (i, b)| w | ((b as u64) << i));
+                m.insert(word, count).is_none()
+            }
+            OutcomeRows::Wide(m) => {
+                let mut v = Vec::with_capacity(n);
+                v.extend(bits);
+                m.insert(Outcome::from_bits(&v), count).is_none()
+            }
+        }
+    }
+
+    /// The rows with a positive count, sorted by outcome.
+    fn into_outcomes(self) -> Vec<(Outcome, u64)> {
+        let mut v: Vec<(Outcome, u64)> = match self {
+            OutcomeRows::Packed(m) => m
+                .into_iter()
+                .filter(|&(_, n)| n > 0)
+                .map(|(w, n)| (Outcome(Box::new([w])), n))
+                .collect(),
+            OutcomeRows::Wide(m) => m.into_iter().filter(|&(_, n)| n > 0).collect(),
+        };
+        v.sort_unstable();
+        v
+    }
+}
 
 /// Collects rows, checking each against its circuit. One `HashMap` per circuit that has
 /// rows, because rows of a circuit may be spread through a file and repeats must be found.
@@ -190,7 +235,7 @@ impl<'a> Accumulator<'a> {
             path,
             circuits,
             reversed: opts.bit_order == BitOrder::Reversed,
-            maps: vec![None; n],
+            maps: (0..n).map(|_| None).collect(),
             totals: vec![0; n],
             first_line: vec![None; n],
             rows: 0,
@@ -220,7 +265,7 @@ impl<'a> Accumulator<'a> {
             ));
         };
         if self.maps[ci].is_none() {
-            self.maps[ci] = Some(HashMap::new());
+            self.maps[ci] = Some(OutcomeRows::new(self.circuits.circuits[ci].measured.len()));
             self.first_line[ci] = line;
         }
         Ok(ci)
@@ -229,7 +274,9 @@ impl<'a> Accumulator<'a> {
     fn add(&mut self, line: Option<usize>, ci: usize, outcome: &str, count: u64) -> Result<()> {
         let c = &self.circuits.circuits[ci];
         let n = c.measured.len();
-        let len = outcome.chars().count();
+        let bytes = outcome.as_bytes();
+        let bad = bytes.iter().position(|&b| b != b'0' && b != b'1');
+        let len = if bad.is_some() { outcome.chars().count() } else { bytes.len() };
         if len != n {
             return Err(self.err(
                 line,
@@ -239,38 +286,36 @@ impl<'a> Accumulator<'a> {
                 ),
             ));
         }
-        let mut bits = Vec::with_capacity(n);
-        for (i, ch) in outcome.chars().enumerate() {
-            match ch {
-                '0' => bits.push(false),
-                '1' => bits.push(true),
-                other => {
-                    return Err(self.err(
-                        line,
-                        format!(
-                        "outcome '{outcome}' is not a bitstring over the {n} measured qubits of \
-                             circuit {} (character {} is {other:?}; only 0 and 1 are allowed)",
-                        c.id,
-                        i + 1
-                    ),
-                    ))
-                }
-            }
+        if bad.is_some() {
+            let (i, ch) = outcome
+                .chars()
+                .enumerate()
+                .find(|&(_, ch)| ch != '0' && ch != '1')
+                .unwrap_or((0, '?'));
+            return Err(self.err(
+                line,
+                format!(
+                    "outcome '{outcome}' is not a bitstring over the {n} measured qubits of circuit \
+                     {} (character {} is {ch:?}; only 0 and 1 are allowed)",
+                    c.id,
+                    i + 1
+                ),
+            ));
         }
-        if self.reversed {
-            bits.reverse();
-        }
-        let key = Outcome::from_bits(&bits);
-        let map = self.maps[ci].get_or_insert_with(HashMap::new);
-        if let Some(&(_, first)) = map.get(&key) {
-            let at = first.map(|l| format!(" (first on line {l})")).unwrap_or_default();
+        let reversed = self.reversed;
+        let bit = |i: usize| bytes[if reversed { n - 1 - i } else { i }] == b'1';
+        let rows = self.maps[ci].get_or_insert_with(|| OutcomeRows::new(n));
+        if !rows.insert((0..n).map(bit), n, count) {
             return Err(Error::input(
                 self.path,
                 line,
-                format!("duplicate outcome '{outcome}' for circuit {}{at}", c.id),
+                format!(
+                    "duplicate outcome '{outcome}' for circuit {} (each outcome may appear once \
+                     per circuit)",
+                    c.id
+                ),
             ));
         }
-        map.insert(key, (count, line));
         self.totals[ci] = self.totals[ci].checked_add(count).ok_or_else(|| {
             Error::input(
                 self.path,
@@ -303,10 +348,7 @@ impl<'a> Accumulator<'a> {
                 ));
             }
             // Zero-count rows carry no shots; keeping them out keeps every stored count > 0.
-            let mut outcomes: Vec<(Outcome, u64)> =
-                map.into_iter().filter(|(_, (n, _))| *n > 0).map(|(o, (n, _))| (o, n)).collect();
-            outcomes.sort_unstable();
-            per_circuit.push(Some(CircuitCounts { outcomes }));
+            per_circuit.push(Some(CircuitCounts { outcomes: map.into_outcomes() }));
         }
         let mut warnings = Vec::new();
         if !missing.is_empty() {
@@ -360,11 +402,7 @@ const HEADER: [&str; 3] = ["circuit", "outcome", "count"];
 
 fn read_csv<R: Read>(reader: R, acc: &mut Accumulator<'_>) -> Result<()> {
     let path = acc.path;
-    let mut rdr = csv::ReaderBuilder::new()
-        .has_headers(false)
-        .flexible(true)
-        .trim(csv::Trim::All)
-        .from_reader(reader);
+    let mut rdr = csv::ReaderBuilder::new().has_headers(false).flexible(true).from_reader(reader);
     let csv_err = |e: csv::Error| {
         let line = e.position().map(|p| p.line() as usize);
         match e.into_kind() {
@@ -378,12 +416,12 @@ fn read_csv<R: Read>(reader: R, acc: &mut Accumulator<'_>) -> Result<()> {
     while rdr.read_record(&mut rec).map_err(csv_err)? {
         let line = rec.position().map(|p| p.line() as usize);
         // A line of only separators or spaces is as blank as an empty one.
-        if rec.iter().all(str::is_empty) {
+        if rec.iter().all(|f| f.trim().is_empty()) {
             continue;
         }
         if !header_seen {
-            if rec.len() != 3 || rec.iter().zip(HEADER).any(|(f, h)| f != h) {
-                let got = rec.iter().collect::<Vec<_>>().join(",");
+            if rec.len() != 3 || rec.iter().zip(HEADER).any(|(f, h)| f.trim() != h) {
+                let got = rec.iter().map(str::trim).collect::<Vec<_>>().join(",");
                 return Err(acc.err(
                     line,
                     format!("the header is '{got}'; expected 'circuit,outcome,count'"),
@@ -398,9 +436,10 @@ fn read_csv<R: Read>(reader: R, acc: &mut Accumulator<'_>) -> Result<()> {
                 format!("expected 3 fields (circuit,outcome,count), found {}", rec.len()),
             ));
         }
-        let count = parse_count(&rec[2]).map_err(|m| acc.err(line, m))?;
-        let ci = acc.circuit(line, &rec[0])?;
-        acc.add(line, ci, &rec[1], count)?;
+        // Trimming here rather than in the csv reader avoids a copy of every record.
+        let count = parse_count(rec[2].trim()).map_err(|m| acc.err(line, m))?;
+        let ci = acc.circuit(line, rec[0].trim())?;
+        acc.add(line, ci, rec[1].trim(), count)?;
     }
     if !header_seen {
         return Err(acc.err(None, "the file is empty; expected the header circuit,outcome,count"));
@@ -764,6 +803,47 @@ mod tests {
             assert!(w.is_empty());
             assert_eq!(back.per_circuit, c.per_circuit);
         }
+    }
+
+    #[test]
+    fn wide_outcomes_over_64_qubits() {
+        use crate::circuit::Circuit;
+        let wide = Circuit { id: "w".into(), layers: vec![], measured: (0..70).collect() };
+        let narrow = Circuit { id: "n".into(), layers: vec![], measured: (0..3).collect() };
+        let set = CircuitSet::new(vec![wide, narrow]).unwrap();
+        let mut first = "0".repeat(70);
+        first.replace_range(65..66, "1");
+        let text = format!("circuit,outcome,count\nw,{first},5\nw,{},7\nn,011,2\n", "1".repeat(70));
+        for (order, bit) in [(BitOrder::AsMeasured, 65), (BitOrder::Reversed, 4)] {
+            let opts = CountsOptions { bit_order: order };
+            let (c, w) = read_counts_from(
+                text.as_bytes(),
+                CountsFormat::Csv,
+                Path::new("w.csv"),
+                &set,
+                &opts,
+            )
+            .unwrap();
+            assert!(w.is_empty());
+            let mut bits = vec![false; 70];
+            bits[bit] = true;
+            assert_eq!(lookup(c.per_circuit[0].as_ref().unwrap(), &bits), 5, "{order:?}");
+            assert_eq!(lookup(c.per_circuit[0].as_ref().unwrap(), &[true; 70]), 7);
+            let n_bits =
+                if order == BitOrder::Reversed { [true, true, false] } else { [false, true, true] };
+            assert_eq!(lookup(c.per_circuit[1].as_ref().unwrap(), &n_bits), 2);
+        }
+        let dup = format!("{text}w,{first},1\n");
+        let m = read_counts_from(
+            dup.as_bytes(),
+            CountsFormat::Csv,
+            Path::new("w.csv"),
+            &set,
+            &CountsOptions::default(),
+        )
+        .unwrap_err()
+        .to_string();
+        assert!(m.contains("w.csv line 5: duplicate outcome"), "{m}");
     }
 
     /// Every counts-* fixture listed in expect-layout-counts.tsv fails against the good
