@@ -1,7 +1,8 @@
 //! Counts: how many shots gave each outcome bitstring, per circuit.
 //!
-//! Outcomes are stored packed (64 bits a word) so that a large file costs about an eighth
-//! of its text size in memory; readers stream the file line by line. Bit i of an outcome
+//! Outcomes are stored packed (64 bits a word); readers stream the file line by line, so
+//! memory grows with the number of distinct outcomes (about 60 bytes each), never with the
+//! number of lines or their length. Bit i of an outcome
 //! is the i-th measured qubit of its circuit (after `--bit-order reversed` is applied).
 //! Files are CSV (`circuit,outcome,count`) or JSON (`{circuit: {outcome: count}}`); the
 //! README ("Counts files") documents both.

@@ -528,8 +528,9 @@ mod tests {
         #![proptest_config(ProptestConfig::with_cases(300))]
 
         #[test]
-        fn arbitrary_text_never_panics(s in "\\PC{0,200}") {
+        fn arbitrary_text_never_panics(s in "\\PC{0,200}", bytes in proptest::collection::vec(any::<u8>(), 0..300)) {
             let _ = parse(&s);
+            let _ = parse(&String::from_utf8_lossy(&bytes));
         }
 
         #[test]
