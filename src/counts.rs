@@ -1,8 +1,20 @@
 //! Counts: how many shots gave each outcome bitstring, per circuit.
 //!
-//! Outcomes are stored packed (64 bits a word) so that a large file costs about an eighth
-//! of its text size in memory; readers stream the file line by line. Bit i of an outcome
+//! Outcomes are stored packed (64 bits a word); readers stream the file line by line, so
+//! memory grows with the number of distinct outcomes (about 60 bytes each), never with the
+//! number of lines or their length. Bit i of an outcome
 //! is the i-th measured qubit of its circuit (after `--bit-order reversed` is applied).
+//! Files are CSV (`circuit,outcome,count`) or JSON (`{circuit: {outcome: count}}`); the
+//! README ("Counts files") documents both.
+
+use std::collections::HashMap;
+use std::io::{BufRead, BufReader, Read, Write};
+use std::path::Path;
+
+use serde::de::{self, DeserializeSeed, MapAccess, Visitor};
+
+use crate::circuit::CircuitSet;
+use crate::error::{Error, Result, Warning};
 
 /// One outcome bitstring, packed: bit i is `words[i / 64] >> (i % 64) & 1`.
 #[derive(Clone, Debug, PartialEq, Eq, Hash, PartialOrd, Ord)]
@@ -65,4 +77,870 @@ impl CircuitCounts {
 pub struct Counts {
     /// Per-circuit counts, aligned with the circuit set.
     pub per_circuit: Vec<Option<CircuitCounts>>,
+}
+
+/// How the characters of an outcome string map to measured qubits.
+#[derive(Copy, Clone, Debug, Default, PartialEq, Eq)]
+pub enum BitOrder {
+    /// Character i is the i-th measured qubit (the tool's own order).
+    #[default]
+    AsMeasured,
+    /// Character i is the i-th measured qubit counted from the end: each outcome string is
+    /// reversed before packing (for files that write the last qubit first).
+    Reversed,
+}
+
+/// Options for reading counts.
+#[derive(Clone, Debug, Default)]
+pub struct CountsOptions {
+    /// Outcome bit order in the file.
+    pub bit_order: BitOrder,
+}
+
+/// The counts file formats, chosen by extension.
+#[derive(Copy, Clone, Debug, PartialEq, Eq)]
+pub enum CountsFormat {
+    /// `circuit,outcome,count` rows after that header.
+    Csv,
+    /// `{"circuit id": {"outcome": count, ...}, ...}`.
+    Json,
+}
+
+impl CountsFormat {
+    /// The format a file's extension names (`.csv` or `.json`, any case).
+    pub fn from_path(path: &Path) -> Result<CountsFormat> {
+        let ext = path.extension().and_then(|e| e.to_str()).map(str::to_ascii_lowercase);
+        match ext.as_deref() {
+            Some("csv") => Ok(CountsFormat::Csv),
+            Some("json") => Ok(CountsFormat::Json),
+            _ => Err(Error::input(
+                path,
+                None,
+                "counts files must end in .csv (circuit,outcome,count rows) or .json \
+                 ({circuit: {outcome: count}})",
+            )),
+        }
+    }
+}
+
+/// Reads a counts file (format by extension) for `circuits`. `Counts::per_circuit` is
+/// aligned with `circuits.circuits`; circuits without any counts are `None` and listed in
+/// one `circuits-without-counts` warning.
+pub fn read_counts(
+    path: &Path,
+    circuits: &CircuitSet,
+    opts: &CountsOptions,
+) -> Result<(Counts, Vec<Warning>)> {
+    let format = CountsFormat::from_path(path)?;
+    let file = std::fs::File::open(path).map_err(|e| Error::io(path, e))?;
+    read_counts_from(file, format, path, circuits, opts)
+}
+
+/// Reads counts from any reader; `path` is used only in messages. Streams: memory grows
+/// with the number of distinct outcomes, not with the file size.
+pub fn read_counts_from<R: Read>(
+    reader: R,
+    format: CountsFormat,
+    path: &Path,
+    circuits: &CircuitSet,
+    opts: &CountsOptions,
+) -> Result<(Counts, Vec<Warning>)> {
+    let mut reader = BufReader::with_capacity(1 << 16, reader);
+    // A byte-order mark carries no newline, so dropping it keeps every line number.
+    let buf = reader.fill_buf().map_err(|e| Error::io(path, e))?;
+    if buf.starts_with(b"\xEF\xBB\xBF") {
+        reader.consume(3);
+    }
+    if reader.fill_buf().map_err(|e| Error::io(path, e))?.is_empty() {
+        return Err(Error::input(
+            path,
+            None,
+            match format {
+                CountsFormat::Csv => "the file is empty; expected the header circuit,outcome,count",
+                CountsFormat::Json => "the file is empty; expected {circuit id: {outcome: count}}",
+            },
+        ));
+    }
+    let mut acc = Accumulator::new(path, circuits, opts);
+    match format {
+        CountsFormat::Csv => read_csv(reader, &mut acc)?,
+        CountsFormat::Json => read_json(reader, &mut acc)?,
+    }
+    acc.finish()
+}
+
+/// The rows of one circuit while reading, by outcome. Up to 64 measured qubits the key is
+/// the packed word itself: about 20 bytes an entry instead of about 80 for a boxed
+/// [`Outcome`], which is what lets a file with millions of distinct outcomes be read in
+/// memory close to its own size.
+enum OutcomeRows {
+    Packed(HashMap<u64, u64>),
+    Wide(HashMap<Outcome, u64>),
+}
+
+impl OutcomeRows {
+    fn new(n_measured: usize) -> OutcomeRows {
+        if n_measured <= 64 {
+            OutcomeRows::Packed(HashMap::new())
+        } else {
+            OutcomeRows::Wide(HashMap::new())
+        }
+    }
+
+    /// Inserts; false when the outcome was already there.
+    fn insert(&mut self, bits: impl Iterator<Item = bool>, n: usize, count: u64) -> bool {
+        match self {
+            OutcomeRows::Packed(m) => {
+                let word = bits.enumerate().fold(0u64, |w, (i, b)| w | ((b as u64) << i));
+                m.insert(word, count).is_none()
+            }
+            OutcomeRows::Wide(m) => {
+                let mut v = Vec::with_capacity(n);
+                v.extend(bits);
+                m.insert(Outcome::from_bits(&v), count).is_none()
+            }
+        }
+    }
+
+    /// The rows with a positive count, sorted by outcome.
+    fn into_outcomes(self) -> Vec<(Outcome, u64)> {
+        let mut v: Vec<(Outcome, u64)> = match self {
+            OutcomeRows::Packed(m) => m
+                .into_iter()
+                .filter(|&(_, n)| n > 0)
+                .map(|(w, n)| (Outcome(Box::new([w])), n))
+                .collect(),
+            OutcomeRows::Wide(m) => m.into_iter().filter(|&(_, n)| n > 0).collect(),
+        };
+        v.sort_unstable();
+        v
+    }
+}
+
+/// Collects rows, checking each against its circuit. One `HashMap` per circuit that has
+/// rows, because rows of a circuit may be spread through a file and repeats must be found.
+struct Accumulator<'a> {
+    path: &'a Path,
+    circuits: &'a CircuitSet,
+    reversed: bool,
+    maps: Vec<Option<OutcomeRows>>,
+    totals: Vec<u64>,
+    first_line: Vec<Option<usize>>,
+    rows: usize,
+}
+
+impl<'a> Accumulator<'a> {
+    fn new(path: &'a Path, circuits: &'a CircuitSet, opts: &CountsOptions) -> Accumulator<'a> {
+        let n = circuits.len();
+        Accumulator {
+            path,
+            circuits,
+            reversed: opts.bit_order == BitOrder::Reversed,
+            maps: (0..n).map(|_| None).collect(),
+            totals: vec![0; n],
+            first_line: vec![None; n],
+            rows: 0,
+        }
+    }
+
+    fn err(&self, line: Option<usize>, message: impl Into<String>) -> Error {
+        Error::input(self.path, line, message)
+    }
+
+    /// The index of a circuit id, marking it as having counts.
+    fn circuit(&mut self, line: Option<usize>, id: &str) -> Result<usize> {
+        let Some(ci) = self.circuits.position(id) else {
+            let some: Vec<&str> =
+                self.circuits.circuits.iter().take(3).map(|c| c.id.as_str()).collect();
+            return Err(self.err(
+                line,
+                format!(
+                    "unknown circuit id '{id}'; the circuit file has {} circuit(s){}",
+                    self.circuits.len(),
+                    if some.is_empty() {
+                        String::new()
+                    } else {
+                        format!(" ({}, ...)", some.join(", "))
+                    }
+                ),
+            ));
+        };
+        if self.maps[ci].is_none() {
+            self.maps[ci] = Some(OutcomeRows::new(self.circuits.circuits[ci].measured.len()));
+            self.first_line[ci] = line;
+        }
+        Ok(ci)
+    }
+
+    fn add(&mut self, line: Option<usize>, ci: usize, outcome: &str, count: u64) -> Result<()> {
+        let c = &self.circuits.circuits[ci];
+        let n = c.measured.len();
+        let bytes = outcome.as_bytes();
+        let bad = bytes.iter().position(|&b| b != b'0' && b != b'1');
+        let len = if bad.is_some() { outcome.chars().count() } else { bytes.len() };
+        if len != n {
+            return Err(self.err(
+                line,
+                format!(
+                    "outcome '{outcome}' has {len} character(s), but circuit {} measures {n} qubit(s)",
+                    c.id
+                ),
+            ));
+        }
+        if bad.is_some() {
+            let (i, ch) = outcome
+                .chars()
+                .enumerate()
+                .find(|&(_, ch)| ch != '0' && ch != '1')
+                .unwrap_or((0, '?'));
+            return Err(self.err(
+                line,
+                format!(
+                    "outcome '{outcome}' is not a bitstring over the {n} measured qubits of circuit \
+                     {} (character {} is {ch:?}; only 0 and 1 are allowed)",
+                    c.id,
+                    i + 1
+                ),
+            ));
+        }
+        let reversed = self.reversed;
+        let bit = |i: usize| bytes[if reversed { n - 1 - i } else { i }] == b'1';
+        let rows = self.maps[ci].get_or_insert_with(|| OutcomeRows::new(n));
+        if !rows.insert((0..n).map(bit), n, count) {
+            return Err(Error::input(
+                self.path,
+                line,
+                format!(
+                    "duplicate outcome '{outcome}' for circuit {} (each outcome may appear once \
+                     per circuit)",
+                    c.id
+                ),
+            ));
+        }
+        self.totals[ci] = self.totals[ci].checked_add(count).ok_or_else(|| {
+            Error::input(
+                self.path,
+                line,
+                format!("circuit {}: total shots overflow a 64-bit count", c.id),
+            )
+        })?;
+        self.rows += 1;
+        Ok(())
+    }
+
+    fn finish(self) -> Result<(Counts, Vec<Warning>)> {
+        if self.rows == 0 && self.maps.iter().all(Option::is_none) {
+            return Err(self.err(None, "the file holds no counts"));
+        }
+        let mut missing = Vec::new();
+        let mut per_circuit = Vec::with_capacity(self.maps.len());
+        for (ci, map) in self.maps.into_iter().enumerate() {
+            let id = &self.circuits.circuits[ci].id;
+            let Some(map) = map else {
+                missing.push(id.as_str());
+                per_circuit.push(None);
+                continue;
+            };
+            if self.totals[ci] == 0 {
+                return Err(Error::input(
+                    self.path,
+                    self.first_line[ci],
+                    format!("circuit {id} has a total of zero shots; every circuit with counts needs at least one"),
+                ));
+            }
+            // Zero-count rows carry no shots; keeping them out keeps every stored count > 0.
+            per_circuit.push(Some(CircuitCounts { outcomes: map.into_outcomes() }));
+        }
+        let mut warnings = Vec::new();
+        if !missing.is_empty() {
+            const SHOWN: usize = 10;
+            let mut list = missing.iter().take(SHOWN).copied().collect::<Vec<_>>().join(", ");
+            if missing.len() > SHOWN {
+                list.push_str(&format!(" and {} more", missing.len() - SHOWN));
+            }
+            warnings.push(Warning::new(
+                "circuits-without-counts",
+                format!(
+                    "{}: {} of {} circuits have no counts: {list}",
+                    self.path.display(),
+                    missing.len(),
+                    self.circuits.len()
+                ),
+                "they are left out of the analysis; check that the counts file belongs to this circuit file",
+            ));
+        }
+        Ok((Counts { per_circuit }, warnings))
+    }
+}
+
+/// Parses a count as written in a CSV field.
+fn parse_count(text: &str) -> std::result::Result<u64, String> {
+    if text.is_empty() {
+        return Err("count is empty".into());
+    }
+    if let Some(rest) = text.strip_prefix('-') {
+        if rest.parse::<f64>().is_ok() {
+            return Err(format!("count '{text}' is negative; counts are whole numbers of shots"));
+        }
+    }
+    if text.bytes().all(|b| b.is_ascii_digit()) {
+        return text
+            .parse::<u64>()
+            .map_err(|_| format!("count '{text}' is too large (at most {})", u64::MAX));
+    }
+    match text.parse::<f64>() {
+        Ok(v) if v.fract() != 0.0 => {
+            Err(format!("count '{text}' is fractional; counts are whole numbers of shots"))
+        }
+        Ok(_) => {
+            Err(format!("count '{text}' must be written as a plain whole number (digits only)"))
+        }
+        Err(_) => Err(format!("count '{text}' is not a number")),
+    }
+}
+
+const HEADER: [&str; 3] = ["circuit", "outcome", "count"];
+
+fn read_csv<R: Read>(reader: R, acc: &mut Accumulator<'_>) -> Result<()> {
+    let path = acc.path;
+    let mut rdr = csv::ReaderBuilder::new().has_headers(false).flexible(true).from_reader(reader);
+    let csv_err = |e: csv::Error| {
+        let line = e.position().map(|p| p.line() as usize);
+        match e.into_kind() {
+            csv::ErrorKind::Io(io) => Error::io(path, io),
+            csv::ErrorKind::Utf8 { .. } => Error::input(path, line, "the line is not UTF-8 text"),
+            other => Error::input(path, line, format!("not valid CSV: {:?}", other)),
+        }
+    };
+    let mut rec = csv::StringRecord::new();
+    let mut header_seen = false;
+    while rdr.read_record(&mut rec).map_err(csv_err)? {
+        let line = rec.position().map(|p| p.line() as usize);
+        // A line of only separators or spaces is as blank as an empty one.
+        if rec.iter().all(|f| f.trim().is_empty()) {
+            continue;
+        }
+        if !header_seen {
+            if rec.len() != 3 || rec.iter().zip(HEADER).any(|(f, h)| f.trim() != h) {
+                let got = rec.iter().map(str::trim).collect::<Vec<_>>().join(",");
+                return Err(acc.err(
+                    line,
+                    format!("the header is '{got}'; expected 'circuit,outcome,count'"),
+                ));
+            }
+            header_seen = true;
+            continue;
+        }
+        if rec.len() != 3 {
+            return Err(acc.err(
+                line,
+                format!("expected 3 fields (circuit,outcome,count), found {}", rec.len()),
+            ));
+        }
+        // Trimming here rather than in the csv reader avoids a copy of every record.
+        let count = parse_count(rec[2].trim()).map_err(|m| acc.err(line, m))?;
+        let ci = acc.circuit(line, rec[0].trim())?;
+        acc.add(line, ci, rec[1].trim(), count)?;
+    }
+    if !header_seen {
+        return Err(acc.err(None, "the file is empty; expected the header circuit,outcome,count"));
+    }
+    if acc.rows == 0 {
+        return Err(acc.err(None, "the file has a header but no counts rows"));
+    }
+    Ok(())
+}
+
+/// Streams the JSON object with serde visitors, so no document tree is ever built. A
+/// semantic error is parked in `failure` and a placeholder error stops the parser, which
+/// then supplies the line it had reached.
+fn read_json<R: Read>(reader: R, acc: &mut Accumulator<'_>) -> Result<()> {
+    let path = acc.path;
+    let mut failure = None;
+    let mut de = serde_json::Deserializer::from_reader(reader);
+    let parsed =
+        FileSeed { acc, failure: &mut failure }.deserialize(&mut de).and_then(|()| de.end());
+    match parsed {
+        Ok(()) => Ok(()),
+        Err(e) => {
+            let line = (e.line() > 0).then_some(e.line());
+            match failure {
+                Some(Error::Input { location, message }) => {
+                    Err(Error::input(path, location.line.or(line), message))
+                }
+                Some(other) => Err(other),
+                None if e.is_io() => Err(Error::io(path, std::io::Error::other(e.to_string()))),
+                None if e.is_eof() => Err(Error::input(
+                    path,
+                    line,
+                    "the JSON ends before it is complete (truncated file?)",
+                )),
+                None => {
+                    let text = e.to_string();
+                    // serde_json appends " at line L column C"; keep only the column.
+                    let text = match text.rfind(" at line ") {
+                        Some(i) => format!("{} (column {})", &text[..i], e.column()),
+                        None => text,
+                    };
+                    Err(Error::input(path, line, format!("not valid counts JSON: {text}")))
+                }
+            }
+        }
+    }
+}
+
+struct FileSeed<'s, 'a> {
+    acc: &'s mut Accumulator<'a>,
+    failure: &'s mut Option<Error>,
+}
+
+impl<'de> DeserializeSeed<'de> for FileSeed<'_, '_> {
+    type Value = ();
+    fn deserialize<D: de::Deserializer<'de>>(self, d: D) -> std::result::Result<(), D::Error> {
+        d.deserialize_map(self)
+    }
+}
+
+impl<'de> Visitor<'de> for FileSeed<'_, '_> {
+    type Value = ();
+
+    fn expecting(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
+        f.write_str("an object mapping circuit ids to {outcome: count} objects")
+    }
+
+    fn visit_map<A: MapAccess<'de>>(self, mut map: A) -> std::result::Result<(), A::Error> {
+        let FileSeed { acc, failure } = self;
+        while let Some(id) = map.next_key::<String>()? {
+            if acc.circuits.position(&id).is_some_and(|ci| acc.maps[ci].is_some()) {
+                *failure = Some(acc.err(None, format!("circuit {id} appears twice")));
+                return Err(de::Error::custom("duplicate circuit"));
+            }
+            let ci = match acc.circuit(None, &id) {
+                Ok(ci) => ci,
+                Err(e) => {
+                    *failure = Some(e);
+                    return Err(de::Error::custom("unknown circuit"));
+                }
+            };
+            map.next_value_seed(CircuitSeed {
+                acc: &mut *acc,
+                failure: &mut *failure,
+                ci,
+                id: &id,
+            })?;
+        }
+        Ok(())
+    }
+}
+
+struct CircuitSeed<'s, 'a> {
+    acc: &'s mut Accumulator<'a>,
+    failure: &'s mut Option<Error>,
+    ci: usize,
+    id: &'s str,
+}
+
+impl<'de> DeserializeSeed<'de> for CircuitSeed<'_, '_> {
+    type Value = ();
+    fn deserialize<D: de::Deserializer<'de>>(self, d: D) -> std::result::Result<(), D::Error> {
+        d.deserialize_map(self)
+    }
+}
+
+impl<'de> Visitor<'de> for CircuitSeed<'_, '_> {
+    type Value = ();
+
+    fn expecting(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
+        write!(f, "an object of outcome: count pairs for circuit {}", self.id)
+    }
+
+    fn visit_map<A: MapAccess<'de>>(self, mut map: A) -> std::result::Result<(), A::Error> {
+        while let Some(outcome) = map.next_key::<String>()? {
+            let count = map
+                .next_value_seed(CountSeed)?
+                .map_err(|why| format!("circuit {} outcome '{outcome}': {why}", self.id));
+            let added = count
+                .map_err(|m| self.acc.err(None, m))
+                .and_then(|n| self.acc.add(None, self.ci, &outcome, n));
+            if let Err(e) = added {
+                *self.failure = Some(e);
+                return Err(de::Error::custom("bad count"));
+            }
+        }
+        Ok(())
+    }
+}
+
+/// A JSON count: a non-negative integer. Other numbers and strings are reported with the
+/// circuit and outcome by the caller, so they come back as `Err(reason)`.
+struct CountSeed;
+
+impl<'de> DeserializeSeed<'de> for CountSeed {
+    type Value = std::result::Result<u64, String>;
+    fn deserialize<D: de::Deserializer<'de>>(
+        self,
+        d: D,
+    ) -> std::result::Result<Self::Value, D::Error> {
+        d.deserialize_any(self)
+    }
+}
+
+impl<'de> Visitor<'de> for CountSeed {
+    type Value = std::result::Result<u64, String>;
+
+    fn expecting(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
+        f.write_str("a count (a whole number of shots)")
+    }
+
+    fn visit_u64<E: de::Error>(self, v: u64) -> std::result::Result<Self::Value, E> {
+        Ok(Ok(v))
+    }
+
+    fn visit_i64<E: de::Error>(self, v: i64) -> std::result::Result<Self::Value, E> {
+        Ok(u64::try_from(v)
+            .map_err(|_| format!("count {v} is negative; counts are whole numbers of shots")))
+    }
+
+    fn visit_f64<E: de::Error>(self, v: f64) -> std::result::Result<Self::Value, E> {
+        // serde_json hands integers beyond u64 over as floats.
+        Ok(Err(if v.fract() != 0.0 {
+            format!("count {v} is fractional; counts are whole numbers of shots")
+        } else if v >= u64::MAX as f64 {
+            format!("count {v} is too large (at most {})", u64::MAX)
+        } else if v < 0.0 {
+            format!("count {v} is negative; counts are whole numbers of shots")
+        } else {
+            format!("count {v} must be written as a plain whole number")
+        }))
+    }
+
+    fn visit_str<E: de::Error>(self, v: &str) -> std::result::Result<Self::Value, E> {
+        Ok(Err(format!("count \"{v}\" is a string; write the number without quotes")))
+    }
+
+    fn visit_bool<E: de::Error>(self, v: bool) -> std::result::Result<Self::Value, E> {
+        Ok(Err(format!("count {v} is not a number")))
+    }
+
+    fn visit_unit<E: de::Error>(self) -> std::result::Result<Self::Value, E> {
+        Ok(Err("count null is not a number".into()))
+    }
+}
+
+/// The outcomes of one circuit as ('0'/'1' string in measured order, count), sorted by
+/// the string.
+fn sorted_strings(n: usize, cc: &CircuitCounts) -> Vec<(String, u64)> {
+    let mut v: Vec<(String, u64)> =
+        cc.outcomes.iter().map(|(o, c)| (o.to_string_n(n), *c)).collect();
+    v.sort_unstable();
+    v
+}
+
+/// Writes counts as CSV (`circuit,outcome,count`): circuits in set order, outcomes sorted
+/// by their string, measured order (character i = i-th measured qubit). Circuits without
+/// counts are skipped.
+pub fn write_csv<W: Write>(w: W, circuits: &CircuitSet, counts: &Counts) -> std::io::Result<()> {
+    let mut out = csv::Writer::from_writer(w);
+    out.write_record(HEADER)?;
+    for (c, cc) in circuits.circuits.iter().zip(&counts.per_circuit) {
+        let Some(cc) = cc else { continue };
+        for (o, n) in sorted_strings(c.measured.len(), cc) {
+            out.write_record([c.id.as_str(), o.as_str(), n.to_string().as_str()])?;
+        }
+    }
+    out.flush()
+}
+
+/// Writes counts as JSON `{circuit: {outcome: count}}`, one circuit per line, in the same
+/// order and bit order as [`write_csv`].
+pub fn write_json<W: Write>(
+    mut w: W,
+    circuits: &CircuitSet,
+    counts: &Counts,
+) -> std::io::Result<()> {
+    let quote = |s: &str| serde_json::to_string(s).map_err(std::io::Error::other);
+    w.write_all(b"{")?;
+    let mut first = true;
+    for (c, cc) in circuits.circuits.iter().zip(&counts.per_circuit) {
+        let Some(cc) = cc else { continue };
+        w.write_all(if first { b"\n  " } else { b",\n  " })?;
+        first = false;
+        write!(w, "{}: {{", quote(&c.id)?)?;
+        for (k, (o, n)) in sorted_strings(c.measured.len(), cc).into_iter().enumerate() {
+            write!(w, "{}\"{o}\": {n}", if k == 0 { "" } else { ", " })?;
+        }
+        w.write_all(b"}")?;
+    }
+    w.write_all(b"\n}\n")?;
+    w.flush()
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use proptest::prelude::*;
+    use std::path::PathBuf;
+
+    fn fixtures() -> PathBuf {
+        PathBuf::from(env!("CARGO_MANIFEST_DIR")).join("tests/fixtures")
+    }
+
+    fn good_circuits() -> CircuitSet {
+        let layout = crate::layout::read_layout(&fixtures().join("good/layout.toml")).unwrap();
+        crate::circuit::json::read_json(&fixtures().join("good/circuits.json"), &layout).unwrap()
+    }
+
+    fn read_text(
+        text: &str,
+        format: CountsFormat,
+        opts: &CountsOptions,
+    ) -> Result<(Counts, Vec<Warning>)> {
+        let name = match format {
+            CountsFormat::Csv => "shots.csv",
+            CountsFormat::Json => "shots.json",
+        };
+        read_counts_from(text.as_bytes(), format, Path::new(name), &good_circuits(), opts)
+    }
+
+    fn lookup(cc: &CircuitCounts, bits: &[bool]) -> u64 {
+        let key = Outcome::from_bits(bits);
+        cc.outcomes.iter().find(|(o, _)| *o == key).map_or(0, |(_, n)| *n)
+    }
+
+    #[test]
+    fn reads_good_csv_and_json_alike() {
+        let set = good_circuits();
+        let opts = CountsOptions::default();
+        let (csv, w1) = read_counts(&fixtures().join("good/counts.csv"), &set, &opts).unwrap();
+        let (json, w2) = read_counts(&fixtures().join("good/counts.json"), &set, &opts).unwrap();
+        assert!(w1.is_empty() && w2.is_empty());
+        assert_eq!(csv.per_circuit, json.per_circuit);
+        assert_eq!(csv.per_circuit.len(), set.len());
+        let ref_q0 = csv.per_circuit[0].as_ref().unwrap();
+        assert_eq!(ref_q0.shots(), 1000);
+        // "100": the first measured qubit (q0) read 1.
+        assert_eq!(lookup(ref_q0, &[true, false, false]), 500);
+        assert_eq!(lookup(ref_q0, &[false, true, false]), 20);
+        assert_eq!(ref_q0.marginal(&[0]), vec![500, 500]);
+        let cz = csv.per_circuit[2].as_ref().unwrap();
+        assert_eq!(cz.marginal(&[1]), vec![980, 20]);
+    }
+
+    #[test]
+    fn reversed_bit_order_flips_each_outcome() {
+        let opts = CountsOptions { bit_order: BitOrder::Reversed };
+        let text = std::fs::read_to_string(fixtures().join("good/counts.csv")).unwrap();
+        let (c, _) = read_text(&text, CountsFormat::Csv, &opts).unwrap();
+        let ref_q0 = c.per_circuit[0].as_ref().unwrap();
+        // "100" now means the last measured qubit (q3) read 1.
+        assert_eq!(lookup(ref_q0, &[false, false, true]), 500);
+        assert_eq!(lookup(ref_q0, &[false, true, false]), 20);
+        assert_eq!(ref_q0.marginal(&[2]), vec![500, 500]);
+    }
+
+    #[test]
+    fn tolerates_bom_crlf_blank_lines_and_spaces() {
+        let text =
+            "\u{feff}circuit,outcome,count\r\nref-q0, 000 ,480\r\n\r\nref-q0,100,500\r\n\r\n\r\n";
+        let (c, w) = read_text(text, CountsFormat::Csv, &CountsOptions::default()).unwrap();
+        assert_eq!(c.per_circuit[0].as_ref().unwrap().shots(), 980);
+        assert_eq!(w.len(), 1);
+        let json = "\u{feff}{\r\n\"ref-q0\": {\"000\": 3}\r\n}\r\n\r\n";
+        let (c, _) = read_text(json, CountsFormat::Json, &CountsOptions::default()).unwrap();
+        assert_eq!(c.per_circuit[0].as_ref().unwrap().shots(), 3);
+    }
+
+    #[test]
+    fn missing_circuits_give_one_warning() {
+        let text = "circuit,outcome,count\nref-q0,000,480\npair-q0-q1,00,0\npair-q0-q1,01,2\n";
+        let (c, w) = read_text(text, CountsFormat::Csv, &CountsOptions::default()).unwrap();
+        assert_eq!(w.len(), 1);
+        assert_eq!(w[0].code, "circuits-without-counts");
+        assert!(
+            w[0].message.contains("2 of 4 circuits have no counts: cz-q1-q4, idle-all"),
+            "{}",
+            w[0]
+        );
+        assert!(c.per_circuit[2].is_none() && c.per_circuit[3].is_none());
+        // The zero-count row is dropped: stored counts are all > 0.
+        assert_eq!(c.per_circuit[1].as_ref().unwrap().outcomes.len(), 1);
+    }
+
+    #[test]
+    fn extension_chooses_the_format() {
+        assert_eq!(CountsFormat::from_path(Path::new("a/B.CSV")).unwrap(), CountsFormat::Csv);
+        assert_eq!(CountsFormat::from_path(Path::new("b.json")).unwrap(), CountsFormat::Json);
+        let m = CountsFormat::from_path(Path::new("counts.txt")).unwrap_err().to_string();
+        assert!(m.contains("counts.txt: counts files must end in .csv"), "{m}");
+        let m =
+            read_counts(Path::new("no/such/file.csv"), &good_circuits(), &CountsOptions::default())
+                .unwrap_err();
+        assert!(matches!(m, Error::Io { .. }));
+    }
+
+    #[test]
+    fn writers_round_trip() {
+        let set = good_circuits();
+        let opts = CountsOptions::default();
+        let (c, _) = read_counts(&fixtures().join("good/counts.csv"), &set, &opts).unwrap();
+        let mut csv = Vec::new();
+        write_csv(&mut csv, &set, &c).unwrap();
+        let csv = String::from_utf8(csv).unwrap();
+        assert!(
+            csv.starts_with(
+                "circuit,outcome,count\nref-q0,000,480\nref-q0,010,20\nref-q0,100,500\n"
+            ),
+            "{csv}"
+        );
+        let mut json = Vec::new();
+        write_json(&mut json, &set, &c).unwrap();
+        let json = String::from_utf8(json).unwrap();
+        assert!(
+            json.starts_with("{\n  \"ref-q0\": {\"000\": 480, \"010\": 20, \"100\": 500},\n"),
+            "{json}"
+        );
+        for (text, f) in [(csv, CountsFormat::Csv), (json, CountsFormat::Json)] {
+            let (back, w) = read_text(&text, f, &opts).unwrap();
+            assert!(w.is_empty());
+            assert_eq!(back.per_circuit, c.per_circuit);
+        }
+    }
+
+    #[test]
+    fn wide_outcomes_over_64_qubits() {
+        use crate::circuit::Circuit;
+        let wide = Circuit { id: "w".into(), layers: vec![], measured: (0..70).collect() };
+        let narrow = Circuit { id: "n".into(), layers: vec![], measured: (0..3).collect() };
+        let set = CircuitSet::new(vec![wide, narrow]).unwrap();
+        let mut first = "0".repeat(70);
+        first.replace_range(65..66, "1");
+        let text = format!("circuit,outcome,count\nw,{first},5\nw,{},7\nn,011,2\n", "1".repeat(70));
+        for (order, bit) in [(BitOrder::AsMeasured, 65), (BitOrder::Reversed, 4)] {
+            let opts = CountsOptions { bit_order: order };
+            let (c, w) = read_counts_from(
+                text.as_bytes(),
+                CountsFormat::Csv,
+                Path::new("w.csv"),
+                &set,
+                &opts,
+            )
+            .unwrap();
+            assert!(w.is_empty());
+            let mut bits = vec![false; 70];
+            bits[bit] = true;
+            assert_eq!(lookup(c.per_circuit[0].as_ref().unwrap(), &bits), 5, "{order:?}");
+            assert_eq!(lookup(c.per_circuit[0].as_ref().unwrap(), &[true; 70]), 7);
+            let n_bits =
+                if order == BitOrder::Reversed { [true, true, false] } else { [false, true, true] };
+            assert_eq!(lookup(c.per_circuit[1].as_ref().unwrap(), &n_bits), 2);
+        }
+        let dup = format!("{text}w,{first},1\n");
+        let m = read_counts_from(
+            dup.as_bytes(),
+            CountsFormat::Csv,
+            Path::new("w.csv"),
+            &set,
+            &CountsOptions::default(),
+        )
+        .unwrap_err()
+        .to_string();
+        assert!(m.contains("w.csv line 5: duplicate outcome"), "{m}");
+    }
+
+    /// Every counts-* fixture listed in expect-layout-counts.tsv fails against the good
+    /// circuits with a message naming the file and containing the listed fragment.
+    #[test]
+    fn bad_fixtures_fail_with_their_fragment() {
+        let set = good_circuits();
+        let dir = fixtures().join("bad");
+        let tsv = std::fs::read_to_string(dir.join("expect-layout-counts.tsv")).unwrap();
+        let mut listed = Vec::new();
+        for line in tsv.lines().filter(|l| l.starts_with("counts-")) {
+            let (file, fragment) = line.split_once('\t').unwrap();
+            listed.push(file.to_string());
+            let path = dir.join(file);
+            let e = match read_counts(&path, &set, &CountsOptions::default()) {
+                Ok(_) => panic!("{file} was accepted"),
+                Err(e) => e,
+            };
+            let m = e.to_string();
+            assert!(m.contains(file), "{file}: message does not name the file: {m}");
+            assert!(m.contains(fragment), "{file}: expected '{fragment}' in: {m}");
+            assert_eq!(e.exit_code(), 2);
+        }
+        let mut on_disk: Vec<String> = std::fs::read_dir(&dir)
+            .unwrap()
+            .map(|e| e.unwrap().file_name().to_string_lossy().into_owned())
+            .filter(|n| n.starts_with("counts-"))
+            .collect();
+        on_disk.sort();
+        listed.sort();
+        assert_eq!(on_disk, listed, "every counts fixture is listed once");
+        assert!(listed.len() >= 25);
+    }
+
+    fn mutate(text: &str, pos: usize, op: u8, c: char) -> String {
+        let mut chars: Vec<char> = text.chars().collect();
+        let i = pos % chars.len();
+        match op {
+            0 => {
+                chars.remove(i);
+            }
+            1 => chars.insert(i, c),
+            _ => chars[i] = c,
+        }
+        chars.into_iter().collect()
+    }
+
+    proptest! {
+        #![proptest_config(ProptestConfig::with_cases(300))]
+
+        #[test]
+        fn arbitrary_bytes_never_panic(bytes in proptest::collection::vec(any::<u8>(), 0..200)) {
+            let set = good_circuits();
+            let opts = CountsOptions::default();
+            for f in [CountsFormat::Csv, CountsFormat::Json] {
+                let _ = read_counts_from(&bytes[..], f, Path::new("x"), &set, &opts);
+            }
+        }
+
+        #[test]
+        fn mutations_never_panic(pos in 0usize..400, op in 0u8..3, c in prop_oneof![
+            Just('0'), Just('1'), Just(','), Just('"'), Just('{'), Just('}'), Just('\n'),
+            Just('-'), Just('.'), proptest::char::any()]) {
+            let set = good_circuits();
+            for (file, f) in [("good/counts.csv", CountsFormat::Csv), ("good/counts.json", CountsFormat::Json)] {
+                let text = std::fs::read_to_string(fixtures().join(file)).unwrap();
+                let m = mutate(&text, pos, op, c);
+                let opts = CountsOptions::default();
+                match read_counts_from(m.as_bytes(), f, Path::new("x"), &set, &opts) {
+                    Ok((counts, _)) => prop_assert_eq!(counts.per_circuit.len(), set.len()),
+                    Err(e) => prop_assert!(e.to_string().starts_with('x')),
+                }
+            }
+        }
+
+        #[test]
+        fn random_counts_round_trip(rows in proptest::collection::vec((0usize..4, any::<u64>(), 1u64..1_000_000), 1..40)) {
+            let set = good_circuits();
+            let mut maps: Vec<std::collections::BTreeMap<Outcome, u64>> = vec![Default::default(); set.len()];
+            for (ci, bits, n) in rows {
+                let m = set.circuits[ci].measured.len();
+                let b: Vec<bool> = (0..m).map(|i| bits >> i & 1 == 1).collect();
+                maps[ci].insert(Outcome::from_bits(&b), n);
+            }
+            let counts = Counts { per_circuit: maps.into_iter().map(|m| {
+                (!m.is_empty()).then(|| CircuitCounts { outcomes: m.into_iter().collect() })
+            }).collect() };
+            let opts = CountsOptions::default();
+            let mut csv = Vec::new();
+            write_csv(&mut csv, &set, &counts).unwrap();
+            let mut json = Vec::new();
+            write_json(&mut json, &set, &counts).unwrap();
+            for (bytes, f) in [(csv, CountsFormat::Csv), (json, CountsFormat::Json)] {
+                let (back, _) = read_counts_from(&bytes[..], f, Path::new("x"), &set, &opts).unwrap();
+                prop_assert_eq!(&back.per_circuit, &counts.per_circuit);
+            }
+        }
+    }
 }

@@ -7,6 +7,7 @@
 //! and the audit that ties them together. See DEVELOPERS.md for the architecture.
 #![warn(missing_docs)]
 
+pub mod audit;
 pub mod check;
 pub mod circuit;
 pub mod clifford;

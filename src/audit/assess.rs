@@ -203,7 +203,7 @@ fn assess_pair(
         .map(clip)
         .collect();
         d.limit = crate::slack::null::detection_limit(&d.null, cfg.alpha);
-        d.p_value = crate::slack::null::p_value(&d.null, d.score);
+        d.p_value = crate::slack::null::p_value(d.score, &d.null);
     } else {
         d.p_value = 1.0;
     }

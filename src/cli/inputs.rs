@@ -107,7 +107,14 @@ pub fn digest(role: &str, path: &Path) -> anyhow::Result<InputFile> {
     }
     for f in &files {
         let mut file = std::fs::File::open(f).map_err(|e| slackmap::Error::io(f, e))?;
-        std::io::copy(&mut file, &mut h).map_err(|e| slackmap::Error::io(f, e))?;
+        let mut buf = vec![0u8; 1 << 16];
+        loop {
+            let n = std::io::Read::read(&mut file, &mut buf).map_err(|e| slackmap::Error::io(f, e))?;
+            if n == 0 {
+                break;
+            }
+            h.update(&buf[..n]);
+        }
     }
     let hex: String = h.finalize().iter().map(|b| format!("{b:02x}")).collect();
     Ok(InputFile { role: role.to_string(), path: path.display().to_string(), sha256: hex })

@@ -5,7 +5,11 @@ use std::process::ExitCode;
 
 use clap::{Parser, Subcommand};
 
+mod audit;
 mod check;
+mod inputs;
+mod layout;
+mod progress;
 
 /// Exit-code documentation shown at the end of `--help`.
 const EXIT_CODES: &str = "Exit codes: 0 success, 1 the analysis failed, 2 bad input or usage.";
@@ -20,15 +24,24 @@ pub struct Cli {
 
 #[derive(Subcommand, Debug)]
 enum Command {
+    /// Check a layout file, or write a generated one.
+    Layout(layout::LayoutArgs),
     /// Validate layout, circuits and counts together and show what the data covers.
     Check(check::CheckArgs),
+    /// Find crosstalk: fit the crosstalk-free model, budget slack, rank the edges.
+    Audit(audit::AuditArgs),
+    /// Run the audit on the bundled demo scenario and write its report.
+    Demo(audit::DemoArgs),
 }
 
 /// Runs the CLI and maps the outcome to an exit code.
 pub fn main() -> ExitCode {
     let cli = Cli::parse();
     let result: anyhow::Result<()> = match cli.command {
+        Command::Layout(args) => layout::run(args),
         Command::Check(args) => check::run(args),
+        Command::Audit(args) => audit::run(args),
+        Command::Demo(args) => audit::demo(args),
     };
     match result {
         Ok(()) => ExitCode::SUCCESS,

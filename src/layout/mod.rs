@@ -8,6 +8,9 @@
 use std::collections::{BTreeSet, HashMap};
 
 pub mod generate;
+pub mod toml;
+
+pub use self::toml::{parse_layout, read_layout, to_toml};
 
 use crate::gate::Gate;
 

@@ -1,0 +1,553 @@
+//! The layout TOML format: reading with file-and-line errors, and writing it back.
+//!
+//! Every id, pair and gate name is read with its byte span so that semantic errors
+//! (duplicate ids, couplers to unknown qubits, unknown gates) name the line they are on,
+//! not only the file. [`to_toml`] writes the same format and round-trips through
+//! [`parse_layout`]. The format is documented in the README ("Layout files").
+
+use std::collections::HashMap;
+use std::fmt::Write as _;
+use std::ops::Range;
+use std::path::Path;
+
+use ::toml::{Spanned, Value};
+use serde::Deserialize;
+
+use super::{Layout, NativeGates, Qubit};
+use crate::error::{Error, Result};
+use crate::gate::Gate;
+
+#[derive(Deserialize)]
+#[serde(deny_unknown_fields)]
+struct LayoutWire {
+    name: Spanned<String>,
+    qubits: Vec<Spanned<QubitWire>>,
+    couplers: Vec<Spanned<Vec<Spanned<String>>>>,
+    gates: GatesWire,
+    neighbourhood: Option<NeighbourhoodWire>,
+}
+
+#[derive(Deserialize)]
+#[serde(deny_unknown_fields)]
+struct QubitWire {
+    id: Spanned<String>,
+    position: Option<Spanned<Value>>,
+}
+
+#[derive(Deserialize)]
+#[serde(deny_unknown_fields)]
+struct GatesWire {
+    one_qubit: Vec<Spanned<String>>,
+    #[serde(rename = "virtual", default)]
+    virtual_gates: Vec<Spanned<String>>,
+    two_qubit: Spanned<String>,
+}
+
+#[derive(Deserialize)]
+#[serde(deny_unknown_fields)]
+struct NeighbourhoodWire {
+    radius: Option<Spanned<i64>>,
+    #[serde(default)]
+    extra_pairs: Vec<Spanned<Vec<Spanned<String>>>>,
+}
+
+/// Reads and validates a layout file.
+pub fn read_layout(path: &Path) -> Result<Layout> {
+    let bytes = std::fs::read(path).map_err(|e| Error::io(path, e))?;
+    let text = String::from_utf8(bytes).map_err(|e| {
+        let line = line_of(e.as_bytes(), e.utf8_error().valid_up_to());
+        Error::input(path, Some(line), "the file is not UTF-8 text")
+    })?;
+    parse_layout(&text, path)
+}
+
+/// Parses and validates layout TOML; `path` is used only in error messages.
+pub fn parse_layout(text: &str, path: &Path) -> Result<Layout> {
+    // A byte-order mark has no newline, so stripping it keeps every line number.
+    let text = text.strip_prefix('\u{feff}').unwrap_or(text);
+    if text.trim().is_empty() {
+        return Err(Error::input(
+            path,
+            None,
+            "the file is empty; a layout needs `name`, `qubits`, `couplers` and a [gates] table",
+        ));
+    }
+    let wire: LayoutWire = ::toml::from_str(text).map_err(|e| {
+        let line = e.span().map(|s| line_of(text.as_bytes(), s.start));
+        Error::input(path, line, format!("not a valid layout file: {}", e.message().trim()))
+    })?;
+    Checker { text, path }.build(wire)
+}
+
+/// Turns spans into 1-based lines for error messages.
+struct Checker<'a> {
+    text: &'a str,
+    path: &'a Path,
+}
+
+impl Checker<'_> {
+    fn err(&self, span: Range<usize>, message: impl Into<String>) -> Error {
+        Error::input(self.path, Some(line_of(self.text.as_bytes(), span.start)), message)
+    }
+
+    fn line(&self, span: Range<usize>) -> usize {
+        line_of(self.text.as_bytes(), span.start)
+    }
+
+    fn build(&self, wire: LayoutWire) -> Result<Layout> {
+        let name_span = wire.name.span();
+        let name = wire.name.into_inner();
+        if name.trim().is_empty() {
+            return Err(self.err(name_span, "`name` must not be empty"));
+        }
+        if wire.qubits.is_empty() {
+            return Err(Error::input(
+                self.path,
+                None,
+                "`qubits` is empty; a layout needs at least one qubit",
+            ));
+        }
+        let mut seen: HashMap<String, Range<usize>> = HashMap::new();
+        let mut qubits = Vec::with_capacity(wire.qubits.len());
+        for q in wire.qubits {
+            let q = q.into_inner();
+            let span = q.id.span();
+            let id = q.id.into_inner();
+            if id.is_empty() || id.chars().any(|c| c.is_whitespace() || c == ',' || c.is_control())
+            {
+                return Err(self.err(
+                    span,
+                    format!("qubit id {id:?} is not valid: ids are non-empty and contain no spaces or commas"),
+                ));
+            }
+            if let Some(first) = seen.get(&id) {
+                return Err(self.err(
+                    span,
+                    format!(
+                        "duplicate qubit id '{id}' (first defined on line {})",
+                        self.line(first.clone())
+                    ),
+                ));
+            }
+            let position = match q.position {
+                None => None,
+                Some(p) => Some(self.position(&id, p)?),
+            };
+            seen.insert(id.clone(), span);
+            qubits.push(Qubit { id, position });
+        }
+        let couplers = self.pairs(wire.couplers, &seen, "coupler", true)?;
+        let gates = self.gates(wire.gates)?;
+        let (radius, extra_pairs) = match wire.neighbourhood {
+            None => (1, Vec::new()),
+            Some(n) => {
+                let radius = match n.radius {
+                    None => 1,
+                    Some(r) => {
+                        let span = r.span();
+                        match *r.get_ref() {
+                            1 => 1,
+                            2 => 2,
+                            v => {
+                                return Err(self.err(
+                                    span,
+                                    format!("neighbourhood radius {v} is not supported (valid: 1 = coupler neighbours, 2 = within two couplers)"),
+                                ))
+                            }
+                        }
+                    }
+                };
+                (radius, self.pairs(n.extra_pairs, &seen, "extra spectator pair", false)?)
+            }
+        };
+        // Everything Layout::new checks has been checked above with a line; this mapping is
+        // a safety net for rules added there later.
+        Layout::new(name, qubits, couplers, gates, radius, extra_pairs)
+            .map_err(|m| Error::input(self.path, None, m))
+    }
+
+    fn position(&self, id: &str, p: Spanned<Value>) -> Result<[f64; 2]> {
+        let span = p.span();
+        let bad = || {
+            self.err(
+                span.clone(),
+                format!("qubit '{id}': position must be two finite numbers, like [1.0, 2]"),
+            )
+        };
+        let Value::Array(items) = p.into_inner() else { return Err(bad()) };
+        if items.len() != 2 {
+            return Err(bad());
+        }
+        let mut out = [0.0; 2];
+        for (slot, v) in out.iter_mut().zip(&items) {
+            *slot = match v {
+                Value::Integer(i) => *i as f64,
+                Value::Float(f) if f.is_finite() => *f,
+                _ => return Err(bad()),
+            };
+        }
+        Ok(out)
+    }
+
+    /// Checks a list of id pairs; `unique` rejects repeats (in either order).
+    fn pairs(
+        &self,
+        list: Vec<Spanned<Vec<Spanned<String>>>>,
+        ids: &HashMap<String, Range<usize>>,
+        what: &str,
+        unique: bool,
+    ) -> Result<Vec<(String, String)>> {
+        let mut seen: HashMap<(String, String), Range<usize>> = HashMap::new();
+        let mut out = Vec::with_capacity(list.len());
+        for pair in list {
+            let span = pair.span();
+            let items = pair.into_inner();
+            if items.len() != 2 {
+                return Err(self.err(
+                    span,
+                    format!(
+                        "a {what} is a pair of two qubit ids, like [\"q0\", \"q1\"]; got {} id(s)",
+                        items.len()
+                    ),
+                ));
+            }
+            let (a, b) = (items[0].get_ref().clone(), items[1].get_ref().clone());
+            for it in &items {
+                if !ids.contains_key(it.get_ref()) {
+                    return Err(self.err(
+                        it.span(),
+                        format!("{what} {a}-{b} names unknown qubit '{}'", it.get_ref()),
+                    ));
+                }
+            }
+            if a == b {
+                return Err(self.err(span, format!("{what} {a}-{b} joins a qubit to itself")));
+            }
+            let key = if a < b { (a.clone(), b.clone()) } else { (b.clone(), a.clone()) };
+            if let Some(first) = seen.get(&key) {
+                if unique {
+                    return Err(self.err(
+                        span,
+                        format!(
+                            "duplicate {what} {a}-{b} (first listed on line {})",
+                            self.line(first.clone())
+                        ),
+                    ));
+                }
+                continue;
+            }
+            seen.insert(key, span);
+            out.push((a, b));
+        }
+        Ok(out)
+    }
+
+    fn gate(&self, name: &Spanned<String>, field: &str, arity: usize) -> Result<Gate> {
+        let g = Gate::from_name(name.get_ref()).ok_or_else(|| {
+            self.err(
+                name.span(),
+                format!(
+                    "unknown gate '{}' in [gates] {field} (known: {})",
+                    name.get_ref(),
+                    Gate::known_names()
+                ),
+            )
+        })?;
+        if g.arity() != arity {
+            let valid: Vec<&str> =
+                Gate::ALL.iter().filter(|g| g.arity() == arity).map(|g| g.name()).collect();
+            return Err(self.err(
+                name.span(),
+                format!(
+                    "gate '{g}' in [gates] {field} acts on {} qubit(s); valid here: {}",
+                    g.arity(),
+                    valid.join(", ")
+                ),
+            ));
+        }
+        Ok(g)
+    }
+
+    fn gates(&self, wire: GatesWire) -> Result<NativeGates> {
+        let mut one_qubit = Vec::new();
+        for n in &wire.one_qubit {
+            let g = self.gate(n, "one_qubit", 1)?;
+            if one_qubit.contains(&g) {
+                return Err(
+                    self.err(n.span(), format!("gate '{g}' is listed twice in [gates] one_qubit"))
+                );
+            }
+            one_qubit.push(g);
+        }
+        let mut virtual_gates = Vec::new();
+        for n in &wire.virtual_gates {
+            let g = self.gate(n, "virtual", 1)?;
+            if !one_qubit.contains(&g) {
+                return Err(self.err(
+                    n.span(),
+                    format!(
+                        "virtual gate '{g}' is not listed in [gates] one_qubit ({})",
+                        names(&one_qubit)
+                    ),
+                ));
+            }
+            if !virtual_gates.contains(&g) {
+                virtual_gates.push(g);
+            }
+        }
+        let two_qubit = self.gate(&wire.two_qubit, "two_qubit", 2)?;
+        Ok(NativeGates { one_qubit, virtual_gates, two_qubit })
+    }
+}
+
+fn names(gates: &[Gate]) -> String {
+    gates.iter().map(|g| g.name()).collect::<Vec<_>>().join(", ")
+}
+
+/// 1-based line of a byte offset (clamped to the text).
+fn line_of(text: &[u8], offset: usize) -> usize {
+    1 + text[..offset.min(text.len())].iter().filter(|&&b| b == b'\n').count()
+}
+
+/// A TOML basic string literal.
+fn quote(s: &str) -> String {
+    let mut out = String::with_capacity(s.len() + 2);
+    out.push('"');
+    for c in s.chars() {
+        match c {
+            '"' => out.push_str("\\\""),
+            '\\' => out.push_str("\\\\"),
+            '\n' => out.push_str("\\n"),
+            '\t' => out.push_str("\\t"),
+            c if c.is_control() => {
+                let _ = write!(out, "\\u{:04X}", c as u32);
+            }
+            c => out.push(c),
+        }
+    }
+    out.push('"');
+    out
+}
+
+/// Shortest decimal that parses back to the same f64; always has a '.' or exponent so
+/// TOML reads it as a float.
+fn number(v: f64) -> String {
+    let v = if v == 0.0 { 0.0 } else { v };
+    format!("{v:?}")
+}
+
+/// Writes a layout in the TOML format [`parse_layout`] reads (one qubit and one coupler
+/// per line, so diffs and error lines stay readable).
+pub fn to_toml(layout: &Layout) -> String {
+    let mut s = String::new();
+    let _ = writeln!(
+        s,
+        "# {} qubits, {} couplers. Format: README, \"Layout files\".",
+        layout.n_qubits(),
+        layout.couplers.len()
+    );
+    let _ = writeln!(s, "name = {}", quote(&layout.name));
+    s.push_str("qubits = [\n");
+    for q in &layout.qubits {
+        match q.position {
+            Some([x, y]) => {
+                let _ = writeln!(
+                    s,
+                    "  {{ id = {}, position = [{}, {}] }},",
+                    quote(&q.id),
+                    number(x),
+                    number(y)
+                );
+            }
+            None => {
+                let _ = writeln!(s, "  {{ id = {} }},", quote(&q.id));
+            }
+        }
+    }
+    s.push_str("]\n");
+    let pair_list = |s: &mut String, key: &str, pairs: &[(usize, usize)]| {
+        if pairs.is_empty() {
+            let _ = writeln!(s, "{key} = []");
+            return;
+        }
+        let _ = writeln!(s, "{key} = [");
+        for &(a, b) in pairs {
+            let _ = writeln!(s, "  [{}, {}],", quote(layout.id(a)), quote(layout.id(b)));
+        }
+        s.push_str("]\n");
+    };
+    pair_list(&mut s, "couplers", &layout.couplers);
+    let list =
+        |gates: &[Gate]| gates.iter().map(|g| quote(g.name())).collect::<Vec<_>>().join(", ");
+    s.push_str("\n[gates]\n");
+    let _ = writeln!(s, "one_qubit = [{}]", list(&layout.gates.one_qubit));
+    let _ = writeln!(s, "virtual = [{}]", list(&layout.gates.virtual_gates));
+    let _ = writeln!(s, "two_qubit = {}", quote(layout.gates.two_qubit.name()));
+    s.push_str("\n[neighbourhood]\n");
+    let _ = writeln!(s, "radius = {}", layout.neighbourhood.radius);
+    pair_list(&mut s, "extra_pairs", &layout.neighbourhood.extra_pairs);
+    s
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::layout::generate;
+    use proptest::prelude::*;
+    use std::path::PathBuf;
+
+    fn good_text() -> String {
+        let p = PathBuf::from(env!("CARGO_MANIFEST_DIR")).join("tests/fixtures/good/layout.toml");
+        std::fs::read_to_string(p).unwrap()
+    }
+
+    fn parse(text: &str) -> Result<Layout> {
+        parse_layout(text, Path::new("chip.toml"))
+    }
+
+    fn err(text: &str) -> String {
+        match parse(text) {
+            Ok(_) => panic!("expected an error for:\n{text}"),
+            Err(e) => e.to_string(),
+        }
+    }
+
+    fn same(a: &Layout, b: &Layout) {
+        assert_eq!(a.name, b.name);
+        assert_eq!(a.qubits, b.qubits);
+        assert_eq!(a.couplers, b.couplers);
+        assert_eq!(a.gates, b.gates);
+        assert_eq!(a.neighbourhood, b.neighbourhood);
+    }
+
+    #[test]
+    fn good_fixture_parses() {
+        let l = parse(&good_text()).unwrap();
+        assert_eq!(l.name, "fixture-2x3");
+        assert_eq!(l.n_qubits(), 6);
+        assert_eq!(l.couplers.len(), 7);
+        assert_eq!(l.qubits[4].position, Some([1.0, 1.0]));
+        assert_eq!(l.gates.virtual_gates, vec![Gate::Rz]);
+        assert_eq!(l.gates.two_qubit, Gate::Cz);
+        assert_eq!(l.neighbourhood.radius, 1);
+        // q1 sits in the middle of the top row: couplers to q0, q2 and q4.
+        assert_eq!(l.coupled(1), &[0, 2, 4]);
+    }
+
+    #[test]
+    fn round_trips_good_fixture_and_generated_layouts() {
+        let mut layouts = vec![parse(&good_text()).unwrap()];
+        layouts.extend([generate::grid(3, 4), generate::ring(7), generate::hex(2, 3)]);
+        for l in &layouts {
+            let back = parse(&to_toml(l)).unwrap();
+            same(l, &back);
+            assert_eq!(to_toml(&back), to_toml(l));
+        }
+    }
+
+    #[test]
+    fn round_trips_optional_parts() {
+        let text = "name = \"odd \\\"one\\\"\"\nqubits = [{ id = \"a\" }, { id = \"b\", position = [-1, 2.5e-3] }, { id = \"c\" }]\n\
+                    couplers = [[\"b\", \"a\"]]\n[gates]\none_qubit = [\"h\"]\ntwo_qubit = \"cx\"\n\
+                    [neighbourhood]\nradius = 2\nextra_pairs = [[\"c\", \"a\"]]\n";
+        let l = parse(text).unwrap();
+        assert_eq!(l.name, "odd \"one\"");
+        assert_eq!(l.qubits[0].position, None);
+        assert_eq!(l.qubits[1].position, Some([-1.0, 2.5e-3]));
+        assert_eq!(l.couplers, vec![(0, 1)]);
+        assert_eq!(l.neighbourhood.extra_pairs, vec![(0, 2)]);
+        assert!(l.gates.virtual_gates.is_empty());
+        same(&l, &parse(&to_toml(&l)).unwrap());
+    }
+
+    #[test]
+    fn neighbourhood_defaults_to_radius_one() {
+        let text = good_text();
+        let cut = text.find("[neighbourhood]").unwrap();
+        let l = parse(&text[..cut]).unwrap();
+        assert_eq!(l.neighbourhood.radius, 1);
+        assert!(l.neighbourhood.extra_pairs.is_empty());
+    }
+
+    #[test]
+    fn semantic_errors_name_the_line() {
+        let text = good_text();
+        // Line 8 of the fixture defines q4, line 7 q3.
+        let dup = text.replace("id = \"q4\"", "id = \"q3\"");
+        let m = err(&dup);
+        assert!(
+            m.contains("chip.toml line 8: duplicate qubit id 'q3' (first defined on line 7)"),
+            "{m}"
+        );
+        let unknown = text.replace("[\"q4\", \"q5\"]", "[\"q4\", \"q9\"]");
+        let m = err(&unknown);
+        assert!(m.contains("line 12:") && m.contains("unknown qubit 'q9'"), "{m}");
+        let reversed_dup = text.replace("[\"q2\", \"q5\"]", "[\"q1\", \"q0\"]");
+        let m = err(&reversed_dup);
+        assert!(m.contains("line 13: duplicate coupler q1-q0 (first listed on line 12)"), "{m}");
+        let gate = text.replace("\"sx\", \"x\"", "\"sx\", \"u9\"");
+        let m = err(&gate);
+        assert!(
+            m.contains("line 17: unknown gate 'u9'") && m.contains(&Gate::known_names()),
+            "{m}"
+        );
+        let m = err(&text.replace("radius = 1", "radius = 3"));
+        assert!(m.contains("line 22: neighbourhood radius 3"), "{m}");
+        let m = err(&text.replace("virtual = [\"rz\"]", "virtual = [\"h\"]"));
+        assert!(m.contains("line 18: virtual gate 'h' is not listed"), "{m}");
+        let m = err(&text.replace("[2.0, 1.0]", "[2.0]"));
+        assert!(m.contains("line 9: qubit 'q5': position must be two finite numbers"), "{m}");
+        let m = err(&text.replace("two_qubit = \"cz\"", "two_qubit = \"x\""));
+        assert!(m.contains("line 19: gate 'x' in [gates] two_qubit acts on 1 qubit(s)"), "{m}");
+    }
+
+    #[test]
+    fn syntax_and_shape_errors() {
+        let m = err("");
+        assert!(m.contains("chip.toml: the file is empty"), "{m}");
+        let m = err("name = \"x\"\nqubits = [\n  { id = \"q0\" \n");
+        assert!(m.starts_with("chip.toml line"), "{m}");
+        let text = good_text();
+        let m = err(&text.replace("radius = 1", "radius = 1\ncolour = \"red\""));
+        assert!(m.contains("line 23:") && m.contains("unknown field `colour`"), "{m}");
+        let m = err(&text.replace("[\"q0\", \"q3\"]", "[\"q0\", \"q0\"]"));
+        assert!(m.contains("line 13: coupler q0-q0 joins a qubit to itself"), "{m}");
+        let m = err(&text.replace("position = [0.0, 0.0]", "position = [nan, 0.0]"));
+        assert!(m.contains("line 4:") && m.contains("finite"), "{m}");
+    }
+
+    #[test]
+    fn tolerates_bom_and_crlf() {
+        let text = format!("\u{feff}{}", good_text().replace('\n', "\r\n"));
+        assert_eq!(parse(&text).unwrap().n_qubits(), 6);
+        let m = err(&text.replace("id = \"q4\"", "id = \"q3\""));
+        assert!(m.contains("line 8:"), "{m}");
+    }
+
+    proptest! {
+        #![proptest_config(ProptestConfig::with_cases(300))]
+
+        #[test]
+        fn arbitrary_text_never_panics(s in "\\PC{0,200}", bytes in proptest::collection::vec(any::<u8>(), 0..300)) {
+            let _ = parse(&s);
+            let _ = parse(&String::from_utf8_lossy(&bytes));
+        }
+
+        #[test]
+        fn mutations_never_panic(pos in 0usize..2000, op in 0u8..3, c in proptest::char::any()) {
+            let text = good_text();
+            let mut chars: Vec<char> = text.chars().collect();
+            let i = pos % chars.len();
+            match op {
+                0 => { chars.remove(i); }
+                1 => chars.insert(i, c),
+                _ => chars[i] = c,
+            }
+            let mutated: String = chars.into_iter().collect();
+            match parse(&mutated) {
+                Ok(l) => prop_assert!(l.n_qubits() >= 1),
+                Err(e) => prop_assert!(e.to_string().starts_with("chip.toml")),
+            }
+        }
+    }
+}
