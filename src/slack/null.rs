@@ -1,0 +1,240 @@
+//! The context-permutation null (method.md section 5): permute one aggressor's labels among
+//! a victim's rows within strata, keep the requirements, re-solve both stages.
+//!
+//! Monte Carlo p-values and detection limits follow Davison & Hinkley, Bootstrap Methods
+//! and their Application (1997), ch. 4: p = (1 + #{T* >= t}) / (B + 1), and the limit is
+//! the ceil((1 - alpha)(B + 1))-th smallest replicate, so t above it implies p <= alpha.
+
+use std::collections::BTreeMap;
+
+use rand::seq::SliceRandom;
+use rand::SeedableRng;
+use rand_chacha::ChaCha8Rng;
+use rayon::prelude::*;
+
+use super::lp::{CoveringProblem, Row, VarKind};
+use crate::{Error, Result};
+
+/// A replicate scoring within this of the estimate (TVD per layer) counts as a tie, and a
+/// tie counts against detection.
+pub const TIE_TOLERANCE: f64 = 1e-12;
+
+/// A row split into what stays put (`base`) and what the permutation moves (`label`).
+struct SplitRow {
+    base: Vec<(usize, f64)>,
+    label: Vec<(usize, f64)>,
+    /// Whether `base` has context terms of its own (other aggressors, free ones).
+    other_context: bool,
+}
+
+/// Null scores for aggressor variables `r_vars` on the victim problem `problem`.
+///
+/// A row's label is its terms on `r_vars`; within each stratum (`strata[i]` for row i,
+/// computed by the caller from depth, sequence kind, victim role and the activity of the
+/// victim's other neighbours) the labels are shuffled among rows, requirements stay, and a
+/// row left with no context term becomes a reference row (and one that gains a label stops
+/// being one). Each replicate re-solves both stages and returns
+/// sum_v `score_weights` x_v. Replicate i draws from ChaCha8 seeded by `seed` on stream i,
+/// so its value depends on (seed, i) alone, whatever the thread count or replicate total.
+pub fn permutation_null(
+    problem: &CoveringProblem,
+    r_vars: &[usize],
+    strata: &[u64],
+    score_weights: &[(usize, f64)],
+    replicates: usize,
+    seed: u64,
+) -> Result<Vec<f64>> {
+    problem.validate()?;
+    if strata.len() != problem.rows.len() {
+        return Err(Error::Analysis(format!(
+            "permutation null: {} strata for {} rows (give one per row)",
+            strata.len(),
+            problem.rows.len()
+        )));
+    }
+    let free_context = |v: usize| {
+        problem.kinds[v] == VarKind::Context && problem.fixed.get(v).copied().flatten().is_none()
+    };
+    let split: Vec<SplitRow> = problem
+        .rows
+        .iter()
+        .map(|row| {
+            let (label, base): (Vec<_>, Vec<_>) =
+                row.terms.iter().copied().partition(|(v, _)| r_vars.contains(v));
+            let other_context = base.iter().any(|&(v, c)| c > 0.0 && free_context(v));
+            SplitRow { base, label, other_context }
+        })
+        .collect();
+    let mut groups: BTreeMap<u64, Vec<usize>> = BTreeMap::new();
+    for (i, &s) in strata.iter().enumerate() {
+        groups.entry(s).or_default().push(i);
+    }
+    let groups: Vec<Vec<usize>> = groups.into_values().filter(|g| g.len() > 1).collect();
+
+    (0..replicates)
+        .into_par_iter()
+        .map(|i| {
+            let mut rng = ChaCha8Rng::seed_from_u64(seed);
+            rng.set_stream(i as u64);
+            // source[j] = the row whose label row j receives.
+            let mut source: Vec<usize> = (0..split.len()).collect();
+            let mut perm = Vec::new();
+            for g in &groups {
+                perm.clear();
+                perm.extend_from_slice(g);
+                perm.shuffle(&mut rng);
+                for (&dst, &src) in g.iter().zip(&perm) {
+                    source[dst] = src;
+                }
+            }
+            let rows: Vec<Row> = split
+                .iter()
+                .zip(&problem.rows)
+                .zip(&source)
+                .map(|((s, row), &src)| {
+                    let label = &split[src].label;
+                    let mut terms = Vec::with_capacity(s.base.len() + label.len());
+                    terms.extend_from_slice(&s.base);
+                    terms.extend_from_slice(label);
+                    let labelled = label.iter().any(|&(v, c)| c > 0.0 && free_context(v));
+                    Row {
+                        terms,
+                        requirement: row.requirement,
+                        reference: !(s.other_context || labelled),
+                    }
+                })
+                .collect();
+            let replicate = CoveringProblem {
+                kinds: problem.kinds.clone(),
+                fixed: problem.fixed.clone(),
+                rows,
+            };
+            Ok(replicate.solve()?.score(score_weights))
+        })
+        .collect()
+}
+
+/// Monte Carlo p-value (1 + #{null >= estimate}) / (1 + B), ties within
+/// [`TIE_TOLERANCE`] counting as "at least"; 1 with no replicates.
+pub fn p_value(estimate: f64, null: &[f64]) -> f64 {
+    let at_least = null.iter().filter(|&&x| x >= estimate - TIE_TOLERANCE).count();
+    (1 + at_least) as f64 / (1 + null.len()) as f64
+}
+
+/// Detection limit: the ceil((1 - alpha)(B + 1))-th smallest null score (1-based); infinite
+/// when B is too small for that order statistic to exist, e.g. B < 19 at alpha = 0.05.
+/// An estimate above the limit has [`p_value`] at most alpha.
+pub fn detection_limit(null: &[f64], alpha: f64) -> f64 {
+    let b = null.len();
+    let k = ((1.0 - alpha) * (b + 1) as f64 - 1e-9).ceil();
+    if k.is_nan() || k < 1.0 || k as usize > b {
+        return f64::INFINITY;
+    }
+    let mut sorted = null.to_vec();
+    sorted.sort_by(f64::total_cmp);
+    sorted[k as usize - 1]
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use rand::RngExt;
+
+    /// Victim with omega (0), kappa_r (1), kappa_s (2). Rows at depths 4..32 with r and s
+    /// active independently; requirement grows by `effect_r` per layer where r is active.
+    fn synthetic(effect_r: f64, seed: u64) -> (CoveringProblem, Vec<u64>) {
+        let mut rng = ChaCha8Rng::seed_from_u64(seed);
+        let mut rows = Vec::new();
+        let mut strata = Vec::new();
+        for (di, depth) in [4.0, 8.0, 16.0, 32.0].into_iter().enumerate() {
+            for _ in 0..12 {
+                let r: bool = rng.random();
+                let s: bool = rng.random();
+                let mut terms = vec![(0, depth)];
+                if r {
+                    terms.push((1, depth));
+                }
+                if s {
+                    terms.push((2, depth));
+                }
+                let truth = depth * (1e-3 + effect_r * r as u8 as f64 + 5e-4 * s as u8 as f64);
+                let requirement = (truth + 0.01 * (rng.random::<f64>() - 0.5)).max(0.0);
+                rows.push(Row { terms, requirement, reference: !r && !s });
+                strata.push(di as u64 * 2 + s as u64);
+            }
+        }
+        let kinds = vec![VarKind::Intrinsic, VarKind::Context, VarKind::Context];
+        (CoveringProblem { kinds, fixed: vec![], rows }, strata)
+    }
+
+    #[test]
+    fn true_aggressor_gets_small_p_value() {
+        let (p, strata) = synthetic(2e-3, 1);
+        let estimate = p.solve().unwrap().score(&[(1, 1.0)]);
+        let null = permutation_null(&p, &[1], &strata, &[(1, 1.0)], 99, 42).unwrap();
+        let pv = p_value(estimate, &null);
+        assert!(estimate > 1e-3, "{estimate}");
+        assert!(pv <= 0.02, "p = {pv}, estimate {estimate}, null {null:?}");
+        assert!(estimate > detection_limit(&null, 0.05));
+    }
+
+    #[test]
+    fn independent_label_gives_valid_p_values() {
+        // Over independent data sets the null p-value must not be small too often:
+        // P(p <= a) <= a for a Monte Carlo test (Davison & Hinkley 1997, ch. 4), up to
+        // three binomial standard deviations over 40 sets.
+        let mut ps = Vec::new();
+        for seed in 0..40 {
+            let (p, strata) = synthetic(0.0, 1000 + seed);
+            let estimate = p.solve().unwrap().score(&[(1, 1.0)]);
+            let null = permutation_null(&p, &[1], &strata, &[(1, 1.0)], 39, seed).unwrap();
+            ps.push(p_value(estimate, &null));
+        }
+        for a in [0.1, 0.25, 0.5] {
+            let frac = ps.iter().filter(|&&x| x <= a).count() as f64 / ps.len() as f64;
+            let sd = (a * (1.0 - a) / ps.len() as f64).sqrt();
+            assert!(frac <= a + 3.0 * sd, "P(p <= {a}) = {frac}; {ps:?}");
+        }
+        let mean = ps.iter().sum::<f64>() / ps.len() as f64;
+        assert!(mean > 0.35, "mean p {mean}: {ps:?}");
+        // Not degenerate either: a null stuck at ties would give p = 1 everywhere.
+        let low = ps.iter().filter(|&&x| x <= 0.5).count() as f64 / ps.len() as f64;
+        assert!(low >= 0.15, "P(p <= 0.5) = {low}: {ps:?}");
+    }
+
+    #[test]
+    fn replicates_depend_on_seed_and_index_only() {
+        let (p, strata) = synthetic(1e-3, 3);
+        let run = |threads: usize, b: usize| {
+            rayon::ThreadPoolBuilder::new()
+                .num_threads(threads)
+                .build()
+                .unwrap()
+                .install(|| permutation_null(&p, &[1], &strata, &[(1, 1.0)], b, 9).unwrap())
+        };
+        let one = run(1, 12);
+        let two = run(2, 12);
+        assert_eq!(one, two);
+        assert_eq!(run(2, 6)[..], one[..6]);
+        let other = permutation_null(&p, &[1], &strata, &[(1, 1.0)], 12, 10).unwrap();
+        assert_ne!(one, other);
+    }
+
+    #[test]
+    fn p_value_and_limit_rules() {
+        let null: Vec<f64> = (1..=19).map(|i| i as f64).collect();
+        assert!((p_value(19.5, &null) - 0.05).abs() < 1e-12);
+        // A tie is not a detection: it counts as "at least".
+        assert!((p_value(19.0, &null) - 0.1).abs() < 1e-12);
+        // B = 19, alpha = 0.05: the 19th smallest.
+        assert_eq!(detection_limit(&null, 0.05), 19.0);
+        assert!(detection_limit(&null[..10], 0.05).is_infinite());
+        assert_eq!(p_value(1.0, &[]), 1.0);
+    }
+
+    #[test]
+    fn strata_length_is_checked() {
+        let (p, _) = synthetic(0.0, 0);
+        assert!(permutation_null(&p, &[1], &[0, 1], &[(1, 1.0)], 3, 0).is_err());
+    }
+}

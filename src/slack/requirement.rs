@@ -1,0 +1,110 @@
+//! Row requirements: the least TVD radius at which a row's weakened prediction passes
+//! its chi-squared threshold, d_row = min { w : LLR(w) <= T } (method.md section 4).
+//!
+//! LLR(w) is convex and non-increasing, so Newton steps from the left never overshoot
+//! the root; bisection guards the steps where the slope is unusable (LLR(0) infinite).
+
+use super::projection::Weakening;
+
+/// Width of the final bracket: the returned radius is feasible and within this of the root.
+pub const REQUIREMENT_TOLERANCE: f64 = 1e-12;
+
+/// d_row for prediction `p`, counts `n` and LLR threshold `threshold` (from
+/// [`crate::stats::bonferroni_threshold`]). 0 when the row already passes; never more than
+/// TVD(p, f).
+///
+/// For two outcomes q*(w) = (p_1 + w, p_2 - w) is explicit and each step is O(1); the
+/// root itself has no elementary form (the binary relative entropy has no elementary
+/// inverse), so the same safeguarded Newton iteration serves every K.
+///
+/// # Panics
+/// When `p` and `n` differ in length.
+pub fn requirement(p: &[f64], n: &[u64], threshold: f64) -> f64 {
+    requirement_of(&Weakening::new(p, n), threshold)
+}
+
+/// [`requirement`] for a row already prepared, so a caller that tries several thresholds
+/// sorts the outcomes once.
+pub fn requirement_of(wk: &Weakening, threshold: f64) -> f64 {
+    let t = threshold.max(0.0);
+    let mut hi = wk.tvd_to_frequencies();
+    let (mut g_lo, mut s_lo) = wk.llr_and_slope(0.0);
+    if hi <= 0.0 || g_lo <= t {
+        return 0.0;
+    }
+    let mut lo = 0.0;
+    for _ in 0..200 {
+        if hi - lo <= REQUIREMENT_TOLERANCE {
+            break;
+        }
+        let newton = if g_lo.is_finite() && s_lo < 0.0 { lo + (t - g_lo) / s_lo } else { f64::NAN };
+        let converging = newton.is_finite() && newton - lo < 0.25 * REQUIREMENT_TOLERANCE;
+        let c = if converging {
+            // Newton has stalled just left of the root: probe the far end of the tolerance.
+            lo + REQUIREMENT_TOLERANCE
+        } else if newton > lo && newton < hi {
+            newton
+        } else {
+            0.5 * (lo + hi)
+        };
+        let (g, s) = wk.llr_and_slope(c);
+        if g > t {
+            lo = c;
+            g_lo = g;
+            s_lo = s;
+        } else {
+            hi = c;
+        }
+    }
+    hi
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::stats::chi2_quantile;
+    use proptest::prelude::*;
+
+    #[test]
+    fn two_outcome_case_checked_by_hand() {
+        // p = (0.5, 0.5), 600 of 1000 shots on outcome 0, T = 3.841 (1 dof, 95%).
+        // Wald check: 0.6 - 1.96 sqrt(0.24 / 1000) = 0.5696, so d is about 0.07; a plain
+        // bisection of 2[600 ln(0.6/(0.5+w)) + 400 ln(0.4/(0.5-w))] = 3.841 gives
+        // 0.0694110039144 (independent computation in double precision).
+        let d = requirement(&[0.5, 0.5], &[600, 400], 3.841);
+        assert!((d - 0.069_411_003_914_4).abs() < 1e-11, "{d}");
+    }
+
+    #[test]
+    fn passing_row_needs_nothing() {
+        let d = requirement(&[0.5, 0.5], &[510, 490], chi2_quantile(1, 0.95));
+        assert_eq!(d, 0.0);
+        assert_eq!(requirement(&[0.3, 0.7], &[0, 0], 3.0), 0.0);
+    }
+
+    #[test]
+    fn infinite_llr_at_zero_is_handled() {
+        let d = requirement(&[1.0, 0.0], &[95, 5], 3.841);
+        let wk = Weakening::new(&[1.0, 0.0], &[95, 5]);
+        assert!(d > 0.0 && d < 0.05, "{d}");
+        assert!(wk.llr(d) <= 3.841 + 1e-9);
+        assert!(wk.llr(d - 1e-9) > 3.841);
+    }
+
+    proptest! {
+        #[test]
+        fn root_is_tight(k in 2usize..=16, seed in any::<u64>(), t in 0.5f64..40.0) {
+            use rand::{RngExt, SeedableRng};
+            let mut rng = rand_chacha::ChaCha8Rng::seed_from_u64(seed);
+            let p: Vec<f64> = (0..k).map(|_| rng.random::<f64>() + 0.01).collect();
+            let n: Vec<u64> = (0..k).map(|_| rng.random_range(0..400)).collect();
+            let wk = Weakening::new(&p, &n);
+            let d = requirement_of(&wk, t);
+            prop_assert!(d >= 0.0 && d <= wk.tvd_to_frequencies() + 1e-15);
+            prop_assert!(wk.llr(d) <= t + 1e-9);
+            if d > 2e-12 {
+                prop_assert!(wk.llr(d - 2e-12) > t - 1e-9);
+            }
+        }
+    }
+}
