@@ -5,6 +5,8 @@ use std::process::ExitCode;
 
 use clap::{Parser, Subcommand};
 
+mod design;
+
 /// Exit-code documentation shown at the end of `--help`.
 const EXIT_CODES: &str = "Exit codes: 0 success, 1 the analysis failed, 2 bad input or usage.";
 
@@ -17,12 +19,17 @@ pub struct Cli {
 }
 
 #[derive(Subcommand, Debug)]
-enum Command {}
+enum Command {
+    /// Write the circuits to run for a layout.
+    Design(design::DesignArgs),
+}
 
 /// Runs the CLI and maps the outcome to an exit code.
 pub fn main() -> ExitCode {
     let cli = Cli::parse();
-    let result: anyhow::Result<()> = match cli.command {};
+    let result: anyhow::Result<()> = match cli.command {
+        Command::Design(a) => design::run(a),
+    };
     match result {
         Ok(()) => ExitCode::SUCCESS,
         Err(e) => report_error(&e),
