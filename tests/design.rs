@@ -5,6 +5,7 @@ use std::collections::HashMap;
 use std::path::Path;
 
 use num_complex::Complex64;
+use predicates::prelude::*;
 use slackmap::circuit::Circuit;
 use slackmap::design::{design, manifest_csv, write_design, DesignConfig, Kind, MANIFEST_HEADER};
 use slackmap::gate::Gate;
@@ -255,4 +256,67 @@ fn repeated_and_randomized_use_native_gates_only() {
             assert!(op.gate != Gate::Rz || op.angle.abs() > 1e-12, "rz(0) in {}", c.id);
         }
     }
+}
+
+/// Figures for the default design on a large grid (not a check): run with
+/// `SLACKMAP_GRID=32 cargo test --test design large_grid_figures -- --ignored --nocapture`.
+#[test]
+#[ignore]
+fn large_grid_figures() {
+    let n: usize = std::env::var("SLACKMAP_GRID").ok().and_then(|s| s.parse().ok()).unwrap_or(12);
+    let start = std::time::Instant::now();
+    let (layout, d) = grid_design(n, n, DesignConfig::DEFAULT_DEPTHS.to_vec(), 4, 1);
+    let built = start.elapsed();
+    let tmp = tempfile::tempdir().unwrap();
+    let dir = tmp.path().join("out");
+    write_design(&dir, &layout, &d).unwrap();
+    let size = |p: &Path| std::fs::metadata(p).unwrap().len();
+    let qasm: u64 =
+        std::fs::read_dir(dir.join("qasm")).unwrap().map(|e| size(&e.unwrap().path())).sum();
+    let ops: usize =
+        d.circuits.circuits.iter().map(|c| c.layers.iter().map(Vec::len).sum::<usize>()).sum();
+    println!(
+        "grid-{n}x{n}: {} patterns, {} circuits, {} ops, circuits.json {} B, qasm/ {} B, manifest {} B, design {:.2?}, total {:.2?}",
+        d.n_patterns,
+        d.circuits.len(),
+        ops,
+        size(&dir.join("circuits.json")),
+        qasm,
+        size(&dir.join("manifest.csv")),
+        built,
+        start.elapsed()
+    );
+    for ctx in ["ref-1q", "ref-2q", "pair", "all-active-1q", "all-active-2q", "all-idle"] {
+        let k = d.patterns.iter().filter(|p| p.context.name() == ctx).count();
+        println!("  {ctx}: {k} patterns");
+    }
+}
+
+#[test]
+fn cli_writes_a_design_and_rejects_bad_kinds() {
+    let tmp = tempfile::tempdir().unwrap();
+    let out = tmp.path().join("run");
+    let layout = concat!(env!("CARGO_MANIFEST_DIR"), "/tests/fixtures/good/layout.toml");
+    assert_cmd::Command::cargo_bin("slackmap")
+        .unwrap()
+        .args(["design", "--layout", layout, "--depths", "1,4", "--sequences", "2", "--seed", "7"])
+        .arg("--out")
+        .arg(&out)
+        .assert()
+        .success()
+        .stdout(
+            predicates::str::contains("patterns,")
+                .and(predicates::str::contains("circuits written to")),
+        );
+    for f in ["circuits.json", "manifest.csv", "qasm"] {
+        assert!(out.join(f).exists(), "{f}");
+    }
+    assert_cmd::Command::cargo_bin("slackmap")
+        .unwrap()
+        .args(["design", "--layout", layout, "--kinds", "sideways"])
+        .arg("--out")
+        .arg(tmp.path().join("other"))
+        .assert()
+        .code(2)
+        .stderr(predicates::str::contains("valid: randomized"));
 }

@@ -233,3 +233,57 @@ fn row_for(job: &Job, p: &Pattern, c: &Circuit, ideal: impl Fn(usize) -> Ideal) 
         ideal_p1: ideals.iter().map(|i| i.p1()).collect(),
     }
 }
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::layout::generate;
+
+    #[test]
+    fn config_rejects_empty_zero_and_duplicate_values() {
+        assert!(DesignConfig::new(vec![], 1, 0, vec![Kind::Randomized]).is_err());
+        assert!(DesignConfig::new(vec![0, 4], 1, 0, vec![Kind::Randomized]).is_err());
+        assert!(DesignConfig::new(vec![4, 4], 1, 0, vec![Kind::Randomized]).is_err());
+        assert!(DesignConfig::new(vec![1], 0, 0, vec![Kind::Randomized]).is_err());
+        assert!(DesignConfig::new(vec![1], 1, 0, vec![]).is_err());
+        let ok = DesignConfig::new(vec![1, 4], 2, 0, vec![Kind::RepeatedZ, Kind::Randomized]);
+        assert_eq!(ok.unwrap().kinds, vec![Kind::Randomized, Kind::RepeatedZ]);
+    }
+
+    #[test]
+    fn circuit_count_is_patterns_times_sequences() {
+        let layout = generate::chain(5);
+        let cfg = DesignConfig::new(vec![1, 2, 3], 3, 9, Kind::ALL.to_vec()).unwrap();
+        let d = design(&layout, &cfg).unwrap();
+        // randomized: 3 depths x 3 sequences; repeated: 3 depths x 1, for each framing.
+        assert_eq!(d.circuits.len(), d.n_patterns * (9 + 3 + 3));
+        assert_eq!(d.manifest.len(), d.circuits.len());
+        for (c, r) in d.circuits.circuits.iter().zip(&d.manifest) {
+            assert_eq!(c.id, r.id);
+            assert_eq!(r.ideal_p1.len(), c.measured.len());
+        }
+    }
+
+    #[test]
+    fn all_idle_matches_the_all_active_length() {
+        let layout = generate::ring(6);
+        let cfg = DesignConfig::new(vec![8], 1, 4, vec![Kind::Randomized]).unwrap();
+        let d = design(&layout, &cfg).unwrap();
+        let timed = |c: &Circuit| (0..c.layers.len()).filter(|&t| c.is_timed(&layout, t)).count();
+        let find = |ctx: Context| {
+            let i = d.manifest.iter().position(|r| r.context == ctx).unwrap();
+            timed(&d.circuits.circuits[i])
+        };
+        assert_eq!(find(Context::AllIdle), find(Context::AllActive1q));
+        assert!(find(Context::AllIdle) >= 8);
+    }
+
+    #[test]
+    fn unsupported_two_qubit_gate_is_a_clear_error() {
+        let mut layout = generate::chain(3);
+        layout.gates.two_qubit = crate::gate::Gate::Id;
+        let cfg = DesignConfig::new(vec![1], 1, 0, vec![Kind::Randomized]).unwrap();
+        let err = design(&layout, &cfg).unwrap_err().to_string();
+        assert!(err.contains("valid: cz, cx"), "{err}");
+    }
+}

@@ -138,6 +138,26 @@ impl BlockRun {
     }
 }
 
+/// How a pending Z frame change moves past a gate on operand `k`, up to global phase.
+enum Passage {
+    /// The gate is diagonal on that operand: the frame moves past unchanged.
+    Commutes,
+    /// rz(t) then g equals g then rz(-t): x and y.
+    Negates,
+    /// The frame must be applied before the gate.
+    Blocks,
+}
+
+fn frame_passage(g: Gate, k: usize) -> Passage {
+    match (g, k) {
+        (Gate::Cz, _)
+        | (Gate::Cx, 0)
+        | (Gate::Id | Gate::Z | Gate::S | Gate::Sdg | Gate::Rz, _) => Passage::Commutes,
+        (Gate::X | Gate::Y, _) => Passage::Negates,
+        _ => Passage::Blocks,
+    }
+}
+
 /// Builds block sequences and circuits for one layout.
 pub(crate) struct Builder<'a> {
     layout: &'a Layout,
@@ -313,7 +333,16 @@ impl<'a> Builder<'a> {
                         pending[q] = (pending[q] + col.frames[pos]) % 4;
                     }
                     for op in &col.ops {
-                        for &q in op.qubits() {
+                        for (k, &q) in op.qubits().iter().enumerate() {
+                            match frame_passage(op.gate, k) {
+                                Passage::Commutes => continue,
+                                Passage::Negates => {
+                                    pending[q] = (4 - pending[q]) % 4;
+                                    started[q] = true;
+                                    continue;
+                                }
+                                Passage::Blocks => {}
+                            }
                             // A frame change before the first pulse acts on |0>: a phase.
                             if pending[q] != 0 && started[q] {
                                 frames.push((q, self.comp.frame_ops(pending[q])));
