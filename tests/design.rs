@@ -93,7 +93,24 @@ fn grid_design(
 #[test]
 fn ideal_simulation_gives_the_manifest_outcomes() {
     let (layout, d) = grid_design(4, 4, vec![1, 4, 16], 2, 3);
-    let rows = parse_manifest(&manifest_csv(&layout, &d));
+    check_ideal(&layout, &d);
+}
+
+#[test]
+fn ideal_outcomes_hold_for_other_native_sets() {
+    // sx with virtual rz and cx; then rx/ry pulses without virtual gates.
+    let mut layout = generate::grid(2, 3);
+    layout.gates.one_qubit = vec![Gate::Sx, Gate::Rz];
+    layout.gates.two_qubit = Gate::Cx;
+    let cfg = DesignConfig::new(vec![1, 5], 2, 21, Kind::ALL.to_vec()).unwrap();
+    check_ideal(&layout, &design(&layout, &cfg).unwrap());
+    layout.gates.one_qubit = vec![Gate::Rx, Gate::Ry];
+    layout.gates.virtual_gates = vec![];
+    check_ideal(&layout, &design(&layout, &cfg).unwrap());
+}
+
+fn check_ideal(layout: &Layout, d: &slackmap::design::Design) {
+    let rows = parse_manifest(&manifest_csv(layout, d));
     assert_eq!(rows.len(), d.circuits.len());
     let mut seen_kinds = std::collections::BTreeSet::new();
     for c in &d.circuits.circuits {
@@ -319,4 +336,37 @@ fn cli_writes_a_design_and_rejects_bad_kinds() {
         .assert()
         .code(2)
         .stderr(predicates::str::contains("valid: randomized"));
+}
+
+#[test]
+fn every_coupler_gate_meets_each_neighbour_as_aggressor() {
+    let (layout, d) = grid_design(3, 4, vec![4], 1, 12);
+    let mut covered = std::collections::HashSet::new();
+    for c in &d.circuits.circuits {
+        for (t, layer) in c.layers.iter().enumerate() {
+            let active = c.active_qubits(&layout, t);
+            for op in layer.iter().filter(|op| op.gate == layout.gates.two_qubit) {
+                let [a, b] = op.operands;
+                for &s in [a, b].iter() {
+                    for &r in layout.neighbours(s) {
+                        if r != a && r != b && active.binary_search(&r).is_ok() {
+                            covered.insert((a.min(b), a.max(b), r));
+                        }
+                    }
+                }
+            }
+        }
+    }
+    for &(a, b) in &layout.couplers {
+        let hood: std::collections::BTreeSet<QubitIx> = layout
+            .neighbours(a)
+            .iter()
+            .chain(layout.neighbours(b))
+            .copied()
+            .filter(|&r| r != a && r != b)
+            .collect();
+        for r in hood {
+            assert!(covered.contains(&(a, b, r)), "{}-{} never with {}", a, b, r);
+        }
+    }
 }

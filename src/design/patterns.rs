@@ -87,24 +87,55 @@ fn closed_neighbourhood(layout: &Layout, qubits: &[QubitIx]) -> Vec<QubitIx> {
     v
 }
 
-/// Greedy colouring of units (each a list of active qubits): two units conflict when their
-/// closed neighbourhoods meet. Returns the classes in colour order, units in input order.
+/// Colours units (each a list of active qubits) so that two units of one colour have
+/// disjoint closed neighbourhoods. DSatur (Brelaz, "New methods to color the vertices of a
+/// graph", CACM 22(4), 251 (1979)): colour next the unit whose conflicts already use the
+/// most colours, ties to more conflicts, then to the lower index (deterministic). Returns
+/// the classes in colour order, units in input order.
 fn pack(layout: &Layout, units: &[Vec<QubitIx>]) -> Vec<Vec<usize>> {
-    let mut cover: Vec<Vec<usize>> = vec![Vec::new(); layout.n_qubits()];
+    let n = units.len();
+    let hoods: Vec<Vec<QubitIx>> =
+        units.iter().map(|qs| closed_neighbourhood(layout, qs)).collect();
+    let mut covering: Vec<Vec<usize>> = vec![Vec::new(); layout.n_qubits()];
+    for (u, h) in hoods.iter().enumerate() {
+        for &r in h {
+            covering[r].push(u);
+        }
+    }
+    let conflicts: Vec<Vec<usize>> = hoods
+        .iter()
+        .enumerate()
+        .map(|(u, h)| {
+            let mut c: Vec<usize> =
+                h.iter().flat_map(|&r| covering[r].iter().copied()).filter(|&v| v != u).collect();
+            c.sort_unstable();
+            c.dedup();
+            c
+        })
+        .collect();
+    let mut colour: Vec<Option<usize>> = vec![None; n];
+    // Colours seen among each unit's coloured conflicts (sorted, distinct).
+    let mut seen: Vec<Vec<usize>> = vec![Vec::new(); n];
     let mut classes: Vec<Vec<usize>> = Vec::new();
-    for (u, qs) in units.iter().enumerate() {
-        let hood = closed_neighbourhood(layout, qs);
-        let mut colour = 0;
-        while hood.iter().any(|&r| cover[r].contains(&colour)) {
-            colour += 1;
+    for _ in 0..n {
+        let next = (0..n)
+            .filter(|&u| colour[u].is_none())
+            .max_by_key(|&u| (seen[u].len(), conflicts[u].len(), std::cmp::Reverse(u)));
+        let Some(u) = next else { break };
+        let c = (0..).find(|c| seen[u].binary_search(c).is_err()).unwrap_or(0);
+        colour[u] = Some(c);
+        for &v in &conflicts[u] {
+            if let Err(pos) = seen[v].binary_search(&c) {
+                seen[v].insert(pos, c);
+            }
         }
-        for &r in &hood {
-            cover[r].push(colour);
+        if classes.len() <= c {
+            classes.resize(c + 1, Vec::new());
         }
-        if classes.len() <= colour {
-            classes.resize(colour + 1, Vec::new());
-        }
-        classes[colour].push(u);
+        classes[c].push(u);
+    }
+    for class in &mut classes {
+        class.sort_unstable();
     }
     classes
 }
