@@ -15,6 +15,7 @@ use slackmap::layout::{generate, Layout, QubitIx};
 struct Row {
     context: String,
     kind: String,
+    depth: usize,
     ideal_outcome: String,
     ideal_p1: Vec<f64>,
 }
@@ -32,6 +33,7 @@ fn parse_manifest(text: &str) -> HashMap<String, Row> {
                 Row {
                     context: f[2].to_string(),
                     kind: f[3].to_string(),
+                    depth: f[4].parse().unwrap(),
                     ideal_outcome: f[7].to_string(),
                     ideal_p1: p1,
                 },
@@ -43,6 +45,29 @@ fn parse_manifest(text: &str) -> HashMap<String, Row> {
 /// Exact state vector of a block of one or two qubits (basis index = bit(block[0]) +
 /// 2 bit(block[1])), from the ideal unitaries of `Gate`.
 fn simulate_block(c: &Circuit, block: &[QubitIx]) -> Vec<Complex64> {
+    simulate_noisy(c, block, Noise::default())
+}
+
+/// Small coherent errors: sx over-rotated by `over`, followed by rz(`detune`); cz with an
+/// extra conditional phase `cphase` on |11>.
+#[derive(Clone, Copy, Default)]
+struct Noise {
+    over: f64,
+    detune: f64,
+    cphase: f64,
+}
+
+fn mat_mul(a: &slackmap::gate::Mat2, b: &slackmap::gate::Mat2) -> slackmap::gate::Mat2 {
+    let mut m = [[Complex64::new(0.0, 0.0); 2]; 2];
+    for i in 0..2 {
+        for j in 0..2 {
+            m[i][j] = a[i][0] * b[0][j] + a[i][1] * b[1][j];
+        }
+    }
+    m
+}
+
+fn simulate_noisy(c: &Circuit, block: &[QubitIx], noise: Noise) -> Vec<Complex64> {
     let n = block.len();
     assert!(n <= 2, "circuit {}: block {block:?} too large", c.id);
     let mut psi = vec![Complex64::new(0.0, 0.0); 1 << n];
@@ -57,7 +82,12 @@ fn simulate_block(c: &Circuit, block: &[QubitIx]) -> Vec<Complex64> {
         let ps: Vec<usize> = ps.into_iter().map(|p| p.expect("gate leaves its block")).collect();
         let mut out = vec![Complex64::new(0.0, 0.0); psi.len()];
         if op.gate.arity() == 1 {
-            let u = op.gate.unitary1(op.angle).unwrap();
+            let u = if op.gate == Gate::Sx {
+                let rx = Gate::Rx.unitary1(std::f64::consts::FRAC_PI_2 + noise.over).unwrap();
+                mat_mul(&Gate::Rz.unitary1(noise.detune).unwrap(), &rx)
+            } else {
+                op.gate.unitary1(op.angle).unwrap()
+            };
             let bit = 1 << ps[0];
             for (i, o) in out.iter_mut().enumerate() {
                 let r = (i & bit != 0) as usize;
@@ -65,7 +95,10 @@ fn simulate_block(c: &Circuit, block: &[QubitIx]) -> Vec<Complex64> {
                 *o = u[r][0] * psi[i0] + u[r][1] * psi[i1];
             }
         } else {
-            let u = op.gate.unitary2().unwrap();
+            let mut u = op.gate.unitary2().unwrap();
+            if op.gate == Gate::Cz {
+                u[3][3] *= Complex64::from_polar(1.0, noise.cphase);
+            }
             // Gate basis: bit(first operand) + 2 bit(second operand).
             let local = |i: usize| ((i >> ps[0]) & 1) | (((i >> ps[1]) & 1) << 1);
             for (i, o) in out.iter_mut().enumerate() {
@@ -368,5 +401,51 @@ fn every_coupler_gate_meets_each_neighbour_as_aggressor() {
         for r in hood {
             assert!(covered.contains(&(a, b, r)), "{}-{} never with {}", a, b, r);
         }
+    }
+}
+
+/// Slope of the outcome distribution of the first block of the circuit with `context`,
+/// `kind` and `depth` under a small error (central difference).
+fn slope(context: &str, kind: &str, depth: usize, noise: impl Fn(f64) -> Noise) -> Vec<f64> {
+    let layout = generate::chain(2);
+    let cfg = DesignConfig::new(vec![1, 4, 16], 1, 0, Kind::ALL.to_vec()).unwrap();
+    let d = design(&layout, &cfg).unwrap();
+    let rows = parse_manifest(&manifest_csv(&layout, &d));
+    let c = d
+        .circuits
+        .circuits
+        .iter()
+        .find(|c| {
+            let r = &rows[&c.id];
+            r.context == context && r.kind == kind && r.depth == depth
+        })
+        .unwrap();
+    let acted = |q: QubitIx| {
+        c.layers.iter().flatten().any(|op| op.gate != Gate::Id && op.qubits().contains(&q))
+    };
+    let block = c.blocks().into_iter().find(|b| b.iter().all(|&q| acted(q))).unwrap();
+    let h = 1e-5;
+    let p = |x: f64| -> Vec<f64> {
+        simulate_noisy(c, &block, noise(x)).iter().map(|a| a.norm_sqr()).collect()
+    };
+    let (hi, lo) = (p(h), p(-h));
+    hi.iter().zip(&lo).map(|(a, b)| (a - b) / (2.0 * h)).collect()
+}
+
+#[test]
+fn repeated_framings_see_coherent_errors_to_first_order() {
+    for depth in [1usize, 4, 16] {
+        // Over-rotation: 4 depth + 1 quarter turns from |0> give P(1) = (1 + sin((4d+1) e))/2,
+        // slope (4d+1)/2 (closed form of a rotation about X).
+        let s = slope("ref-1q", "repeated-x", depth, |e| Noise { over: e, ..Noise::default() });
+        let want = (4 * depth + 1) as f64 / 2.0;
+        assert!((s[1] - want).abs() < 1e-3 * want, "depth {depth}: slope {} want {want}", s[1]);
+        // Detuning is refocused by the x framing's cycle and seen by the z framing's.
+        let sz = slope("ref-1q", "repeated-z", depth, |e| Noise { detune: e, ..Noise::default() });
+        assert!(sz[1].abs() > 0.4 * depth as f64, "depth {depth}: z slope {}", sz[1]);
+        // A conditional phase shows in the coupler's joint distribution under the z framing.
+        let sc = slope("ref-2q", "repeated-z", depth, |e| Noise { cphase: e, ..Noise::default() });
+        let max = sc.iter().fold(0.0f64, |m, v| m.max(v.abs()));
+        assert!(max > 0.1 * depth as f64, "depth {depth}: cphase slopes {sc:?}");
     }
 }
