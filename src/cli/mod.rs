@@ -10,6 +10,7 @@ mod check;
 mod inputs;
 mod layout;
 mod progress;
+mod design;
 
 /// Exit-code documentation shown at the end of `--help`.
 const EXIT_CODES: &str = "Exit codes: 0 success, 1 the analysis failed, 2 bad input or usage.";
@@ -32,6 +33,8 @@ enum Command {
     Audit(audit::AuditArgs),
     /// Run the audit on the bundled demo scenario and write its report.
     Demo(audit::DemoArgs),
+    /// Write the circuits to run for a layout.
+    Design(design::DesignArgs),
 }
 
 /// Runs the CLI and maps the outcome to an exit code.
@@ -42,6 +45,7 @@ pub fn main() -> ExitCode {
         Command::Check(args) => check::run(args),
         Command::Audit(args) => audit::run(args),
         Command::Demo(args) => audit::demo(args),
+        Command::Design(a) => design::run(a),
     };
     match result {
         Ok(()) => ExitCode::SUCCESS,

@@ -1,0 +1,76 @@
+//! `slackmap design`: write the circuits to run for a layout.
+//!
+//! Converts the typed arguments into a validated [`DesignConfig`], calls the library, and
+//! prints the pattern count, circuit count and output folder.
+
+use std::path::PathBuf;
+
+use anyhow::Context as _;
+use clap::Args;
+use slackmap::design::{design, write_design, DesignConfig, Kind};
+
+const EXAMPLE: &str = "\
+Example:
+  slackmap design --layout chip.toml --depths 1,4,16,64 --sequences 4 --seed 7 --out run1
+
+Writes run1/circuits.json (circuits in run order), run1/qasm/<id>.qasm (one OpenQASM 3
+program per circuit) and run1/manifest.csv (columns id, pattern, context, kind, depth,
+sequence, active_blocks, ideal_outcome, ideal_p1). The same seed gives identical files.
+
+Exit codes: 0 success, 1 the analysis failed, 2 bad input or usage.";
+
+/// Write reference, pair, all-active and all-idle circuits for a layout.
+///
+/// Every qubit and coupler gets reference circuits (its neighbours idle and measured),
+/// every neighbour pair a pair context, and the whole chip all-active and all-idle
+/// circuits. Blocks far enough apart share a circuit, so the number of patterns depends on
+/// the layout's degree, not its size.
+#[derive(Args, Debug)]
+#[command(after_help = EXAMPLE)]
+pub struct DesignArgs {
+    /// Layout file (TOML).
+    #[arg(long, value_name = "FILE")]
+    layout: PathBuf,
+    /// Sequence depths, comma separated: Cliffords per randomized sequence, cycle
+    /// repetitions per repeated one.
+    #[arg(long, value_delimiter = ',', default_value = "1,4,16,64", value_name = "LIST")]
+    depths: Vec<usize>,
+    /// Independent randomized sequences per depth and pattern.
+    #[arg(long, default_value_t = 4, value_name = "N")]
+    sequences: usize,
+    /// Seed for every random choice (sequences and run order).
+    #[arg(long, default_value_t = 0, value_name = "S")]
+    seed: u64,
+    /// Output folder (must not exist, or be empty).
+    #[arg(long, value_name = "DIR")]
+    out: PathBuf,
+    /// Sequence kinds, comma separated: randomized, repeated-x, repeated-z, or repeated
+    /// (both repeated framings).
+    #[arg(long, value_delimiter = ',', default_value = "randomized,repeated", value_name = "LIST")]
+    kinds: Vec<String>,
+}
+
+/// Runs `slackmap design`.
+pub fn run(args: DesignArgs) -> anyhow::Result<()> {
+    let mut kinds = Vec::new();
+    for k in &args.kinds {
+        let parsed = Kind::parse_list(k).ok_or_else(|| {
+            slackmap::Error::Usage(format!(
+                "--kinds: '{k}' is not a kind (valid: randomized, repeated-x, repeated-z, repeated)"
+            ))
+        })?;
+        kinds.extend(parsed);
+    }
+    let cfg = DesignConfig::new(args.depths.clone(), args.sequences, args.seed, kinds)?;
+    let layout = slackmap::layout::read_layout(&args.layout)?;
+    let d =
+        design(&layout, &cfg).with_context(|| format!("designing for layout '{}'", layout.name))?;
+    write_design(&args.out, &layout, &d)?;
+    println!(
+        "{} patterns, {} circuits written to {}",
+        d.n_patterns,
+        d.circuits.len(),
+        args.out.display()
+    );
+    Ok(())
+}

@@ -1,1 +1,0 @@
-//! Experiment design: reference, pair, all-active and all-idle contexts, packed by colouring.

@@ -1,0 +1,384 @@
+//! Sequences for one block and the assembly of blocks into one layer-aligned circuit.
+//!
+//! A block's sequence is a list of slots (one Clifford, one Clifford layer plus the
+//! two-qubit gate, or one repeated cycle). Every block of a circuit has the same number of
+//! slots, and slot i spans the same timed layers in every block: shorter blocks idle at the
+//! start of the slot, so a block's pulses line up with the two-qubit gate that closes a
+//! neighbouring coupler's slot. Z frame changes are virtual and are merged per qubit.
+
+use rand::RngExt;
+
+use crate::circuit::{Circuit, Layer, Op};
+use crate::clifford::{self, Clifford1, Compiler1, Tableau2, Word2};
+use crate::error::{Error, Result};
+use crate::gate::Gate;
+use crate::layout::{Layout, QubitIx};
+
+/// The kind of sequence a circuit runs.
+#[derive(Copy, Clone, Debug, PartialEq, Eq, Hash, PartialOrd, Ord)]
+pub enum Kind {
+    /// Random Cliffords closed by their inverse and a random final X: a known bitstring.
+    Randomized,
+    /// A fixed identity cycle on an equatorial state, measured in Z: over- and
+    /// under-rotations about X/Y change P(1) to first order.
+    RepeatedX,
+    /// A fixed identity cycle on an equatorial state, read out along the equator: Z
+    /// phases (detuning, conditional phase) change the outcome to first order.
+    RepeatedZ,
+}
+
+impl Kind {
+    /// Every kind, in manifest order.
+    pub const ALL: [Kind; 3] = [Kind::Randomized, Kind::RepeatedX, Kind::RepeatedZ];
+
+    /// The name used in the manifest and on the command line.
+    pub fn name(self) -> &'static str {
+        match self {
+            Kind::Randomized => "randomized",
+            Kind::RepeatedX => "repeated-x",
+            Kind::RepeatedZ => "repeated-z",
+        }
+    }
+
+    /// Parses a name; `repeated` stands for both repeated framings.
+    pub fn parse_list(name: &str) -> Option<Vec<Kind>> {
+        match name {
+            "repeated" => Some(vec![Kind::RepeatedX, Kind::RepeatedZ]),
+            _ => Kind::ALL.iter().copied().find(|k| k.name() == name).map(|k| vec![k]),
+        }
+    }
+}
+
+/// The noise-free outcome of one measured qubit.
+#[derive(Copy, Clone, Debug, PartialEq)]
+pub enum Ideal {
+    /// A definite bit.
+    Bit(bool),
+    /// P(1) = 1/2.
+    Half,
+}
+
+impl Ideal {
+    /// P(1) of the ideal outcome.
+    pub fn p1(self) -> f64 {
+        match self {
+            Ideal::Bit(b) => f64::from(u8::from(b)),
+            Ideal::Half => 0.5,
+        }
+    }
+}
+
+/// One timed layer of a block: frame changes (quarter turns per block position, applied
+/// just before) and the operations in the layer.
+#[derive(Clone, Debug, Default)]
+struct Column {
+    frames: [u8; 2],
+    ops: Vec<Op>,
+}
+
+/// One slot of a block: timed columns, then frame changes carried into the next slot.
+#[derive(Clone, Debug, Default)]
+struct Slot {
+    columns: Vec<Column>,
+    tail: [u8; 2],
+}
+
+impl Slot {
+    fn extend(&mut self, other: Slot) {
+        let mut cols = other.columns.into_iter();
+        match cols.next() {
+            Some(mut first) => {
+                for p in 0..2 {
+                    first.frames[p] = (first.frames[p] + self.tail[p]) % 4;
+                }
+                self.columns.push(first);
+                self.columns.extend(cols);
+                self.tail = other.tail;
+            }
+            None => {
+                for p in 0..2 {
+                    self.tail[p] = (self.tail[p] + other.tail[p]) % 4;
+                }
+            }
+        }
+    }
+
+    /// Runs slots on disjoint block positions side by side, right-aligned.
+    fn beside(a: Slot, b: Slot) -> Slot {
+        let m = a.columns.len().max(b.columns.len());
+        let mut columns = vec![Column::default(); m];
+        for s in [&a, &b] {
+            let off = m - s.columns.len();
+            for (j, c) in s.columns.iter().enumerate() {
+                let col = &mut columns[off + j];
+                for p in 0..2 {
+                    col.frames[p] = (col.frames[p] + c.frames[p]) % 4;
+                }
+                col.ops.extend(c.ops.iter().copied());
+            }
+        }
+        let tail = [(a.tail[0] + b.tail[0]) % 4, (a.tail[1] + b.tail[1]) % 4];
+        Slot { columns, tail }
+    }
+}
+
+/// One block's whole sequence.
+#[derive(Clone, Debug)]
+pub(crate) struct BlockRun {
+    qubits: Vec<QubitIx>,
+    slots: Vec<Slot>,
+    /// Ideal outcome per block qubit.
+    pub ideal: Vec<Ideal>,
+}
+
+impl BlockRun {
+    /// The block's qubits with their ideal outcomes.
+    pub fn ideals(&self) -> impl Iterator<Item = (QubitIx, Ideal)> + '_ {
+        self.qubits.iter().copied().zip(self.ideal.iter().copied())
+    }
+}
+
+/// How a pending Z frame change moves past a gate on operand `k`, up to global phase.
+enum Passage {
+    /// The gate is diagonal on that operand: the frame moves past unchanged.
+    Commutes,
+    /// rz(t) then g equals g then rz(-t): x and y.
+    Negates,
+    /// The frame must be applied before the gate.
+    Blocks,
+}
+
+fn frame_passage(g: Gate, k: usize) -> Passage {
+    match (g, k) {
+        (Gate::Cz, _)
+        | (Gate::Cx, 0)
+        | (Gate::Id | Gate::Z | Gate::S | Gate::Sdg | Gate::Rz, _) => Passage::Commutes,
+        (Gate::X | Gate::Y, _) => Passage::Negates,
+        _ => Passage::Blocks,
+    }
+}
+
+/// Builds block sequences and circuits for one layout.
+pub(crate) struct Builder<'a> {
+    layout: &'a Layout,
+    comp: Compiler1,
+    gate: Gate,
+}
+
+impl<'a> Builder<'a> {
+    pub fn new(layout: &'a Layout) -> Result<Builder<'a>> {
+        let comp = Compiler1::new(layout)?;
+        if !layout.couplers.is_empty() {
+            clifford::check_two_qubit_gate(layout)?;
+        }
+        Ok(Builder { layout, comp, gate: layout.gates.two_qubit })
+    }
+
+    fn slot1(&self, pos: usize, q: QubitIx, cliffords: &[Clifford1]) -> Slot {
+        let mut slot = Slot::default();
+        for &c in cliffords {
+            let cm = self.comp.compile(c);
+            let mut one = Slot::default();
+            for (k, p) in &cm.steps {
+                let mut frames = [0; 2];
+                frames[pos] = *k;
+                one.columns.push(Column { frames, ops: vec![Op::rot(p.gate, q, p.angle)] });
+            }
+            one.tail[pos] = cm.tail;
+            slot.extend(one);
+        }
+        slot
+    }
+
+    fn layer(&self, a: QubitIx, b: QubitIx, l: [Clifford1; 2]) -> Slot {
+        Slot::beside(self.slot1(0, a, &[l[0]]), self.slot1(1, b, &[l[1]]))
+    }
+
+    fn gate_slot(&self, a: QubitIx, b: QubitIx) -> Slot {
+        Slot {
+            columns: vec![Column { frames: [0; 2], ops: vec![Op::two(self.gate, a, b)] }],
+            tail: [0; 2],
+        }
+    }
+
+    fn word(&self, a: QubitIx, b: QubitIx, w: &Word2) -> Slot {
+        let mut slot = Slot::default();
+        for (i, l) in w.layers.iter().enumerate() {
+            if i > 0 {
+                slot.extend(self.gate_slot(a, b));
+            }
+            slot.extend(self.layer(a, b, *l));
+        }
+        slot
+    }
+
+    /// Quarter turn about an equatorial axis (`sx` where native) and the readout rotation
+    /// that maps the equatorial X axis onto Z.
+    fn framing(&self) -> (Clifford1, Clifford1) {
+        let h = self.comp.half_pulse();
+        (h, Clifford1::z_quarter(1).then(h))
+    }
+
+    /// A one-qubit block's sequence.
+    pub fn one<R: rand::Rng>(&self, q: QubitIx, kind: Kind, depth: usize, rng: &mut R) -> BlockRun {
+        let (h, readout) = self.framing();
+        let mut slots = Vec::with_capacity(depth + 2);
+        let ideal = match kind {
+            Kind::Randomized => {
+                let mut total = Clifford1::IDENTITY;
+                for _ in 0..depth {
+                    let c = Clifford1::random(rng);
+                    slots.push(self.slot1(0, q, &[c]));
+                    total = total.then(c);
+                }
+                // The final X is folded into the recovery Clifford: one slot, same ideal.
+                let flip: bool = rng.random();
+                let mut rec = total.inverse();
+                if flip {
+                    rec = rec.then(Clifford1::x());
+                }
+                slots.push(self.slot1(0, q, &[rec]));
+                Ideal::Bit(flip)
+            }
+            Kind::RepeatedX => {
+                slots.push(self.slot1(0, q, &[h]));
+                for _ in 0..depth {
+                    slots.push(self.slot1(0, q, &[h, h, h, h]));
+                }
+                Ideal::Half
+            }
+            Kind::RepeatedZ => {
+                // h Z h Z is the identity and refocuses over-rotations, so the phase
+                // framing sees Z errors without the amplitude errors (and vice versa).
+                let z = Clifford1::z_quarter(2);
+                slots.push(self.slot1(0, q, &[h]));
+                for _ in 0..depth {
+                    slots.push(self.slot1(0, q, &[h, z, h, z]));
+                }
+                slots.push(self.slot1(0, q, &[readout]));
+                Ideal::Half
+            }
+        };
+        BlockRun { qubits: vec![q], slots, ideal: vec![ideal] }
+    }
+
+    /// A coupler block's sequence (first operand a).
+    pub fn two<R: rand::Rng>(
+        &self,
+        a: QubitIx,
+        b: QubitIx,
+        kind: Kind,
+        depth: usize,
+        rng: &mut R,
+    ) -> Result<BlockRun> {
+        let (h, readout) = self.framing();
+        let mut slots = Vec::with_capacity(depth + 2);
+        let gate_t = Tableau2::gate(self.gate).unwrap_or_else(Tableau2::identity);
+        let ideal = match kind {
+            Kind::Randomized => {
+                let mut total = Tableau2::identity();
+                for _ in 0..depth {
+                    let l = [Clifford1::random(rng), Clifford1::random(rng)];
+                    let mut slot = self.layer(a, b, l);
+                    slot.extend(self.gate_slot(a, b));
+                    slots.push(slot);
+                    total = total.then(&Tableau2::layer(l[0], l[1])).then(&gate_t);
+                }
+                let flips: [bool; 2] = [rng.random(), rng.random()];
+                let rec = clifford::recovery(&total, self.gate, flips).ok_or_else(|| {
+                    Error::Usage(format!("two-qubit gate '{}' cannot close sequences", self.gate))
+                })?;
+                slots.push(self.word(a, b, &rec));
+                vec![Ideal::Bit(flips[0]), Ideal::Bit(flips[1])]
+            }
+            Kind::RepeatedX | Kind::RepeatedZ => {
+                slots.push(self.layer(a, b, [h, h]));
+                for _ in 0..depth {
+                    let mut slot = self.gate_slot(a, b);
+                    slot.extend(self.gate_slot(a, b));
+                    slots.push(slot);
+                }
+                if kind == Kind::RepeatedZ {
+                    // Reading b along the equator and a in Z makes the correlation <Z_a X_b>
+                    // first order in a conditional phase, and b's marginal in its detuning.
+                    slots.push(self.layer(a, b, [Clifford1::IDENTITY, readout]));
+                }
+                vec![Ideal::Half, Ideal::Half]
+            }
+        };
+        Ok(BlockRun { qubits: vec![a, b], slots, ideal })
+    }
+
+    /// Assembles block sequences (with equal slot counts) into a circuit measuring
+    /// `measured`.
+    pub fn assemble(&self, id: String, runs: &[BlockRun], measured: Vec<QubitIx>) -> Circuit {
+        let n = self.layout.n_qubits();
+        let mut pending = vec![0u8; n];
+        let mut started = vec![false; n];
+        let mut layers: Vec<Layer> = Vec::new();
+        let n_slots = runs.iter().map(|r| r.slots.len()).max().unwrap_or(0);
+        for s in 0..n_slots {
+            let m = runs.iter().filter_map(|r| r.slots.get(s)).map(|x| x.columns.len()).max();
+            for j in 0..m.unwrap_or(0) {
+                let mut frames: Vec<(QubitIx, &[(Gate, f64)])> = Vec::new();
+                let mut timed: Layer = Vec::new();
+                for run in runs {
+                    let Some(slot) = run.slots.get(s) else { continue };
+                    let off = m.unwrap_or(0) - slot.columns.len();
+                    if j < off {
+                        continue;
+                    }
+                    let col = &slot.columns[j - off];
+                    for (pos, &q) in run.qubits.iter().enumerate() {
+                        pending[q] = (pending[q] + col.frames[pos]) % 4;
+                    }
+                    for op in &col.ops {
+                        for (k, &q) in op.qubits().iter().enumerate() {
+                            match frame_passage(op.gate, k) {
+                                Passage::Commutes => continue,
+                                Passage::Negates => {
+                                    pending[q] = (4 - pending[q]) % 4;
+                                    started[q] = true;
+                                    continue;
+                                }
+                                Passage::Blocks => {}
+                            }
+                            // A frame change before the first pulse acts on |0>: a phase.
+                            if pending[q] != 0 && started[q] {
+                                frames.push((q, self.comp.frame_ops(pending[q])));
+                            }
+                            pending[q] = 0;
+                            started[q] = true;
+                        }
+                        timed.push(*op);
+                    }
+                }
+                let depth = frames.iter().map(|f| f.1.len()).max().unwrap_or(0);
+                for k in 0..depth {
+                    layers.push(
+                        frames
+                            .iter()
+                            .filter_map(|(q, ops)| ops.get(k).map(|&(g, a)| Op::rot(g, *q, a)))
+                            .collect(),
+                    );
+                }
+                layers.push(timed);
+            }
+            for run in runs {
+                if let Some(slot) = run.slots.get(s) {
+                    for (pos, &q) in run.qubits.iter().enumerate() {
+                        pending[q] = (pending[q] + slot.tail[pos]) % 4;
+                    }
+                }
+            }
+        }
+        // Frame changes left at the end commute with the Z-basis measurement: dropped.
+        Circuit { id, layers, measured }
+    }
+
+    /// A circuit in which every measured qubit idles explicitly for `timed_layers` layers.
+    pub fn idle(&self, id: String, timed_layers: usize, measured: Vec<QubitIx>) -> Circuit {
+        let layer: Layer = measured.iter().map(|&q| Op::one(Gate::Id, q)).collect();
+        Circuit { id, layers: vec![layer; timed_layers], measured }
+    }
+}
