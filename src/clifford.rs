@@ -4,8 +4,8 @@
 //! Randomized sequences need three things from here: uniform random one-qubit Cliffords,
 //! their shortest native form (fewest timed pulses), and the native circuit that inverts a
 //! two-qubit Clifford product. The tableau follows Aaronson and Gottesman, "Improved
-//! simulation of stabilizer circuits", PRA 70, 052328 (2004), without the destabilizer rows'
-//! phase bookkeeping beyond what two qubits need.
+//! simulation of stabilizer circuits", PRA 70, 052328 (2004): the signed images of X1, X2
+//! (destabilizer rows) and Z1, Z2 (stabilizer rows), which fix a Clifford up to phase.
 
 use std::collections::HashMap;
 use std::sync::OnceLock;
