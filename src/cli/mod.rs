@@ -5,6 +5,8 @@ use std::process::ExitCode;
 
 use clap::{Parser, Subcommand};
 
+mod simulate;
+
 /// Exit-code documentation shown at the end of `--help`.
 const EXIT_CODES: &str = "Exit codes: 0 success, 1 the analysis failed, 2 bad input or usage.";
 
@@ -17,12 +19,17 @@ pub struct Cli {
 }
 
 #[derive(Subcommand, Debug)]
-enum Command {}
+enum Command {
+    /// Simulate counts (and a truth file) under an injected noise scenario.
+    Simulate(simulate::SimulateArgs),
+}
 
 /// Runs the CLI and maps the outcome to an exit code.
 pub fn main() -> ExitCode {
     let cli = Cli::parse();
-    let result: anyhow::Result<()> = match cli.command {};
+    let result: anyhow::Result<()> = match cli.command {
+        Command::Simulate(a) => simulate::run(a),
+    };
     match result {
         Ok(()) => ExitCode::SUCCESS,
         Err(e) => report_error(&e),
