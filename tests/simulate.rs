@@ -500,3 +500,114 @@ fn same_seed_same_counts_on_one_and_two_threads() {
     let other = simulate(&layout, &set, &n, &SimConfig { seed: 43, ..cfg }).unwrap();
     assert_ne!(a.per_circuit, other.per_circuit, "a different seed must give other counts");
 }
+
+// ---------- demo scenarios and the command line ----------
+
+fn demo(name: &str) -> (Layout, Noise, slackmap::simulate::truth::Truth) {
+    let layout = grid(4, 4);
+    let path = Path::new(env!("CARGO_MANIFEST_DIR")).join("demo-data").join(name);
+    let n = Noise::read(&path, &layout).unwrap();
+    let t = slackmap::simulate::truth::truth(&layout, &n);
+    (layout, n, t)
+}
+
+#[test]
+fn demo_recalibration_changes_only_the_strong_edge() {
+    let (_, _, before) = demo("noise.toml");
+    let (_, _, after) = demo("noise-recalibrated.toml");
+    let find = |t: &slackmap::simulate::truth::Truth, v: &str, a: &str| {
+        t.pairs.iter().find(|p| p.victim == v && p.aggressor == a).unwrap().clone()
+    };
+    let strong = find(&before, "q5", "q6");
+    assert!((strong.driven.half_diamond - 0.04f64.sin()).abs() < 1e-12);
+    assert!((find(&after, "q5", "q6").driven.half_diamond - 0.004f64.sin()).abs() < 1e-12);
+    let deph = find(&before, "q12", "q13");
+    assert!(deph.role_dependent && deph.driven.half_diamond == 0.0);
+    assert!((deph.idle.half_diamond - 5e-3).abs() < 1e-15);
+    assert!((find(&before, "q2", "q3").idle.infidelity - 1.5e-3).abs() < 1e-15);
+    let injected = |t: &slackmap::simulate::truth::Truth| {
+        t.pairs.iter().filter(|p| p.driven.half_diamond > 0.0 || p.idle.half_diamond > 0.0).count()
+    };
+    assert_eq!(injected(&before), 3);
+    assert_eq!(injected(&after), 3);
+    for (b, a) in before.pairs.iter().zip(&after.pairs) {
+        if (b.victim.as_str(), b.aggressor.as_str()) != ("q5", "q6") {
+            assert_eq!((b.driven, b.idle), (a.driven, a.idle), "{} <- {}", b.victim, b.aggressor);
+        }
+    }
+    let q8 = before.qubits.iter().find(|q| q.qubit == "q8").unwrap();
+    assert_eq!(q8.drift.len(), 1);
+}
+
+#[test]
+fn cli_writes_counts_and_truth() {
+    let dir = tempfile::tempdir().unwrap();
+    let fixtures = Path::new(env!("CARGO_MANIFEST_DIR")).join("tests/fixtures/good");
+    let noise_path = dir.path().join("noise.toml");
+    std::fs::write(
+        &noise_path,
+        "schema = 1\n[intrinsic.sx]\ndepolarizing = 1e-3\n[[context]]\nvictim = \"q0\"\n\
+         aggressor = \"q1\"\nrotation = { angle = 0.05, axis = \"X\" }\n",
+    )
+    .unwrap();
+    let out = dir.path().join("counts.csv");
+    let run = || {
+        assert_cmd::Command::cargo_bin("slackmap")
+            .unwrap()
+            .arg("simulate")
+            .arg("--layout")
+            .arg(fixtures.join("layout.toml"))
+            .arg("--circuits")
+            .arg(fixtures.join("circuits.json"))
+            .arg("--noise")
+            .arg(&noise_path)
+            .args(["--shots", "500", "--seed", "4", "--out"])
+            .arg(&out)
+            .assert()
+            .success();
+        std::fs::read_to_string(&out).unwrap()
+    };
+    let first = run();
+    assert_eq!(first, run(), "same seed, same file");
+    let mut lines = first.lines();
+    assert_eq!(lines.next(), Some("circuit,outcome,count"));
+    let mut per_circuit = std::collections::BTreeMap::new();
+    for l in lines {
+        let f: Vec<&str> = l.split(',').collect();
+        assert_eq!(f.len(), 3, "{l}");
+        assert!(f[1].chars().all(|c| c == '0' || c == '1'));
+        *per_circuit.entry(f[0].to_string()).or_insert(0u64) += f[2].parse::<u64>().unwrap();
+    }
+    assert_eq!(per_circuit.len(), 4);
+    assert!(per_circuit.values().all(|&n| n == 500));
+    let truth: serde_json::Value =
+        serde_json::from_str(&std::fs::read_to_string(dir.path().join("truth.json")).unwrap())
+            .unwrap();
+    assert_eq!(truth["schema"], 1);
+    let pair = truth["pairs"]
+        .as_array()
+        .unwrap()
+        .iter()
+        .find(|p| p["victim"] == "q0" && p["aggressor"] == "q1")
+        .unwrap();
+    let hd = pair["driven"]["half_diamond"].as_f64().unwrap();
+    assert!((hd - 0.025f64.sin()).abs() < 1e-12);
+    assert_eq!(pair["driven"]["half_diamond_method"], "exact_unitary");
+    // A bad noise file fails with exit code 2 and names the line.
+    std::fs::write(&noise_path, "schema = 1\n[intrinsic.sx]\n\ndepolarizing = -0.1\n").unwrap();
+    let a = assert_cmd::Command::cargo_bin("slackmap")
+        .unwrap()
+        .arg("simulate")
+        .arg("--layout")
+        .arg(fixtures.join("layout.toml"))
+        .arg("--circuits")
+        .arg(fixtures.join("circuits.json"))
+        .arg("--noise")
+        .arg(&noise_path)
+        .arg("--out")
+        .arg(&out)
+        .assert()
+        .code(2);
+    let err = String::from_utf8_lossy(&a.get_output().stderr).into_owned();
+    assert!(err.contains("line 4") && err.contains("[0, 1]"), "{err}");
+}
