@@ -81,12 +81,11 @@ pub fn run(args: SimulateArgs) -> anyhow::Result<()> {
     } else {
         simulate::simulate(&layout, &circuits, &noise, &cfg)?
     };
-    let csv = counts_csv_temporary(&circuits, &counts);
     let truth = simulate::truth::truth(&layout, &noise);
     let mut json = serde_json::to_string_pretty(&truth).context("serialising the truth file")?;
     json.push('\n');
-    write_atomic(&args.out, csv.as_bytes())?;
-    write_atomic(&truth_path, json.as_bytes())?;
+    write_atomic(&args.out, |w| write_counts_csv_temporary(w, &circuits, &counts))?;
+    write_atomic(&truth_path, |w| w.write_all(json.as_bytes()))?;
     eprintln!(
         "wrote {} ({} circuits x {} shots) and {}",
         args.out.display(),
@@ -97,32 +96,42 @@ pub fn run(args: SimulateArgs) -> anyhow::Result<()> {
     Ok(())
 }
 
-/// Writes `bytes` to a temporary file beside `path`, then renames it into place.
-fn write_atomic(path: &Path, bytes: &[u8]) -> anyhow::Result<()> {
+/// Streams `fill` into a temporary file beside `path`, then renames it into place.
+fn write_atomic(
+    path: &Path,
+    fill: impl FnOnce(&mut dyn Write) -> std::io::Result<()>,
+) -> anyhow::Result<()> {
     let name = path.file_name().map(|n| n.to_string_lossy().into_owned()).unwrap_or_default();
     let tmp = path.with_file_name(format!(".{name}.{}.tmp", std::process::id()));
     let io = |e| slackmap::Error::io(path, e);
-    let mut f = std::fs::File::create(&tmp).map_err(io)?;
-    f.write_all(bytes).and_then(|_| f.sync_all()).map_err(io)?;
-    drop(f);
-    std::fs::rename(&tmp, path).map_err(|e| {
+    let written = (|| {
+        let mut w = std::io::BufWriter::new(std::fs::File::create(&tmp)?);
+        fill(&mut w)?;
+        w.into_inner().map_err(|e| e.into_error())?.sync_all()?;
+        std::fs::rename(&tmp, path)
+    })();
+    if let Err(e) = written {
         let _ = std::fs::remove_file(&tmp);
-        io(e)
-    })?;
+        return Err(io(e).into());
+    }
     Ok(())
 }
 
 /// TEMPORARY until `slackmap::counts::write_csv` lands: `circuit,outcome,count`, character i
 /// of the outcome = i-th measured qubit, outcomes in the order the simulator sorted them.
-fn counts_csv_temporary(circuits: &CircuitSet, counts: &Counts) -> String {
-    let mut s = String::from("circuit,outcome,count\n");
+fn write_counts_csv_temporary(
+    w: &mut dyn Write,
+    circuits: &CircuitSet,
+    counts: &Counts,
+) -> std::io::Result<()> {
+    writeln!(w, "circuit,outcome,count")?;
     for (c, cc) in circuits.circuits.iter().zip(&counts.per_circuit) {
         let Some(cc) = cc else { continue };
         for (o, n) in &cc.outcomes {
-            s.push_str(&format!("{},{},{n}\n", c.id, o.to_string_n(c.measured.len())));
+            writeln!(w, "{},{},{n}", c.id, o.to_string_n(c.measured.len()))?;
         }
     }
-    s
+    Ok(())
 }
 
 /// TEMPORARY until `slackmap::layout::read_layout` lands: reads the layout TOML format of
