@@ -611,3 +611,65 @@ fn cli_writes_counts_and_truth() {
     let err = String::from_utf8_lossy(&a.get_output().stderr).into_owned();
     assert!(err.contains("line 4") && err.contains("[0, 1]"), "{err}");
 }
+
+// ---------- invariants ----------
+
+proptest::proptest! {
+    #![proptest_config(proptest::prelude::ProptestConfig::with_cases(64))]
+
+    #[test]
+    fn block_distributions_are_distributions(
+        ops in proptest::collection::vec(0u8..6, 1..40),
+        depol in 0.0f64..0.2,
+        leak in 0.0f64..0.05,
+        angle in -3.0f64..3.0,
+        ro in 0.0f64..0.3,
+    ) {
+        let layout = grid(1, 3);
+        let text = format!(
+            "schema = 1\n[intrinsic.sx]\ndepolarizing = {depol}\nleakage = {leak}\n\
+             [intrinsic.cz]\npauli = {{ XZ = {depol}, YY = {d2} }}\n\
+             over_rotation = {{ angle = {angle}, axis = \"ZY\" }}\nleakage = {leak}\n\
+             [intrinsic.id]\npauli = {{ Z = {depol} }}\n\
+             [readout]\np1_given_0 = {ro}\np0_given_1 = {r2}\n\
+             [[context]]\nvictim = \"q0\"\naggressor = \"q2\"\ndephasing = {depol}\n\
+             rotation = {{ angle = {angle}, axis = \"Y\" }}\n\
+             [[context]]\nvictim = \"q1\"\naggressor = \"q2\"\ndepolarizing = {depol}\n",
+            d2 = depol / 2.0,
+            r2 = ro / 2.0,
+        );
+        let n = noise(&layout, &text);
+        let layers: Vec<Vec<Op>> = ops
+            .iter()
+            .map(|&k| match k {
+                0 => vec![Op::one(Gate::Sx, 0), Op::one(Gate::X, 2)],
+                1 => vec![Op::two(Gate::Cz, 1, 0)],
+                2 => vec![Op::rot(Gate::Rz, 1, 0.7), Op::one(Gate::Sx, 2)],
+                3 => vec![Op::one(Gate::Sx, 1), Op::one(Gate::Id, 0)],
+                4 => vec![Op::two(Gate::Cx, 0, 1), Op::one(Gate::X, 2)],
+                _ => vec![Op::rot(Gate::Rz, 0, 0.3)],
+            })
+            .collect();
+        let c = circuit("p", layers, vec![0, 1]);
+        let p = exact(&layout, &c, &[0, 1], &n);
+        proptest::prop_assert!((p.iter().sum::<f64>() - 1.0).abs() < 1e-9, "{:?}", p);
+        proptest::prop_assert!(p.iter().all(|&x| x >= -1e-12), "{:?}", p);
+    }
+
+    #[test]
+    fn half_diamond_is_at_least_infidelity(
+        px in 0.0f64..0.1, py in 0.0f64..0.1, pz in 0.0f64..0.1,
+        angle in -6.0f64..6.0, axis in 1u8..4,
+    ) {
+        // 1 - F_pro = 1 - <Omega|(Phi x I)(Omega)|Omega> is at most the trace distance of
+        // the output from the input, hence at most the half diamond distance (Watrous 2018).
+        let spec = ErrorSpec {
+            pauli: vec![1.0 - px - py - pz, px, py, pz],
+            rotation: Some(slackmap::simulate::Rotation { angle_rad: angle, pauli: vec![axis] }),
+            leakage: 0.0,
+        };
+        let m = spec_measure(&spec);
+        proptest::prop_assert!(m.half_diamond + 1e-12 >= m.infidelity, "{:?}", m);
+        proptest::prop_assert!(m.half_diamond <= 1.0 && m.infidelity >= -1e-12);
+    }
+}
