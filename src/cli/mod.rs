@@ -11,6 +11,7 @@ mod inputs;
 mod layout;
 mod progress;
 mod design;
+mod simulate;
 
 /// Exit-code documentation shown at the end of `--help`.
 const EXIT_CODES: &str = "Exit codes: 0 success, 1 the analysis failed, 2 bad input or usage.";
@@ -35,6 +36,8 @@ enum Command {
     Demo(audit::DemoArgs),
     /// Write the circuits to run for a layout.
     Design(design::DesignArgs),
+    /// Simulate counts (and a truth file) under an injected noise scenario.
+    Simulate(simulate::SimulateArgs),
 }
 
 /// Runs the CLI and maps the outcome to an exit code.
@@ -46,6 +49,7 @@ pub fn main() -> ExitCode {
         Command::Audit(args) => audit::run(args),
         Command::Demo(args) => audit::demo(args),
         Command::Design(a) => design::run(a),
+        Command::Simulate(a) => simulate::run(a),
     };
     match result {
         Ok(()) => ExitCode::SUCCESS,

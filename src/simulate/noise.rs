@@ -1,0 +1,806 @@
+//! Noise files: the TOML scenario a simulation injects, read and validated against a layout.
+//!
+//! Wire types mirror the file (with spans, so every error names its line); [`Noise`] is the
+//! validated form the simulator and the truth writer use. The format is documented with a
+//! complete example in the parent module.
+
+use std::collections::{BTreeMap, HashMap};
+use std::path::Path;
+
+use serde::Deserialize;
+use toml::Spanned;
+
+use crate::error::{Error, Result};
+use crate::gate::Gate;
+use crate::layout::{Layout, QubitIx};
+
+/// The noise-file schema this build reads.
+pub const SCHEMA: u32 = 1;
+
+type Num = Spanned<f64>;
+
+#[derive(Deserialize, Debug)]
+#[serde(deny_unknown_fields)]
+struct FileWire {
+    schema: Spanned<u32>,
+    #[serde(default)]
+    intrinsic: BTreeMap<String, Spanned<ErrorWire>>,
+    #[serde(default)]
+    intrinsic_override: Vec<Spanned<OverrideWire>>,
+    #[serde(default)]
+    readout: Option<ReadoutWire>,
+    #[serde(default)]
+    context: Vec<Spanned<ContextWire>>,
+    #[serde(default)]
+    zz: Vec<Spanned<ZzWire>>,
+    #[serde(default)]
+    readout_crosstalk: Vec<Spanned<ReadoutCrosstalkWire>>,
+    #[serde(default)]
+    drift: Vec<Spanned<DriftWire>>,
+}
+
+#[derive(Deserialize, Debug, Default)]
+#[serde(deny_unknown_fields)]
+struct ErrorWire {
+    depolarizing: Option<Num>,
+    pauli: Option<Spanned<BTreeMap<String, f64>>>,
+    over_rotation: Option<Spanned<RotationWire>>,
+    leakage: Option<Num>,
+}
+
+#[derive(Deserialize, Debug)]
+#[serde(deny_unknown_fields)]
+struct OverrideWire {
+    gate: String,
+    qubits: Vec<Spanned<String>>,
+    depolarizing: Option<Num>,
+    pauli: Option<Spanned<BTreeMap<String, f64>>>,
+    over_rotation: Option<Spanned<RotationWire>>,
+    leakage: Option<Num>,
+}
+
+#[derive(Deserialize, Debug)]
+#[serde(deny_unknown_fields)]
+struct RotationWire {
+    angle: f64,
+    axis: String,
+}
+
+#[derive(Deserialize, Debug)]
+#[serde(deny_unknown_fields)]
+struct ReadoutWire {
+    p1_given_0: Option<Num>,
+    p0_given_1: Option<Num>,
+    #[serde(default)]
+    qubits: Vec<Spanned<ReadoutQubitWire>>,
+}
+
+#[derive(Deserialize, Debug)]
+#[serde(deny_unknown_fields)]
+struct ReadoutQubitWire {
+    qubit: Spanned<String>,
+    p1_given_0: Num,
+    p0_given_1: Num,
+}
+
+#[derive(Deserialize, Debug)]
+#[serde(deny_unknown_fields)]
+struct ContextWire {
+    victim: Spanned<String>,
+    aggressor: Spanned<String>,
+    role: Option<String>,
+    depolarizing: Option<Num>,
+    dephasing: Option<Num>,
+    rotation: Option<Spanned<RotationWire>>,
+}
+
+#[derive(Deserialize, Debug)]
+#[serde(deny_unknown_fields)]
+struct ZzWire {
+    qubits: Vec<Spanned<String>>,
+    angle: Num,
+}
+
+#[derive(Deserialize, Debug)]
+#[serde(deny_unknown_fields)]
+struct ReadoutCrosstalkWire {
+    victim: Spanned<String>,
+    neighbour: Spanned<String>,
+    flip: Num,
+}
+
+#[derive(Deserialize, Debug)]
+#[serde(deny_unknown_fields)]
+struct DriftWire {
+    qubit: Spanned<String>,
+    sigma: Num,
+    axis: Option<String>,
+    role: Option<String>,
+}
+
+/// What the victim (or drifting qubit) must be doing in a layer for a term to act.
+#[derive(Copy, Clone, Debug, PartialEq, Eq, Hash, PartialOrd, Ord)]
+pub enum Role {
+    /// Acted on by a non-idle, non-virtual operation.
+    Driven,
+    /// Idle (implicitly, by an explicit `id`, or with only a virtual frame change).
+    Idle,
+    /// Either.
+    Both,
+}
+
+impl Role {
+    /// True when a term restricted to `self` acts on a victim in role `actual`.
+    pub fn admits(self, actual: Role) -> bool {
+        self == Role::Both || self == actual
+    }
+
+    /// The name used in files.
+    pub fn name(self) -> &'static str {
+        match self {
+            Role::Driven => "driven",
+            Role::Idle => "idle",
+            Role::Both => "both",
+        }
+    }
+}
+
+/// A coherent error exp(-i angle/2 P) about a Pauli string P.
+///
+/// Invariant: `angle` is finite; `pauli` has one entry (0 = I, 1 = X, 2 = Y, 3 = Z) per
+/// qubit of the operation (in the operand order the spec refers to), not all identity.
+#[derive(Clone, Debug, PartialEq)]
+pub struct Rotation {
+    /// Rotation angle in radians.
+    pub angle_rad: f64,
+    /// The axis, one Pauli letter per operand.
+    pub pauli: Vec<u8>,
+}
+
+/// An intrinsic or context error on one operation: coherent part, then Pauli part, then
+/// leakage (in that order of application, after the ideal unitary).
+///
+/// Invariant: `pauli` has 4^k probabilities (k = 1 or 2 qubits), index = sum_j p_j 4^j with
+/// p_j the Pauli on operand j (0 = I, 1 = X, 2 = Y, 3 = Z), non-negative, summing to 1;
+/// `leakage` is in [0, 1].
+#[derive(Clone, Debug, PartialEq)]
+pub struct ErrorSpec {
+    /// Pauli probabilities, identity first.
+    pub pauli: Vec<f64>,
+    /// Optional coherent error, applied before the Pauli part.
+    pub rotation: Option<Rotation>,
+    /// Probability per application that each operand leaks.
+    pub leakage: f64,
+}
+
+impl ErrorSpec {
+    /// The error-free spec on `k` qubits.
+    pub fn none(k: usize) -> ErrorSpec {
+        let mut pauli = vec![0.0; 1 << (2 * k)];
+        pauli[0] = 1.0;
+        ErrorSpec { pauli, rotation: None, leakage: 0.0 }
+    }
+
+    /// Number of qubits the spec acts on.
+    pub fn n_qubits(&self) -> usize {
+        if self.pauli.len() == 16 {
+            2
+        } else {
+            1
+        }
+    }
+
+    /// True when the spec does nothing.
+    pub fn is_ideal(&self) -> bool {
+        self.pauli[0] >= 1.0 && self.rotation.is_none() && self.leakage == 0.0
+    }
+}
+
+/// Readout confusion of one qubit. Invariant: both probabilities in [0, 1].
+#[derive(Copy, Clone, Debug, PartialEq)]
+pub struct Readout {
+    /// P(read 1 | state 0).
+    pub p1_given_0: f64,
+    /// P(read 0 | state 1).
+    pub p0_given_1: f64,
+}
+
+/// One context-conditioned error: acts on `victim` in timed layers where `aggressor` is
+/// active and is not part of the victim's own operation, when the victim's role fits.
+#[derive(Clone, Debug, PartialEq)]
+pub struct ContextTerm {
+    /// The qubit whose operations suffer.
+    pub victim: QubitIx,
+    /// The qubit whose activity causes it.
+    pub aggressor: QubitIx,
+    /// Victim roles the term acts in.
+    pub role: Role,
+    /// The one-qubit error applied to the victim (no leakage).
+    pub error: ErrorSpec,
+    /// 1-based line of the term in the noise file (0 for terms built in code).
+    pub line: usize,
+    /// Where the term came from: `context` or `zz`.
+    pub source: &'static str,
+}
+
+/// Readout crosstalk: `victim`'s reported bit flips with probability `flip` in shots where
+/// `neighbour` reads 1 (its own confused bit, before any crosstalk flip).
+#[derive(Clone, Debug, PartialEq)]
+pub struct ReadoutCrosstalk {
+    /// The qubit whose bit flips.
+    pub victim: QubitIx,
+    /// The qubit whose reading 1 triggers it.
+    pub neighbour: QubitIx,
+    /// Flip probability, in [0, 1].
+    pub flip: f64,
+}
+
+/// Slow drift: an over-rotation of `qubit` about `pauli` in every timed layer where its role
+/// fits, by an angle drawn once per circuit from N(0, sigma_rad^2).
+#[derive(Clone, Debug, PartialEq)]
+pub struct Drift {
+    /// The drifting qubit.
+    pub qubit: QubitIx,
+    /// Standard deviation of the per-circuit angle, radians.
+    pub sigma_rad: f64,
+    /// Rotation axis: 1 = X, 2 = Y, 3 = Z.
+    pub pauli: u8,
+    /// Roles the drift acts in.
+    pub role: Role,
+}
+
+/// A validated noise scenario for one layout.
+#[derive(Clone, Debug)]
+pub struct Noise {
+    defaults: HashMap<Gate, ErrorSpec>,
+    overrides: HashMap<(Gate, Vec<QubitIx>), ErrorSpec>,
+    readout: Vec<Readout>,
+    /// Context terms, in file order (`zz` terms expanded into one term per end).
+    pub context: Vec<ContextTerm>,
+    /// Readout crosstalk terms.
+    pub readout_crosstalk: Vec<ReadoutCrosstalk>,
+    /// Drift terms, in file order; simulation draws one angle per term per circuit.
+    pub drift: Vec<Drift>,
+}
+
+impl Noise {
+    /// A noise-free scenario (ideal gates, perfect readout).
+    pub fn ideal(layout: &Layout) -> Noise {
+        Noise {
+            defaults: HashMap::new(),
+            overrides: HashMap::new(),
+            readout: vec![Readout { p1_given_0: 0.0, p0_given_1: 0.0 }; layout.n_qubits()],
+            context: Vec::new(),
+            readout_crosstalk: Vec::new(),
+            drift: Vec::new(),
+        }
+    }
+
+    /// The intrinsic error of `gate` on `qubits` (in the operation's operand order), with
+    /// the Pauli labels and rotation axis expressed in that same order. `None` when error
+    /// free.
+    pub fn intrinsic(&self, gate: Gate, qubits: &[QubitIx]) -> Option<ErrorSpec> {
+        if qubits.len() == 2 {
+            if let Some(s) = self.overrides.get(&(gate, qubits.to_vec())) {
+                return Some(s.clone());
+            }
+            if let Some(s) = self.overrides.get(&(gate, vec![qubits[1], qubits[0]])) {
+                return Some(swap_operands(s));
+            }
+        } else if let Some(s) = self.overrides.get(&(gate, qubits.to_vec())) {
+            return Some(s.clone());
+        }
+        self.defaults.get(&gate).cloned()
+    }
+
+    /// The readout confusion of a qubit.
+    pub fn readout(&self, q: QubitIx) -> Readout {
+        self.readout[q]
+    }
+
+    /// Gate names with a default intrinsic error, and gates with per-qubit overrides.
+    pub fn gates_with_errors(&self) -> Vec<Gate> {
+        let mut g: Vec<Gate> =
+            self.defaults.keys().chain(self.overrides.keys().map(|(g, _)| g)).copied().collect();
+        g.sort_unstable();
+        g.dedup();
+        g
+    }
+
+    /// Reads and validates a noise file.
+    pub fn read(path: &Path, layout: &Layout) -> Result<Noise> {
+        let text = std::fs::read_to_string(path).map_err(|e| Error::io(path, e))?;
+        Noise::from_toml_str(&text, path, layout)
+    }
+
+    /// Parses and validates noise-file text; `path` is used in error messages only.
+    pub fn from_toml_str(text: &str, path: &Path, layout: &Layout) -> Result<Noise> {
+        let wire: FileWire = toml::from_str(text).map_err(|e| {
+            let line = e.span().map(|s| line_of(text, s.start));
+            Error::input(path, line, format!("not a valid noise file: {}", e.message()))
+        })?;
+        Builder { text, path, layout }.build(wire)
+    }
+}
+
+/// 1-based line of a byte offset.
+fn line_of(text: &str, offset: usize) -> usize {
+    text.as_bytes().iter().take(offset).filter(|&&b| b == b'\n').count() + 1
+}
+
+fn swap_operands(s: &ErrorSpec) -> ErrorSpec {
+    let mut pauli = vec![0.0; 16];
+    for (i, p) in s.pauli.iter().enumerate() {
+        pauli[(i >> 2) | ((i & 3) << 2)] = *p;
+    }
+    let rotation = s
+        .rotation
+        .as_ref()
+        .map(|r| Rotation { angle_rad: r.angle_rad, pauli: vec![r.pauli[1], r.pauli[0]] });
+    ErrorSpec { pauli, rotation, leakage: s.leakage }
+}
+
+fn pauli_letter(c: char) -> Option<u8> {
+    match c.to_ascii_uppercase() {
+        'I' => Some(0),
+        'X' => Some(1),
+        'Y' => Some(2),
+        'Z' => Some(3),
+        _ => None,
+    }
+}
+
+type ErrorFields<'a> = (
+    &'a Option<Num>,
+    &'a Option<Spanned<BTreeMap<String, f64>>>,
+    &'a Option<Spanned<RotationWire>>,
+);
+
+struct Builder<'a> {
+    text: &'a str,
+    path: &'a Path,
+    layout: &'a Layout,
+}
+
+impl Builder<'_> {
+    fn err<T>(&self, span: std::ops::Range<usize>, msg: impl Into<String>) -> Result<T> {
+        Err(Error::input(self.path, Some(line_of(self.text, span.start)), msg.into()))
+    }
+
+    fn qubit(&self, id: &Spanned<String>, what: &str) -> Result<QubitIx> {
+        let span = id.span();
+        let id = id.get_ref();
+        match self.layout.qubit(id) {
+            Some(q) => Ok(q),
+            None => self.err(
+                span,
+                format!(
+                    "{what} names qubit '{id}', which is not in layout '{}' ({} qubits)",
+                    self.layout.name,
+                    self.layout.n_qubits()
+                ),
+            ),
+        }
+    }
+
+    fn prob(&self, v: &Num, what: &str) -> Result<f64> {
+        let x = *v.get_ref();
+        if !(0.0..=1.0).contains(&x) {
+            return self.err(v.span(), format!("{what} = {x} is not a probability in [0, 1]"));
+        }
+        Ok(x)
+    }
+
+    fn role(&self, r: Option<&str>, span: std::ops::Range<usize>) -> Result<Role> {
+        match r {
+            None | Some("both") => Ok(Role::Both),
+            Some("driven") => Ok(Role::Driven),
+            Some("idle") => Ok(Role::Idle),
+            Some(other) => {
+                self.err(span, format!("role '{other}' is not one of: driven, idle, both"))
+            }
+        }
+    }
+
+    fn rotation(&self, r: &Spanned<RotationWire>, k: usize) -> Result<Rotation> {
+        let w = r.get_ref();
+        if !w.angle.is_finite() {
+            return self.err(r.span(), format!("rotation angle {} is not finite", w.angle));
+        }
+        let pauli: Option<Vec<u8>> = w.axis.chars().map(pauli_letter).collect();
+        match pauli {
+            Some(p) if p.len() == k && p.iter().any(|&x| x != 0) => {
+                Ok(Rotation { angle_rad: w.angle, pauli: p })
+            }
+            _ => self.err(
+                r.span(),
+                format!(
+                    "axis '{}' is not a Pauli string of {k} letter(s) from I, X, Y, Z (not all I)",
+                    w.axis
+                ),
+            ),
+        }
+    }
+
+    fn error_spec(&self, w: ErrorFields<'_>, leakage: &Option<Num>, k: usize) -> Result<ErrorSpec> {
+        let (depol, pauli, rot) = w;
+        let mut spec = ErrorSpec::none(k);
+        let n = spec.pauli.len();
+        match (depol, pauli) {
+            (Some(_), Some(p)) => {
+                return self.err(p.span(), "give either depolarizing or pauli, not both");
+            }
+            (Some(d), None) => {
+                let e = self.prob(d, "depolarizing")?;
+                spec.pauli = vec![e / (n - 1) as f64; n];
+                spec.pauli[0] = 1.0 - e;
+            }
+            (None, Some(p)) => {
+                let mut total = 0.0;
+                for (label, &rate) in p.get_ref() {
+                    let idx: Option<Vec<u8>> = label.chars().map(pauli_letter).collect();
+                    let idx = match idx {
+                        Some(v) if v.len() == k && v.iter().any(|&x| x != 0) => v,
+                        _ => {
+                            return self.err(
+                                p.span(),
+                                format!(
+                                    "pauli label '{label}' is not a Pauli string of {k} letter(s) \
+                                     (first letter = first operand), e.g. {}",
+                                    if k == 1 { "X" } else { "XZ" }
+                                ),
+                            )
+                        }
+                    };
+                    if !(0.0..=1.0).contains(&rate) {
+                        return self.err(
+                            p.span(),
+                            format!("pauli rate {label} = {rate} is not a probability in [0, 1]"),
+                        );
+                    }
+                    let i: usize =
+                        idx.iter().enumerate().map(|(j, &v)| (v as usize) << (2 * j)).sum();
+                    spec.pauli[i] += rate;
+                    total += rate;
+                }
+                if total > 1.0 {
+                    return self.err(p.span(), format!("pauli rates sum to {total}, above 1"));
+                }
+                spec.pauli[0] = 1.0 - total;
+            }
+            (None, None) => {}
+        }
+        if let Some(r) = rot {
+            spec.rotation = Some(self.rotation(r, k)?);
+        }
+        if let Some(l) = leakage {
+            spec.leakage = self.prob(l, "leakage")?;
+        }
+        Ok(spec)
+    }
+
+    fn build(&self, w: FileWire) -> Result<Noise> {
+        let layout = self.layout;
+        if *w.schema.get_ref() != SCHEMA {
+            return self.err(
+                w.schema.span(),
+                format!(
+                    "schema {} is not supported (this build reads schema {SCHEMA})",
+                    w.schema.get_ref()
+                ),
+            );
+        }
+        let mut noise = Noise::ideal(layout);
+        let gate_of = |name: &str, span: std::ops::Range<usize>| -> Result<Gate> {
+            let g = match Gate::from_name(name) {
+                Some(g) => g,
+                None => {
+                    return self.err(
+                        span,
+                        format!("unknown gate '{name}' (known: {})", Gate::known_names()),
+                    )
+                }
+            };
+            if layout.is_virtual(g) {
+                return self.err(
+                    span,
+                    format!("gate '{name}' is virtual on this layout: it is ideal and error-free"),
+                );
+            }
+            Ok(g)
+        };
+        for (name, spec) in &w.intrinsic {
+            let g = gate_of(name, spec.span())?;
+            let s = spec.get_ref();
+            let e = self.error_spec(
+                (&s.depolarizing, &s.pauli, &s.over_rotation),
+                &s.leakage,
+                g.arity(),
+            )?;
+            noise.defaults.insert(g, e);
+        }
+        for o in &w.intrinsic_override {
+            let s = o.get_ref();
+            let g = gate_of(&s.gate, o.span())?;
+            if s.qubits.len() != g.arity() {
+                return self.err(
+                    o.span(),
+                    format!(
+                        "gate {g} acts on {} qubit(s) but the override lists {}",
+                        g.arity(),
+                        s.qubits.len()
+                    ),
+                );
+            }
+            let qs = s
+                .qubits
+                .iter()
+                .map(|id| self.qubit(id, "intrinsic_override"))
+                .collect::<Result<Vec<_>>>()?;
+            if qs.len() == 2 && layout.coupler(qs[0], qs[1]).is_none() {
+                return self.err(
+                    o.span(),
+                    format!(
+                        "{}-{} is not a coupler of the layout",
+                        s.qubits[0].get_ref(),
+                        s.qubits[1].get_ref()
+                    ),
+                );
+            }
+            let e = self.error_spec(
+                (&s.depolarizing, &s.pauli, &s.over_rotation),
+                &s.leakage,
+                g.arity(),
+            )?;
+            let rev = if qs.len() == 2 { Some(vec![qs[1], qs[0]]) } else { None };
+            if noise.overrides.contains_key(&(g, qs.clone()))
+                || rev.is_some_and(|r| noise.overrides.contains_key(&(g, r)))
+            {
+                return self.err(
+                    o.span(),
+                    format!(
+                        "a second override for {g} on {}",
+                        s.qubits.iter().map(|q| q.get_ref().as_str()).collect::<Vec<_>>().join("-")
+                    ),
+                );
+            }
+            noise.overrides.insert((g, qs), e);
+        }
+        if let Some(r) = &w.readout {
+            let d = Readout {
+                p1_given_0: r
+                    .p1_given_0
+                    .as_ref()
+                    .map_or(Ok(0.0), |v| self.prob(v, "p1_given_0"))?,
+                p0_given_1: r
+                    .p0_given_1
+                    .as_ref()
+                    .map_or(Ok(0.0), |v| self.prob(v, "p0_given_1"))?,
+            };
+            noise.readout = vec![d; layout.n_qubits()];
+            for q in &r.qubits {
+                let s = q.get_ref();
+                let ix = self.qubit(&s.qubit, "readout.qubits")?;
+                noise.readout[ix] = Readout {
+                    p1_given_0: self.prob(&s.p1_given_0, "p1_given_0")?,
+                    p0_given_1: self.prob(&s.p0_given_1, "p0_given_1")?,
+                };
+            }
+        }
+        for c in &w.context {
+            let s = c.get_ref();
+            let victim = self.qubit(&s.victim, "context victim")?;
+            let aggressor = self.qubit(&s.aggressor, "context aggressor")?;
+            if victim == aggressor {
+                return self.err(c.span(), "victim and aggressor are the same qubit");
+            }
+            let role = self.role(s.role.as_deref(), c.span())?;
+            let mut e = self.error_spec((&s.depolarizing, &None, &s.rotation), &None, 1)?;
+            if let Some(d) = &s.dephasing {
+                // Dephasing after depolarizing: compose the two Pauli channels exactly.
+                let z = self.prob(d, "dephasing")?;
+                let p = e.pauli.clone();
+                e.pauli = vec![
+                    (1.0 - z) * p[0] + z * p[3],
+                    (1.0 - z) * p[1] + z * p[2],
+                    (1.0 - z) * p[2] + z * p[1],
+                    (1.0 - z) * p[3] + z * p[0],
+                ];
+            }
+            noise.context.push(ContextTerm {
+                victim,
+                aggressor,
+                role,
+                error: e,
+                line: line_of(self.text, c.span().start),
+                source: "context",
+            });
+        }
+        for z in &w.zz {
+            let s = z.get_ref();
+            if s.qubits.len() != 2 {
+                return self.err(z.span(), "a zz term names exactly two qubits");
+            }
+            let a = self.qubit(&s.qubits[0], "zz")?;
+            let b = self.qubit(&s.qubits[1], "zz")?;
+            if a == b {
+                return self.err(z.span(), "a zz term joins two different qubits");
+            }
+            let phi = *s.angle.get_ref();
+            if !phi.is_finite() {
+                return self.err(s.angle.span(), format!("zz angle {phi} is not finite"));
+            }
+            let rate = zz_dephasing_rate(phi);
+            for (victim, aggressor) in [(a, b), (b, a)] {
+                let mut e = ErrorSpec::none(1);
+                e.pauli = vec![1.0 - rate, 0.0, 0.0, rate];
+                noise.context.push(ContextTerm {
+                    victim,
+                    aggressor,
+                    role: Role::Both,
+                    error: e,
+                    line: line_of(self.text, z.span().start),
+                    source: "zz",
+                });
+            }
+        }
+        for r in &w.readout_crosstalk {
+            let s = r.get_ref();
+            let victim = self.qubit(&s.victim, "readout_crosstalk victim")?;
+            let neighbour = self.qubit(&s.neighbour, "readout_crosstalk neighbour")?;
+            if victim == neighbour {
+                return self.err(r.span(), "victim and neighbour are the same qubit");
+            }
+            let flip = self.prob(&s.flip, "flip")?;
+            noise.readout_crosstalk.push(ReadoutCrosstalk { victim, neighbour, flip });
+        }
+        for d in &w.drift {
+            let s = d.get_ref();
+            let qubit = self.qubit(&s.qubit, "drift")?;
+            let sigma = *s.sigma.get_ref();
+            if !(sigma.is_finite() && sigma >= 0.0) {
+                return self.err(
+                    s.sigma.span(),
+                    format!("drift sigma {sigma} is not a finite non-negative angle in radians"),
+                );
+            }
+            let axis = s.axis.as_deref().unwrap_or("Z");
+            let pauli = match axis.chars().map(pauli_letter).collect::<Option<Vec<u8>>>() {
+                Some(p) if p.len() == 1 && p[0] != 0 => p[0],
+                _ => return self.err(d.span(), format!("drift axis '{axis}' is not X, Y or Z")),
+            };
+            let role = self.role(s.role.as_deref(), d.span())?;
+            noise.drift.push(Drift { qubit, sigma_rad: sigma, pauli, role });
+        }
+        Ok(noise)
+    }
+}
+
+/// Victim dephasing rate per layer of the Pauli-twirled conditional phase CP(phi) =
+/// diag(1, 1, 1, e^{i phi}).
+///
+/// Writing |11><11| = (I - Z1 - Z2 + Z1 Z2)/4 gives CP = c_I I + c (Z1 + Z2 - Z1 Z2) with
+/// |c|^2 = |e^{i phi} - 1|^2 / 16 = sin^2(phi/2)/4. Twirling over Paulis keeps the Pauli
+/// channel with probabilities |c_P|^2 (Pauli twirl, common practice): Z1, Z2 and Z1Z2 each
+/// sin^2(phi/2)/4. The victim's phase flips under Z1 and under Z1Z2, so its marginal
+/// dephasing rate is sin^2(phi/2)/2. No frame correction of the single-qubit Z parts is
+/// assumed.
+pub fn zz_dephasing_rate(phi_rad: f64) -> f64 {
+    (phi_rad / 2.0).sin().powi(2) / 2.0
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::layout::generate::grid;
+
+    fn parse(text: &str) -> Result<Noise> {
+        Noise::from_toml_str(text, Path::new("noise.toml"), &grid(2, 2))
+    }
+
+    fn line_of_err(e: &Error) -> Option<usize> {
+        match e {
+            Error::Input { location, .. } => location.line,
+            _ => None,
+        }
+    }
+
+    #[test]
+    fn full_file_parses() {
+        let n = parse(
+            r#"
+schema = 1
+[intrinsic.sx]
+depolarizing = 1e-3
+[intrinsic.cz]
+pauli = { ZZ = 1e-3, XI = 2e-3 }
+over_rotation = { angle = 0.01, axis = "ZZ" }
+[[intrinsic_override]]
+gate = "sx"
+qubits = ["q1"]
+pauli = { X = 1e-4, Z = 3e-4 }
+leakage = 1e-5
+[readout]
+p1_given_0 = 0.01
+p0_given_1 = 0.02
+[[readout.qubits]]
+qubit = "q3"
+p1_given_0 = 0.03
+p0_given_1 = 0.04
+[[context]]
+victim = "q0"
+aggressor = "q1"
+role = "idle"
+dephasing = 5e-3
+rotation = { angle = 0.05, axis = "X" }
+[[zz]]
+qubits = ["q2", "q3"]
+angle = 0.1
+[[readout_crosstalk]]
+victim = "q0"
+neighbour = "q2"
+flip = 0.02
+[[drift]]
+qubit = "q3"
+sigma = 0.03
+"#,
+        )
+        .unwrap();
+        let sx0 = n.intrinsic(Gate::Sx, &[0]).unwrap();
+        assert!((sx0.pauli[1] - 1e-3 / 3.0).abs() < 1e-15);
+        let sx1 = n.intrinsic(Gate::Sx, &[1]).unwrap();
+        assert!((sx1.pauli[3] - 3e-4).abs() < 1e-15 && sx1.leakage == 1e-5);
+        // XI = X on the first operand: index 1; swapped operands put it at index 4.
+        let cz = n.intrinsic(Gate::Cz, &[0, 1]).unwrap();
+        assert!((cz.pauli[1] - 2e-3).abs() < 1e-15);
+        assert!(n.intrinsic(Gate::X, &[0]).is_none());
+        assert_eq!(n.readout(3).p0_given_1, 0.04);
+        assert_eq!(n.readout(1).p1_given_0, 0.01);
+        assert_eq!(n.context.len(), 3);
+        assert_eq!(n.context[0].role, Role::Idle);
+        assert!((n.context[0].error.pauli[3] - 5e-3).abs() < 1e-15);
+        assert_eq!(n.drift[0].pauli, 3);
+    }
+
+    #[test]
+    fn override_on_a_coupler_follows_qubit_identity() {
+        let n = parse(
+            "schema = 1\n[[intrinsic_override]]\ngate = \"cz\"\nqubits = [\"q0\", \"q1\"]\n\
+             pauli = { XZ = 1e-3 }\n",
+        )
+        .unwrap();
+        // XZ on (q0, q1): X on q0 = index 1 + 4*3 = 13; seen from (q1, q0) it is ZX = 3 + 4.
+        assert!((n.intrinsic(Gate::Cz, &[0, 1]).unwrap().pauli[13] - 1e-3).abs() < 1e-15);
+        assert!((n.intrinsic(Gate::Cz, &[1, 0]).unwrap().pauli[7] - 1e-3).abs() < 1e-15);
+    }
+
+    #[test]
+    fn errors_name_the_line() {
+        let e = parse("schema = 1\n\n[intrinsic.sx]\ndepolarizing = 1.5\n").unwrap_err();
+        assert_eq!(line_of_err(&e), Some(4), "{e}");
+        assert!(e.to_string().contains("[0, 1]"), "{e}");
+        let e =
+            parse("schema = 1\n[[context]]\nvictim = \"q9\"\naggressor = \"q1\"\n").unwrap_err();
+        assert_eq!(line_of_err(&e), Some(3), "{e}");
+        assert!(e.to_string().contains("q9"), "{e}");
+        let e = parse("schema = 1\n[intrinsic.sx]\nbogus = 1\n").unwrap_err();
+        assert_eq!(line_of_err(&e), Some(3), "{e}");
+        let e = parse("schema = 1\n[intrinsic.rz]\ndepolarizing = 0.1\n").unwrap_err();
+        assert!(e.to_string().contains("virtual"), "{e}");
+        let e = parse("schema = 2\n").unwrap_err();
+        assert_eq!(line_of_err(&e), Some(1), "{e}");
+        let e = parse("schema = 1\n[intrinsic.cz]\npauli = { X = 0.1 }\n").unwrap_err();
+        assert!(e.to_string().contains("2 letter"), "{e}");
+        let e =
+            parse("schema = 1\n[[intrinsic_override]]\ngate = \"cz\"\nqubits = [\"q0\", \"q3\"]\n")
+                .unwrap_err();
+        assert!(e.to_string().contains("not a coupler"), "{e}");
+    }
+
+    #[test]
+    fn zz_rate_small_angle() {
+        // sin^2(phi/2)/2 ~ phi^2/8 for small phi (Taylor expansion).
+        assert!((zz_dephasing_rate(0.02) - 0.02f64.powi(2) / 8.0).abs() < 1e-8);
+        assert!((zz_dephasing_rate(std::f64::consts::PI) - 0.5).abs() < 1e-12);
+    }
+}
