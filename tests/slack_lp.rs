@@ -10,6 +10,7 @@ use rand::seq::SliceRandom;
 use rand::{RngExt, SeedableRng};
 use rand_chacha::ChaCha8Rng;
 use slackmap::slack::lp::{row_slack, CoveringProblem, Row, VarKind};
+use slackmap::slack::permutation_null;
 
 /// min cost . x subject to sum_j a_ij x_j >= d_i and x >= 0, solved by clarabel with the
 /// LP written directly in conic form: [-A; -I] x + s = [-d; 0], s in the nonnegative cone.
@@ -57,6 +58,27 @@ fn clarabel_min(n: usize, cost: &[f64], rows: &[(Vec<(usize, f64)>, f64)]) -> f6
 fn instance(rng: &mut ChaCha8Rng) -> CoveringProblem {
     let n_int = rng.random_range(2..=8usize);
     let n_ctx = rng.random_range(1..=22usize);
+    let n_rows = rng.random_range(5..=200usize);
+    let mut p = instance_sized(rng, n_int, n_ctx, n_rows);
+    if rng.random::<f64>() < 0.5 {
+        boost_context(&mut p, 3.0);
+    }
+    p
+}
+
+/// Scales the context rows' requirements, so that stage 2 has real work (crosstalk).
+fn boost_context(p: &mut CoveringProblem, factor: f64) {
+    for r in p.rows.iter_mut().filter(|r| !r.reference) {
+        r.requirement *= factor;
+    }
+}
+
+fn instance_sized(
+    rng: &mut ChaCha8Rng,
+    n_int: usize,
+    n_ctx: usize,
+    n_rows: usize,
+) -> CoveringProblem {
     let n = n_int + n_ctx;
     let mut kinds = vec![VarKind::Intrinsic; n_int];
     kinds.extend(vec![VarKind::Context; n_ctx]);
@@ -65,7 +87,6 @@ fn instance(rng: &mut ChaCha8Rng) -> CoveringProblem {
     } else {
         vec![]
     };
-    let n_rows = rng.random_range(5..=200usize);
     let mut rows = Vec::with_capacity(n_rows);
     for _ in 0..n_rows {
         let reference = rng.random::<f64>() < 0.35;
@@ -236,26 +257,48 @@ fn attribution_range_contains_point_solution() {
 #[ignore]
 fn report_lp_timings() {
     let mut rng = ChaCha8Rng::seed_from_u64(1);
-    for &(n_ctx, n_rows) in &[(10usize, 100usize), (24, 300), (40, 600)] {
-        let mut problems = Vec::new();
-        while problems.len() < 30 {
-            let mut p = instance(&mut rng);
-            if p.kinds.len() < n_ctx {
-                continue;
-            }
-            while p.rows.len() < n_rows {
-                let extra = p.rows[rng.random_range(0..p.rows.len())].clone();
-                let bump = rng.random::<f64>() * 0.05;
-                p.rows.push(Row { requirement: bump, ..extra });
-            }
-            p.rows.truncate(n_rows);
-            problems.push(p);
-        }
+    for &(n_int, n_ctx, n_rows) in &[(4usize, 12usize, 100usize), (6, 24, 300), (8, 40, 600)] {
+        let problems: Vec<CoveringProblem> = (0..30)
+            .map(|_| {
+                let mut p = instance_sized(&mut rng, n_int, n_ctx, n_rows);
+                boost_context(&mut p, 3.0);
+                p
+            })
+            .collect();
         let t = std::time::Instant::now();
+        let mut constraints = (0, 0);
         for p in &problems {
-            p.solve().expect("solve");
+            let sol = p.solve().expect("solve");
+            constraints.0 += sol.stage1_presolve.constraints;
+            constraints.1 += sol.stage2_presolve.constraints;
         }
         let per = t.elapsed().as_secs_f64() / problems.len() as f64;
-        println!("{n_rows} rows, >= {n_ctx} vars: {:.3} ms per two-stage solve", per * 1e3);
+        let t = std::time::Instant::now();
+        for p in &problems {
+            let sol = p.solve().expect("solve");
+            let scores: Vec<Vec<(usize, f64)>> =
+                (n_int..n_int + 4).map(|v| vec![(v, 1.0)]).collect();
+            p.attribution_ranges(&sol, &scores).expect("ranges");
+        }
+        let with_ranges = t.elapsed().as_secs_f64() / problems.len() as f64;
+        println!(
+            "{n_rows} rows x {} vars: {:.3} ms per two-stage solve (mean LP rows {} / {}), \
+             {:.3} ms with 4 attribution ranges",
+            n_int + n_ctx,
+            per * 1e3,
+            constraints.0 / problems.len(),
+            constraints.1 / problems.len(),
+            with_ranges * 1e3
+        );
+        let p = &problems[0];
+        let strata: Vec<u64> = (0..p.rows.len()).map(|_| rng.random_range(0..8u64)).collect();
+        let t = std::time::Instant::now();
+        let null = permutation_null(p, &[n_int], &strata, &[(n_int, 1.0)], 200, 3).expect("null");
+        println!(
+            "  permutation null, 200 replicates: {:.1} ms on {} threads ({} scores)",
+            t.elapsed().as_secs_f64() * 1e3,
+            rayon::current_num_threads(),
+            null.len()
+        );
     }
 }

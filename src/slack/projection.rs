@@ -286,6 +286,41 @@ mod tests {
         }
     }
 
+    proptest! {
+        /// Optimality for any K: no feasible move of mass between two outcomes improves
+        /// the log-likelihood (pairwise moves span the simplex's directions, and the problem
+        /// is concave, so a local check is a global one up to the step sizes tried).
+        #[test]
+        fn no_pairwise_move_improves((p, n) in case(), frac in 0.01f64..0.99, zero_p in 0usize..16) {
+            let mut p = p;
+            if zero_p < p.len() {
+                p[zero_p] = 0.0;
+            }
+            prop_assume!(p.iter().sum::<f64>() > 0.1 && n.iter().sum::<u64>() > 0);
+            let wk = Weakening::new(&p, &n);
+            let w = frac * wk.tvd_to_frequencies();
+            let q = weaken(&p, &n, w);
+            let base = loglik(&n, &q);
+            prop_assume!(base.is_finite());
+            for x in 0..q.len() {
+                for y in 0..q.len() {
+                    for t in [1e-3, 1e-5] {
+                        if x == y || q[y] < t {
+                            continue;
+                        }
+                        let mut r = q.clone();
+                        r[x] += t;
+                        r[y] -= t;
+                        if tvd(&r, &wk.p) <= w {
+                            let v = loglik(&n, &r);
+                            prop_assert!(v <= base + 1e-9 * base.abs().max(1.0), "move {x}<-{y} by {t}: {v} > {base}");
+                        }
+                    }
+                }
+            }
+        }
+    }
+
     #[test]
     fn beyond_tvd_is_frequencies() {
         let p = [0.5, 0.3, 0.2];
