@@ -23,7 +23,7 @@ fn circuit(id: &str, layers: Vec<Vec<Op>>, measured: Vec<usize>) -> Circuit {
 }
 
 fn exact(layout: &Layout, c: &Circuit, block: &[usize], n: &Noise) -> Vec<f64> {
-    exact_block_distribution(layout, c, block, n, &vec![0.0; n.drift.len()]).unwrap()
+    exact_block_distribution(layout, c, block, n, &vec![0.0; n.drift().len()]).unwrap()
 }
 
 // ---------- one-qubit Cliffords ----------

@@ -68,7 +68,10 @@ pub fn run(args: SimulateArgs) -> anyhow::Result<()> {
         ))
         .into());
     }
-    let long_run = circuits.len() as u64 * args.shots > 5_000_000;
+    // Sampling dominates: about one draw per measured qubit per shot; a bar from ~1 s up.
+    let draws: u64 =
+        circuits.circuits.iter().map(|c| c.measured.len() as u64).sum::<u64>() * args.shots;
+    let long_run = draws > 20_000_000;
     let counts = if long_run && std::io::stderr().is_terminal() {
         let bar = indicatif::ProgressBar::new(circuits.len() as u64).with_style(
             indicatif::ProgressStyle::with_template(

@@ -159,7 +159,7 @@ pub fn circuit_rng(seed: u64, index: usize) -> ChaCha8Rng {
 /// Draws the per-circuit drift angles (radians), one per drift term of `noise`, in order.
 pub fn draw_drift(noise: &Noise, rng: &mut ChaCha8Rng) -> Vec<f64> {
     noise
-        .drift
+        .drift()
         .iter()
         .map(|d| {
             let z: f64 = StandardNormal.sample(rng);
@@ -192,7 +192,7 @@ fn simulate_circuit(
         blocks.push((positions, cum));
     }
     let crosstalk: Vec<(usize, usize, f64)> = noise
-        .readout_crosstalk
+        .readout_crosstalk()
         .iter()
         .filter_map(|t| Some((pos(t.victim)?, pos(t.neighbour)?, t.flip)))
         .filter(|t| t.2 > 0.0)
@@ -352,21 +352,21 @@ fn block_populations(
             format!("a block of {k} qubits cannot be simulated (supported: 1 or 2)"),
         ));
     }
-    if drift_rad.len() != noise.drift.len() {
+    if drift_rad.len() != noise.drift().len() {
         return Err(Error::Usage(format!(
             "{} drift angles given for {} drift terms",
             drift_rad.len(),
-            noise.drift.len()
+            noise.drift().len()
         )));
     }
     let local = |q: QubitIx| block.iter().position(|&b| b == q);
     let terms: Vec<Vec<&ContextTerm>> =
-        block.iter().map(|&q| noise.context.iter().filter(|t| t.victim == q).collect()).collect();
+        block.iter().map(|&q| noise.context().iter().filter(|t| t.victim == q).collect()).collect();
     let drifts: Vec<Vec<(Rotation, Role)>> = block
         .iter()
         .map(|&q| {
             noise
-                .drift
+                .drift()
                 .iter()
                 .zip(drift_rad)
                 .filter(|(d, _)| d.qubit == q)

@@ -255,12 +255,9 @@ pub struct Noise {
     defaults: HashMap<Gate, ErrorSpec>,
     overrides: HashMap<(Gate, Vec<QubitIx>), ErrorSpec>,
     readout: Vec<Readout>,
-    /// Context terms, in file order (`zz` terms expanded into one term per end).
-    pub context: Vec<ContextTerm>,
-    /// Readout crosstalk terms.
-    pub readout_crosstalk: Vec<ReadoutCrosstalk>,
-    /// Drift terms, in file order; simulation draws one angle per term per circuit.
-    pub drift: Vec<Drift>,
+    context: Vec<ContextTerm>,
+    readout_crosstalk: Vec<ReadoutCrosstalk>,
+    drift: Vec<Drift>,
 }
 
 impl Noise {
@@ -291,6 +288,21 @@ impl Noise {
             return Some(s.clone());
         }
         self.defaults.get(&gate).cloned()
+    }
+
+    /// Context terms, in file order (`zz` terms expanded into one term per end).
+    pub fn context(&self) -> &[ContextTerm] {
+        &self.context
+    }
+
+    /// Readout crosstalk terms, in file order.
+    pub fn readout_crosstalk(&self) -> &[ReadoutCrosstalk] {
+        &self.readout_crosstalk
+    }
+
+    /// Drift terms, in file order; simulation draws one angle per term per circuit.
+    pub fn drift(&self) -> &[Drift] {
+        &self.drift
     }
 
     /// The readout confusion of a qubit.

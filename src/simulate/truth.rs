@@ -319,7 +319,7 @@ pub fn truth(layout: &Layout, noise: &Noise) -> Truth {
     let mut pair_keys: Vec<(QubitIx, QubitIx)> = (0..layout.n_qubits())
         .flat_map(|q| layout.neighbours(q).iter().map(move |&r| (q, r)))
         .collect();
-    for t in &noise.context {
+    for t in noise.context() {
         pair_keys.push((t.victim, t.aggressor));
     }
     pair_keys.sort_unstable();
@@ -328,7 +328,7 @@ pub fn truth(layout: &Layout, noise: &Noise) -> Truth {
         .into_iter()
         .map(|(q, r)| {
             let terms: Vec<_> =
-                noise.context.iter().filter(|t| t.victim == q && t.aggressor == r).collect();
+                noise.context().iter().filter(|t| t.victim == q && t.aggressor == r).collect();
             let measure = |role: Role| {
                 let steps: Vec<&ErrorSpec> =
                     terms.iter().filter(|t| t.role.admits(role)).map(|t| &t.error).collect();
@@ -369,7 +369,7 @@ pub fn truth(layout: &Layout, noise: &Noise) -> Truth {
                 p1_given_0: ro.p1_given_0,
                 p0_given_1: ro.p0_given_1,
                 drift: noise
-                    .drift
+                    .drift()
                     .iter()
                     .filter(|d| d.qubit == q)
                     .map(|d| DriftTruth {
@@ -399,7 +399,7 @@ pub fn truth(layout: &Layout, noise: &Noise) -> Truth {
         })
         .collect();
     let readout_crosstalk = noise
-        .readout_crosstalk
+        .readout_crosstalk()
         .iter()
         .map(|t| ReadoutCrosstalkTruth {
             victim: layout.id(t.victim).to_string(),
