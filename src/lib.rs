@@ -10,10 +10,12 @@
 pub mod check;
 pub mod circuit;
 pub mod clifford;
+pub mod compare;
 pub mod counts;
 pub mod design;
 pub mod error;
 pub mod gate;
+pub mod hints;
 pub mod layout;
 pub mod model;
 pub mod report;
