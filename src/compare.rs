@@ -806,6 +806,12 @@ pub fn svg(r: &CompareReport) -> String {
         );
         match (e.presence, d.estimate) {
             (Presence::Both, Some(v)) => {
+                // A darker underlay keeps near-zero pairs visible on the light background.
+                let _ = writeln!(
+                    s,
+                    "<line x1=\"{ax:.1}\" y1=\"{ay:.1}\" x2=\"{bx:.1}\" y2=\"{by:.1}\" stroke=\"#b8b8b8\" \
+                     stroke-width=\"10\" stroke-linecap=\"round\"/>"
+                );
                 let _ = writeln!(
                     s,
                     "<line x1=\"{ax:.1}\" y1=\"{ay:.1}\" x2=\"{bx:.1}\" y2=\"{by:.1}\" stroke=\"{}\" \
@@ -892,8 +898,10 @@ pub fn svg(r: &CompareReport) -> String {
     }
     let _ = writeln!(
         s,
-        "<text x=\"{lx}\" y=\"{:.1}\" font-size=\"10\" fill=\"#222\">B - A, x1e-3 TVD per layer (blue lower in B, red higher). \
-         Down-triangle: improved; up-triangle: worse at level {}; dashed: one audit only.</text>",
+        "<text x=\"{lx}\" y=\"{:.1}\" font-size=\"10\" fill=\"#222\">B - A, x1e-3 TVD per layer: blue lower in B, \
+         red higher</text>\n<text x=\"{lx}\" y=\"{:.1}\" font-size=\"10\" fill=\"#222\">down-triangle improved, \
+         up-triangle worse (level {}); dashed: one audit only</text>",
+        ly - 22.0,
         ly - 8.0,
         r.level
     );

@@ -6,6 +6,8 @@ use std::process::ExitCode;
 use clap::{Parser, Subcommand};
 
 mod check;
+mod compare;
+mod hints;
 
 /// Exit-code documentation shown at the end of `--help`.
 const EXIT_CODES: &str = "Exit codes: 0 success, 1 the analysis failed, 2 bad input or usage.";
@@ -22,6 +24,10 @@ pub struct Cli {
 enum Command {
     /// Validate layout, circuits and counts together and show what the data covers.
     Check(check::CheckArgs),
+    /// Scheduling hints from an audit: conflict graph, parallel groups, layer counts.
+    Hints(hints::HintsArgs),
+    /// Compare two audits edge by edge: improved, worse or unchanged, with intervals.
+    Compare(compare::CompareArgs),
 }
 
 /// Runs the CLI and maps the outcome to an exit code.
@@ -29,6 +35,8 @@ pub fn main() -> ExitCode {
     let cli = Cli::parse();
     let result: anyhow::Result<()> = match cli.command {
         Command::Check(args) => check::run(args),
+        Command::Hints(args) => hints::run(args),
+        Command::Compare(args) => compare::run(args),
     };
     match result {
         Ok(()) => ExitCode::SUCCESS,
