@@ -27,7 +27,10 @@ fn median(v: &mut [u64]) -> u64 {
 fn direction_verdict(d: &Directed, cfg: &AuditConfig) -> (Verdict, String) {
     let pm = |x: f64| crate::report::terminal::per_mille(x);
     if !d.tested {
-        return (Verdict::Clean, "never tested: no circuit ran the victim with this aggressor active".into());
+        return (
+            Verdict::Clean,
+            "never tested: no circuit ran the victim with this aggressor active".into(),
+        );
     }
     if d.score <= 0.0 {
         return (Verdict::Clean, "no context slack needed".into());
@@ -39,7 +42,10 @@ fn direction_verdict(d: &Directed, cfg: &AuditConfig) -> (Verdict, String) {
         );
     }
     if cfg.null_replicates == 0 {
-        return (Verdict::Clean, "no null replicates were run, so nothing can be called detected".into());
+        return (
+            Verdict::Clean,
+            "no null replicates were run, so nothing can be called detected".into(),
+        );
     }
     if d.score <= d.limit {
         return (
@@ -188,7 +194,9 @@ pub(crate) fn report(a: &Analysis, s: &Solved, x: &Assessed, cfg: &AuditConfig) 
         let fits = if kind.gate.arity() == 1 {
             a.fitted.qubit_fits[kind.qubits[0]].as_ref()
         } else {
-            layout.coupler(kind.qubits[0], kind.qubits[1]).and_then(|c| a.fitted.coupler_fits[c].as_ref())
+            layout
+                .coupler(kind.qubits[0], kind.qubits[1])
+                .and_then(|c| a.fitted.coupler_fits[c].as_ref())
         };
         fits.and_then(|f| f.kinds.iter().find(|kf| kf.kind == k as usize)).map(|kf| kf.error_rate)
     };
@@ -227,6 +235,7 @@ pub(crate) fn report(a: &Analysis, s: &Solved, x: &Assessed, cfg: &AuditConfig) 
                 fitted_error_rate: fit_of(k).unwrap_or(f64::NAN),
                 fitted_on_all_rows: all_rows,
                 qubits: kind.qubits().iter().map(|&q| id(q)).collect(),
+                confidence: None,
             }
         })
         .collect();
@@ -257,7 +266,11 @@ pub(crate) fn report(a: &Analysis, s: &Solved, x: &Assessed, cfg: &AuditConfig) 
         for kf in &f.kinds {
             for (name, ok) in kf.names.iter().zip(&kf.identified) {
                 if !ok {
-                    unidentified.push(format!("{}:{}", kinds.get(kf.kind as u32).label(layout), name));
+                    unidentified.push(format!(
+                        "{}:{}",
+                        kinds.get(kf.kind as u32).label(layout),
+                        name
+                    ));
                 }
             }
         }
@@ -279,7 +292,8 @@ pub(crate) fn report(a: &Analysis, s: &Solved, x: &Assessed, cfg: &AuditConfig) 
         if a.requirement[i] > 0.0 {
             needing += 1;
         }
-        threshold = threshold.max(crate::stats::bonferroni_threshold(m.len() - 1, cfg.alpha, a.used.len()));
+        threshold =
+            threshold.max(crate::stats::bonferroni_threshold(m.len() - 1, cfg.alpha, a.used.len()));
     }
     dof_all -= n_ident as f64;
 
@@ -289,7 +303,10 @@ pub(crate) fn report(a: &Analysis, s: &Solved, x: &Assessed, cfg: &AuditConfig) 
         .iter()
         .enumerate()
         .filter_map(|(c, _)| {
-            a.used.iter().find(|&&i| a.rows.rows[i].circuit as usize == c).map(|&i| a.rows.rows[i].shots)
+            a.used
+                .iter()
+                .find(|&&i| a.rows.rows[i].circuit as usize == c)
+                .map(|&i| a.rows.rows[i].shots)
         })
         .collect();
     let circuits_with_counts = shots.len();

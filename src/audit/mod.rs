@@ -115,7 +115,6 @@ pub(crate) struct Analysis<'a> {
     pub rows: Rows,
     /// Analysis rows that have counts (global indices into `rows.rows`).
     pub used: Vec<usize>,
-    pub prepared: Vec<Option<PreparedRow>>,
     pub predictions: Vec<Vec<f64>>,
     pub requirement: Vec<f64>,
     /// 1q rows per qubit and 2q rows per coupler (global indices).
@@ -216,7 +215,16 @@ pub(crate) fn analyse<'a>(
         }
     }
 
-    let fitted = fit_model(layout, &rows, &prepared, &qubit_rows, &coupler_rows, &spec, progress, &mut warnings)?;
+    let fitted = fit_model(
+        layout,
+        &rows,
+        &prepared,
+        &qubit_rows,
+        &coupler_rows,
+        &spec,
+        progress,
+        &mut warnings,
+    )?;
     check_cancel(progress)?;
 
     let predictions: Vec<Vec<f64>> = prepared
@@ -239,7 +247,6 @@ pub(crate) fn analyse<'a>(
         circuits,
         rows,
         used,
-        prepared,
         predictions,
         requirement,
         qubit_rows,
@@ -326,7 +333,7 @@ fn fit_model(
     let mut touched = vec![false; spec.kind_arity.len()];
     for (q, (fit, all)) in qubit_fits.iter().enumerate() {
         let Some(fit) = fit else { continue };
-        params.readout[q] = fit.params.readout[q].clone();
+        params.readout[q] = fit.params.readout[q];
         for kf in &fit.kinds {
             params.kinds[kf.kind] = fit.params.kinds[kf.kind].clone();
             touched[kf.kind] = true;

@@ -84,7 +84,12 @@ impl Problem {
         let fixed_values: Vec<Option<f64>> = vars.iter().map(|&b| fixed(b)).collect();
         let fixed_values =
             if fixed_values.iter().any(Option::is_some) { fixed_values } else { Vec::new() };
-        Problem { vars, index, lp: CoveringProblem { kinds, fixed: fixed_values, rows: lp_rows }, rows }
+        Problem {
+            vars,
+            index,
+            lp: CoveringProblem { kinds, fixed: fixed_values, rows: lp_rows },
+            rows,
+        }
     }
 
     /// The same problem without the rows of one circuit (for leave-one-out).

@@ -157,7 +157,8 @@ fn run_audit(inputs: &InputArgs, counts: &Path, a: &AnalysisArgs) -> anyhow::Res
     let text = terminal::render(&rep, &terminal::TerminalOptions { color, ..Default::default() });
     let mut out = std::io::stdout().lock();
     out.write_all(text.as_bytes())?;
-    let main_file = if files.iter().any(|(n, _)| n == "report.html") { "report.html" } else { "audit.json" };
+    let main_file =
+        if files.iter().any(|(n, _)| n == "report.html") { "report.html" } else { "audit.json" };
     writeln!(out, "\nWrote {}", a.out.join(main_file).display())?;
     Ok(())
 }

@@ -109,7 +109,8 @@ pub fn digest(role: &str, path: &Path) -> anyhow::Result<InputFile> {
         let mut file = std::fs::File::open(f).map_err(|e| slackmap::Error::io(f, e))?;
         let mut buf = vec![0u8; 1 << 16];
         loop {
-            let n = std::io::Read::read(&mut file, &mut buf).map_err(|e| slackmap::Error::io(f, e))?;
+            let n =
+                std::io::Read::read(&mut file, &mut buf).map_err(|e| slackmap::Error::io(f, e))?;
             if n == 0 {
                 break;
             }

@@ -7,10 +7,12 @@ use clap::{Parser, Subcommand};
 
 mod audit;
 mod check;
+mod compare;
+mod design;
+mod hints;
 mod inputs;
 mod layout;
 mod progress;
-mod design;
 mod simulate;
 
 /// Exit-code documentation shown at the end of `--help`.
@@ -38,6 +40,10 @@ enum Command {
     Design(design::DesignArgs),
     /// Simulate counts (and a truth file) under an injected noise scenario.
     Simulate(simulate::SimulateArgs),
+    /// Scheduling hints from an audit: conflict graph, parallel groups, layer counts.
+    Hints(hints::HintsArgs),
+    /// Compare two audits edge by edge: improved, worse or unchanged, with intervals.
+    Compare(compare::CompareArgs),
 }
 
 /// Runs the CLI and maps the outcome to an exit code.
@@ -50,6 +56,8 @@ pub fn main() -> ExitCode {
         Command::Demo(args) => audit::demo(args),
         Command::Design(a) => design::run(a),
         Command::Simulate(a) => simulate::run(a),
+        Command::Hints(args) => hints::run(args),
+        Command::Compare(args) => compare::run(args),
     };
     match result {
         Ok(()) => ExitCode::SUCCESS,

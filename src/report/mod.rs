@@ -325,6 +325,11 @@ pub struct IntrinsicReport {
     pub fitted_on_all_rows: bool,
     /// The qubits the kind acts on (ids), for drawing and comparing.
     pub qubits: Vec<String>,
+    /// Bootstrap confidence for the intrinsic slack, TVD per occurrence (the `_tvd_per_layer`
+    /// field names of [`Confidence`] then carry per-occurrence values); absent when no
+    /// replicates were run or the writer predates the field.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub confidence: Option<Confidence>,
 }
 
 /// Readout of one qubit.

@@ -46,3 +46,7 @@ pub fn expectations(table: &str) -> Vec<(String, String)> {
 pub fn slackmap() -> Command {
     Command::cargo_bin("slackmap").expect("the slackmap binary is built for integration tests")
 }
+
+mod builder;
+#[allow(unused_imports)]
+pub use builder::*;
