@@ -209,9 +209,7 @@ pub fn render(r: &AuditReport, opt: &TerminalOptions) -> String {
         r,
         opt,
         &mut out,
-        bold(
-            &"Directed scores x1e-3 per layer: victims (rows) by aggressors (columns)".to_string(),
-        ),
+        bold("Directed scores x1e-3 per layer: victims (rows) by aggressors (columns)"),
     );
     render_intrinsic(
         r,
