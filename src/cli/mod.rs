@@ -6,6 +6,7 @@ use std::process::ExitCode;
 use clap::{Parser, Subcommand};
 
 mod check;
+mod report;
 
 /// Exit-code documentation shown at the end of `--help`.
 const EXIT_CODES: &str = "Exit codes: 0 success, 1 the analysis failed, 2 bad input or usage.";
@@ -22,6 +23,8 @@ pub struct Cli {
 enum Command {
     /// Validate layout, circuits and counts together and show what the data covers.
     Check(check::CheckArgs),
+    /// Re-render tables, pictures and report.html from a saved audit.json.
+    Report(report::ReportArgs),
 }
 
 /// Runs the CLI and maps the outcome to an exit code.
@@ -29,6 +32,7 @@ pub fn main() -> ExitCode {
     let cli = Cli::parse();
     let result: anyhow::Result<()> = match cli.command {
         Command::Check(args) => check::run(args),
+        Command::Report(args) => report::run(args),
     };
     match result {
         Ok(()) => ExitCode::SUCCESS,

@@ -43,6 +43,7 @@ th { background: #f2f2f2; text-align: left; white-space: nowrap; }
 td.num { text-align: right; font-variant-numeric: tabular-nums; white-space: nowrap; }
 tbody tr:nth-child(even) { background: #fafafa; }
 tr.verdict-recalibrate td.verdict { font-weight: bold; }
+td.id, td.verdict { white-space: nowrap; }
 td.verdict svg { vertical-align: -2px; margin-right: 0.3em; }
 table.sortable th { cursor: pointer; }
 table.sortable th[aria-sort="ascending"]::after { content: " \25B2"; font-size: 0.7em; }
@@ -294,7 +295,7 @@ pub fn html(r: &AuditReport) -> String {
                         e.rank.map(|k| k.to_string()).unwrap_or_else(|| "-".into()),
                         e.rank.map(|k| k as f64),
                     ),
-                    td(format!("{}-{}", e.a, e.b)),
+                    Td { class: "id", ..td(format!("{}-{}", e.a, e.b)) },
                     td(if e.coupled { "yes" } else { "no" }),
                     verdict,
                     pm_cell(e.score_tvd_per_layer),

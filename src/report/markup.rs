@@ -23,19 +23,32 @@ pub fn escape(s: &str) -> String {
     out
 }
 
-/// The smallest 1, 2, 2.5 or 5 times a power of ten that is at least `x` (1 for x <= 0 or
-/// not finite): the top of a legend scale.
+/// The smallest of 1, 1.5, 2, 2.5, 3, 4, 5, 6, 8 times a power of ten that is at least `x`
+/// (1 for x <= 0 or not finite): the top of a legend scale, fine-grained so the largest value
+/// uses most of the scale.
 pub fn nice_ceil(x: f64) -> f64 {
+    nice_from(x, &[1.0, 1.5, 2.0, 2.5, 3.0, 4.0, 5.0, 6.0, 8.0, 10.0])
+}
+
+/// The smallest 1, 2, 2.5 or 5 times a power of ten that is at least `x`: a tick step.
+pub fn nice_step(x: f64) -> f64 {
+    nice_from(x, &[1.0, 2.0, 2.5, 5.0, 10.0])
+}
+
+fn nice_from(x: f64, mantissas: &[f64]) -> f64 {
     if !x.is_finite() || x <= 0.0 {
         return 1.0;
     }
     let p = 10f64.powf(x.log10().floor());
-    for m in [1.0, 2.0, 2.5, 5.0, 10.0] {
-        if m * p >= x * (1.0 - 1e-12) {
-            return m * p;
-        }
-    }
-    10.0 * p
+    mantissas.iter().map(|m| m * p).find(|v| *v >= x * (1.0 - 1e-12)).unwrap_or(10.0 * p)
+}
+
+/// Tick values from 0 to `top` (a [`nice_ceil`] value) at a round step, about five of them,
+/// with the step.
+pub fn ticks(top: f64) -> (Vec<f64>, f64) {
+    let step = nice_step(top / 5.0);
+    let n = (top / step + 1e-9).floor() as usize;
+    ((0..=n).map(|k| k as f64 * step).collect(), step)
 }
 
 /// A tick label: as few decimals as tell ticks `step` apart, without trailing zeros.
@@ -65,6 +78,16 @@ pub fn px(v: f64) -> String {
 /// cross (confounded), nothing (clean). Drawn black over a white halo so that it reads on
 /// every fill of the colour scales.
 pub fn verdict_mark(v: Verdict, x: f64, y: f64, h: f64) -> String {
+    mark(v, x, y, h, false)
+}
+
+/// [`verdict_mark`] with the diamond left open: drawn around a small cell, it frames the
+/// cell's colour instead of hiding it.
+pub fn verdict_mark_open(v: Verdict, x: f64, y: f64, h: f64) -> String {
+    mark(v, x, y, h, true)
+}
+
+fn mark(v: Verdict, x: f64, y: f64, h: f64, open: bool) -> String {
     let halo = (h * 0.45).max(1.2);
     let line = (h * 0.22).max(0.6);
     let shape = match v {
@@ -98,7 +121,7 @@ pub fn verdict_mark(v: Verdict, x: f64, y: f64, h: f64) -> String {
         }
         Verdict::Clean => return String::new(),
     };
-    let fill = if v == Verdict::Recalibrate { "#000000" } else { "none" };
+    let fill = if v == Verdict::Recalibrate && !open { "#000000" } else { "none" };
     let mut s = String::new();
     let _ = write!(
         s,
@@ -124,12 +147,23 @@ mod tests {
 
     #[test]
     fn nice_ceil_rounds_up_to_a_nice_number() {
-        for (x, want) in [(0.7, 1.0), (1.0, 1.0), (1.3, 2.0), (2.2, 2.5), (3.0, 5.0), (6.0, 10.0)] {
+        for (x, want) in [(0.7, 0.8), (1.0, 1.0), (1.3, 1.5), (2.2, 2.5), (3.1, 4.0), (8.5, 10.0)] {
             assert!((nice_ceil(x) - want).abs() < 1e-12, "{x}: {}", nice_ceil(x));
         }
-        assert!((nice_ceil(0.013) - 0.02).abs() < 1e-12);
+        assert!((nice_ceil(0.013) - 0.015).abs() < 1e-12);
+        assert!((nice_step(0.6) - 1.0).abs() < 1e-12);
         assert!((nice_ceil(0.0) - 1.0).abs() < 1e-12);
         assert!((nice_ceil(f64::NAN) - 1.0).abs() < 1e-12);
+    }
+
+    #[test]
+    fn ticks_are_round_and_end_at_the_top() {
+        for top in [1.0, 1.5, 2.0, 2.5, 3.0, 4.0, 5.0, 6.0, 8.0, 0.15, 40.0] {
+            let (t, step) = ticks(top);
+            assert!((3..=6).contains(&t.len()), "{top}: {t:?}");
+            assert!((t[t.len() - 1] - top).abs() < 1e-9 * top, "{top}: {t:?}");
+            assert!(t.windows(2).all(|w| (w[1] - w[0] - step).abs() < 1e-9), "{t:?}");
+        }
     }
 
     #[test]

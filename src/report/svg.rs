@@ -9,7 +9,7 @@ use std::collections::HashMap;
 use std::fmt::Write;
 
 use super::colour::{self, Ramp};
-use super::markup::{escape, nice_ceil, px, tick_label, verdict_mark};
+use super::markup::{escape, nice_ceil, px, tick_label, ticks, verdict_mark, verdict_mark_open};
 use super::{AuditReport, Confidence, DirectedReport, EdgeReport, Render, Verdict};
 
 /// Whether an SVG is a file of its own or sits inside an HTML page (where the namespace is
@@ -188,7 +188,7 @@ pub fn adjacency(r: &AuditReport, doc: Doc) -> String {
     let longest = ids.iter().map(|q| q.chars().count()).max().unwrap_or(1) as f64;
     let label_w = longest * font * 0.62 + 6.0;
     let left = 30.0 + label_w;
-    let top = 52.0 + label_w;
+    let top = 66.0 + label_w;
     let grid = n as f64 * cell;
     let legend_x = left + grid + 28.0;
     let legend_h = 420.0;
@@ -314,12 +314,13 @@ pub fn adjacency(r: &AuditReport, doc: Doc) -> String {
         s.push_str("</g>\n");
         if let Some(e) = edge {
             if verdict != Verdict::Clean && is_scoring_direction(e, &d.victim) {
-                marks.push_str(&verdict_mark(
-                    verdict,
-                    x + cell / 2.0,
-                    y + cell / 2.0,
-                    (cell * 0.32).max(2.0),
-                ));
+                let (cx, cy) = (x + cell / 2.0, y + cell / 2.0);
+                // Small cells: an open mark around the cell, so its colour stays visible.
+                marks.push_str(&if cell >= 14.0 {
+                    verdict_mark(verdict, cx, cy, cell * 0.32)
+                } else {
+                    verdict_mark_open(verdict, cx, cy, cell * 0.55 + 2.5)
+                });
                 marks.push('\n');
             }
         }
@@ -344,10 +345,9 @@ pub fn adjacency(r: &AuditReport, doc: Doc) -> String {
         px(ly),
         px(bar_h)
     );
-    let step = top_pm / 4.0;
-    for k in 0..=4 {
-        let v = step * k as f64;
-        let y = ly + bar_h - bar_h * k as f64 / 4.0;
+    let (tv, step) = ticks(top_pm);
+    for v in tv {
+        let y = ly + bar_h - bar_h * v / top_pm;
         let _ = writeln!(
             s,
             "<line x1=\"{}\" y1=\"{}\" x2=\"{}\" y2=\"{}\" stroke=\"#333333\" stroke-width=\"0.8\"/>",
@@ -528,7 +528,7 @@ pub fn layout(r: &AuditReport, doc: Doc) -> String {
     let scale = fit(ex).min(fit(ey)).min(130.0 / unit);
     let dpx = unit * scale;
     let node_r = (dpx * 0.2).clamp(1.5, 30.0);
-    let (wmin, wmax) = ((dpx * 0.025).max(0.6), (dpx * 0.15).max(1.5));
+    let (wmin, wmax) = ((dpx * 0.025).max(0.6), (dpx * 0.12).max(1.5));
     let gap = dpx * 0.03;
     let margin = node_r + 16.0;
     let left = margin;
@@ -708,9 +708,9 @@ pub fn layout(r: &AuditReport, doc: Doc) -> String {
         c = px(ly + lw1),
         d = px(ly + lw1 / 2.0 + lw0 / 2.0)
     );
-    let step = top_pm / 4.0;
-    for k in 0..=4 {
-        let x = lx + bar_w * k as f64 / 4.0;
+    let (tv, step) = ticks(top_pm);
+    for v in tv {
+        let x = lx + bar_w * v / top_pm;
         let _ = writeln!(
             s,
             "<line x1=\"{}\" y1=\"{}\" x2=\"{}\" y2=\"{}\" stroke=\"#333333\" stroke-width=\"0.8\"/>",
@@ -725,7 +725,7 @@ pub fn layout(r: &AuditReport, doc: Doc) -> String {
             11.0,
             "middle",
             " class=\"tick\"",
-            &tick_label(step * k as f64, step),
+            &tick_label(v, step),
         ));
     }
     ly += lw1 + 38.0;
@@ -753,9 +753,9 @@ pub fn layout(r: &AuditReport, doc: Doc) -> String {
         px(ly),
         px(bar_w)
     );
-    let qstep = qtop_pm / 4.0;
-    for k in 0..=4 {
-        let x = lx + bar_w * k as f64 / 4.0;
+    let (qv, qstep) = ticks(qtop_pm);
+    for v in qv {
+        let x = lx + bar_w * v / qtop_pm;
         let _ = writeln!(
             s,
             "<line x1=\"{}\" y1=\"{}\" x2=\"{}\" y2=\"{}\" stroke=\"#333333\" stroke-width=\"0.8\"/>",
@@ -764,14 +764,7 @@ pub fn layout(r: &AuditReport, doc: Doc) -> String {
             px(x),
             px(ly + 16.0)
         );
-        s.push_str(&text(
-            x,
-            ly + 28.0,
-            11.0,
-            "middle",
-            " class=\"tick\"",
-            &tick_label(qstep * k as f64, qstep),
-        ));
+        s.push_str(&text(x, ly + 28.0, 11.0, "middle", " class=\"tick\"", &tick_label(v, qstep)));
     }
     s.push_str("</g>\n</svg>\n");
     s
