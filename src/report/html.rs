@@ -44,6 +44,7 @@ td.num { text-align: right; font-variant-numeric: tabular-nums; white-space: now
 tbody tr:nth-child(even) { background: #fafafa; }
 tr.verdict-recalibrate td.verdict { font-weight: bold; }
 td.id, td.verdict { white-space: nowrap; }
+td.words { min-width: 18rem; }
 td.verdict svg { vertical-align: -2px; margin-right: 0.3em; }
 table.sortable th { cursor: pointer; }
 table.sortable th[aria-sort="ascending"]::after { content: " \25B2"; font-size: 0.7em; }
@@ -262,7 +263,7 @@ pub fn html(r: &AuditReport) -> String {
         ("rows", true),
         ("circuits", true),
         ("leave-one-out x1e-3", true),
-        ("most influential circuit", false),
+        ("most influential", false),
         ("confounded with", false),
         ("reason", false),
     ];
@@ -317,7 +318,7 @@ pub fn html(r: &AuditReport) -> String {
                     pm_cell(e.leave_one_out_tvd_per_layer),
                     td(e.most_influential_circuit.clone().unwrap_or_default()),
                     td(e.confounded_with.join(", ")),
-                    td(e.reason.clone()),
+                    Td { class: "words", ..td(e.reason.clone()) },
                 ],
             )
         })
