@@ -21,6 +21,10 @@ use crate::slack::lp::TwoStageSolution;
 /// Scores below this are zero: the LP's own precision, far below any reported digit.
 pub const ZERO_SCORE: f64 = 1e-9;
 
+/// A row needs context slack when its requirement exceeds its intrinsic slack by more
+/// than this (TVD): the LP's precision.
+const SUPPORT_TOLERANCE: f64 = 1e-9;
+
 /// Candidate circuits tried for leave-one-out, most loaded first.
 const LEAVE_ONE_OUT_CANDIDATES: usize = 8;
 
@@ -208,12 +212,24 @@ fn assess_pair(
         d.p_value = 1.0;
     }
 
-    // Supporting rows and leave-one-out.
-    let support = sol.supporting_rows(&p.lp, &r_vars);
-    d.supporting_rows = support.len();
+    // Supporting rows: rows with r active whose requirement the intrinsic budgets alone do
+    // not meet, so that they need context slack; leave-one-out drops their circuits.
     let mut load: HashMap<u32, f64> = HashMap::new();
-    for &j in &support {
-        *load.entry(a.rows.rows[p.rows[j]].circuit).or_default() += p.lp.rows[j].requirement;
+    for (j, row) in p.lp.rows.iter().enumerate() {
+        if !row.terms.iter().any(|&(v, c)| c > 0.0 && r_vars.contains(&v)) {
+            continue;
+        }
+        let intrinsic: f64 = row
+            .terms
+            .iter()
+            .filter(|&&(v, _)| !matches!(p.vars[v], Budget::Context(..)))
+            .map(|&(v, c)| c * sol.values[v])
+            .sum();
+        let need = row.requirement - intrinsic;
+        if need > SUPPORT_TOLERANCE {
+            d.supporting_rows += 1;
+            *load.entry(a.rows.rows[p.rows[j]].circuit).or_default() += need;
+        }
     }
     d.supporting_circuits = load.len();
     d.loo = d.score;

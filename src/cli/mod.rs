@@ -13,6 +13,7 @@ mod hints;
 mod inputs;
 mod layout;
 mod progress;
+mod report;
 mod simulate;
 
 /// Exit-code documentation shown at the end of `--help`.
@@ -28,22 +29,24 @@ pub struct Cli {
 
 #[derive(Subcommand, Debug)]
 enum Command {
-    /// Check a layout file, or write a generated one.
-    Layout(layout::LayoutArgs),
-    /// Validate layout, circuits and counts together and show what the data covers.
-    Check(check::CheckArgs),
-    /// Find crosstalk: fit the crosstalk-free model, budget slack, rank the edges.
-    Audit(audit::AuditArgs),
     /// Run the audit on the bundled demo scenario and write its report.
     Demo(audit::DemoArgs),
+    /// Check a layout file, or write a generated one.
+    Layout(layout::LayoutArgs),
     /// Write the circuits to run for a layout.
     Design(design::DesignArgs),
     /// Simulate counts (and a truth file) under an injected noise scenario.
     Simulate(simulate::SimulateArgs),
-    /// Scheduling hints from an audit: conflict graph, parallel groups, layer counts.
-    Hints(hints::HintsArgs),
+    /// Validate layout, circuits and counts together and show what the data covers.
+    Check(check::CheckArgs),
+    /// Find crosstalk: fit the crosstalk-free model, budget slack, rank the edges.
+    Audit(audit::AuditArgs),
+    /// Re-render tables, pictures and report.html from a saved audit.json.
+    Report(report::ReportArgs),
     /// Compare two audits edge by edge: improved, worse or unchanged, with intervals.
     Compare(compare::CompareArgs),
+    /// Scheduling hints from an audit: conflict graph, parallel groups, layer counts.
+    Hints(hints::HintsArgs),
 }
 
 /// Runs the CLI and maps the outcome to an exit code.
@@ -58,6 +61,7 @@ pub fn main() -> ExitCode {
         Command::Simulate(a) => simulate::run(a),
         Command::Hints(args) => hints::run(args),
         Command::Compare(args) => compare::run(args),
+        Command::Report(args) => report::run(args),
     };
     match result {
         Ok(()) => ExitCode::SUCCESS,

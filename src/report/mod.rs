@@ -10,8 +10,12 @@ use serde::{Deserialize, Serialize};
 
 use crate::error::{Error, Result};
 
+pub mod colour;
 pub mod csv;
+pub mod html;
 pub mod json;
+pub mod markup;
+pub mod svg;
 pub mod terminal;
 
 /// Version of the `audit.json` format written by this build.
@@ -372,8 +376,15 @@ pub trait Render {
 
 /// Every file an audit writes, in order.
 pub fn audit_files(report: &AuditReport) -> Vec<(String, Vec<u8>)> {
-    let renderers: [&dyn Render; 4] =
-        [&json::AuditJson, &csv::EdgesCsv, &csv::AdjacencyCsv, &csv::IntrinsicCsv];
+    let renderers: [&dyn Render; 7] = [
+        &json::AuditJson,
+        &csv::EdgesCsv,
+        &csv::AdjacencyCsv,
+        &csv::IntrinsicCsv,
+        &svg::AdjacencySvg,
+        &svg::LayoutSvg,
+        &html::ReportHtml,
+    ];
     renderers.iter().map(|r| (r.file_name().to_string(), r.render(report))).collect()
 }
 
