@@ -144,6 +144,8 @@ fn grid_audit(rows: usize, cols: usize, flags: &[Flag]) -> AuditReport {
                 p_value: if flagged { 0.002 } else { 0.3 },
                 supporting_rows: (s > 0.0) as usize * 5,
                 supporting_circuits: (s > 0.0) as usize * 3,
+                isolated_tvd_per_layer: 0.0,
+                top_supporting_circuits: Vec::new(),
                 leave_one_out_tvd_per_layer: s * 0.93,
                 most_influential_circuit: (s > 0.0).then(|| format!("c{}", (v * 5 + g) % 97)),
                 per_kind: vec![

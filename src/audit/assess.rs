@@ -46,7 +46,12 @@ pub(crate) struct Directed {
     pub supporting_circuits: usize,
     pub loo: f64,
     pub most_influential: Option<u32>,
+    /// Supporting circuits, most loaded first (at most ten).
+    pub top_circuits: Vec<u32>,
     pub per_kind: Vec<(KindIx, f64)>,
+    /// The score on the victim's reference rows and the rows where r is its only active
+    /// neighbour: evidence that r alone disturbs q.
+    pub isolated: f64,
     /// Other aggressors that were active together with r on this victim.
     pub co_active: Vec<QubitIx>,
 }
@@ -212,6 +217,26 @@ fn assess_pair(
         d.p_value = 1.0;
     }
 
+    // Isolated evidence: the same problem restricted to rows where no other neighbour of q
+    // was active. A score that only multi-aggressor rows carry cannot be told apart from
+    // the other aggressors' (method.md section 4, "Attribution range").
+    if d.score > 0.0 {
+        let keep: Vec<usize> = (0..p.rows.len())
+            .filter(|&j| {
+                let row = &a.rows.rows[p.rows[j]];
+                row.is_reference
+                    || row
+                        .victims
+                        .iter()
+                        .filter(|v| v.qubit == q)
+                        .all(|v| v.active_neighbours.iter().all(|&n| n == r))
+            })
+            .collect();
+        let reduced = p.restricted(&keep);
+        let rs = reduced.lp.solve()?;
+        d.isolated = score(&rs, &remap(&w, p, &reduced));
+    }
+
     // Supporting rows: rows with r active whose requirement the intrinsic budgets alone do
     // not meet, so that they need context slack; leave-one-out drops their circuits.
     let mut load: HashMap<u32, f64> = HashMap::new();
@@ -236,15 +261,12 @@ fn assess_pair(
     if d.score > 0.0 {
         let mut cands: Vec<(u32, f64)> = load.into_iter().collect();
         cands.sort_by(|x, y| y.1.total_cmp(&x.1).then(x.0.cmp(&y.0)));
+        d.top_circuits = cands.iter().take(10).map(|c| c.0).collect();
         cands.truncate(LEAVE_ONE_OUT_CANDIDATES);
         for (c, _) in cands {
             let reduced = p.without_circuit(&a.rows.rows, c);
             let rs = reduced.lp.solve()?;
-            let wr: Weights = w
-                .iter()
-                .filter_map(|&(v, wt)| reduced.index.get(&p.vars[v]).map(|&nv| (nv, wt)))
-                .collect();
-            let v = score(&rs, &wr);
+            let v = score(&rs, &remap(&w, p, &reduced));
             if v < d.loo {
                 d.loo = v;
                 d.most_influential = Some(c);
@@ -252,6 +274,11 @@ fn assess_pair(
         }
     }
     Ok(d)
+}
+
+/// Score weights of `from` expressed on the variables of `to` (a sub-problem of it).
+fn remap(w: &Weights, from: &Problem, to: &Problem) -> Weights {
+    w.iter().filter_map(|&(v, wt)| to.index.get(&from.vars[v]).map(|&nv| (nv, wt))).collect()
 }
 
 fn clip(x: f64) -> f64 {

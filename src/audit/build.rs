@@ -41,6 +41,12 @@ fn direction_verdict(d: &Directed, cfg: &AuditConfig) -> (Verdict, String) {
             "another aggressor active at the same time could carry this slack".into(),
         );
     }
+    if d.isolated <= ZERO_SCORE {
+        return (
+            Verdict::Confounded,
+            "only circuits where other neighbours were active too need it: the data cannot tell this aggressor from them".into(),
+        );
+    }
     if cfg.null_replicates == 0 {
         return (
             Verdict::Clean,
@@ -108,6 +114,12 @@ pub(crate) fn report(a: &Analysis, s: &Solved, x: &Assessed, cfg: &AuditConfig) 
             p_value: d.p_value,
             supporting_rows: d.supporting_rows,
             supporting_circuits: d.supporting_circuits,
+            isolated_tvd_per_layer: d.isolated,
+            top_supporting_circuits: d
+                .top_circuits
+                .iter()
+                .map(|&c| a.circuits.circuits[c as usize].id.clone())
+                .collect(),
             leave_one_out_tvd_per_layer: d.loo,
             most_influential_circuit: d
                 .most_influential
@@ -131,7 +143,9 @@ pub(crate) fn report(a: &Analysis, s: &Solved, x: &Assessed, cfg: &AuditConfig) 
             let (va, ra) = direction_verdict(ab, cfg);
             let (vb, rb) = direction_verdict(ba, cfg);
             let main = if ba.score > ab.score { ba } else { ab };
-            let (verdict, reason, lead) = if va <= vb { (va, ra, ab) } else { (vb, rb, ba) };
+            // The direction with the stronger verdict leads; between equal verdicts, the larger score.
+            let a_leads = va < vb || (va == vb && ab.score >= ba.score);
+            let (verdict, reason, lead) = if a_leads { (va, ra, ab) } else { (vb, rb, ba) };
             let confounded_with = if verdict == Verdict::Confounded {
                 lead.co_active
                     .iter()

@@ -96,6 +96,11 @@ impl Problem {
     pub fn without_circuit(&self, all: &[Row], circuit: u32) -> Problem {
         let keep: Vec<usize> =
             (0..self.rows.len()).filter(|&j| all[self.rows[j]].circuit != circuit).collect();
+        self.restricted(&keep)
+    }
+
+    /// The same problem on a subset of its rows (positions into `rows`).
+    pub fn restricted(&self, keep: &[usize]) -> Problem {
         let mut p = self.clone();
         p.rows = keep.iter().map(|&j| self.rows[j]).collect();
         p.lp.rows = keep.iter().map(|&j| self.lp.rows[j].clone()).collect();

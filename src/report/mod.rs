@@ -292,6 +292,13 @@ pub struct DirectedReport {
     pub supporting_rows: usize,
     /// Distinct circuits among them.
     pub supporting_circuits: usize,
+    /// The score on reference rows and rows where the aggressor is the victim's only active
+    /// neighbour; zero means other aggressors could carry it (`confounded`).
+    #[serde(default)]
+    pub isolated_tvd_per_layer: f64,
+    /// The supporting circuits that need the most context slack (at most ten), most first.
+    #[serde(default)]
+    pub top_supporting_circuits: Vec<String>,
     /// Score with the most influential circuit left out.
     pub leave_one_out_tvd_per_layer: f64,
     /// That circuit.

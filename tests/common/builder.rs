@@ -189,6 +189,8 @@ impl AuditBuilder {
                     p_value: if x > self.limit { 0.001 } else { 0.6 },
                     supporting_rows: 0,
                     supporting_circuits: 0,
+                    isolated_tvd_per_layer: 0.0,
+                    top_supporting_circuits: Vec::new(),
                     leave_one_out_tvd_per_layer: x,
                     most_influential_circuit: None,
                     per_kind: Vec::new(),
