@@ -24,6 +24,11 @@ fn median(v: &mut [u64]) -> u64 {
 }
 
 /// A direction's verdict and the reason, before edge-level combination.
+///
+/// Only a score that the null calls significant and that survives leaving out its most
+/// influential circuit can be `confounded`: below the limit, a zero attribution minimum says
+/// nothing the limit has not already said, and calling noise "confounded" would send users
+/// to redesign circuits for nothing.
 fn direction_verdict(d: &Directed, cfg: &AuditConfig) -> (Verdict, String) {
     let pm = |x: f64| crate::report::terminal::per_mille(x);
     if !d.tested {
@@ -34,18 +39,6 @@ fn direction_verdict(d: &Directed, cfg: &AuditConfig) -> (Verdict, String) {
     }
     if d.score <= 0.0 {
         return (Verdict::Clean, "no context slack needed".into());
-    }
-    if d.attribution.0 <= ZERO_SCORE {
-        return (
-            Verdict::Confounded,
-            "another aggressor active at the same time could carry this slack".into(),
-        );
-    }
-    if d.isolated <= ZERO_SCORE {
-        return (
-            Verdict::Confounded,
-            "only circuits where other neighbours were active too need it: the data cannot tell this aggressor from them".into(),
-        );
     }
     if cfg.null_replicates == 0 {
         return (
@@ -67,6 +60,18 @@ fn direction_verdict(d: &Directed, cfg: &AuditConfig) -> (Verdict, String) {
                 pm(d.loo),
                 pm(d.limit)
             ),
+        );
+    }
+    if d.attribution.0 <= ZERO_SCORE {
+        return (
+            Verdict::Confounded,
+            "another aggressor active at the same time could carry this slack".into(),
+        );
+    }
+    if d.isolated <= ZERO_SCORE {
+        return (
+            Verdict::Confounded,
+            "only circuits where other neighbours were active too need it: the data cannot tell this aggressor from them".into(),
         );
     }
     let lower = d.attribution.0.min(d.loo);
