@@ -25,10 +25,9 @@ fn median(v: &mut [u64]) -> u64 {
 
 /// A direction's verdict and the reason, before edge-level combination.
 ///
-/// Only a score that the null calls significant and that survives leaving out its most
-/// influential circuit can be `confounded`: below the limit, a zero attribution minimum says
-/// nothing the limit has not already said, and calling noise "confounded" would send users
-/// to redesign circuits for nothing.
+/// A positive score that another aggressor could carry is `confounded` only when the share
+/// it might carry exceeds the action threshold: tiny shares are noise, and calling them
+/// confounded would send users to redesign circuits for nothing.
 fn direction_verdict(d: &Directed, cfg: &AuditConfig) -> (Verdict, String) {
     let pm = |x: f64| crate::report::terminal::per_mille(x);
     if !d.tested {
@@ -39,6 +38,32 @@ fn direction_verdict(d: &Directed, cfg: &AuditConfig) -> (Verdict, String) {
     }
     if d.score <= 0.0 {
         return (Verdict::Clean, "no context slack needed".into());
+    }
+    if d.attribution.0 <= ZERO_SCORE || d.isolated <= ZERO_SCORE {
+        let why = if d.attribution.0 <= ZERO_SCORE {
+            "another aggressor active at the same time could carry this slack"
+        } else {
+            "only circuits where other neighbours were active too need it"
+        };
+        // Whether it is significant cannot be asked of the conditional null: permuting r among
+        // rows where its partner is always active changes nothing. Size is what matters.
+        return if d.attribution.1 > cfg.action_threshold_tvd_per_layer {
+            (
+                Verdict::Confounded,
+                format!(
+                    "{why}: up to {} per layer could be this pair's, which would be above the action threshold; run circuits where they are active apart",
+                    pm(d.attribution.1)
+                ),
+            )
+        } else {
+            (
+                Verdict::Clean,
+                format!(
+                    "{why}, and at most {} per layer: below the action threshold",
+                    pm(d.attribution.1)
+                ),
+            )
+        };
     }
     if cfg.null_replicates == 0 {
         return (
@@ -60,18 +85,6 @@ fn direction_verdict(d: &Directed, cfg: &AuditConfig) -> (Verdict, String) {
                 pm(d.loo),
                 pm(d.limit)
             ),
-        );
-    }
-    if d.attribution.0 <= ZERO_SCORE {
-        return (
-            Verdict::Confounded,
-            "another aggressor active at the same time could carry this slack".into(),
-        );
-    }
-    if d.isolated <= ZERO_SCORE {
-        return (
-            Verdict::Confounded,
-            "only circuits where other neighbours were active too need it: the data cannot tell this aggressor from them".into(),
         );
     }
     let lower = d.attribution.0.min(d.loo);
