@@ -105,7 +105,7 @@ fn rank_keys(dom: &str) -> Vec<Option<f64>> {
 #[test]
 fn report_runs_in_chromium_without_errors() {
     let Some(browser) = chromium() else {
-        println!("SKIPPED: chromium not installed");
+        skipped("chromium not installed");
         return;
     };
     for fixture in ["grid-4x4.json", "grid-12x12.json"] {
@@ -151,7 +151,7 @@ fn report_runs_in_chromium_without_errors() {
 #[test]
 fn the_error_probe_catches_a_throwing_page() {
     let Some(browser) = chromium() else {
-        println!("SKIPPED: chromium not installed");
+        skipped("chromium not installed");
         return;
     };
     let dir = tempfile::tempdir().expect("tempdir");
@@ -185,4 +185,13 @@ fn picture_stats(path: &Path) -> (usize, f64) {
         }
     }
     (colours.len(), ink as f64 / pixels.max(1) as f64)
+}
+
+/// Reports a test that cannot run here; CI sets SLACKMAP_REQUIRE_TOOLS so that it fails there.
+fn skipped(what: &str) {
+    assert!(
+        std::env::var_os("SLACKMAP_REQUIRE_TOOLS").is_none(),
+        "{what}, but SLACKMAP_REQUIRE_TOOLS is set: .ci/run should have installed it"
+    );
+    println!("SKIPPED: {what}");
 }

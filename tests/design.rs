@@ -265,7 +265,7 @@ fn run_order_is_shuffled() {
 fn qasm_programs_parse_with_the_reference_parser() {
     let probe = std::process::Command::new("python3").args(["-c", "import openqasm3"]).output();
     if !probe.map(|o| o.status.success()).unwrap_or(false) {
-        println!("SKIPPED: openqasm3 not installed");
+        skipped("openqasm3 not installed");
         return;
     }
     let tmp = tempfile::tempdir().unwrap();
@@ -448,4 +448,13 @@ fn repeated_framings_see_coherent_errors_to_first_order() {
         let max = sc.iter().fold(0.0f64, |m, v| m.max(v.abs()));
         assert!(max > 0.1 * depth as f64, "depth {depth}: cphase slopes {sc:?}");
     }
+}
+
+/// Reports a test that cannot run here; CI sets SLACKMAP_REQUIRE_TOOLS so that it fails there.
+fn skipped(what: &str) {
+    assert!(
+        std::env::var_os("SLACKMAP_REQUIRE_TOOLS").is_none(),
+        "{what}, but SLACKMAP_REQUIRE_TOOLS is set: .ci/run should have installed it"
+    );
+    println!("SKIPPED: {what}");
 }
