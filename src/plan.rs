@@ -789,7 +789,7 @@ fn recommend(plans: &[ShotPlan], target: f64) -> Recommendation {
             let (n, s) = *pts.last().unwrap_or(&(0, f64::INFINITY));
             let (n0, s0) = pts[0];
             // Log-log slope of the minimum against shots: -1/2 when shot noise limits it.
-            let slope = ((s / s0).ln() / (n as f64 / n0 as f64).ln()).min(0.0);
+            let slope = (s / s0).ln() / (n as f64 / n0 as f64).ln();
             let shot_limited = pts.len() < 2 || slope < -0.25;
             if s.is_finite() && s > 0.0 && !shot_limited {
                 Recommendation {

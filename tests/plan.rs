@@ -148,6 +148,7 @@ fn twice_the_reported_minimum_is_flagged_in_nine_of_ten_seeds() {
                 plan::is_flagged(&rep, &s.victim, &s.aggressor)
             })
             .count();
+        println!("{kind:?} at twice the minimum, {size:.3e}: flagged in {flagged}/10");
         assert!(
             flagged >= 9,
             "{kind:?} at {size:.3e} on {}<-{}: {flagged}/10",
