@@ -19,6 +19,7 @@ pub mod gate;
 pub mod hints;
 pub mod layout;
 pub mod model;
+pub mod plan;
 pub mod report;
 pub mod rows;
 pub mod simulate;

@@ -12,6 +12,7 @@ mod design;
 mod hints;
 mod inputs;
 mod layout;
+mod plan;
 mod progress;
 mod report;
 mod simulate;
@@ -47,6 +48,8 @@ enum Command {
     Compare(compare::CompareArgs),
     /// Scheduling hints from an audit: conflict graph, parallel groups, layer counts.
     Hints(hints::HintsArgs),
+    /// Plan shot counts: detection limits and smallest flagged crosstalk from simulated audits.
+    Plan(plan::PlanArgs),
 }
 
 /// Runs the CLI and maps the outcome to an exit code.
@@ -62,6 +65,7 @@ pub fn main() -> ExitCode {
         Command::Hints(args) => hints::run(args),
         Command::Compare(args) => compare::run(args),
         Command::Report(args) => report::run(args),
+        Command::Plan(args) => plan::run(args),
     };
     match result {
         Ok(()) => ExitCode::SUCCESS,

@@ -319,6 +319,43 @@ impl Noise {
         g
     }
 
+    /// The same scenario without its crosstalk: no context terms (`zz` included) and no
+    /// readout crosstalk. Intrinsic errors, readout confusion and drift stay, so the result
+    /// is what a perfectly crosstalk-free chip with the same gates would give.
+    pub fn without_crosstalk(&self) -> Noise {
+        Noise { context: Vec::new(), readout_crosstalk: Vec::new(), ..self.clone() }
+    }
+
+    /// The scenario with one more context term, applied after the existing ones. Fails when
+    /// the term names a qubit outside the layout, the victim is its own aggressor, or its
+    /// error is not a one-qubit spec without leakage (what a context term may carry).
+    pub fn with_context_term(&self, term: ContextTerm) -> Result<Noise> {
+        let n = self.readout.len();
+        if term.victim >= n || term.aggressor >= n || term.victim == term.aggressor {
+            return Err(Error::Usage(format!(
+                "context term {} <- {}: victim and aggressor must be two different qubits of \
+                 the {n}-qubit layout",
+                term.victim, term.aggressor
+            )));
+        }
+        let e = &term.error;
+        let pauli_ok = e.pauli.len() == 4
+            && e.pauli.iter().all(|p| (0.0..=1.0).contains(p))
+            && (e.pauli.iter().sum::<f64>() - 1.0).abs() < 1e-9;
+        let rotation_ok =
+            e.rotation.as_ref().is_none_or(|r| r.angle_rad.is_finite() && r.pauli.len() == 1);
+        if !pauli_ok || !rotation_ok || e.leakage != 0.0 {
+            return Err(Error::Usage(
+                "a context term carries a one-qubit Pauli channel (4 probabilities summing \
+                 to 1), an optional one-qubit rotation and no leakage"
+                    .into(),
+            ));
+        }
+        let mut out = self.clone();
+        out.context.push(term);
+        Ok(out)
+    }
+
     /// Reads and validates a noise file.
     pub fn read(path: &Path, layout: &Layout) -> Result<Noise> {
         let text = std::fs::read_to_string(path).map_err(|e| Error::io(path, e))?;

@@ -1,0 +1,116 @@
+//! `slackmap plan`: how many shots the design needs, from simulated audits.
+//!
+//! Converts the arguments into a validated [`PlanConfig`], runs the plan with a progress
+//! bar and Ctrl-C handling, prints the tables and writes plan.json only when all is done.
+
+use std::io::Write;
+use std::path::PathBuf;
+use std::sync::atomic::AtomicBool;
+use std::sync::Arc;
+
+use slackmap::audit::{AuditConfig, Cancel};
+use slackmap::design::{DesignConfig, Kind};
+use slackmap::model::Family;
+use slackmap::plan::{self, PlanConfig};
+use slackmap::simulate::Noise;
+
+use super::progress::Bar;
+
+const EXAMPLE: &str = "Example:
+  slackmap plan --layout layouts/grid-4x4.toml --noise demo-data/noise.toml \\
+      --shots 300,1000,3000 --out plan1
+
+For each shot count: designs the circuits, simulates them under the noise file with its
+crosstalk removed (context, zz and readout crosstalk terms), audits them for every edge's
+detection limit, then injects context errors of growing size (stochastic: extra
+depolarizing; coherent: a rotation about X) on the pairs with the median and the worst
+limit until the audit flags them. Writes plan1/plan.json.
+
+Exit codes: 0 success, 1 the analysis failed, 2 bad input or usage, 130 interrupted.";
+
+/// Plan shot counts from simulated audits of a crosstalk-free version of a noise scenario.
+#[derive(clap::Args, Debug)]
+#[command(after_help = EXAMPLE)]
+pub struct PlanArgs {
+    /// Layout file (TOML).
+    #[arg(long, value_name = "FILE")]
+    layout: PathBuf,
+    /// Noise scenario (TOML); its crosstalk terms are removed for the baseline.
+    #[arg(long, value_name = "FILE")]
+    noise: PathBuf,
+    /// Shots per circuit to evaluate, comma separated, increasing.
+    #[arg(long, value_delimiter = ',', default_value = "300,1000,3000", value_name = "LIST")]
+    shots: Vec<u64>,
+    /// Sequence depths of the design, comma separated.
+    #[arg(long, value_delimiter = ',', default_value = "1,4,16,64", value_name = "LIST")]
+    depths: Vec<usize>,
+    /// Randomized sequences per depth and pattern.
+    #[arg(long, default_value_t = 4, value_name = "N")]
+    sequences: usize,
+    /// Seed of the design, the simulated data and the audits.
+    #[arg(long, default_value_t = 0, value_name = "S")]
+    seed: u64,
+    /// Context-permutation null replicates per directed pair in every audit.
+    #[arg(long, default_value_t = 100, value_name = "N")]
+    null_replicates: usize,
+    /// Independent data sets per tested size; a size counts as flagged only when all flag it.
+    #[arg(long, default_value_t = 2, value_name = "N")]
+    trials: usize,
+    /// Bisection steps after the factor-2 ladder has bracketed the smallest flagged size.
+    #[arg(long, default_value_t = 3, value_name = "N")]
+    bisection_steps: usize,
+    /// Stochastic crosstalk per layer the recommendation is for (TVD per layer).
+    #[arg(long, default_value_t = 1e-3, value_name = "TVD")]
+    target: f64,
+    /// Output folder for plan.json (written atomically, only when the plan is complete).
+    #[arg(long, value_name = "DIR")]
+    out: PathBuf,
+    /// No progress bars.
+    #[arg(long, short)]
+    quiet: bool,
+}
+
+/// Runs `slackmap plan`.
+pub fn run(args: PlanArgs) -> anyhow::Result<()> {
+    let layout = slackmap::layout::read_layout(&args.layout)?;
+    let noise = Noise::read(&args.noise, &layout)?;
+    let design = DesignConfig::new(
+        args.depths.clone(),
+        args.sequences,
+        args.seed,
+        vec![Kind::Randomized, Kind::RepeatedX, Kind::RepeatedZ],
+    )?;
+    let cfg = PlanConfig {
+        shots: args.shots.clone(),
+        design,
+        audit: AuditConfig {
+            family: Family::Depolarizing,
+            alpha: 0.05,
+            action_threshold_tvd_per_layer: 1e-3,
+            null_replicates: args.null_replicates,
+            seed: args.seed,
+            bit_order: "as-measured".into(),
+            inputs: Vec::new(),
+        },
+        seed: args.seed,
+        trials: args.trials,
+        bisection_steps: args.bisection_steps,
+        target_tvd_per_layer: args.target,
+    };
+    cfg.validate()?;
+    let stop = Arc::new(AtomicBool::new(false));
+    {
+        let stop = stop.clone();
+        let _ = ctrlc::set_handler(move || stop.store(true, std::sync::atomic::Ordering::SeqCst));
+    }
+    let bar = Bar::new(args.quiet);
+    let progress = Cancel { inner: &bar, flag: &stop };
+    let result = plan::plan(&layout, &noise, &cfg, &progress);
+    bar.finish();
+    let report = result?;
+    slackmap::report::write_folder(&args.out, &[("plan.json".into(), plan::plan_json(&report))])?;
+    let mut out = std::io::stdout().lock();
+    out.write_all(plan::render_terminal(&report).as_bytes())?;
+    writeln!(out, "\nWrote {}", args.out.join("plan.json").display())?;
+    Ok(())
+}

@@ -1,0 +1,1037 @@
+//! Shot planning: how many shots a design needs before the audit sees a given crosstalk.
+//!
+//! For each shot count, data are simulated under the noise scenario with its crosstalk
+//! removed and audited, giving every edge's detection limit; then context errors of growing
+//! size are injected on representative directed pairs until the audit flags them (verdict
+//! watch or recalibrate), and bisected. Binomial shot noise scales as 1/sqrt(shots)
+//! (common practice), which is how the recommendation interpolates between shot counts.
+
+use std::time::Instant;
+
+use serde::{Deserialize, Serialize};
+
+use crate::audit::{self, AuditConfig, Progress};
+use crate::design::{self, Design, DesignConfig};
+use crate::error::{Error, Result};
+use crate::layout::{Layout, QubitIx};
+use crate::report::{AuditReport, Verdict};
+use crate::simulate::{self, ContextTerm, ErrorSpec, Noise, Role, Rotation, SimConfig};
+
+/// Version of the `plan.json` format written by this build.
+pub const SCHEMA: u32 = 1;
+
+/// Largest depolarizing rate the search injects (beyond it the "error" is a coin flip).
+const MAX_STOCHASTIC: f64 = 0.5;
+/// Largest rotation angle the search injects, radians.
+const MAX_ANGLE_RAD: f64 = std::f64::consts::PI;
+/// Smallest size the search goes down to; a pair flagged there is reported at this size.
+const MIN_SIZE: f64 = 1e-6;
+/// Ladder steps before a search gives up (factor 2 each: 2^16 covers 1e-6 to 0.07).
+const MAX_LADDER_STEPS: usize = 16;
+
+/// The two kinds of injected context error.
+#[derive(Clone, Copy, Debug, PartialEq, Eq, Serialize, Deserialize, PartialOrd, Ord)]
+#[serde(rename_all = "kebab-case")]
+pub enum ErrorKind {
+    /// Extra depolarizing on the victim's operations (idle included) while the aggressor
+    /// is active; the size is the total Pauli rate per layer (its infidelity and its half
+    /// diamond distance).
+    Stochastic,
+    /// A rotation about X of the victim while the aggressor is active; the size is the
+    /// angle in radians per layer.
+    Coherent,
+}
+
+impl ErrorKind {
+    /// The kind's word in tables and files.
+    pub fn word(self) -> &'static str {
+        match self {
+            ErrorKind::Stochastic => "stochastic",
+            ErrorKind::Coherent => "coherent",
+        }
+    }
+
+    fn max_size(self) -> f64 {
+        match self {
+            ErrorKind::Stochastic => MAX_STOCHASTIC,
+            ErrorKind::Coherent => MAX_ANGLE_RAD,
+        }
+    }
+}
+
+/// Settings of a plan, checked by [`PlanConfig::validate`].
+#[derive(Clone, Debug)]
+pub struct PlanConfig {
+    /// Shots per circuit to evaluate, each at least 1, increasing, no duplicates.
+    pub shots: Vec<u64>,
+    /// The design every shot count is evaluated on.
+    pub design: DesignConfig,
+    /// Audit settings; its seed is replaced per data set by one derived from `seed`.
+    pub audit: AuditConfig,
+    /// Master seed: data set (shot index i, trial t) draws from a seed derived from
+    /// (seed, i, t) alone.
+    pub seed: u64,
+    /// Independent data sets per tested size; a size counts as flagged only when every one
+    /// of them flags it (at least 1).
+    pub trials: usize,
+    /// Bisection steps (in log size) after the geometric ladder has bracketed the minimum.
+    pub bisection_steps: usize,
+    /// The context error per layer the recommendation asks to see, TVD per layer (> 0).
+    pub target_tvd_per_layer: f64,
+}
+
+impl PlanConfig {
+    /// Checks ranges; errors name the setting and what would be valid.
+    pub fn validate(&self) -> Result<()> {
+        self.audit.validate()?;
+        if self.shots.is_empty() || self.shots.contains(&0) {
+            return Err(Error::Usage(format!(
+                "--shots {:?}: give at least one shot count, each at least 1 (e.g. 300,1000,3000)",
+                self.shots
+            )));
+        }
+        if self.shots.windows(2).any(|w| w[0] >= w[1]) {
+            return Err(Error::Usage(format!(
+                "--shots {:?}: give the shot counts in increasing order, each once",
+                self.shots
+            )));
+        }
+        if self.trials == 0 {
+            return Err(Error::Usage("--trials must be at least 1".into()));
+        }
+        if self.audit.null_replicates == 0 {
+            return Err(Error::Usage(
+                "--null-replicates must be at least 1: without the null nothing is flagged".into(),
+            ));
+        }
+        if !(self.target_tvd_per_layer > 0.0 && self.target_tvd_per_layer < 1.0) {
+            return Err(Error::Usage(format!(
+                "--target {} must lie in (0, 1) (TVD per layer)",
+                self.target_tvd_per_layer
+            )));
+        }
+        Ok(())
+    }
+}
+
+/// A complete plan: what `plan.json` holds.
+#[derive(Clone, Debug, Serialize, Deserialize, PartialEq)]
+pub struct PlanReport {
+    /// Format version, [`SCHEMA`].
+    pub schema: u32,
+    /// The slackmap version that wrote the file.
+    pub tool_version: String,
+    /// The layout's name.
+    pub layout: String,
+    /// Circuits in the design (the same for every shot count).
+    pub circuits: usize,
+    /// The settings of the run.
+    pub parameters: PlanParameters,
+    /// What was removed from the noise scenario to make the crosstalk-free baseline.
+    pub removed_terms: RemovedTerms,
+    /// One entry per shot count, in increasing order.
+    pub shot_counts: Vec<ShotPlan>,
+    /// The recommendation for seeing `parameters.target_tvd_per_layer` of stochastic
+    /// crosstalk.
+    pub recommendation: Recommendation,
+}
+
+/// The settings of a plan.
+#[derive(Clone, Debug, Serialize, Deserialize, PartialEq)]
+pub struct PlanParameters {
+    /// Sequence depths of the design.
+    pub depths: Vec<usize>,
+    /// Randomized sequences per depth and pattern.
+    pub sequences: usize,
+    /// Sequence kinds of the design.
+    pub kinds: Vec<String>,
+    /// Seed of the design's random choices.
+    pub design_seed: u64,
+    /// Master seed of the data sets and audits.
+    pub seed: u64,
+    /// Error family of the audit's crosstalk-free model.
+    pub model: String,
+    /// Family-wise error level of the audit.
+    pub alpha: f64,
+    /// The audit's action threshold, TVD per layer.
+    pub action_threshold_tvd_per_layer: f64,
+    /// Context-permutation null replicates per directed pair.
+    pub null_replicates: usize,
+    /// Data sets per tested size (a size is flagged only when all of them flag it).
+    pub trials: usize,
+    /// Bisection steps after the ladder.
+    pub bisection_steps: usize,
+    /// The stochastic crosstalk per layer the recommendation is for, TVD per layer.
+    pub target_tvd_per_layer: f64,
+}
+
+/// Counts of the crosstalk terms taken out of the noise scenario for the baseline.
+#[derive(Clone, Debug, Serialize, Deserialize, PartialEq)]
+pub struct RemovedTerms {
+    /// Directed context terms, from `context` entries.
+    pub context: usize,
+    /// Directed context terms from `zz` entries (two per entry).
+    pub zz: usize,
+    /// Readout crosstalk terms.
+    pub readout_crosstalk: usize,
+}
+
+/// Results at one shot count.
+#[derive(Clone, Debug, Serialize, Deserialize, PartialEq)]
+pub struct ShotPlan {
+    /// Shots per circuit.
+    pub shots: u64,
+    /// Median over edges of the baseline audit's detection limit, TVD per layer.
+    pub edge_limit_median_tvd_per_layer: f64,
+    /// Largest edge detection limit, TVD per layer.
+    pub edge_limit_worst_tvd_per_layer: f64,
+    /// The edge with the largest limit, as `a-b`.
+    pub worst_edge: String,
+    /// Edges whose limit is exactly zero: their null never needed context slack, so a
+    /// single row needing slack there would pass the null (the injected search below is the
+    /// sensitivity that counts).
+    pub edges_with_zero_limit: usize,
+    /// Median over directed pairs of the baseline detection limit, TVD per layer.
+    pub directed_limit_median_tvd_per_layer: f64,
+    /// Largest directed detection limit, TVD per layer.
+    pub directed_limit_worst_tvd_per_layer: f64,
+    /// Every edge's baseline detection limit.
+    pub edges: Vec<EdgeLimit>,
+    /// Every directed pair's baseline detection limit.
+    pub directed: Vec<DirectedLimit>,
+    /// Edges the baseline audit flagged although no crosstalk was simulated (false alarms),
+    /// as `a-b`.
+    pub baseline_flagged: Vec<String>,
+    /// The searches for the smallest flagged context error, by pair and kind.
+    pub searches: Vec<SearchResult>,
+    /// Audits run at this shot count (baseline included).
+    pub audits: usize,
+    /// Wall-clock seconds spent at this shot count (informative only; not reproducible).
+    pub elapsed_seconds: f64,
+}
+
+/// One edge's baseline detection limit.
+#[derive(Clone, Debug, Serialize, Deserialize, PartialEq)]
+pub struct EdgeLimit {
+    /// First qubit id.
+    pub a: String,
+    /// Second qubit id.
+    pub b: String,
+    /// Detection limit of the edge (of its higher-scoring direction), TVD per layer.
+    pub detection_limit_tvd_per_layer: f64,
+}
+
+/// One directed pair's baseline detection limit.
+#[derive(Clone, Debug, Serialize, Deserialize, PartialEq)]
+pub struct DirectedLimit {
+    /// Victim qubit id.
+    pub victim: String,
+    /// Aggressor qubit id.
+    pub aggressor: String,
+    /// Permutation-null detection limit, TVD per layer.
+    pub detection_limit_tvd_per_layer: f64,
+}
+
+/// The search for the smallest flagged error of one kind on one directed pair.
+#[derive(Clone, Debug, Serialize, Deserialize, PartialEq)]
+pub struct SearchResult {
+    /// Why this pair was chosen: `median` or `worst` baseline directed detection limit
+    /// (`median+worst` when it is both).
+    pub role: String,
+    /// Victim qubit id.
+    pub victim: String,
+    /// Aggressor qubit id.
+    pub aggressor: String,
+    /// The pair's baseline directed detection limit, TVD per layer.
+    pub pair_detection_limit_tvd_per_layer: f64,
+    /// The injected error kind.
+    pub kind: ErrorKind,
+    /// Smallest tested size flagged in every trial (depolarizing rate per layer for
+    /// stochastic, angle in radians for coherent); null when even the largest size was not.
+    pub smallest_flagged: Option<f64>,
+    /// Largest tested size below it that was not flagged; null when the smallest size
+    /// tried was already flagged.
+    pub largest_unflagged: Option<f64>,
+    /// Entanglement infidelity per layer of `smallest_flagged` (p for stochastic,
+    /// sin^2(theta/2) for coherent).
+    pub infidelity: Option<f64>,
+    /// Half diamond distance per layer of `smallest_flagged` (p for stochastic,
+    /// sin(theta/2) for coherent).
+    pub half_diamond: Option<f64>,
+    /// Every size tested, in order.
+    pub steps: Vec<SearchStep>,
+}
+
+/// One tested size.
+#[derive(Clone, Debug, Serialize, Deserialize, PartialEq)]
+pub struct SearchStep {
+    /// The injected size (rate or radians).
+    pub size: f64,
+    /// Trials run at this size (stops at the first one that does not flag).
+    pub trials_run: usize,
+    /// True when every trial flagged the edge.
+    pub flagged: bool,
+}
+
+/// The recommendation in words and numbers.
+#[derive(Clone, Debug, Serialize, Deserialize, PartialEq)]
+pub struct Recommendation {
+    /// The recommendation as a sentence.
+    pub text: String,
+    /// Shots per circuit that suffice for the target; null when no figure can be given.
+    pub shots_needed: Option<u64>,
+    /// How `shots_needed` was obtained: `tested` (a tested count suffices and the next
+    /// lower one does not, or it is the lowest), `interpolated` (in 1/sqrt(shots) between
+    /// two tested counts), `extrapolated` (beyond the largest tested count, assuming
+    /// 1/sqrt(shots) scaling, only when the tested counts follow it roughly),
+    /// `not-shot-limited` (the worst pair's minimum does not fall with shots, so no shot
+    /// count reaches the target) or `none`.
+    pub basis: String,
+}
+
+/// Directed pairs that are searched at one shot count, with their roles.
+#[derive(Clone, Debug, PartialEq)]
+struct Representative {
+    role: String,
+    victim: QubitIx,
+    aggressor: QubitIx,
+    limit: f64,
+}
+
+/// The state of one search.
+struct Search {
+    pair: usize,
+    kind: ErrorKind,
+    next: f64,
+    lo: Option<f64>,
+    hi: Option<f64>,
+    bisected: usize,
+    ladder: usize,
+    steps: Vec<SearchStep>,
+    done: bool,
+}
+
+impl Search {
+    fn record(&mut self, size: f64, trials_run: usize, flagged: bool, bisection_steps: usize) {
+        self.steps.push(SearchStep { size, trials_run, flagged });
+        if flagged {
+            self.hi = Some(size);
+        } else {
+            self.lo = Some(size);
+        }
+        match (self.lo, self.hi) {
+            (Some(lo), Some(hi)) => {
+                if lo >= hi || self.bisected >= bisection_steps {
+                    self.done = true;
+                } else {
+                    self.bisected += 1;
+                    self.next = (lo * hi).sqrt();
+                }
+            }
+            (None, Some(hi)) => {
+                self.ladder += 1;
+                self.next = hi / 2.0;
+                if hi <= MIN_SIZE || self.ladder > MAX_LADDER_STEPS {
+                    self.done = true;
+                }
+            }
+            (Some(lo), None) => {
+                self.ladder += 1;
+                self.next = (lo * 2.0).min(self.kind.max_size());
+                if lo >= self.kind.max_size() || self.ladder > MAX_LADDER_STEPS {
+                    self.done = true;
+                }
+            }
+            (None, None) => unreachable!("a size was just recorded"),
+        }
+        if self.done {
+            return;
+        }
+        // Bisection may stop early once the bracket is finer than the precision worth having.
+        if let (Some(lo), Some(hi)) = (self.lo, self.hi) {
+            if hi / lo < 1.02 {
+                self.done = true;
+            }
+        }
+    }
+}
+
+/// A seed derived from (seed, a, b) alone (SplitMix64 finaliser; Steele, Lea, Flood,
+/// OOPSLA 2014).
+pub fn derive_seed(seed: u64, a: u64, b: u64) -> u64 {
+    let mut z = seed
+        ^ a.wrapping_mul(0x9E37_79B9_7F4A_7C15)
+        ^ b.wrapping_add(1).wrapping_mul(0xD1B5_4A32_D192_ED03);
+    z = (z ^ (z >> 30)).wrapping_mul(0xBF58_476D_1CE4_E5B9);
+    z = (z ^ (z >> 27)).wrapping_mul(0x94D0_49BB_1331_11EB);
+    z ^ (z >> 31)
+}
+
+/// The context term that injects `size` of `kind` on `victim` while `aggressor` is active,
+/// in every victim role.
+pub fn injected_term(
+    victim: QubitIx,
+    aggressor: QubitIx,
+    kind: ErrorKind,
+    size: f64,
+) -> ContextTerm {
+    let mut error = ErrorSpec::none(1);
+    match kind {
+        ErrorKind::Stochastic => {
+            let p = size.clamp(0.0, 1.0);
+            error.pauli = vec![1.0 - p, p / 3.0, p / 3.0, p / 3.0];
+        }
+        ErrorKind::Coherent => {
+            error.rotation = Some(Rotation { angle_rad: size, pauli: vec![1] });
+        }
+    }
+    ContextTerm { victim, aggressor, role: Role::Both, error, line: 0, source: "context" }
+}
+
+/// Infidelity and half diamond distance per layer of an injected error (Watrous, The
+/// Theory of Quantum Information (2018): a Pauli channel of total rate p has both equal to
+/// p; a rotation by theta has sin^2(theta/2) and sin(theta/2)).
+pub fn measures(kind: ErrorKind, size: f64) -> (f64, f64) {
+    match kind {
+        ErrorKind::Stochastic => (size, size),
+        ErrorKind::Coherent => {
+            let s = (size / 2.0).sin().abs();
+            (s * s, s)
+        }
+    }
+}
+
+/// Simulates `shots` shots of every circuit of the design under `noise` and audits them,
+/// with data and audit seeds derived from `seed`.
+pub fn trial(
+    layout: &Layout,
+    design: &Design,
+    noise: &Noise,
+    shots: u64,
+    audit_cfg: &AuditConfig,
+    seed: u64,
+    progress: &dyn Progress,
+) -> Result<AuditReport> {
+    let sim = SimConfig { shots, seed: derive_seed(seed, 0, 0) };
+    progress.stage("simulating", design.circuits.len() as u64);
+    let counts = simulate::simulate_with_progress(layout, &design.circuits, noise, &sim, &|| {
+        progress.advance(1)
+    })?;
+    if progress.cancelled() {
+        return Err(Error::Interrupted);
+    }
+    let cfg = AuditConfig { seed: derive_seed(seed, 0, 1), ..audit_cfg.clone() };
+    audit::run(layout, &design.circuits, &counts, &cfg, progress)
+}
+
+/// True when the audit flags the edge {a, b} (verdict watch or recalibrate).
+pub fn is_flagged(report: &AuditReport, a: &str, b: &str) -> bool {
+    report
+        .edges
+        .iter()
+        .any(|e| ((e.a == a && e.b == b) || (e.a == b && e.b == a)) && e.verdict <= Verdict::Watch)
+}
+
+/// Prefixes every stage name, so that a progress line says which audit of the plan runs.
+struct Prefixed<'a> {
+    inner: &'a dyn Progress,
+    prefix: String,
+}
+
+impl Progress for Prefixed<'_> {
+    fn stage(&self, name: &str, total: u64) {
+        self.inner.stage(&format!("{}: {name}", self.prefix), total)
+    }
+    fn advance(&self, n: u64) {
+        self.inner.advance(n)
+    }
+    fn cancelled(&self) -> bool {
+        self.inner.cancelled()
+    }
+}
+
+fn median(mut v: Vec<f64>) -> f64 {
+    if v.is_empty() {
+        return 0.0;
+    }
+    v.sort_by(f64::total_cmp);
+    let n = v.len();
+    if n % 2 == 1 {
+        v[n / 2]
+    } else {
+        (v[n / 2 - 1] + v[n / 2]) / 2.0
+    }
+}
+
+/// The median and the worst directed pair by baseline limit, among pairs the design tests
+/// and whose edge the baseline did not flag. Ties are broken by layout order (victim,
+/// then aggressor), so with many zero limits the "median" pair is the middle one of them.
+fn representatives(layout: &Layout, rep: &AuditReport) -> Vec<Representative> {
+    let mut pairs: Vec<(f64, QubitIx, QubitIx)> = rep
+        .directed
+        .iter()
+        .filter(|d| !is_flagged(rep, &d.victim, &d.aggressor))
+        .filter_map(|d| {
+            Some((
+                d.detection_limit_tvd_per_layer,
+                layout.qubit(&d.victim)?,
+                layout.qubit(&d.aggressor)?,
+            ))
+        })
+        .collect();
+    pairs.sort_by(|x, y| x.0.total_cmp(&y.0).then(x.1.cmp(&y.1)).then(x.2.cmp(&y.2)));
+    let Some(&worst) = pairs.last() else { return Vec::new() };
+    let mid = pairs[(pairs.len() - 1) / 2];
+    let rep = |role: &str, p: (f64, QubitIx, QubitIx)| Representative {
+        role: role.into(),
+        victim: p.1,
+        aggressor: p.2,
+        limit: p.0,
+    };
+    if (mid.1, mid.2) == (worst.1, worst.2) {
+        vec![rep("median+worst", worst)]
+    } else {
+        vec![rep("median", mid), rep("worst", worst)]
+    }
+}
+
+/// True when two injections can share a data set: different victims (a context term only
+/// changes its victim's outcomes, and a directed score uses only its victim's rows) and
+/// different edges (an edge's verdict combines both directions).
+fn compatible(a: &Representative, b: &Representative) -> bool {
+    let edge = |r: &Representative| (r.victim.min(r.aggressor), r.victim.max(r.aggressor));
+    a.victim != b.victim && edge(a) != edge(b)
+}
+
+/// Runs the whole plan.
+pub fn plan(
+    layout: &Layout,
+    noise: &Noise,
+    cfg: &PlanConfig,
+    progress: &dyn Progress,
+) -> Result<PlanReport> {
+    cfg.validate()?;
+    let design = design::design(layout, &cfg.design)?;
+    let base = noise.without_crosstalk();
+    let zz = noise.context().iter().filter(|t| t.source == "zz").count();
+    let removed = RemovedTerms {
+        context: noise.context().len() - zz,
+        zz,
+        readout_crosstalk: noise.readout_crosstalk().len(),
+    };
+    let mut shot_counts = Vec::with_capacity(cfg.shots.len());
+    for (i, &shots) in cfg.shots.iter().enumerate() {
+        shot_counts.push(plan_shots(layout, &design, &base, cfg, i, shots, progress)?);
+    }
+    let recommendation = recommend(&shot_counts, cfg.target_tvd_per_layer);
+    let a = &cfg.audit;
+    Ok(PlanReport {
+        schema: SCHEMA,
+        tool_version: env!("CARGO_PKG_VERSION").to_string(),
+        layout: layout.name.clone(),
+        circuits: design.circuits.len(),
+        parameters: PlanParameters {
+            depths: cfg.design.depths.clone(),
+            sequences: cfg.design.sequences,
+            kinds: cfg.design.kinds.iter().map(|k| k.name().to_string()).collect(),
+            design_seed: cfg.design.seed,
+            seed: cfg.seed,
+            model: a.family.name().to_string(),
+            alpha: a.alpha,
+            action_threshold_tvd_per_layer: a.action_threshold_tvd_per_layer,
+            null_replicates: a.null_replicates,
+            trials: cfg.trials,
+            bisection_steps: cfg.bisection_steps,
+            target_tvd_per_layer: cfg.target_tvd_per_layer,
+        },
+        removed_terms: removed,
+        shot_counts,
+        recommendation,
+    })
+}
+
+fn plan_shots(
+    layout: &Layout,
+    design: &Design,
+    base: &Noise,
+    cfg: &PlanConfig,
+    index: usize,
+    shots: u64,
+    progress: &dyn Progress,
+) -> Result<ShotPlan> {
+    let start = Instant::now();
+    let data_seed = |t: usize| derive_seed(cfg.seed, index as u64, t as u64);
+    let mut audits = 0usize;
+    let mut run = |noise: &Noise, t: usize| -> Result<AuditReport> {
+        audits += 1;
+        let p = Prefixed { inner: progress, prefix: format!("{shots} shots #{audits}") };
+        trial(layout, design, noise, shots, &cfg.audit, data_seed(t), &p)
+    };
+    let baseline = run(base, 0)?;
+    let edges: Vec<EdgeLimit> = baseline
+        .edges
+        .iter()
+        .map(|e| EdgeLimit {
+            a: e.a.clone(),
+            b: e.b.clone(),
+            detection_limit_tvd_per_layer: e.detection_limit_tvd_per_layer,
+        })
+        .collect();
+    let directed: Vec<DirectedLimit> = baseline
+        .directed
+        .iter()
+        .map(|d| DirectedLimit {
+            victim: d.victim.clone(),
+            aggressor: d.aggressor.clone(),
+            detection_limit_tvd_per_layer: d.detection_limit_tvd_per_layer,
+        })
+        .collect();
+    let worst = edges
+        .iter()
+        .max_by(|x, y| x.detection_limit_tvd_per_layer.total_cmp(&y.detection_limit_tvd_per_layer));
+    let reps = representatives(layout, &baseline);
+    let mut searches: Vec<Search> = Vec::new();
+    for kind in [ErrorKind::Stochastic, ErrorKind::Coherent] {
+        for (pair, r) in reps.iter().enumerate() {
+            // Start where the pair's own limit says the score would just pass, or at the
+            // target when the limit is zero; the ladder corrects either way.
+            let start = match kind {
+                ErrorKind::Stochastic => r.limit.max(cfg.target_tvd_per_layer),
+                ErrorKind::Coherent => 2.0 * r.limit.max(cfg.target_tvd_per_layer).asin(),
+            };
+            searches.push(Search {
+                pair,
+                kind,
+                next: start,
+                lo: None,
+                hi: None,
+                bisected: 0,
+                ladder: 0,
+                steps: Vec::new(),
+                done: false,
+            });
+        }
+    }
+    while searches.iter().any(|s| !s.done) {
+        // Greedy groups of searches whose injections can share data sets.
+        let mut groups: Vec<Vec<usize>> = Vec::new();
+        for (k, s) in searches.iter().enumerate().filter(|(_, s)| !s.done) {
+            let fits = |g: &Vec<usize>| {
+                g.iter().all(|&j| compatible(&reps[searches[j].pair], &reps[s.pair]))
+            };
+            match groups.iter_mut().find(|g| fits(g)) {
+                Some(g) => g.push(k),
+                None => groups.push(vec![k]),
+            }
+        }
+        for g in groups {
+            let mut alive: Vec<usize> = g.clone();
+            let mut runs = vec![0usize; searches.len()];
+            for t in 0..cfg.trials {
+                if alive.is_empty() {
+                    break;
+                }
+                let mut noise = base.clone();
+                for &k in &alive {
+                    let s = &searches[k];
+                    let r = &reps[s.pair];
+                    noise = noise.with_context_term(injected_term(
+                        r.victim,
+                        r.aggressor,
+                        s.kind,
+                        s.next,
+                    ))?;
+                }
+                let rep = run(&noise, t)?;
+                for &k in &alive {
+                    runs[k] += 1;
+                }
+                alive.retain(|&k| {
+                    let r = &reps[searches[k].pair];
+                    is_flagged(&rep, layout.id(r.victim), layout.id(r.aggressor))
+                });
+            }
+            for &k in &g {
+                let size = searches[k].next;
+                let flagged = alive.contains(&k);
+                searches[k].record(size, runs[k], flagged, cfg.bisection_steps);
+            }
+        }
+    }
+    let results = searches
+        .into_iter()
+        .map(|s| {
+            let r = &reps[s.pair];
+            let m = s.hi.map(|h| measures(s.kind, h));
+            SearchResult {
+                role: r.role.clone(),
+                victim: layout.id(r.victim).to_string(),
+                aggressor: layout.id(r.aggressor).to_string(),
+                pair_detection_limit_tvd_per_layer: r.limit,
+                kind: s.kind,
+                smallest_flagged: s.hi,
+                largest_unflagged: match (s.lo, s.hi) {
+                    (Some(lo), Some(hi)) if lo < hi => Some(lo),
+                    (lo, None) => lo,
+                    _ => None,
+                },
+                infidelity: m.map(|m| m.0),
+                half_diamond: m.map(|m| m.1),
+                steps: s.steps,
+            }
+        })
+        .collect();
+    Ok(ShotPlan {
+        shots,
+        edge_limit_median_tvd_per_layer: median(
+            edges.iter().map(|e| e.detection_limit_tvd_per_layer).collect(),
+        ),
+        edge_limit_worst_tvd_per_layer: worst.map_or(0.0, |e| e.detection_limit_tvd_per_layer),
+        worst_edge: worst.map_or(String::new(), |e| format!("{}-{}", e.a, e.b)),
+        edges_with_zero_limit: edges
+            .iter()
+            .filter(|e| e.detection_limit_tvd_per_layer == 0.0)
+            .count(),
+        directed_limit_median_tvd_per_layer: median(
+            directed.iter().map(|d| d.detection_limit_tvd_per_layer).collect(),
+        ),
+        directed_limit_worst_tvd_per_layer: directed
+            .iter()
+            .map(|d| d.detection_limit_tvd_per_layer)
+            .fold(0.0, f64::max),
+        baseline_flagged: baseline
+            .edges
+            .iter()
+            .filter(|e| e.verdict <= Verdict::Watch)
+            .map(|e| format!("{}-{}", e.a, e.b))
+            .collect(),
+        edges,
+        directed,
+        searches: results,
+        audits,
+        elapsed_seconds: start.elapsed().as_secs_f64(),
+    })
+}
+
+/// The stochastic error the worst searched pair needs before it is flagged, per shot count
+/// (infinite when it never was).
+fn worst_stochastic(s: &ShotPlan) -> f64 {
+    s.searches
+        .iter()
+        .filter(|r| r.kind == ErrorKind::Stochastic)
+        .map(|r| r.smallest_flagged.unwrap_or(f64::INFINITY))
+        .fold(0.0, f64::max)
+}
+
+/// Rounds a shot count up to two significant digits.
+fn round_up(n: f64) -> u64 {
+    if !n.is_finite() || n <= 1.0 {
+        return 1;
+    }
+    let scale = 10f64.powi((n.log10().floor() as i32 - 1).max(0));
+    // A hair below the next step, so that rounding noise does not cost a whole step.
+    ((n / scale - 1e-9).ceil() * scale) as u64
+}
+
+/// The smallest shot count at which the worst searched pair's smallest flagged stochastic
+/// error is at most `target`: a tested count, an interpolation linear in 1/sqrt(shots)
+/// between the last failing and the first passing count, or an extrapolation from the
+/// largest count assuming the minimum scales as 1/sqrt(shots) (binomial error: common
+/// practice).
+fn recommend(plans: &[ShotPlan], target: f64) -> Recommendation {
+    let depths = "these depths";
+    let pm = |x: f64| format!("{:.2} x1e-3", x * 1e3);
+    let pts: Vec<(u64, f64)> = plans.iter().map(|s| (s.shots, worst_stochastic(s))).collect();
+    if pts.is_empty() || pts.iter().all(|p| p.1 == 0.0) {
+        return Recommendation {
+            text: "no directed pair could be searched, so no recommendation can be given".into(),
+            shots_needed: None,
+            basis: "none".into(),
+        };
+    }
+    let sentence = |n: u64, how: &str| {
+        format!(
+            "to see {} per layer of stochastic crosstalk on every edge, take at least {n} shots \
+             per circuit at {depths}{how}",
+            pm(target)
+        )
+    };
+    match pts.iter().position(|p| p.1 <= target) {
+        Some(0) => Recommendation {
+            text: sentence(pts[0].0, " (the smallest tested count already suffices; fewer may do)"),
+            shots_needed: Some(pts[0].0),
+            basis: "tested".into(),
+        },
+        Some(i) => {
+            let (n1, s1) = pts[i - 1];
+            let (n2, s2) = pts[i];
+            let (x1, x2) = (1.0 / (n1 as f64).sqrt(), 1.0 / (n2 as f64).sqrt());
+            if s1.is_finite() && s1 > s2 {
+                let x = x1 + (target - s1) * (x2 - x1) / (s2 - s1);
+                let n = round_up(1.0 / (x * x)).clamp(n1 + 1, n2);
+                Recommendation {
+                    text: sentence(
+                        n,
+                        &format!(" (interpolated in 1/sqrt(shots) between {n1} and {n2})"),
+                    ),
+                    shots_needed: Some(n),
+                    basis: "interpolated".into(),
+                }
+            } else {
+                Recommendation {
+                    text: sentence(n2, &format!(" ({n1} shots did not suffice)")),
+                    shots_needed: Some(n2),
+                    basis: "tested".into(),
+                }
+            }
+        }
+        None => {
+            let (n, s) = *pts.last().unwrap_or(&(0, f64::INFINITY));
+            let (n0, s0) = pts[0];
+            // Log-log slope of the minimum against shots: -1/2 when shot noise limits it.
+            let slope = (s / s0).ln() / (n as f64 / n0 as f64).ln();
+            let shot_limited = pts.len() < 2 || slope < -0.25;
+            if s.is_finite() && s > 0.0 && !shot_limited {
+                Recommendation {
+                    text: format!(
+                        "no tested shot count suffices to see {} per layer of stochastic \
+                         crosstalk on every edge, and more shots alone will not: the worst \
+                         pair's smallest flagged error barely falls with shots ({} at {n0}, {} \
+                         at {n}; log-log slope {slope:.2}, shot noise alone gives -0.5), so it \
+                         is limited by error that is not shot noise (drift, or intrinsic error \
+                         the crosstalk-free model does not capture, on its victim); fix that \
+                         first",
+                        pm(target),
+                        pm(s0),
+                        pm(s)
+                    ),
+                    shots_needed: None,
+                    basis: "not-shot-limited".into(),
+                }
+            } else if s.is_finite() && s > 0.0 {
+                let need = round_up(n as f64 * (s / target).powi(2));
+                Recommendation {
+                    text: format!(
+                        "no tested shot count suffices to see {} per layer of stochastic \
+                         crosstalk on every edge (at {n} shots the worst pair needs {}); \
+                         assuming 1/sqrt(shots) scaling, about {need} shots per circuit at \
+                         {depths} would",
+                        pm(target),
+                        pm(s)
+                    ),
+                    shots_needed: Some(need),
+                    basis: "extrapolated".into(),
+                }
+            } else {
+                Recommendation {
+                    text: format!(
+                        "no tested shot count suffices to see {} per layer of stochastic \
+                         crosstalk on every edge, and the worst pair was never flagged, so no \
+                         shot count can be extrapolated; change the design",
+                        pm(target)
+                    ),
+                    shots_needed: None,
+                    basis: "none".into(),
+                }
+            }
+        }
+    }
+}
+
+/// `plan.json`: the plan, pretty-printed, every number at full precision.
+pub fn plan_json(report: &PlanReport) -> Vec<u8> {
+    let mut v = serde_json::to_vec_pretty(report).expect("plan types always serialise");
+    v.push(b'\n');
+    v
+}
+
+/// The plan as terminal text: limits and smallest flagged errors per shot count, then the
+/// recommendation.
+pub fn render_terminal(r: &PlanReport) -> String {
+    use comfy_table::{presets, ContentArrangement, Table};
+    let pm = |x: f64| crate::report::terminal::per_mille(x);
+    let opt = |x: Option<f64>, f: &dyn Fn(f64) -> String| x.map_or("not flagged".into(), f);
+    let mut out = format!(
+        "slackmap plan for layout {} ({} circuits per shot count; depths {:?}, {} sequences; \
+         {} null replicates, {} trial(s) per size)\n\
+         Baseline: the noise scenario without its crosstalk ({} context, {} zz, {} readout \
+         crosstalk terms removed).\n\n",
+        r.layout,
+        r.circuits,
+        r.parameters.depths,
+        r.parameters.sequences,
+        r.parameters.null_replicates,
+        r.parameters.trials,
+        r.removed_terms.context,
+        r.removed_terms.zz,
+        r.removed_terms.readout_crosstalk
+    );
+    let mut t = Table::new();
+    t.load_style(presets::UTF8_FULL_CONDENSED).set_content_arrangement(ContentArrangement::Dynamic);
+    t.set_header(vec![
+        "shots",
+        "edge limit median x1e-3",
+        "edge limit worst x1e-3",
+        "zero-limit edges",
+        "false alarms",
+        "audits",
+        "seconds",
+    ]);
+    for s in &r.shot_counts {
+        t.add_row(vec![
+            s.shots.to_string(),
+            pm(s.edge_limit_median_tvd_per_layer),
+            format!("{} ({})", pm(s.edge_limit_worst_tvd_per_layer), s.worst_edge),
+            format!("{}/{}", s.edges_with_zero_limit, s.edges.len()),
+            s.baseline_flagged.len().to_string(),
+            s.audits.to_string(),
+            format!("{:.0}", s.elapsed_seconds),
+        ]);
+    }
+    out.push_str("Detection limits of the crosstalk-free baseline, per layer\n");
+    out.push_str(&t.to_string());
+    out.push_str(
+        "\nA zero limit means the permutation null never needed context slack on that edge: it \
+         measures no sensitivity there; the searched minima below do.",
+    );
+    out.push_str("\n\nSmallest context error the audit flags (watch or recalibrate)\n");
+    let mut t = Table::new();
+    t.load_style(presets::UTF8_FULL_CONDENSED).set_content_arrangement(ContentArrangement::Dynamic);
+    t.set_header(vec![
+        "shots",
+        "pair (victim<-aggressor)",
+        "stochastic x1e-3",
+        "coherent angle rad",
+        "infidelity",
+        "half-diamond x1e-3",
+    ]);
+    for s in &r.shot_counts {
+        let pairs: Vec<(String, String)> = {
+            let mut v: Vec<(String, String)> = Vec::new();
+            for x in &s.searches {
+                let key = (format!("{}<-{} ({})", x.victim, x.aggressor, x.role), x.victim.clone());
+                if !v.contains(&key) {
+                    v.push(key);
+                }
+            }
+            v
+        };
+        for (label, _) in pairs {
+            let find = |k: ErrorKind| {
+                s.searches.iter().find(|x| {
+                    x.kind == k && format!("{}<-{} ({})", x.victim, x.aggressor, x.role) == label
+                })
+            };
+            let st = find(ErrorKind::Stochastic);
+            let co = find(ErrorKind::Coherent);
+            t.add_row(vec![
+                s.shots.to_string(),
+                label,
+                opt(st.and_then(|x| x.smallest_flagged), &|v| pm(v)),
+                opt(co.and_then(|x| x.smallest_flagged), &|v| format!("{v:.4}")),
+                opt(co.and_then(|x| x.infidelity), &|v| format!("{v:.1e}")),
+                opt(co.and_then(|x| x.half_diamond), &|v| pm(v)),
+            ]);
+        }
+    }
+    out.push_str(&t.to_string());
+    out.push_str("\n\n");
+    out.push_str("Recommendation: ");
+    out.push_str(&r.recommendation.text);
+    out.push_str(".\n");
+    out
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn coherent_measures_match_the_unitary_formulas() {
+        // A rotation by theta: infidelity sin^2(theta/2), half diamond sin(theta/2)
+        // (Watrous 2018, unitary channels). theta = 0.08: 1.5991e-3 and 0.039989.
+        let (inf, hd) = measures(ErrorKind::Coherent, 0.08);
+        assert!((inf - 1.5991e-3).abs() < 1e-6, "{inf}");
+        assert!((hd - 0.039989).abs() < 1e-5, "{hd}");
+        let (inf, hd) = measures(ErrorKind::Stochastic, 2e-3);
+        assert!((inf - 2e-3).abs() < 1e-15 && (hd - 2e-3).abs() < 1e-15);
+    }
+
+    #[test]
+    fn search_brackets_then_bisects() {
+        let mut s = Search {
+            pair: 0,
+            kind: ErrorKind::Stochastic,
+            next: 1e-3,
+            lo: None,
+            hi: None,
+            bisected: 0,
+            ladder: 0,
+            steps: Vec::new(),
+            done: false,
+        };
+        // Flagged from 3e-3 up: the ladder goes 1e-3, 2e-3, 4e-3, then bisects 3 times.
+        while !s.done {
+            let x = s.next;
+            s.record(x, 1, x >= 3e-3, 3);
+        }
+        let hi = s.hi.unwrap();
+        let lo = s.lo.unwrap();
+        assert!(lo < 3e-3 && hi >= 3e-3, "{lo} {hi}");
+        assert!(hi / lo < 2f64.powf(1.0 / 8.0) + 1e-9, "{lo} {hi}");
+        assert_eq!(s.steps.len(), 6);
+    }
+
+    #[test]
+    fn recommendation_interpolates_in_inverse_root_shots() {
+        let plan = |shots: u64, min: f64| ShotPlan {
+            shots,
+            edge_limit_median_tvd_per_layer: 0.0,
+            edge_limit_worst_tvd_per_layer: 0.0,
+            worst_edge: String::new(),
+            edges_with_zero_limit: 0,
+            directed_limit_median_tvd_per_layer: 0.0,
+            directed_limit_worst_tvd_per_layer: 0.0,
+            edges: Vec::new(),
+            directed: Vec::new(),
+            baseline_flagged: Vec::new(),
+            searches: vec![SearchResult {
+                role: "worst".into(),
+                victim: "q0".into(),
+                aggressor: "q1".into(),
+                pair_detection_limit_tvd_per_layer: 0.0,
+                kind: ErrorKind::Stochastic,
+                smallest_flagged: Some(min),
+                largest_unflagged: None,
+                infidelity: Some(min),
+                half_diamond: Some(min),
+                steps: Vec::new(),
+            }],
+            audits: 1,
+            elapsed_seconds: 0.0,
+        };
+        // Exact 1/sqrt(N) data: min = 0.04/sqrt(N) reaches 1e-3 at N = 1600.
+        let f = |n: u64| 0.04 / (n as f64).sqrt();
+        let r = recommend(&[plan(300, f(300)), plan(3000, f(3000))], 1e-3);
+        assert_eq!(r.basis, "interpolated");
+        assert_eq!(r.shots_needed, Some(1600));
+        let r = recommend(&[plan(300, f(300)), plan(1000, f(1000))], 1e-3);
+        assert_eq!(r.basis, "extrapolated");
+        assert_eq!(r.shots_needed, Some(1600));
+        assert!(r.text.contains("no tested shot count suffices"), "{}", r.text);
+        // A minimum that does not fall with shots is not extrapolated.
+        let r = recommend(&[plan(300, 3.1e-3), plan(3000, 3.8e-3)], 1e-3);
+        assert_eq!((r.basis.as_str(), r.shots_needed), ("not-shot-limited", None));
+        let r = recommend(&[plan(3000, f(3000))], 1e-3);
+        assert_eq!((r.basis.as_str(), r.shots_needed), ("tested", Some(3000)));
+    }
+
+    #[test]
+    fn derived_seeds_differ_by_index() {
+        let s: Vec<u64> = (0..4).flat_map(|a| (0..4).map(move |b| derive_seed(7, a, b))).collect();
+        let mut d = s.clone();
+        d.sort_unstable();
+        d.dedup();
+        assert_eq!(d.len(), s.len());
+    }
+}
