@@ -12,6 +12,7 @@ mod design;
 mod hints;
 mod inputs;
 mod layout;
+mod merge;
 mod progress;
 mod report;
 mod simulate;
@@ -47,6 +48,8 @@ enum Command {
     Compare(compare::CompareArgs),
     /// Scheduling hints from an audit: conflict graph, parallel groups, layer counts.
     Hints(hints::HintsArgs),
+    /// Combine the partial results of `audit --replicate-range` shards into one audit.
+    Merge(merge::MergeArgs),
 }
 
 /// Runs the CLI and maps the outcome to an exit code.
@@ -62,6 +65,7 @@ pub fn main() -> ExitCode {
         Command::Hints(args) => hints::run(args),
         Command::Compare(args) => compare::run(args),
         Command::Report(args) => report::run(args),
+        Command::Merge(args) => merge::run(args),
     };
     match result {
         Ok(()) => ExitCode::SUCCESS,
