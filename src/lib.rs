@@ -12,6 +12,7 @@ pub mod check;
 pub mod circuit;
 pub mod clifford;
 pub mod compare;
+pub mod confidence;
 pub mod counts;
 pub mod design;
 pub mod error;

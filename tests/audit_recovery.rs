@@ -43,6 +43,7 @@ fn config(seed: u64) -> AuditConfig {
         seed,
         bit_order: "as-measured".into(),
         inputs: Vec::new(),
+        bootstrap: slackmap::confidence::BootstrapConfig::default(),
     }
 }
 

@@ -58,6 +58,7 @@ fn audit_cfg(null_replicates: usize) -> AuditConfig {
         seed: 0,
         bit_order: "as-measured".into(),
         inputs: Vec::new(),
+        bootstrap: slackmap::confidence::BootstrapConfig::default(),
     }
 }
 

@@ -124,6 +124,8 @@ fn grid_audit(rows: usize, cols: usize, flags: &[Flag]) -> AuditReport {
                 p_top_k: 0.9,
             }),
             confidence: conf.clone(),
+            parametric_limit_tvd_per_layer: None,
+            parametric_p_value: None,
             verdict,
             reason,
         });
@@ -153,6 +155,8 @@ fn grid_audit(rows: usize, cols: usize, flags: &[Flag]) -> AuditReport {
                     KindValue { kind: format!("id@{}", id(v)), value: s * 0.3 },
                 ],
                 confidence: conf.as_ref().map(|_| confidence(s, v * n + g)),
+                parametric_limit_tvd_per_layer: None,
+                parametric_p_value: None,
             });
         }
     }

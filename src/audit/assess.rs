@@ -67,10 +67,20 @@ pub(crate) struct Assessed {
 type Weights = Vec<(usize, f64)>;
 
 fn weights(a: &Analysis, p: &Problem, r: QubitIx) -> (Weights, Weights, Weights) {
+    weights_in(a, &a.rows.rows, p, r)
+}
+
+/// [`weights`] over rows that share the analysis' kinds but not its programs (a replicate).
+fn weights_in(
+    a: &Analysis,
+    all: &[crate::rows::Row],
+    p: &Problem,
+    r: QubitIx,
+) -> (Weights, Weights, Weights) {
     let mut counts: Vec<(usize, KindIx, f64)> = Vec::new();
     for (j, &i) in p.rows.iter().enumerate() {
         let _ = j;
-        for &((k, rr), c) in &a.rows.rows[i].context_counts {
+        for &((k, rr), c) in &all[i].context_counts {
             if rr != r {
                 continue;
             }
@@ -118,15 +128,32 @@ fn stratum(a: &Analysis, row: usize, q: QubitIx, r: QubitIx) -> u64 {
     h.finish()
 }
 
+/// Directed pairs in report order: victims in layout order, then their neighbours.
+pub(crate) fn pairs(a: &Analysis) -> Vec<(QubitIx, QubitIx)> {
+    (0..a.layout.n_qubits())
+        .flat_map(|q| a.layout.neighbours(q).iter().map(move |&r| (q, r)))
+        .collect()
+}
+
+/// Every directed score of a solution over `all` (a replicate's rows), in [`pairs`] order;
+/// 0 for a pair the rows never test.
+pub(crate) fn directed_scores(a: &Analysis, all: &[crate::rows::Row], s: &Solved) -> Vec<f64> {
+    pairs(a)
+        .into_iter()
+        .map(|(q, r)| {
+            let (p, sol) = &s.qubit[q];
+            score(sol, &weights_in(a, all, p, r).0)
+        })
+        .collect()
+}
+
 pub(crate) fn assess(
     a: &Analysis,
     s: &Solved,
     cfg: &AuditConfig,
     progress: &dyn Progress,
 ) -> Result<Assessed> {
-    let pairs: Vec<(QubitIx, QubitIx)> = (0..a.layout.n_qubits())
-        .flat_map(|q| a.layout.neighbours(q).iter().map(move |&r| (q, r)))
-        .collect();
+    let pairs = pairs(a);
     progress.stage("testing directed pairs", pairs.len() as u64);
     // Attribution ranges: one batch per victim.
     let ranges: Vec<HashMap<QubitIx, (f64, f64)>> = (0..a.layout.n_qubits())

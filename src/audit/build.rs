@@ -87,15 +87,35 @@ fn direction_verdict(d: &Directed, cfg: &AuditConfig) -> (Verdict, String) {
             ),
         );
     }
+    // Without replicates the lower value is the attribution minimum or leave-one-out;
+    // with them, crate::confidence::finish replaces it by the interval's lower end.
     let lower = d.attribution.0.min(d.loo);
-    if lower > cfg.action_threshold_tvd_per_layer {
+    detected_verdict(d.p_value, lower, cfg.action_threshold_tvd_per_layer)
+}
+
+/// The detection rule of method.md section 6 on a reported direction (null replicates run):
+/// every minimal budget needs it, rows where it is the only active neighbour need it, it is
+/// above the permutation-null limit, and it stays there without its most influential
+/// circuit. [`direction_verdict`] applies the same rule, in steps that give reasons.
+pub(crate) fn is_detected(d: &DirectedReport) -> bool {
+    d.score_tvd_per_layer > 0.0
+        && d.attribution_min_tvd_per_layer > ZERO_SCORE
+        && d.isolated_tvd_per_layer > ZERO_SCORE
+        && d.score_tvd_per_layer > d.detection_limit_tvd_per_layer
+        && d.leave_one_out_tvd_per_layer > d.detection_limit_tvd_per_layer
+}
+
+/// The verdict of a detected direction whose lower bound is `lower` (TVD per layer).
+pub(crate) fn detected_verdict(p_value: f64, lower: f64, threshold: f64) -> (Verdict, String) {
+    let pm = |x: f64| crate::report::terminal::per_mille(x);
+    if lower > threshold {
         (
             Verdict::Recalibrate,
             format!(
                 "detected (p = {:.3}); even its lower bound {} exceeds the action threshold {}",
-                d.p_value,
+                p_value,
                 pm(lower),
-                pm(cfg.action_threshold_tvd_per_layer)
+                pm(threshold)
             ),
         )
     } else {
@@ -103,15 +123,45 @@ fn direction_verdict(d: &Directed, cfg: &AuditConfig) -> (Verdict, String) {
             Verdict::Watch,
             format!(
                 "detected (p = {:.3}) but its lower bound {} is not above the action threshold {}",
-                d.p_value,
+                p_value,
                 pm(lower),
-                pm(cfg.action_threshold_tvd_per_layer)
+                pm(threshold)
             ),
         )
     }
 }
 
-pub(crate) fn report(a: &Analysis, s: &Solved, x: &Assessed, cfg: &AuditConfig) -> AuditReport {
+/// Detected edges first, by score, then the rest; ranks for positive scores only.
+pub(crate) fn order_edges(edges: &mut [EdgeReport]) {
+    edges.sort_by(|p, q| {
+        let key = |e: &EdgeReport| e.verdict <= Verdict::Watch;
+        key(q)
+            .cmp(&key(p))
+            .then(q.score_tvd_per_layer.total_cmp(&p.score_tvd_per_layer))
+            .then(p.a.cmp(&q.a))
+            .then(p.b.cmp(&q.b))
+    });
+    let mut k = 0;
+    for e in edges.iter_mut() {
+        e.rank = None;
+        if e.score_tvd_per_layer > 0.0 {
+            k += 1;
+            e.rank = Some(k);
+        }
+    }
+}
+
+/// The point-estimate report; `parametric[i]` is directed pair i's parametric-null
+/// (limit, p-value) when that null was run.
+pub(crate) fn report(
+    a: &Analysis,
+    s: &Solved,
+    x: &Assessed,
+    cfg: &AuditConfig,
+    parametric: Option<&[(f64, f64)]>,
+) -> AuditReport {
+    let par = |i: usize| parametric.and_then(|p| p.get(i).copied());
+    let finite = |v: f64| v.is_finite().then_some(v);
     let layout = a.layout;
     let id = |q: usize| layout.id(q).to_string();
     let kinds = &a.rows.kinds;
@@ -120,7 +170,8 @@ pub(crate) fn report(a: &Analysis, s: &Solved, x: &Assessed, cfg: &AuditConfig) 
     let directed: Vec<DirectedReport> = x
         .directed
         .iter()
-        .map(|d| DirectedReport {
+        .enumerate()
+        .map(|(i, d)| DirectedReport {
             victim: id(d.victim),
             aggressor: id(d.aggressor),
             score_tvd_per_layer: d.score,
@@ -148,6 +199,8 @@ pub(crate) fn report(a: &Analysis, s: &Solved, x: &Assessed, cfg: &AuditConfig) 
                 .map(|&(k, v)| KindValue { kind: kinds.get(k).label(layout), value: v })
                 .collect(),
             confidence: None,
+            parametric_limit_tvd_per_layer: par(i).and_then(|p| finite(p.0)),
+            parametric_p_value: par(i).map(|p| p.1),
         })
         .collect();
 
@@ -156,8 +209,9 @@ pub(crate) fn report(a: &Analysis, s: &Solved, x: &Assessed, cfg: &AuditConfig) 
         .neighbour_pairs()
         .into_iter()
         .map(|(qa, qb)| {
-            let ab = &x.directed[x.index[&(qa, qb)]];
-            let ba = &x.directed[x.index[&(qb, qa)]];
+            let (iab, iba) = (x.index[&(qa, qb)], x.index[&(qb, qa)]);
+            let (ab, ba) = (&x.directed[iab], &x.directed[iba]);
+            let imain = if ba.score > ab.score { iba } else { iab };
             let (va, ra) = direction_verdict(ab, cfg);
             let (vb, rb) = direction_verdict(ba, cfg);
             let main = if ba.score > ab.score { ba } else { ab };
@@ -198,26 +252,14 @@ pub(crate) fn report(a: &Analysis, s: &Solved, x: &Assessed, cfg: &AuditConfig) 
                 confounded_with,
                 confidence: None,
                 rank_confidence: None,
+                parametric_limit_tvd_per_layer: par(imain).and_then(|p| finite(p.0)),
+                parametric_p_value: par(imain).map(|p| p.1),
                 verdict,
                 reason: format!("{}<-{}: {}", id(lead.victim), id(lead.aggressor), reason),
             }
         })
         .collect();
-    edges.sort_by(|p, q| {
-        let key = |e: &EdgeReport| e.verdict <= Verdict::Watch;
-        key(q)
-            .cmp(&key(p))
-            .then(q.score_tvd_per_layer.total_cmp(&p.score_tvd_per_layer))
-            .then(p.a.cmp(&q.a))
-            .then(p.b.cmp(&q.b))
-    });
-    let mut k = 0;
-    for e in edges.iter_mut() {
-        if e.score_tvd_per_layer > 0.0 {
-            k += 1;
-            e.rank = Some(k);
-        }
-    }
+    order_edges(&mut edges);
 
     // Intrinsic slack per kind.
     let occ = kind_occurrences(a);
@@ -232,22 +274,7 @@ pub(crate) fn report(a: &Analysis, s: &Solved, x: &Assessed, cfg: &AuditConfig) 
         };
         fits.and_then(|f| f.kinds.iter().find(|kf| kf.kind == k as usize)).map(|kf| kf.error_rate)
     };
-    let omega = |k: crate::rows::KindIx| {
-        let kind = kinds.get(k);
-        let b = Budget::Intrinsic(k);
-        if kind.gate.arity() == 1 {
-            let (p, sol) = &s.qubit[kind.qubits[0]];
-            p.value(sol, b)
-        } else {
-            layout
-                .coupler(kind.qubits[0], kind.qubits[1])
-                .map(|c| {
-                    let (p, sol) = &s.coupler[c];
-                    p.value(sol, b)
-                })
-                .unwrap_or(0.0)
-        }
-    };
+    let omega = |k: crate::rows::KindIx| super::intrinsic_slack(a, s, k);
     let mut intrinsic: Vec<IntrinsicReport> = (0..kinds.len() as u32)
         .filter(|k| occ.contains_key(k))
         .map(|k| {
@@ -369,9 +396,13 @@ pub(crate) fn report(a: &Analysis, s: &Solved, x: &Assessed, cfg: &AuditConfig) 
             null_replicates: cfg.null_replicates,
             seed: cfg.seed,
             bit_order: cfg.bit_order.clone(),
-            replicates: 0,
-            resample: "none".into(),
-            level: 0.95,
+            replicates: cfg.bootstrap.replicates,
+            resample: if cfg.bootstrap.replicates > 0 {
+                cfg.bootstrap.resample.name().into()
+            } else {
+                "none".into()
+            },
+            level: cfg.bootstrap.level,
         },
         data: DataSummary {
             circuits: a.circuits.len(),

@@ -11,6 +11,7 @@ use std::sync::atomic::{AtomicBool, Ordering};
 use rayon::prelude::*;
 
 use crate::circuit::CircuitSet;
+use crate::confidence::{BootstrapConfig, ReplicateScores};
 use crate::counts::Counts;
 use crate::error::{Error, Result, Warning};
 use crate::layout::{Layout, QubitIx};
@@ -24,6 +25,9 @@ mod build;
 pub mod problems;
 
 use problems::{Budget, Problem};
+
+pub(crate) use assess::Assessed;
+pub(crate) use build::{detected_verdict, is_detected, order_edges};
 
 /// Settings of one audit, validated by [`AuditConfig::validate`].
 #[derive(Clone, Debug)]
@@ -42,6 +46,8 @@ pub struct AuditConfig {
     pub bit_order: String,
     /// Input files and digests (recorded in the report).
     pub inputs: Vec<InputFile>,
+    /// Bootstrap settings (replicates, resampling scheme, level, top k, shard range).
+    pub bootstrap: BootstrapConfig,
 }
 
 impl AuditConfig {
@@ -58,7 +64,7 @@ impl AuditConfig {
                 self.action_threshold_tvd_per_layer
             )));
         }
-        Ok(())
+        self.bootstrap.validate()
     }
 }
 
@@ -112,7 +118,13 @@ pub(crate) struct Fitted {
 pub(crate) struct Analysis<'a> {
     pub layout: &'a Layout,
     pub circuits: &'a CircuitSet,
+    pub counts: &'a Counts,
     pub rows: Rows,
+    /// Compiled model rows, aligned with `rows.rows` (None without counts); replicates
+    /// reuse the programs with other counts.
+    pub prepared: Vec<Option<PreparedRow>>,
+    pub spec: ModelSpec,
+    pub alpha: f64,
     /// Analysis rows that have counts (global indices into `rows.rows`).
     pub used: Vec<usize>,
     pub predictions: Vec<Vec<f64>>,
@@ -146,6 +158,21 @@ pub fn run(
     cfg: &AuditConfig,
     progress: &dyn Progress,
 ) -> Result<AuditReport> {
+    let (mut report, replicates) = run_parts(layout, circuits, counts, cfg, progress)?;
+    crate::confidence::finish(&mut report, &replicates, &cfg.bootstrap)?;
+    Ok(report)
+}
+
+/// The point-estimate report (verdicts before any bootstrap interval, parametric null
+/// filled in) and the bootstrap replicates of `cfg.bootstrap`'s range; [`run`] combines
+/// them with [`crate::confidence::finish`], and a shard writes them to a partial file.
+pub fn run_parts(
+    layout: &Layout,
+    circuits: &CircuitSet,
+    counts: &Counts,
+    cfg: &AuditConfig,
+    progress: &dyn Progress,
+) -> Result<(AuditReport, Vec<ReplicateScores>)> {
     cfg.validate()?;
     let analysis = analyse(layout, circuits, counts, cfg, progress)?;
     check_cancel(progress)?;
@@ -153,14 +180,18 @@ pub fn run(
     check_cancel(progress)?;
     let assessed = assess::assess(&analysis, &solved, cfg, progress)?;
     check_cancel(progress)?;
-    Ok(build::report(&analysis, &solved, &assessed, cfg))
+    let parametric = crate::confidence::parametric_null(&analysis, &assessed, cfg, progress)?;
+    check_cancel(progress)?;
+    let report = build::report(&analysis, &solved, &assessed, cfg, parametric.as_deref());
+    let replicates = crate::confidence::bootstrap(&analysis, &report, cfg, progress)?;
+    Ok((report, replicates))
 }
 
 /// Rows, fit, predictions and requirements.
 pub(crate) fn analyse<'a>(
     layout: &'a Layout,
     circuits: &'a CircuitSet,
-    counts: &Counts,
+    counts: &'a Counts,
     cfg: &AuditConfig,
     progress: &dyn Progress,
 ) -> Result<Analysis<'a>> {
@@ -217,13 +248,14 @@ pub(crate) fn analyse<'a>(
 
     let fitted = fit_model(
         layout,
-        &rows,
+        &rows.rows,
         &prepared,
         &qubit_rows,
         &coupler_rows,
         &spec,
         progress,
         &mut warnings,
+        None,
     )?;
     check_cancel(progress)?;
 
@@ -245,7 +277,11 @@ pub(crate) fn analyse<'a>(
     Ok(Analysis {
         layout,
         circuits,
+        counts,
         rows,
+        prepared,
+        spec,
+        alpha: cfg.alpha,
         used,
         predictions,
         requirement,
@@ -294,19 +330,20 @@ fn model_row(r: &rows::Row, marginal: Vec<u64>) -> model::Row {
 #[allow(clippy::too_many_arguments)]
 fn fit_model(
     layout: &Layout,
-    rows: &Rows,
+    rows: &[rows::Row],
     prepared: &[Option<PreparedRow>],
     qubit_rows: &[Vec<usize>],
     coupler_rows: &[Vec<usize>],
     spec: &ModelSpec,
     progress: &dyn Progress,
     warnings: &mut Vec<Warning>,
+    start: Option<&Params>,
 ) -> Result<Fitted> {
     let options = FitOptions::default();
     let select = |list: &[usize]| -> (Vec<PreparedRow>, bool) {
         let reference: Vec<PreparedRow> = list
             .iter()
-            .filter(|&&i| rows.rows[i].is_reference)
+            .filter(|&&i| rows[i].is_reference)
             .filter_map(|&i| prepared[i].clone())
             .collect();
         if reference.is_empty() {
@@ -323,13 +360,16 @@ fn fit_model(
                 Ok((None, false))
             } else {
                 let (sel, all) = select(list);
-                model::fit_qubit(&sel, spec, None, &options).map(|f| (Some(f), all))
+                model::fit_qubit(&sel, spec, start, &options).map(|f| (Some(f), all))
             };
             progress.advance(1);
             out
         })
         .collect::<Result<_>>()?;
-    let mut params = Params::initial(spec)?;
+    let mut params = match start {
+        Some(p) => p.clone(),
+        None => Params::initial(spec)?,
+    };
     let mut touched = vec![false; spec.kind_arity.len()];
     for (q, (fit, all)) in qubit_fits.iter().enumerate() {
         let Some(fit) = fit else { continue };
@@ -359,7 +399,7 @@ fn fit_model(
                 Ok((None, false))
             } else {
                 let (sel, all) = select(list);
-                model::fit_coupler(&sel, spec, &params, None, &options).map(|f| (Some(f), all))
+                model::fit_coupler(&sel, spec, &params, start, &options).map(|f| (Some(f), all))
             };
             progress.advance(1);
             out
@@ -407,13 +447,23 @@ fn prefix(w: Warning, who: &str) -> Warning {
 
 /// Solves the qubit problems, then the coupler problems with the qubit budgets fixed.
 pub(crate) fn solve_all(a: &Analysis, progress: &dyn Progress) -> Result<Solved> {
-    let all = &a.rows.rows;
+    solve_rows(a, &a.rows.rows, &a.requirement, progress)
+}
+
+/// [`solve_all`] for rows with the analysis' block structure but other programs or
+/// requirements (a bootstrap replicate).
+fn solve_rows(
+    a: &Analysis,
+    all: &[rows::Row],
+    requirement: &[f64],
+    progress: &dyn Progress,
+) -> Result<Solved> {
     progress.stage("solving qubit budgets", a.qubit_rows.len() as u64);
     let qubit: Vec<(Problem, TwoStageSolution)> = a
         .qubit_rows
         .par_iter()
         .map(|list| {
-            let p = Problem::build(all, list.clone(), &a.requirement, &|_| None);
+            let p = Problem::build(all, list.clone(), requirement, &|_| None);
             let s = p.lp.solve();
             progress.advance(1);
             s.map(|s| (p, s))
@@ -439,7 +489,7 @@ pub(crate) fn solve_all(a: &Analysis, progress: &dyn Progress) -> Result<Solved>
         .coupler_rows
         .par_iter()
         .map(|list| {
-            let p = Problem::build(all, list.clone(), &a.requirement, &fixed);
+            let p = Problem::build(all, list.clone(), requirement, &fixed);
             let s = p.lp.solve();
             progress.advance(1);
             s.map(|s| (p, s))
@@ -473,4 +523,122 @@ pub(crate) fn kind_occurrences(a: &Analysis) -> HashMap<rows::KindIx, (u64, u64)
         }
     }
     m
+}
+
+/// Progress for work nested inside a replicate: shows nothing, but still honours Ctrl-C.
+struct Nested<'a>(&'a dyn Progress);
+impl Progress for Nested<'_> {
+    fn cancelled(&self) -> bool {
+        self.0.cancelled()
+    }
+}
+
+/// One resampled data set, aligned with the analysis rows.
+pub(crate) struct Resampled {
+    /// Row i takes the program of analysis row `source[i]` (same block, another circuit of
+    /// the same group); `None` keeps every row's own program.
+    pub source: Option<Vec<usize>>,
+    /// New marginal counts of each analysis row (None where the row has no counts).
+    pub counts: Vec<Option<Vec<u64>>>,
+}
+
+/// Directed scores (in [`assess`] pair order) and intrinsic slack per kind (indexed by
+/// kind) of a resampled data set: refit from the point estimate when `refit` (a few
+/// Newton steps; PreparedRow programs are reused), recompute requirements, solve both
+/// stages.
+pub(crate) fn rescore(
+    a: &Analysis,
+    data: &Resampled,
+    refit: bool,
+    progress: &dyn Progress,
+) -> Result<(Vec<f64>, Vec<f64>)> {
+    let quiet = Nested(progress);
+    let n = a.rows.rows.len();
+    let src = |i: usize| data.source.as_ref().map_or(i, |s| s[i]);
+    let owned: Option<Vec<rows::Row>> = data.source.as_ref().map(|s| {
+        s.iter()
+            .enumerate()
+            .map(|(i, &j)| {
+                let mut r = a.rows.rows[j].clone();
+                r.circuit = a.rows.rows[i].circuit;
+                r.marginal = data.counts[i].clone();
+                r
+            })
+            .collect()
+    });
+    let all: &[rows::Row] = owned.as_deref().unwrap_or(&a.rows.rows);
+    let prepared: Vec<Option<PreparedRow>> = (0..n)
+        .into_par_iter()
+        .map(|i| match (&data.counts[i], &a.prepared[src(i)]) {
+            (Some(c), Some(p)) => p.with_counts(c.clone()).map(Some),
+            _ => Ok(None),
+        })
+        .collect::<Result<_>>()?;
+    let params = if refit {
+        let mut ignored = Vec::new();
+        fit_model(
+            a.layout,
+            all,
+            &prepared,
+            &a.qubit_rows,
+            &a.coupler_rows,
+            &a.spec,
+            &quiet,
+            &mut ignored,
+            Some(&a.fitted.params),
+        )?
+        .params
+    } else {
+        a.fitted.params.clone()
+    };
+    check_cancel(progress)?;
+    let computed: Vec<Vec<f64>>;
+    let predictions: &[Vec<f64>] = if !refit && data.source.is_none() {
+        &a.predictions
+    } else {
+        computed = prepared
+            .par_iter()
+            .map(|p| {
+                p.as_ref()
+                    .and_then(|p| model::predict_all(std::slice::from_ref(p), &params).pop())
+                    .unwrap_or_default()
+            })
+            .collect();
+        &computed
+    };
+    let n_rows = a.used.len();
+    let requirement: Vec<f64> = (0..n)
+        .into_par_iter()
+        .map(|i| match &data.counts[i] {
+            Some(m) if m.iter().sum::<u64>() > 0 => {
+                let t = crate::stats::bonferroni_threshold(m.len() - 1, a.alpha, n_rows);
+                crate::slack::requirement::requirement(&predictions[i], m, t)
+            }
+            _ => 0.0,
+        })
+        .collect();
+    let solved = solve_rows(a, all, &requirement, &quiet)?;
+    check_cancel(progress)?;
+    let directed = assess::directed_scores(a, all, &solved);
+    let intrinsic =
+        (0..a.rows.kinds.len() as u32).map(|k| intrinsic_slack(a, &solved, k)).collect();
+    Ok((directed, intrinsic))
+}
+
+/// Intrinsic slack omega_k of kind `k` in a solution (0 when the kind has no problem).
+pub(crate) fn intrinsic_slack(a: &Analysis, s: &Solved, k: rows::KindIx) -> f64 {
+    let kind = a.rows.kinds.get(k);
+    let b = Budget::Intrinsic(k);
+    if kind.gate.arity() == 1 {
+        let (p, sol) = &s.qubit[kind.qubits[0]];
+        p.value(sol, b)
+    } else {
+        a.layout
+            .coupler(kind.qubits[0], kind.qubits[1])
+            .map(|c| {
+                let (p, sol) = &s.coupler[c];
+                p.value(sol, b)
+            })
+            .unwrap_or(0.0)
+    }
 }

@@ -8,6 +8,8 @@ use std::sync::Arc;
 use anyhow::Context;
 
 use slackmap::audit::{self, AuditConfig, Cancel};
+use slackmap::confidence::partial::{self, Partial};
+use slackmap::confidence::{self, BootstrapConfig, Resample};
 use slackmap::model::Family;
 use slackmap::report::{self, terminal};
 
@@ -58,12 +60,49 @@ pub struct AnalysisArgs {
     /// Worker threads (default: all cores).
     #[arg(long)]
     pub threads: Option<usize>,
+    /// Bootstrap replicates for intervals, ranks and verdicts (0 turns the bootstrap off).
+    #[arg(long, default_value_t = 200)]
+    pub replicates: usize,
+    /// What a bootstrap replicate resamples: each circuit's shots, or circuits within
+    /// groups of the same pattern and depth and then their shots.
+    #[arg(long, value_enum, default_value = "shots")]
+    pub resample: ResampleArg,
+    /// Two-sided level of the bootstrap intervals.
+    #[arg(long, default_value_t = 0.95)]
+    pub level: f64,
+    /// The k of each edge's probability of ranking in the top k.
+    #[arg(long, default_value_t = 5)]
+    pub top_k: usize,
+    /// Compute only bootstrap replicates A..B (A included, B not) and write OUT/partial.json
+    /// for `slackmap merge`, instead of the report.
+    #[arg(long, value_name = "A..B", value_parser = parse_range)]
+    pub replicate_range: Option<std::ops::Range<usize>>,
     /// Output folder (written atomically: an existing folder is replaced only when done).
     #[arg(long, value_name = "DIR")]
     pub out: PathBuf,
     /// No progress bars.
     #[arg(long, short)]
     pub quiet: bool,
+}
+
+/// Bootstrap resampling scheme.
+#[derive(clap::ValueEnum, Clone, Copy, Debug, PartialEq, Eq)]
+pub enum ResampleArg {
+    /// Every circuit's shots, from its observed outcome frequencies.
+    Shots,
+    /// Circuits within groups of equal pattern and depth, then their shots.
+    Circuits,
+}
+
+fn parse_range(s: &str) -> Result<std::ops::Range<usize>, String> {
+    let bad = || format!("'{s}' is not a range A..B of replicate indices, e.g. 0..100");
+    let (a, b) = s.split_once("..").ok_or_else(bad)?;
+    let a: usize = a.trim().parse().map_err(|_| bad())?;
+    let b: usize = b.trim().parse().map_err(|_| bad())?;
+    if a >= b {
+        return Err(format!("range {a}..{b} is empty: A must be below B"));
+    }
+    Ok(a..b)
 }
 
 /// Arguments of `slackmap audit`.
@@ -114,6 +153,11 @@ pub fn demo(args: DemoArgs) -> anyhow::Result<()> {
         null_replicates: 200,
         seed: 0,
         threads: None,
+        replicates: 200,
+        resample: ResampleArg::Shots,
+        level: 0.95,
+        top_k: 5,
+        replicate_range: None,
         out: args.out.clone(),
         quiet: args.quiet,
     };
@@ -138,7 +182,18 @@ fn run_audit(inputs: &InputArgs, counts: &Path, a: &AnalysisArgs) -> anyhow::Res
         seed: a.seed,
         bit_order: inputs.bit_order.label().to_string(),
         inputs: loaded.files.clone(),
+        bootstrap: BootstrapConfig {
+            replicates: a.replicates,
+            resample: match a.resample {
+                ResampleArg::Shots => Resample::Shots,
+                ResampleArg::Circuits => Resample::Circuits,
+            },
+            level: a.level,
+            top_k: a.top_k,
+            range: a.replicate_range.clone(),
+        },
     };
+    cfg.validate()?;
     let stop = Arc::new(AtomicBool::new(false));
     {
         let stop = stop.clone();
@@ -146,19 +201,40 @@ fn run_audit(inputs: &InputArgs, counts: &Path, a: &AnalysisArgs) -> anyhow::Res
     }
     let bar = Bar::new(a.quiet);
     let progress = Cancel { inner: &bar, flag: &stop };
-    let mut rep = audit::run(&loaded.layout, &loaded.circuits, counts, &cfg, &progress)?;
+    let (mut rep, replicates) =
+        audit::run_parts(&loaded.layout, &loaded.circuits, counts, &cfg, &progress)?;
     bar.finish();
     for w in &loaded.warnings {
         rep.warnings.insert(0, w.into());
     }
-    let files = report::audit_files(&rep);
-    report::write_folder(&a.out, &files)?;
+    if cfg.bootstrap.range.is_some() {
+        let part = Partial::new(rep, replicates, &cfg.bootstrap);
+        let bytes = serde_json::to_vec_pretty(&part).context("could not encode the partial")?;
+        report::write_folder(&a.out, &[(partial::FILE_NAME.to_string(), bytes)])?;
+        let r = cfg.bootstrap.computed();
+        eprintln!(
+            "Wrote replicates {}..{} of {} to {}; combine the parts with `slackmap merge`",
+            r.start,
+            r.end,
+            cfg.bootstrap.replicates,
+            a.out.join(partial::FILE_NAME).display()
+        );
+        return Ok(());
+    }
+    confidence::finish(&mut rep, &replicates, &cfg.bootstrap)?;
+    write_and_print(&rep, &a.out)
+}
+
+/// Writes every audit file into `out` and prints the terminal report (audit and merge).
+pub fn write_and_print(rep: &report::AuditReport, out_dir: &Path) -> anyhow::Result<()> {
+    let files = report::audit_files(rep);
+    report::write_folder(out_dir, &files)?;
     let color = std::io::stdout().is_terminal() && std::env::var_os("NO_COLOR").is_none();
-    let text = terminal::render(&rep, &terminal::TerminalOptions { color, ..Default::default() });
+    let text = terminal::render(rep, &terminal::TerminalOptions { color, ..Default::default() });
     let mut out = std::io::stdout().lock();
     out.write_all(text.as_bytes())?;
     let main_file =
         if files.iter().any(|(n, _)| n == "report.html") { "report.html" } else { "audit.json" };
-    writeln!(out, "\nWrote {}", a.out.join(main_file).display())?;
+    writeln!(out, "\nWrote {}", out_dir.join(main_file).display())?;
     Ok(())
 }

@@ -12,6 +12,7 @@ mod design;
 mod hints;
 mod inputs;
 mod layout;
+mod merge;
 mod plan;
 mod progress;
 mod report;
@@ -50,6 +51,8 @@ enum Command {
     Hints(hints::HintsArgs),
     /// Plan shot counts: detection limits and smallest flagged crosstalk from simulated audits.
     Plan(plan::PlanArgs),
+    /// Combine the partial results of `audit --replicate-range` shards into one audit.
+    Merge(merge::MergeArgs),
 }
 
 /// Runs the CLI and maps the outcome to an exit code.
@@ -66,6 +69,7 @@ pub fn main() -> ExitCode {
         Command::Compare(args) => compare::run(args),
         Command::Report(args) => report::run(args),
         Command::Plan(args) => plan::run(args),
+        Command::Merge(args) => merge::run(args),
     };
     match result {
         Ok(()) => ExitCode::SUCCESS,

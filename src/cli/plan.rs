@@ -91,6 +91,7 @@ pub fn run(args: PlanArgs) -> anyhow::Result<()> {
             seed: args.seed,
             bit_order: "as-measured".into(),
             inputs: Vec::new(),
+            bootstrap: slackmap::confidence::BootstrapConfig::default(),
         },
         seed: args.seed,
         trials: args.trials,

@@ -225,6 +225,14 @@ pub struct EdgeReport {
     pub confidence: Option<Confidence>,
     /// Bootstrap rank statistics; null when no replicates were run.
     pub rank_confidence: Option<RankConfidence>,
+    /// Parametric-null detection limit of the direction that gives the edge score: the
+    /// (1 - alpha) quantile of its score on data drawn from the fitted crosstalk-free model,
+    /// TVD per layer (shot noise alone); absent when that null was not run or too small.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub parametric_limit_tvd_per_layer: Option<f64>,
+    /// Parametric-null p-value of that direction, (1 + #{null >= estimate}) / (1 + B).
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub parametric_p_value: Option<f64>,
     /// The verdict.
     pub verdict: Verdict,
     /// Why the verdict is what it is, in words.
@@ -307,6 +315,12 @@ pub struct DirectedReport {
     pub per_kind: Vec<KindValue>,
     /// Bootstrap confidence for the directed score; null when no replicates were run.
     pub confidence: Option<Confidence>,
+    /// Parametric-null detection limit (see [`EdgeReport::parametric_limit_tvd_per_layer`]).
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub parametric_limit_tvd_per_layer: Option<f64>,
+    /// Parametric-null p-value.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub parametric_p_value: Option<f64>,
 }
 
 /// A value attached to an operation kind.

@@ -161,6 +161,7 @@ pub fn render(r: &AuditReport, opt: &TerminalOptions) -> String {
         "a<-b x1e-3",
         "b<-a x1e-3",
         "rows",
+        "interval x1e-3",
         "attribution x1e-3",
         "limit x1e-3",
         "p",
@@ -175,6 +176,14 @@ pub fn render(r: &AuditReport, opt: &TerminalOptions) -> String {
             right(per_mille(e.a_from_b_tvd_per_layer)),
             right(per_mille(e.b_from_a_tvd_per_layer)),
             right(e.supporting_rows.to_string()),
+            right(match &e.confidence {
+                Some(c) => format!(
+                    "{}..{}",
+                    per_mille(c.low_tvd_per_layer),
+                    per_mille(c.high_tvd_per_layer)
+                ),
+                None => "-".into(),
+            }),
             right(format!(
                 "{}..{}",
                 per_mille(e.attribution_min_tvd_per_layer),

@@ -171,6 +171,8 @@ impl AuditBuilder {
                 confounded_with: Vec::new(),
                 confidence: self.confidence(s, 3 * i as u64),
                 rank_confidence: None,
+                parametric_limit_tvd_per_layer: None,
+                parametric_p_value: None,
                 verdict,
                 reason: "built for a test".into(),
             });
@@ -195,6 +197,8 @@ impl AuditBuilder {
                     most_influential_circuit: None,
                     per_kind: Vec::new(),
                     confidence: self.confidence(x, salt),
+                    parametric_limit_tvd_per_layer: None,
+                    parametric_p_value: None,
                 });
             }
         }

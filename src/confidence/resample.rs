@@ -1,0 +1,190 @@
+//! Drawing resampled data sets: shots of each circuit from its observed joint outcome
+//! frequencies (then marginalised to its blocks, so blocks of one circuit stay as
+//! correlated as the data), circuits within groups of the same pattern and depth then
+//! shots (two-level bootstrap, Davison & Hinkley 1997, sec. 3.8), and rows drawn from
+//! the fitted model's own predictions (the parametric null).
+
+use std::collections::BTreeMap;
+
+use rand::RngExt;
+use rand_chacha::ChaCha8Rng;
+use rand_distr::{Binomial, Distribution};
+
+use crate::audit::{Analysis, Resampled};
+
+/// Counts of `n` shots over outcomes of probabilities `p`, by sequential conditional
+/// binomials (each outcome's count given those before it is binomial).
+pub fn multinomial(n: u64, p: &[f64], rng: &mut ChaCha8Rng) -> Vec<u64> {
+    let mut out = vec![0u64; p.len()];
+    let (mut left, mut rest) = (n, 1.0f64);
+    for (j, &pj) in p.iter().enumerate() {
+        if left == 0 {
+            break;
+        }
+        if j + 1 == p.len() {
+            out[j] = left;
+            break;
+        }
+        let q = if rest > 0.0 { (pj / rest).clamp(0.0, 1.0) } else { 1.0 };
+        let x = if q >= 1.0 {
+            left
+        } else if q <= 0.0 {
+            0
+        } else {
+            Binomial::new(left, q).map(|b| b.sample(rng)).unwrap_or(0)
+        };
+        out[j] = x;
+        left -= x;
+        rest -= pj;
+    }
+    out
+}
+
+/// One circuit's observed outcomes and where each lands in each of its rows' marginals.
+struct CircuitDraw {
+    shots: u64,
+    freq: Vec<f64>,
+    /// (global row index, marginal index of every distinct outcome).
+    rows: Vec<(usize, Vec<u8>)>,
+    n_outcomes: Vec<usize>,
+}
+
+/// What stays fixed across replicates: per-circuit draws and circuit groups.
+pub struct Plan {
+    circuits: BTreeMap<u32, CircuitDraw>,
+    /// Circuits that share a pattern (blocks, activity) and depth.
+    groups: Vec<Vec<u32>>,
+}
+
+impl Plan {
+    /// Prepares the draws of an analysis.
+    pub(crate) fn new(a: &Analysis) -> Plan {
+        let mut by_circuit: BTreeMap<u32, Vec<usize>> = BTreeMap::new();
+        for &i in &a.used {
+            by_circuit.entry(a.rows.rows[i].circuit).or_default().push(i);
+        }
+        let mut circuits = BTreeMap::new();
+        let mut groups: BTreeMap<Vec<u64>, Vec<u32>> = BTreeMap::new();
+        for (&c, list) in &by_circuit {
+            let Some(Some(cc)) = a.counts.per_circuit.get(c as usize) else { continue };
+            let shots = cc.shots();
+            if shots == 0 {
+                continue;
+            }
+            let freq = cc.outcomes.iter().map(|(_, n)| *n as f64 / shots as f64).collect();
+            let mut rows = Vec::new();
+            let mut n_outcomes = Vec::new();
+            let mut key = vec![a.rows.rows[list[0]].n_timed_layers as u64];
+            for &i in list {
+                let r = &a.rows.rows[i];
+                let codes = cc
+                    .outcomes
+                    .iter()
+                    .map(|(o, _)| {
+                        r.positions
+                            .iter()
+                            .enumerate()
+                            .fold(0u8, |acc, (j, &p)| acc | ((o.bit(p) as u8) << j))
+                    })
+                    .collect();
+                rows.push((i, codes));
+                n_outcomes.push(1usize << r.positions.len());
+                key.push(u64::MAX);
+                key.extend(r.block.iter().map(|&q| q as u64));
+                for v in &r.victims {
+                    key.push(v.driven as u64 + 2);
+                    key.extend(v.active_neighbours.iter().map(|&q| q as u64));
+                }
+            }
+            groups.entry(key).or_default().push(c);
+            circuits.insert(c, CircuitDraw { shots, freq, rows, n_outcomes });
+        }
+        Plan { circuits, groups: groups.into_values().collect() }
+    }
+
+    /// Number of circuit groups (for reports and tests).
+    pub fn n_groups(&self) -> usize {
+        self.groups.len()
+    }
+
+    /// Resampled shots of circuit `from`, marginalised onto the rows of circuit `to`
+    /// (the same circuit, or one of its group with the same blocks in the same order).
+    fn draw_shots(
+        &self,
+        from: &CircuitDraw,
+        to: &CircuitDraw,
+        rng: &mut ChaCha8Rng,
+        out: &mut Resampled,
+    ) {
+        let tally = multinomial(from.shots, &from.freq, rng);
+        for (((dst, _), (src, codes)), &k) in to.rows.iter().zip(&from.rows).zip(&from.n_outcomes) {
+            let mut m = vec![0u64; k];
+            for (&code, &t) in codes.iter().zip(&tally) {
+                m[code as usize] += t;
+            }
+            out.counts[*dst] = Some(m);
+            if let Some(s) = out.source.as_mut() {
+                s[*dst] = *src;
+            }
+        }
+    }
+
+    /// One bootstrap data set: every circuit's shots resampled (`circuits` false), or
+    /// circuits resampled with replacement within their group, then their shots.
+    pub(crate) fn draw(&self, a: &Analysis, circuits: bool, rng: &mut ChaCha8Rng) -> Resampled {
+        let n = a.rows.rows.len();
+        let mut out =
+            Resampled { source: circuits.then(|| (0..n).collect()), counts: vec![None; n] };
+        if circuits {
+            for g in &self.groups {
+                for &c in g {
+                    let pick = g[rng.random_range(0..g.len())];
+                    self.draw_shots(&self.circuits[&pick], &self.circuits[&c], rng, &mut out);
+                }
+            }
+        } else {
+            for cd in self.circuits.values() {
+                self.draw_shots(cd, cd, rng, &mut out);
+            }
+        }
+        out
+    }
+}
+
+/// One parametric-null data set: each analysis row's counts drawn from its fitted
+/// prediction with the row's own shots. Rows of one circuit are drawn independently,
+/// which is exactly the crosstalk-free product model's joint distribution.
+pub(crate) fn draw_from_model(a: &Analysis, rng: &mut ChaCha8Rng) -> Resampled {
+    let n = a.rows.rows.len();
+    let mut counts = vec![None; n];
+    for &i in &a.used {
+        counts[i] = Some(multinomial(a.rows.rows[i].shots, &a.predictions[i], rng));
+    }
+    Resampled { source: None, counts }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use rand::SeedableRng;
+
+    #[test]
+    fn multinomial_keeps_total_and_mean() {
+        let mut rng = ChaCha8Rng::seed_from_u64(5);
+        let p = [0.1, 0.0, 0.6, 0.3];
+        let mut sum = [0u64; 4];
+        for _ in 0..400 {
+            let x = multinomial(1000, &p, &mut rng);
+            assert_eq!(x.iter().sum::<u64>(), 1000);
+            assert_eq!(x[1], 0);
+            for j in 0..4 {
+                sum[j] += x[j];
+            }
+        }
+        for j in 0..4 {
+            let mean = sum[j] as f64 / 400.0;
+            // Standard error of the mean of 400 binomial(1000, p) draws: at most 0.8 here.
+            assert!((mean - 1000.0 * p[j]).abs() < 4.0, "outcome {j}: mean {mean}");
+        }
+    }
+}
