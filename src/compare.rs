@@ -122,16 +122,8 @@ impl Presence {
     }
 }
 
-/// Type 7 quantile (Hyndman & Fan 1996) of sorted, non-empty data; p in [0, 1].
-pub fn quantile(sorted: &[f64], p: f64) -> f64 {
-    if sorted.is_empty() {
-        return f64::NAN;
-    }
-    let h = (sorted.len() - 1) as f64 * p.clamp(0.0, 1.0);
-    let lo = h.floor() as usize;
-    let hi = (lo + 1).min(sorted.len() - 1);
-    sorted[lo] + (h - lo as f64) * (sorted[hi] - sorted[lo])
-}
+/// Sample quantiles (Hyndman & Fan 1996, type 7), shared with the bootstrap intervals.
+pub use crate::confidence::intervals::quantile;
 
 /// Basic bootstrap interval for the difference B - A (see the module header). `None` when
 /// either side has no replicates.

@@ -149,3 +149,97 @@ fn aggressors_always_active_together_are_confounded_not_chosen() {
         assert!(x.confounded_with.iter().any(|o| o == other), "{:?}", x.confounded_with);
     }
 }
+
+/// Kendall's tau-a between two equally long samples (Kendall, Biometrika 30, 81 (1938)).
+fn kendall_tau(x: &[f64], y: &[f64]) -> f64 {
+    let n = x.len();
+    let mut s = 0.0;
+    for i in 0..n {
+        for j in i + 1..n {
+            s += ((x[i] - x[j]) * (y[i] - y[j])).signum();
+        }
+    }
+    s / (n * (n - 1) / 2) as f64
+}
+
+/// The study quoted in the audit's notes: 20 random scenarios on the 4x4 grid with 3 to 6
+/// injected edges of mixed kinds. Prints precision and recall of `recalibrate` and the rank
+/// correlation of injected and recovered strength. Slow (about a minute): run with
+/// `cargo test --release --test audit_recovery -- --ignored --nocapture`.
+#[test]
+#[ignore]
+fn random_scenarios_precision_recall_and_rank_correlation() {
+    use rand::{RngExt, SeedableRng};
+    let layout = generate::grid(4, 4);
+    let circuits = small_design(&layout);
+    let pairs: Vec<(usize, usize)> = (0..16)
+        .flat_map(|q| layout.neighbours(q).iter().map(move |&r| (q, r)).collect::<Vec<_>>())
+        .collect();
+    let (mut tp, mut fp, mut strong, mut strong_found) = (0, 0, 0, 0);
+    let (mut inj, mut rec) = (Vec::new(), Vec::new());
+    for s in 0..20u64 {
+        let mut rng = rand_chacha::ChaCha8Rng::seed_from_u64(9000 + s);
+        let k = rng.random_range(3..=6);
+        let mut chosen: Vec<(usize, usize, bool, f64)> = Vec::new();
+        while chosen.len() < k {
+            let (q, r) = pairs[rng.random_range(0..pairs.len())];
+            let edge_taken =
+                chosen.iter().any(|c| (c.0.min(c.1), c.0.max(c.1)) == (q.min(r), q.max(r)));
+            if edge_taken || chosen.iter().any(|c| c.0 == q) {
+                continue;
+            }
+            let coherent = rng.random_bool(0.5);
+            // Half-diamond distance per layer, log-uniform in [1e-3, 4e-2].
+            let hd = 1e-3 * 40f64.powf(rng.random::<f64>());
+            chosen.push((q, r, coherent, hd));
+        }
+        let mut text = null_noise("");
+        for &(q, r, coherent, hd) in &chosen {
+            let term = if coherent {
+                format!("rotation = {{ angle = {}, axis = \"X\" }}", 2.0 * hd.asin())
+            } else {
+                format!("depolarizing = {hd}")
+            };
+            text.push_str(&format!(
+                "[[context]]\nvictim = \"q{q}\"\naggressor = \"q{r}\"\nrole = \"both\"\n{term}\n"
+            ));
+        }
+        let noise = Noise::from_toml_str(&text, Path::new("study.toml"), &layout).unwrap();
+        let rep = audit_once(&layout, &circuits, &noise, 500 + s);
+        let injected = |a: &str, b: &str| {
+            chosen.iter().find(|c| {
+                let (x, y) = (format!("q{}", c.0.min(c.1)), format!("q{}", c.0.max(c.1)));
+                x == a && y == b
+            })
+        };
+        for e in &rep.edges {
+            let hit = injected(&e.a, &e.b);
+            if e.verdict == Verdict::Recalibrate {
+                if hit.is_some() {
+                    tp += 1
+                } else {
+                    fp += 1
+                }
+            }
+            if let Some(c) = hit {
+                inj.push(c.3);
+                rec.push(e.score_tvd_per_layer);
+                if c.3 >= 3e-3 {
+                    strong += 1;
+                    if e.verdict == Verdict::Recalibrate {
+                        strong_found += 1;
+                    }
+                }
+            }
+        }
+    }
+    let precision = tp as f64 / (tp + fp).max(1) as f64;
+    let recall = strong_found as f64 / strong.max(1) as f64;
+    let tau = kendall_tau(&inj, &rec);
+    println!(
+        "20 scenarios, {} injected edges: precision {precision:.3} ({tp} of {}), recall above 3e-3 per layer {recall:.3} ({strong_found} of {strong}), Kendall tau {tau:.3}",
+        inj.len(),
+        tp + fp
+    );
+    assert!(precision >= 0.9 && tau > 0.5);
+}

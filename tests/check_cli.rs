@@ -46,6 +46,27 @@ fn bad_circuit_fixtures_are_refused_with_file_and_reason() {
 }
 
 #[test]
+fn bad_counts_fixtures_are_refused_through_the_binary() {
+    let table = std::fs::read_to_string("tests/fixtures/bad/expect-layout-counts.tsv").unwrap();
+    let mut n = 0;
+    for line in table.lines().filter(|l| !l.starts_with('#') && !l.trim().is_empty()) {
+        let (file, fragment) = line.split_once('\t').expect("file<TAB>fragment");
+        if !file.starts_with("counts-") {
+            continue;
+        }
+        let path = format!("tests/fixtures/bad/{file}");
+        let out = check(&["--circuits", "tests/fixtures/good/circuits.json", "--counts", &path]);
+        let stderr = String::from_utf8_lossy(&out.stderr);
+        assert_eq!(out.status.code(), Some(2), "{file}: {stderr}");
+        assert!(!stderr.contains("panicked"), "{file}: {stderr}");
+        assert!(stderr.contains(&path), "{file}: message does not name the file: {stderr}");
+        assert!(stderr.contains(fragment), "{file}: expected '{fragment}' in: {stderr}");
+        n += 1;
+    }
+    assert!(n >= 20, "only {n} bad counts fixtures");
+}
+
+#[test]
 fn good_inputs_pass_and_summarise() {
     for counts in ["tests/fixtures/good/counts.csv", "tests/fixtures/good/counts.json"] {
         let out = check(&["--circuits", "tests/fixtures/good/circuits.json", "--counts", counts]);
