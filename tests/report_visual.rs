@@ -278,6 +278,7 @@ fn grid_audit(rows: usize, cols: usize, flags: &[Flag]) -> AuditReport {
             message: "q0-q1 has fewer than 10 reference rows".into(),
             hint: "add reference circuits on q0-q1".into(),
         }],
+        rows: Vec::new(),
     }
 }
 

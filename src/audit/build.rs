@@ -342,11 +342,25 @@ pub(crate) fn report(
     let slacks = row_slacks(a, s);
     let (mut before, mut after, mut dof_all, mut needing) = (0.0, 0.0, 0.0, 0usize);
     let mut threshold = 0.0f64;
+    let mut row_reports = Vec::with_capacity(a.used.len());
     for &i in &a.used {
-        let Some(m) = &a.rows.rows[i].marginal else { continue };
+        let row = &a.rows.rows[i];
+        let Some(m) = &row.marginal else { continue };
         let p = &a.predictions[i];
-        before += llr(m, p);
-        after += llr(m, &weaken(p, m, slacks[i]));
+        let (l0, l1) = (llr(m, p), llr(m, &weaken(p, m, slacks[i])));
+        before += l0;
+        after += l1;
+        row_reports.push(RowReport {
+            circuit: a.circuits.circuits[row.circuit as usize].id.clone(),
+            block: row.block.iter().map(|&q| id(q)).collect::<Vec<_>>().join("-"),
+            reference: row.is_reference,
+            shots: row.shots,
+            timed_layers: row.n_timed_layers,
+            llr_before: l0,
+            requirement_tvd: a.requirement[i],
+            slack_tvd: slacks[i],
+            llr_after: l1,
+        });
         dof_all += (m.len() - 1) as f64;
         if a.requirement[i] > 0.0 {
             needing += 1;
@@ -433,5 +447,6 @@ pub(crate) fn report(
         intrinsic,
         readout,
         warnings,
+        rows: row_reports,
     }
 }

@@ -83,6 +83,9 @@ pub struct AnalysisArgs {
     /// No progress bars.
     #[arg(long, short)]
     pub quiet: bool,
+    /// Print each stage's wall time and the peak memory after it to stderr.
+    #[arg(long)]
+    pub timings: bool,
 }
 
 /// Bootstrap resampling scheme.
@@ -160,6 +163,7 @@ pub fn demo(args: DemoArgs) -> anyhow::Result<()> {
         replicate_range: None,
         out: args.out.clone(),
         quiet: args.quiet,
+        timings: false,
     };
     eprintln!("slackmap demo: auditing the bundled scenario in {}", d.display());
     run_audit(&inputs, &d.join("counts.csv"), &analysis)
@@ -199,7 +203,7 @@ fn run_audit(inputs: &InputArgs, counts: &Path, a: &AnalysisArgs) -> anyhow::Res
         let stop = stop.clone();
         let _ = ctrlc::set_handler(move || stop.store(true, std::sync::atomic::Ordering::SeqCst));
     }
-    let bar = Bar::new(a.quiet);
+    let bar = Bar::new(a.quiet).with_timings(a.timings);
     let progress = Cancel { inner: &bar, flag: &stop };
     let (mut rep, replicates) =
         audit::run_parts(&loaded.layout, &loaded.circuits, counts, &cfg, &progress)?;

@@ -139,3 +139,44 @@ impl Render for IntrinsicCsv {
         to_bytes(&header, rows)
     }
 }
+
+/// Renders `rows.csv`: per-row fit diagnostics (written by an audit, not by a re-render).
+pub struct RowsCsv;
+
+impl Render for RowsCsv {
+    fn file_name(&self) -> &'static str {
+        "rows.csv"
+    }
+
+    fn render(&self, r: &AuditReport) -> Vec<u8> {
+        let header = [
+            "circuit",
+            "block",
+            "reference",
+            "shots",
+            "timed_layers",
+            "llr_before",
+            "requirement_tvd",
+            "slack_tvd",
+            "llr_after",
+        ];
+        let rows = r
+            .rows
+            .iter()
+            .map(|x| {
+                vec![
+                    x.circuit.clone(),
+                    x.block.clone(),
+                    x.reference.to_string(),
+                    x.shots.to_string(),
+                    x.timed_layers.to_string(),
+                    x.llr_before.to_string(),
+                    x.requirement_tvd.to_string(),
+                    x.slack_tvd.to_string(),
+                    x.llr_after.to_string(),
+                ]
+            })
+            .collect();
+        to_bytes(&header, rows)
+    }
+}

@@ -55,6 +55,33 @@ pub struct AuditReport {
     pub readout: Vec<ReadoutReport>,
     /// Non-fatal findings, each once.
     pub warnings: Vec<WarningReport>,
+    /// Per-row fit diagnostics, written to `rows.csv` only (not part of `audit.json`, whose
+    /// size they would multiply); empty when a report is re-read from `audit.json`.
+    #[serde(skip)]
+    pub rows: Vec<RowReport>,
+}
+
+/// Fit diagnostics of one row (circuit, block), for `rows.csv`.
+#[derive(Clone, Debug, PartialEq)]
+pub struct RowReport {
+    /// Circuit id.
+    pub circuit: String,
+    /// Block qubit ids joined by '-'.
+    pub block: String,
+    /// True for a reference row (no occurrence had an active neighbour).
+    pub reference: bool,
+    /// Shots of the circuit.
+    pub shots: u64,
+    /// Timed layers of the circuit.
+    pub timed_layers: u32,
+    /// LLR of the crosstalk-free prediction against the row's frequencies.
+    pub llr_before: f64,
+    /// The row's requirement d_row, TVD.
+    pub requirement_tvd: f64,
+    /// The slack the solved budgets give the row, TVD (at least the requirement).
+    pub slack_tvd: f64,
+    /// LLR after the prediction is weakened by that slack.
+    pub llr_after: f64,
 }
 
 /// The layout, as far as a reader of the report needs it.
@@ -406,7 +433,12 @@ pub fn audit_files(report: &AuditReport) -> Vec<(String, Vec<u8>)> {
         &svg::LayoutSvg,
         &html::ReportHtml,
     ];
-    renderers.iter().map(|r| (r.file_name().to_string(), r.render(report))).collect()
+    let mut files: Vec<(String, Vec<u8>)> =
+        renderers.iter().map(|r| (r.file_name().to_string(), r.render(report))).collect();
+    if !report.rows.is_empty() {
+        files.push((csv::RowsCsv.file_name().to_string(), csv::RowsCsv.render(report)));
+    }
+    files
 }
 
 /// Writes files into `dir` atomically: everything goes into a fresh sibling folder that

@@ -292,6 +292,7 @@ impl AuditBuilder {
             intrinsic,
             readout: Vec::new(),
             warnings: Vec::new(),
+            rows: Vec::new(),
         }
     }
 }
