@@ -7,11 +7,14 @@ use std::time::Instant;
 
 use indicatif::{ProgressBar, ProgressDrawTarget, ProgressStyle};
 
+/// One stage: its name, when it started, and the peak memory (KiB) when it ended.
+type Stage = (String, Instant, Option<u64>);
+
 /// A progress display for the library's [`slackmap::audit::Progress`] reports.
 pub struct Bar {
     bar: Option<ProgressBar>,
-    /// (stage, start) of every stage so far, and the peak memory when each ended.
-    stages: Option<Mutex<Vec<(String, Instant, Option<u64>)>>>,
+    /// Every stage so far, when timings were asked for.
+    stages: Option<Mutex<Vec<Stage>>>,
 }
 
 /// The process's peak resident memory so far in KiB (Linux `VmHWM`), when known.
