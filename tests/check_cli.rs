@@ -19,15 +19,21 @@ fn check(args: &[&str]) -> std::process::Output {
         .expect("binary runs")
 }
 
-#[test]
-fn bad_circuit_fixtures_are_refused_with_file_and_reason() {
-    let table = std::fs::read_to_string("tests/fixtures/bad/expect-circuits.tsv").unwrap();
+/// Runs `check` on every fixture of `table` whose name starts with `prefix`, with the extra
+/// arguments `args(path)`, and asserts exit code 2, a message naming the file and holding the
+/// listed fragment, and no panic. Returns how many fixtures ran.
+fn refuses_all(table: &str, prefix: &str, args: impl Fn(&str) -> Vec<String>) -> usize {
+    let text = std::fs::read_to_string(format!("tests/fixtures/bad/{table}")).unwrap();
     let mut n = 0;
-    for line in table.lines().filter(|l| !l.starts_with('#') && !l.trim().is_empty()) {
+    for line in text.lines().filter(|l| !l.starts_with('#') && !l.trim().is_empty()) {
         let (file, fragment) = line.split_once('\t').expect("file<TAB>fragment");
+        if !file.starts_with(prefix) {
+            continue;
+        }
         let path = format!("tests/fixtures/bad/{file}");
         assert!(Path::new(&path).exists(), "{path} is listed but missing");
-        let out = check(&["--circuits", &path]);
+        let a = args(&path);
+        let out = check(&a.iter().map(String::as_str).collect::<Vec<_>>());
         let stderr = String::from_utf8_lossy(&out.stderr);
         assert_eq!(out.status.code(), Some(2), "{file}: {stderr}");
         assert!(!stderr.contains("panicked"), "{file}: {stderr}");
@@ -35,34 +41,33 @@ fn bad_circuit_fixtures_are_refused_with_file_and_reason() {
         assert!(stderr.contains(fragment), "{file}: expected '{fragment}' in: {stderr}");
         n += 1;
     }
-    assert!(n >= 20, "only {n} bad circuit fixtures");
     // Every fixture on disk is listed, so none is silently skipped.
     for e in std::fs::read_dir("tests/fixtures/bad").unwrap() {
         let name = e.unwrap().file_name().to_string_lossy().into_owned();
-        if name.starts_with("circuits-") {
-            assert!(table.lines().any(|l| l.split('\t').next() == Some(&name)), "{name} unlisted");
+        if name.starts_with(prefix) {
+            assert!(text.lines().any(|l| l.split('\t').next() == Some(&name)), "{name} unlisted");
         }
     }
+    n
+}
+
+#[test]
+fn bad_circuit_fixtures_are_refused_with_file_and_reason() {
+    let n =
+        refuses_all("expect-circuits.tsv", "circuits-", |p| vec!["--circuits".into(), p.into()]);
+    assert!(n >= 20, "only {n} bad circuit fixtures");
 }
 
 #[test]
 fn bad_counts_fixtures_are_refused_through_the_binary() {
-    let table = std::fs::read_to_string("tests/fixtures/bad/expect-layout-counts.tsv").unwrap();
-    let mut n = 0;
-    for line in table.lines().filter(|l| !l.starts_with('#') && !l.trim().is_empty()) {
-        let (file, fragment) = line.split_once('\t').expect("file<TAB>fragment");
-        if !file.starts_with("counts-") {
-            continue;
-        }
-        let path = format!("tests/fixtures/bad/{file}");
-        let out = check(&["--circuits", "tests/fixtures/good/circuits.json", "--counts", &path]);
-        let stderr = String::from_utf8_lossy(&out.stderr);
-        assert_eq!(out.status.code(), Some(2), "{file}: {stderr}");
-        assert!(!stderr.contains("panicked"), "{file}: {stderr}");
-        assert!(stderr.contains(&path), "{file}: message does not name the file: {stderr}");
-        assert!(stderr.contains(fragment), "{file}: expected '{fragment}' in: {stderr}");
-        n += 1;
-    }
+    let n = refuses_all("expect-layout-counts.tsv", "counts-", |p| {
+        vec![
+            "--circuits".into(),
+            "tests/fixtures/good/circuits.json".into(),
+            "--counts".into(),
+            p.into(),
+        ]
+    });
     assert!(n >= 20, "only {n} bad counts fixtures");
 }
 

@@ -353,30 +353,21 @@ fn fit_model(
         }
     };
     progress.stage("fitting qubits", qubit_rows.len() as u64);
-    let qubit_fits: Vec<(Option<FitResult>, bool)> = qubit_rows
-        .par_iter()
-        .map(|list| {
-            let out = if list.is_empty() {
-                Ok((None, false))
-            } else {
-                let (sel, all) = select(list);
-                model::fit_qubit(&sel, spec, start, &options).map(|f| (Some(f), all))
-            };
-            progress.advance(1);
-            out
-        })
-        .collect::<Result<_>>()?;
+    let qubit_fits = fit_each(
+        qubit_rows,
+        &select,
+        &|sel| model::fit_qubit(sel, spec, start, &options),
+        progress,
+    )?;
     let mut params = match start {
         Some(p) => p.clone(),
         None => Params::initial(spec)?,
     };
-    let mut touched = vec![false; spec.kind_arity.len()];
     for (q, (fit, all)) in qubit_fits.iter().enumerate() {
         let Some(fit) = fit else { continue };
         params.readout[q] = fit.params.readout[q];
         for kf in &fit.kinds {
             params.kinds[kf.kind] = fit.params.kinds[kf.kind].clone();
-            touched[kf.kind] = true;
         }
         if *all {
             warnings.push(Warning::new(
@@ -392,26 +383,18 @@ fn fit_model(
     }
     check_cancel(progress)?;
     progress.stage("fitting couplers", coupler_rows.len() as u64);
-    let coupler_fits: Vec<(Option<FitResult>, bool)> = coupler_rows
-        .par_iter()
-        .map(|list| {
-            let out = if list.is_empty() {
-                Ok((None, false))
-            } else {
-                let (sel, all) = select(list);
-                model::fit_coupler(&sel, spec, &params, start, &options).map(|f| (Some(f), all))
-            };
-            progress.advance(1);
-            out
-        })
-        .collect::<Result<_>>()?;
+    let coupler_fits = fit_each(
+        coupler_rows,
+        &select,
+        &|sel| model::fit_coupler(sel, spec, &params, start, &options),
+        progress,
+    )?;
     for (c, (fit, all)) in coupler_fits.iter().enumerate() {
         let Some(fit) = fit else { continue };
         let (a, b) = layout.couplers[c];
         let name = format!("{}-{}", layout.id(a), layout.id(b));
         for kf in &fit.kinds {
             params.kinds[kf.kind] = fit.params.kinds[kf.kind].clone();
-            touched[kf.kind] = true;
         }
         if *all {
             warnings.push(Warning::new(
@@ -439,6 +422,32 @@ fn fit_model(
         fitted_on_all_rows_qubits,
         fitted_on_all_rows_couplers,
     })
+}
+
+/// Picks the rows to fit from a row list, and says whether they are all its rows for want of
+/// reference rows.
+type Select<'a> = dyn Fn(&[usize]) -> (Vec<PreparedRow>, bool) + Sync + 'a;
+
+/// One fit per row list (a qubit's or a coupler's), in parallel.
+fn fit_each(
+    lists: &[Vec<usize>],
+    select: &Select,
+    fit: &(dyn Fn(&[PreparedRow]) -> Result<FitResult> + Sync),
+    progress: &dyn Progress,
+) -> Result<Vec<(Option<FitResult>, bool)>> {
+    lists
+        .par_iter()
+        .map(|list| {
+            let out = if list.is_empty() {
+                Ok((None, false))
+            } else {
+                let (sel, all) = select(list);
+                fit(&sel).map(|f| (Some(f), all))
+            };
+            progress.advance(1);
+            out
+        })
+        .collect()
 }
 
 fn prefix(w: Warning, who: &str) -> Warning {
