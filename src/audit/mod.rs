@@ -576,13 +576,20 @@ pub(crate) fn rescore(
             .collect()
     });
     let all: &[rows::Row] = owned.as_deref().unwrap_or(&a.rows.rows);
-    let prepared: Vec<Option<PreparedRow>> = (0..n)
-        .into_par_iter()
-        .map(|i| match (&data.counts[i], &a.prepared[src(i)]) {
-            (Some(c), Some(p)) => p.with_counts(c.clone()).map(Some),
-            _ => Ok(None),
-        })
-        .collect::<Result<_>>()?;
+    // Without a refit on the original rows the model's predictions are already known, so
+    // the rows need no recompiling (the parametric null's case).
+    let needs_model = refit || data.source.is_some();
+    let prepared: Vec<Option<PreparedRow>> = if needs_model {
+        (0..n)
+            .into_par_iter()
+            .map(|i| match (&data.counts[i], &a.prepared[src(i)]) {
+                (Some(c), Some(p)) => p.with_counts(c.clone()).map(Some),
+                _ => Ok(None),
+            })
+            .collect::<Result<_>>()?
+    } else {
+        Vec::new()
+    };
     let params = if refit {
         let mut ignored = Vec::new();
         fit_model(
@@ -602,7 +609,7 @@ pub(crate) fn rescore(
     };
     check_cancel(progress)?;
     let computed: Vec<Vec<f64>>;
-    let predictions: &[Vec<f64>] = if !refit && data.source.is_none() {
+    let predictions: &[Vec<f64>] = if !needs_model {
         &a.predictions
     } else {
         computed = prepared
