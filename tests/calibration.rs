@@ -3,6 +3,8 @@
 //! coverage of the edge score's interval against a 100x-shot run of the same scenario.
 //! Each study prints its measured rates; the slower full-size studies are `#[ignore]`d.
 
+mod common;
+
 use slackmap::audit::{self, AuditConfig, Silent};
 use slackmap::circuit::CircuitSet;
 use slackmap::confidence::{self, intervals, BootstrapConfig, Resample};
@@ -11,20 +13,6 @@ use slackmap::layout::{generate, Layout};
 use slackmap::model::Family;
 use slackmap::report::{AuditReport, Verdict};
 use slackmap::simulate::{self, Noise, SimConfig};
-
-const BASE: &str = r#"schema = 1
-[intrinsic.sx]
-depolarizing = 1.0e-3
-[intrinsic.x]
-depolarizing = 1.0e-3
-[intrinsic.id]
-depolarizing = 2.0e-4
-[intrinsic.cz]
-depolarizing = 1.0e-2
-[readout]
-p1_given_0 = 0.01
-p0_given_1 = 0.02
-"#;
 
 /// Victim and aggressor of the injected edge.
 const VICTIM: &str = "q1";
@@ -43,7 +31,7 @@ fn scenario(design_seed: u64) -> Scenario {
 }
 
 fn noise(s: &Scenario, rate: f64) -> Noise {
-    let mut text = BASE.to_string();
+    let mut text = common::BASE_NOISE.to_string();
     if rate > 0.0 {
         text.push_str(&format!(
             "[[context]]\nvictim = \"{VICTIM}\"\naggressor = \"{AGGRESSOR}\"\nrole = \"both\"\ndepolarizing = {rate:e}\n"

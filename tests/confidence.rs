@@ -7,19 +7,8 @@ use std::path::Path;
 
 use common::slackmap;
 
-const NOISE: &str = r#"schema = 1
-[intrinsic.sx]
-depolarizing = 1.0e-3
-[intrinsic.x]
-depolarizing = 1.0e-3
-[intrinsic.id]
-depolarizing = 2.0e-4
-[intrinsic.cz]
-depolarizing = 1.0e-2
-[readout]
-p1_given_0 = 0.01
-p0_given_1 = 0.02
-[[context]]
+/// The base noise with q2 disturbing q1.
+const CONTEXT: &str = r#"[[context]]
 victim = "q1"
 aggressor = "q2"
 role = "both"
@@ -33,7 +22,7 @@ fn scenario(dir: &Path) {
         assert!(out.status.success(), "{args:?}: {}", String::from_utf8_lossy(&out.stderr));
     };
     ok(&["layout", "new", "chain", "4", "--out", "layout.toml"]);
-    std::fs::write(dir.join("noise.toml"), NOISE).unwrap();
+    std::fs::write(dir.join("noise.toml"), format!("{}{CONTEXT}", common::BASE_NOISE)).unwrap();
     ok(&["design", "--layout", "layout.toml", "--out", "d", "--depths", "1,8", "--sequences", "2"]);
     ok(&[
         "simulate",

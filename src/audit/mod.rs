@@ -366,20 +366,9 @@ fn fit_model(
     for (q, (fit, all)) in qubit_fits.iter().enumerate() {
         let Some(fit) = fit else { continue };
         params.readout[q] = fit.params.readout[q];
-        for kf in &fit.kinds {
-            params.kinds[kf.kind] = fit.params.kinds[kf.kind].clone();
-        }
-        if *all {
-            warnings.push(Warning::new(
-                "no-reference-rows",
-                format!(
-                    "qubit {} has no reference rows: its model was fitted on all its rows, so its context slack is only a lower bound",
-                    layout.id(q)
-                ),
-                "add circuits where this qubit runs while every neighbour idles",
-            ));
-        }
-        warnings.extend(fit.warnings.iter().cloned().map(|w| prefix(w, layout.id(q))));
+        let who = format!("qubit {}", layout.id(q));
+        let hint = "add circuits where this qubit runs while every neighbour idles";
+        absorb(&mut params, fit, *all, &who, "its model", hint, warnings);
     }
     check_cancel(progress)?;
     progress.stage("fitting couplers", coupler_rows.len() as u64);
@@ -392,29 +381,12 @@ fn fit_model(
     for (c, (fit, all)) in coupler_fits.iter().enumerate() {
         let Some(fit) = fit else { continue };
         let (a, b) = layout.couplers[c];
-        let name = format!("{}-{}", layout.id(a), layout.id(b));
-        for kf in &fit.kinds {
-            params.kinds[kf.kind] = fit.params.kinds[kf.kind].clone();
-        }
-        if *all {
-            warnings.push(Warning::new(
-                "no-reference-rows",
-                format!(
-                    "coupler {name} has no reference rows: its two-qubit gate was fitted on all its rows, so its context slack is only a lower bound"
-                ),
-                "add circuits where this coupler runs while its neighbours idle",
-            ));
-        }
-        warnings.extend(fit.warnings.iter().cloned().map(|w| prefix(w, &name)));
+        let who = format!("coupler {}-{}", layout.id(a), layout.id(b));
+        let hint = "add circuits where this coupler runs while its neighbours idle";
+        absorb(&mut params, fit, *all, &who, "its two-qubit gate", hint, warnings);
     }
-    let mut fitted_on_all_rows_qubits = vec![false; layout.n_qubits()];
-    let mut fitted_on_all_rows_couplers = vec![false; layout.couplers.len()];
-    for (q, (_, all)) in qubit_fits.iter().enumerate() {
-        fitted_on_all_rows_qubits[q] = *all;
-    }
-    for (c, (_, all)) in coupler_fits.iter().enumerate() {
-        fitted_on_all_rows_couplers[c] = *all;
-    }
+    let fitted_on_all_rows_qubits = qubit_fits.iter().map(|f| f.1).collect();
+    let fitted_on_all_rows_couplers = coupler_fits.iter().map(|f| f.1).collect();
     Ok(Fitted {
         params,
         qubit_fits: qubit_fits.into_iter().map(|x| x.0).collect(),
@@ -448,6 +420,33 @@ fn fit_each(
             out
         })
         .collect()
+}
+
+/// Takes a qubit's or a coupler's fitted kinds into the model and records its warnings,
+/// loudly when it had to be fitted on all its rows (method.md section 3).
+fn absorb(
+    params: &mut Params,
+    fit: &FitResult,
+    all_rows: bool,
+    who: &str,
+    what: &str,
+    hint: &str,
+    warnings: &mut Vec<Warning>,
+) {
+    for kf in &fit.kinds {
+        params.kinds[kf.kind] = fit.params.kinds[kf.kind].clone();
+    }
+    if all_rows {
+        warnings.push(Warning::new(
+            "no-reference-rows",
+            format!(
+                "{who} has no reference rows: {what} was fitted on all its rows, so its context slack is only a lower bound"
+            ),
+            hint,
+        ));
+    }
+    let name = who.split_once(' ').map_or(who, |x| x.1);
+    warnings.extend(fit.warnings.iter().cloned().map(|w| prefix(w, name)));
 }
 
 fn prefix(w: Warning, who: &str) -> Warning {

@@ -47,6 +47,22 @@ pub fn slackmap() -> Command {
     Command::cargo_bin("slackmap").expect("the slackmap binary is built for integration tests")
 }
 
+/// A crosstalk-free noise file for small simulated scenarios: intrinsic errors of the usual
+/// magnitudes (one-qubit 1e-3, idle 2e-4, two-qubit 1e-2, readout 1-2%; common practice).
+pub const BASE_NOISE: &str = r#"schema = 1
+[intrinsic.sx]
+depolarizing = 1.0e-3
+[intrinsic.x]
+depolarizing = 1.0e-3
+[intrinsic.id]
+depolarizing = 2.0e-4
+[intrinsic.cz]
+depolarizing = 1.0e-2
+[readout]
+p1_given_0 = 0.01
+p0_given_1 = 0.02
+"#;
+
 mod builder;
 #[allow(unused_imports)]
 pub use builder::*;
