@@ -1,9 +1,11 @@
-//! Two audits side by side: per edge and per qubit, the change of score from A to B, an
-//! interval for it, and whether it improved, got worse or stayed within noise.
+//! Two audits side by side: per edge and per qubit, the change of the unlimited-shot
+//! estimate from A to B, an interval for it, and whether it improved, got worse or stayed
+//! within noise. Estimates, not scores, are compared: a score allows for its own audit's shot
+//! noise, so two audits with different shot counts would differ in score for that alone.
 //!
 //! Intervals are basic bootstrap intervals for the difference, 2 d - quantiles of the
 //! replicate differences (Davison & Hinkley, Bootstrap Methods and their Application, 1997,
-//! ch. 5, eq. 5.6), from the two audits' stored replicate scores: replicate i of A paired
+//! ch. 5, eq. 5.6), from the two audits' stored replicate estimates: replicate i of A paired
 //! with replicate i of B when both audits ran the same number, otherwise every difference
 //! of an A replicate and a B replicate (the two bootstrap distributions taken as
 //! independent). Quantiles are Hyndman & Fan (1996) type 7. Without replicates an edge only
@@ -20,7 +22,7 @@ use crate::report::terminal::per_mille;
 use crate::report::{AuditReport, Confidence, EdgeReport, Verdict, CAUTION};
 
 /// Version of the `compare.json` format written by this build.
-pub const SCHEMA: u32 = 1;
+pub const SCHEMA: u32 = 2;
 
 /// Validated settings of a comparison.
 #[derive(Clone, Copy, Debug, PartialEq)]
@@ -259,10 +261,10 @@ pub struct EdgeChange {
     pub b: String,
     /// Where the edge appears.
     pub presence: Presence,
-    /// Edge score in A, TVD per layer.
-    pub score_a_tvd_per_layer: Option<f64>,
-    /// Edge score in B, TVD per layer.
-    pub score_b_tvd_per_layer: Option<f64>,
+    /// Edge estimate in A, TVD per layer.
+    pub estimate_a_tvd_per_layer: Option<f64>,
+    /// Edge estimate in B, TVD per layer.
+    pub estimate_b_tvd_per_layer: Option<f64>,
     /// Verdict in A.
     pub verdict_a: Option<Verdict>,
     /// Verdict in B.
@@ -279,9 +281,9 @@ pub struct QubitChange {
     pub qubit: String,
     /// Where the qubit appears.
     pub presence: Presence,
-    /// Intrinsic slack in A, TVD per occurrence.
+    /// Intrinsic estimate in A (unlimited-shot), TVD per occurrence.
     pub intrinsic_a_tvd_per_occurrence: Option<f64>,
-    /// Intrinsic slack in B, TVD per occurrence.
+    /// Intrinsic estimate in B (unlimited-shot), TVD per occurrence.
     pub intrinsic_b_tvd_per_occurrence: Option<f64>,
     /// B - A, TVD per occurrence, with its interval and verdict ("no interval" when either
     /// audit lacks intrinsic replicates).
@@ -344,7 +346,7 @@ fn intrinsic_per_qubit(r: &AuditReport) -> BTreeMap<String, QubitSlack> {
                     1.0 / kinds.len() as f64
                 }
             };
-            let value = kinds.iter().map(|k| weight(k) * k.slack_tvd_per_occurrence).sum();
+            let value = kinds.iter().map(|k| weight(k) * k.estimate_tvd_per_occurrence).sum();
             let n = replicates(&kinds[0].confidence).len();
             let same = n > 0 && kinds.iter().all(|k| replicates(&k.confidence).len() == n);
             let reps = if same {
@@ -387,14 +389,14 @@ pub fn compare(
                 a: ea.a.clone(),
                 b: ea.b.clone(),
                 presence: Presence::Both,
-                score_a_tvd_per_layer: Some(ea.score_tvd_per_layer),
-                score_b_tvd_per_layer: Some(eb.score_tvd_per_layer),
+                estimate_a_tvd_per_layer: Some(ea.estimate_tvd_per_layer),
+                estimate_b_tvd_per_layer: Some(eb.estimate_tvd_per_layer),
                 verdict_a: Some(ea.verdict),
                 verdict_b: Some(eb.verdict),
                 difference_tvd_per_layer: difference(
-                    ea.score_tvd_per_layer,
+                    ea.estimate_tvd_per_layer,
                     replicates(&ea.confidence),
-                    eb.score_tvd_per_layer,
+                    eb.estimate_tvd_per_layer,
                     replicates(&eb.confidence),
                     ea.detection_limit_tvd_per_layer.max(eb.detection_limit_tvd_per_layer),
                     level,
@@ -404,8 +406,8 @@ pub fn compare(
                 a: ea.a.clone(),
                 b: ea.b.clone(),
                 presence: Presence::OnlyA,
-                score_a_tvd_per_layer: Some(ea.score_tvd_per_layer),
-                score_b_tvd_per_layer: None,
+                estimate_a_tvd_per_layer: Some(ea.estimate_tvd_per_layer),
+                estimate_b_tvd_per_layer: None,
                 verdict_a: Some(ea.verdict),
                 verdict_b: None,
                 difference_tvd_per_layer: one_only(),
@@ -418,8 +420,8 @@ pub fn compare(
             a: eb.a.clone(),
             b: eb.b.clone(),
             presence: Presence::OnlyB,
-            score_a_tvd_per_layer: None,
-            score_b_tvd_per_layer: Some(eb.score_tvd_per_layer),
+            estimate_a_tvd_per_layer: None,
+            estimate_b_tvd_per_layer: Some(eb.estimate_tvd_per_layer),
             verdict_a: None,
             verdict_b: Some(eb.verdict),
             difference_tvd_per_layer: one_only(),
@@ -577,8 +579,8 @@ pub fn terminal(r: &CompareReport, max_rows: usize) -> String {
     let mut t = new_table();
     t.set_header(vec![
         "edge",
-        "A x1e-3",
-        "B x1e-3",
+        "estimate A x1e-3",
+        "estimate B x1e-3",
         "B-A x1e-3",
         "interval x1e-3",
         "verdicts A -> B",
@@ -589,8 +591,8 @@ pub fn terminal(r: &CompareReport, max_rows: usize) -> String {
         let word = |v: Option<Verdict>| v.map_or("-", |v| v.word());
         t.add_row(vec![
             Cell::new(format!("{}-{}", e.a, e.b)),
-            right(opt_pm(e.score_a_tvd_per_layer)),
-            right(opt_pm(e.score_b_tvd_per_layer)),
+            right(opt_pm(e.estimate_a_tvd_per_layer)),
+            right(opt_pm(e.estimate_b_tvd_per_layer)),
             right(d.estimate.map(signed_pm).unwrap_or_else(|| "-".into())),
             right(interval_text(d)),
             Cell::new(format!("{} -> {}", word(e.verdict_a), word(e.verdict_b))),
@@ -657,8 +659,8 @@ pub fn csv_bytes(r: &CompareReport) -> Vec<u8> {
             e.b.clone(),
             e.presence.word().to_string(),
             "tvd_per_layer".into(),
-            f(e.score_a_tvd_per_layer),
-            f(e.score_b_tvd_per_layer),
+            f(e.estimate_a_tvd_per_layer),
+            f(e.estimate_b_tvd_per_layer),
             f(d.estimate),
             f(d.low),
             f(d.high),
@@ -781,7 +783,7 @@ pub fn svg(r: &CompareReport) -> String {
     let _ = writeln!(s, "<rect width=\"100%\" height=\"100%\" fill=\"#fcfcfa\"/>");
     let _ = writeln!(
         s,
-        "<text x=\"12\" y=\"22\" font-size=\"14\" fill=\"#222\">Change of edge score, B ({}) minus A ({})</text>",
+        "<text x=\"12\" y=\"22\" font-size=\"14\" fill=\"#222\">Change of edge estimate, B ({}) minus A ({})</text>",
         xml(&r.b.layout),
         xml(&r.a.layout)
     );
@@ -792,8 +794,8 @@ pub fn svg(r: &CompareReport) -> String {
             "{}-{}: A {} B {} x1e-3 per layer, {}",
             e.a,
             e.b,
-            opt_pm(e.score_a_tvd_per_layer),
-            opt_pm(e.score_b_tvd_per_layer),
+            opt_pm(e.estimate_a_tvd_per_layer),
+            opt_pm(e.estimate_b_tvd_per_layer),
             change_text(d, e.presence)
         );
         match (e.presence, d.estimate) {

@@ -1,7 +1,7 @@
 //! Calibration of detection and intervals on simulated scenarios (method.md section 5):
 //! false detections on null scenarios, power at three times the detection limit, and
-//! coverage of the edge score's interval against a 100x-shot run of the same scenario.
-//! Each study prints its measured rates; the slower full-size studies are `#[ignore]`d.
+//! coverage of the edge's interval against a 100x-shot run of the same scenario. Each
+//! study prints its measured rates (`--nocapture`).
 
 mod common;
 
@@ -102,28 +102,47 @@ fn null_scenarios_detect_at_most_alpha() {
     assert!(rate <= allowance(0.05, SEEDS as usize), "false detection rate {rate}");
 }
 
-/// The injected rate detected in about half the seeds at these settings (chain of 4,
-/// depths 1, 8, 32, two sequences, 1000 shots): 2 of 4 seeds at 4e-3, 0 of 4 at 2e-3,
-/// 4 of 4 at 8e-3, measured by the ignored `explore` study. On null data every score
-/// is zero, so the permutation-null limit itself is no yardstick for an effect size.
-const DETECTION_LIMIT_RATE: f64 = 4e-3;
+fn directed<'r>(r: &'r AuditReport, v: &str, a: &str) -> &'r slackmap::report::DirectedReport {
+    r.directed.iter().find(|d| d.victim == v && d.aggressor == a).unwrap()
+}
 
-/// Measured (release, 20 seeds, 40 replicates): detected 16/20; the 95% interval holds the
-/// 100x-shot score in 4/20 seeds (percentile), 0/20 (basic), 0/20 (bias-corrected). The
-/// estimate sits below the 100x-shot score (its row threshold allows for shot noise,
-/// which shrinks with more shots), a bias none of the three intervals corrects; so this
-/// study is not yet passing and is kept out of the default run.
-#[test]
-#[ignore]
-fn injected_edge_at_three_limits_is_found_and_covered() {
+/// Seeds (of `n` from `first`) in which the injected edge is detected at `rate`.
+fn detections(s: &Scenario, rate: f64, shots: u64, first: u64, n: u64) -> usize {
+    let noise = noise(s, rate);
+    (first..first + n)
+        .filter(|&seed| detected(edge(&run(s, &noise, shots, seed, 39, 0), VICTIM, AGGRESSOR)))
+        .count()
+}
+
+/// The detection limit as a rate: the smallest depolarizing context rate on a factor-sqrt(2)
+/// ladder from 2.5e-4 that is detected in at least half of ten seeds (the level of 50%
+/// detection, for a ladder step no finer than the seeds can resolve).
+fn detection_limit_rate(s: &Scenario, shots: u64) -> f64 {
+    let mut rate = 2.5e-4;
+    while detections(s, rate, shots, 500, 10) < 5 {
+        rate *= std::f64::consts::SQRT_2;
+        assert!(rate < 0.1, "nothing below 0.1 is detected");
+    }
+    rate
+}
+
+/// Power and coverage at three times the detection limit (method.md section 5).
+///
+/// Measured (release, 20 seeds, 100 replicates): at 1000 shots the 50%-detection rate is
+/// 2.83e-3 and at three times it the edge is detected in 20/20 seeds; the basic interval
+/// holds the 100x-shot score in 19/20 (percentile 1/20, bias-corrected 5/20). At 300 shots:
+/// 5.66e-3, 20/20, and 19/20 (2/20, 10/20). Run with `--nocapture` to see the figures.
+fn power_and_coverage(shots: u64) -> (usize, [usize; 3], [usize; 3], f64) {
     let s = scenario(1);
-    let rate = 3.0 * DETECTION_LIMIT_RATE;
+    let limit = detection_limit_rate(&s, shots);
+    let rate = 3.0 * limit;
     let n = noise(&s, rate);
-    let big = run(&s, &n, 100 * SHOTS, 9_999, 0, 0);
+    let big = run(&s, &n, 100 * shots, 9_999, 0, 0);
     let truth = edge(&big, VICTIM, AGGRESSOR).score_tvd_per_layer;
-    let (mut found, mut covered) = (0, [0usize; 3]);
+    let truth_estimate = edge(&big, VICTIM, AGGRESSOR).estimate_tvd_per_layer;
+    let (mut found, mut covered, mut covered_estimate) = (0, [0usize; 3], [0usize; 3]);
     for seed in 0..SEEDS {
-        let r = run(&s, &n, SHOTS, 200 + seed, 39, 40);
+        let r = run(&s, &n, shots, 200 + seed, 39, 100);
         let e = edge(&r, VICTIM, AGGRESSOR);
         found += detected(e) as usize;
         let c = e.confidence.as_ref().unwrap();
@@ -136,36 +155,60 @@ fn injected_edge_at_three_limits_is_found_and_covered() {
         .enumerate()
         {
             let i =
-                intervals::interval(e.score_tvd_per_layer, &c.replicates_tvd_per_layer, 0.95, m);
+                intervals::interval(e.estimate_tvd_per_layer, &c.replicates_tvd_per_layer, 0.95, m);
             covered[j] += (i.low <= truth && truth <= i.high) as usize;
+            covered_estimate[j] += (i.low <= truth_estimate && truth_estimate <= i.high) as usize;
         }
     }
     eprintln!(
-        "injected rate {rate:.2e} (100x-shot score {truth:.2e}): detected {found}/{SEEDS}; 95% coverage percentile {}/{SEEDS}, basic {}/{SEEDS}, bias-corrected {}/{SEEDS}",
-        covered[0], covered[1], covered[2]
+        "{shots} shots: 50%-detection rate {limit:.2e}; at 3x ({rate:.2e}; 100x-shot score {truth:.2e}, estimate {truth_estimate:.2e}): detected {found}/{SEEDS}; 95% interval holds the 100x score: percentile {}, basic {}, bias-corrected {} of {SEEDS}; holds the 100x estimate: {}, {}, {}",
+        covered[0], covered[1], covered[2], covered_estimate[0], covered_estimate[1], covered_estimate[2]
     );
-    assert!(found as f64 >= 0.9 * SEEDS as f64, "detected in {found}/{SEEDS} seeds");
-    let chosen = match confidence::METHOD {
-        intervals::Method::Percentile => covered[0],
-        intervals::Method::Basic => covered[1],
-        intervals::Method::BiasCorrected => covered[2],
-    };
-    assert!(chosen as f64 >= 0.85 * SEEDS as f64, "coverage {chosen}/{SEEDS}");
+    (found, covered, covered_estimate, rate)
+}
+
+fn chosen(c: [usize; 3]) -> usize {
+    match confidence::METHOD {
+        intervals::Method::Percentile => c[0],
+        intervals::Method::Basic => c[1],
+        intervals::Method::BiasCorrected => c[2],
+    }
 }
 
 #[test]
-#[ignore]
-fn explore() {
+fn injected_edge_at_three_limits_is_found_and_covered() {
+    let (found, covered, _, _) = power_and_coverage(SHOTS);
+    assert!(found as f64 >= 0.9 * SEEDS as f64, "detected in {found}/{SEEDS} seeds");
+    let c = chosen(covered);
+    assert!(c as f64 >= 0.85 * SEEDS as f64, "coverage {c}/{SEEDS}");
+}
+
+/// The same study at 300 shots, where the threshold's allowance is larger.
+#[test]
+fn injected_edge_at_three_limits_300_shots() {
+    let (found, covered, _, _) = power_and_coverage(300);
+    assert!(found as f64 >= 0.9 * SEEDS as f64, "detected in {found}/{SEEDS} seeds");
+    let c = chosen(covered);
+    assert!(c as f64 >= 0.85 * SEEDS as f64, "coverage {c}/{SEEDS}");
+}
+
+/// The audit's sensitivity (first order) sits below the 50%-detection level, as a floor
+/// should, and within an order of magnitude of it.
+#[test]
+fn sensitivity_is_a_floor_under_detection() {
     let s = scenario(1);
-    for rate in [2e-3, 4e-3, 8e-3, 1.2e-2] {
-        let n = noise(&s, rate);
-        let big = run(&s, &n, 100 * SHOTS, 9_999, 0, 0);
-        let truth = edge(&big, VICTIM, AGGRESSOR).score_tvd_per_layer;
-        for seed in 0..4 {
-            let r = run(&s, &n, SHOTS, 200 + seed, 39, 40);
-            let e = edge(&r, VICTIM, AGGRESSOR);
-            let c = e.confidence.as_ref().unwrap();
-            eprintln!("rate {rate:.1e} truth {truth:.2e} est {:.2e} limit {:.2e} loo {:.2e} med {:.2e} {:?}", e.score_tvd_per_layer, e.detection_limit_tvd_per_layer, e.leave_one_out_tvd_per_layer, c.median_tvd_per_layer, e.verdict);
-        }
-    }
+    let null = run(&s, &noise(&s, 0.0), SHOTS, 77, 39, 0);
+    let sens = directed(&null, VICTIM, AGGRESSOR).sensitivity_tvd_per_layer;
+    let limit = detection_limit_rate(&s, SHOTS);
+    // The estimate the 50%-detection rate produces, from a 100x-shot run.
+    let big = run(&s, &noise(&s, limit), 100 * SHOTS, 9_999, 0, 0);
+    let at_limit = directed(&big, VICTIM, AGGRESSOR).estimate_tvd_per_layer;
+    eprintln!(
+        "sensitivity {sens:.2e}; estimate at the 50%-detection rate {limit:.2e}: {at_limit:.2e}"
+    );
+    assert!(sens > 0.0 && sens.is_finite());
+    assert!(
+        sens < at_limit && at_limit < 20.0 * sens,
+        "sensitivity {sens:.2e} against {at_limit:.2e}"
+    );
 }

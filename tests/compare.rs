@@ -100,7 +100,7 @@ fn fixtures_match_their_generator() {
 fn the_improved_edge_is_improved_and_the_rest_unchanged() {
     let dir = Path::new(FIXTURES);
     let (f, out) = run_compare(&dir.join("before.json"), &dir.join("after.json"), &[]);
-    assert_eq!(f.schema, 1);
+    assert_eq!(f.schema, 2);
     assert!((f.level - 0.95).abs() < 1e-12);
     let e = edge(&f, "q5", "q6");
     assert_eq!(e.difference_tvd_per_layer.change.as_deref(), Some("improved"));

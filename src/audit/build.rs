@@ -157,9 +157,11 @@ pub(crate) fn report(
     a: &Analysis,
     s: &Solved,
     x: &Assessed,
+    estimate: &(Vec<f64>, Vec<f64>),
     cfg: &AuditConfig,
     parametric: Option<&[(f64, f64)]>,
 ) -> AuditReport {
+    let (est_directed, est_intrinsic) = estimate;
     let par = |i: usize| parametric.and_then(|p| p.get(i).copied());
     let finite = |v: f64| v.is_finite().then_some(v);
     let layout = a.layout;
@@ -175,6 +177,8 @@ pub(crate) fn report(
             victim: id(d.victim),
             aggressor: id(d.aggressor),
             score_tvd_per_layer: d.score,
+            estimate_tvd_per_layer: est_directed[i],
+            sensitivity_tvd_per_layer: d.sensitivity,
             driven_tvd_per_layer: d.driven,
             idle_tvd_per_layer: d.idle,
             attribution_min_tvd_per_layer: d.attribution.0,
@@ -239,6 +243,8 @@ pub(crate) fn report(
                 a_from_b_tvd_per_layer: ab.score,
                 b_from_a_tvd_per_layer: ba.score,
                 rank: None,
+                estimate_tvd_per_layer: est_directed[iab].max(est_directed[iba]),
+                sensitivity_tvd_per_layer: ab.sensitivity.max(ba.sensitivity),
                 detection_limit_tvd_per_layer: main.limit,
                 p_value: main.p_value,
                 attribution_min_tvd_per_layer: main.attribution.0,
@@ -291,6 +297,7 @@ pub(crate) fn report(
                 occurrences: occ[&k].0,
                 reference_occurrences: occ[&k].1,
                 slack_tvd_per_occurrence: omega(k),
+                estimate_tvd_per_occurrence: est_intrinsic[k as usize],
                 fitted_error_rate: fit_of(k).unwrap_or(f64::NAN),
                 fitted_on_all_rows: all_rows,
                 qubits: kind.qubits().iter().map(|&q| id(q)).collect(),

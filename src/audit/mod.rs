@@ -129,6 +129,9 @@ pub(crate) struct Analysis<'a> {
     pub used: Vec<usize>,
     pub predictions: Vec<Vec<f64>>,
     pub requirement: Vec<f64>,
+    /// Deviation requirements (TVD(p, f) on rows with a positive requirement, else 0): the
+    /// requirements of the unlimited-shot estimate.
+    pub deviation: Vec<f64>,
     /// 1q rows per qubit and 2q rows per coupler (global indices).
     pub qubit_rows: Vec<Vec<usize>>,
     pub coupler_rows: Vec<Vec<usize>>,
@@ -182,7 +185,10 @@ pub fn run_parts(
     check_cancel(progress)?;
     let parametric = crate::confidence::parametric_null(&analysis, &assessed, cfg, progress)?;
     check_cancel(progress)?;
-    let report = build::report(&analysis, &solved, &assessed, cfg, parametric.as_deref());
+    let estimate = estimate(&analysis, progress)?;
+    check_cancel(progress)?;
+    let report =
+        build::report(&analysis, &solved, &assessed, &estimate, cfg, parametric.as_deref());
     let replicates = crate::confidence::bootstrap(&analysis, &report, cfg, progress)?;
     Ok((report, replicates))
 }
@@ -263,17 +269,9 @@ pub(crate) fn analyse<'a>(
         .par_iter()
         .map(|p| p.as_ref().map(|p| model::predict(p, &fitted.params).probs).unwrap_or_default())
         .collect();
-    let n_rows = used.len();
-    let requirement: Vec<f64> = (0..rows.rows.len())
-        .into_par_iter()
-        .map(|i| match &rows.rows[i].marginal {
-            Some(m) if rows.rows[i].shots > 0 => {
-                let t = crate::stats::bonferroni_threshold(m.len() - 1, cfg.alpha, n_rows);
-                crate::slack::requirement::requirement(&predictions[i], m, t)
-            }
-            _ => 0.0,
-        })
-        .collect();
+    let marginals: Vec<Option<&Vec<u64>>> =
+        rows.rows.iter().map(|r| r.marginal.as_ref().filter(|_| r.shots > 0)).collect();
+    let (requirement, deviation) = requirements(&marginals, &predictions, cfg.alpha, used.len());
     Ok(Analysis {
         layout,
         circuits,
@@ -285,6 +283,7 @@ pub(crate) fn analyse<'a>(
         used,
         predictions,
         requirement,
+        deviation,
         qubit_rows,
         coupler_rows,
         fitted,
@@ -558,8 +557,9 @@ pub(crate) fn rescore(
     a: &Analysis,
     data: &Resampled,
     refit: bool,
+    with_estimate: bool,
     progress: &dyn Progress,
-) -> Result<(Vec<f64>, Vec<f64>)> {
+) -> Result<Rescored> {
     let quiet = Nested(progress);
     let n = a.rows.rows.len();
     let src = |i: usize| data.source.as_ref().map_or(i, |s| s[i]);
@@ -621,23 +621,63 @@ pub(crate) fn rescore(
             .collect();
         &computed
     };
-    let n_rows = a.used.len();
-    let requirement: Vec<f64> = (0..n)
-        .into_par_iter()
-        .map(|i| match &data.counts[i] {
-            Some(m) if m.iter().sum::<u64>() > 0 => {
-                let t = crate::stats::bonferroni_threshold(m.len() - 1, a.alpha, n_rows);
-                crate::slack::requirement::requirement(&predictions[i], m, t)
-            }
-            _ => 0.0,
-        })
-        .collect();
-    let solved = solve_rows(a, all, &requirement, &quiet)?;
+    let marginals: Vec<Option<&Vec<u64>>> =
+        data.counts.iter().map(|m| m.as_ref().filter(|m| m.iter().sum::<u64>() > 0)).collect();
+    let (requirement, deviation) = requirements(&marginals, predictions, a.alpha, a.used.len());
+    let (directed, intrinsic) = scores_of(a, all, &requirement, &quiet)?;
     check_cancel(progress)?;
+    let estimate = if with_estimate { Some(scores_of(a, all, &deviation, &quiet)?) } else { None };
+    Ok(Rescored { directed, intrinsic, estimate })
+}
+
+/// Directed scores (in [`assess::pairs`] order) and intrinsic slack per kind of both stages
+/// solved on `all` under `requirement`.
+fn scores_of(
+    a: &Analysis,
+    all: &[rows::Row],
+    requirement: &[f64],
+    progress: &dyn Progress,
+) -> Result<(Vec<f64>, Vec<f64>)> {
+    let solved = solve_rows(a, all, requirement, progress)?;
     let directed = assess::directed_scores(a, all, &solved);
     let intrinsic =
         (0..a.rows.kinds.len() as u32).map(|k| intrinsic_slack(a, &solved, k)).collect();
     Ok((directed, intrinsic))
+}
+
+/// The unlimited-shot estimate of the point pass: directed scores and intrinsic slack
+/// under the deviation requirements.
+pub(crate) fn estimate(a: &Analysis, progress: &dyn Progress) -> Result<(Vec<f64>, Vec<f64>)> {
+    scores_of(a, &a.rows.rows, &a.deviation, &Nested(progress))
+}
+
+/// Scores of one rescoring: directed scores in [`assess::pairs`] order and intrinsic slack
+/// per kind, and the same for the unlimited-shot estimate when asked for.
+pub(crate) struct Rescored {
+    pub directed: Vec<f64>,
+    pub intrinsic: Vec<f64>,
+    pub estimate: Option<(Vec<f64>, Vec<f64>)>,
+}
+
+/// Row requirements and deviation requirements (method.md section 4 and
+/// [`crate::slack::requirement::requirement_and_deviation`]) of rows with these counts,
+/// under the Bonferroni threshold over `n_rows` rows; 0 for rows without counts.
+fn requirements(
+    marginals: &[Option<&Vec<u64>>],
+    predictions: &[Vec<f64>],
+    alpha: f64,
+    n_rows: usize,
+) -> (Vec<f64>, Vec<f64>) {
+    (0..marginals.len())
+        .into_par_iter()
+        .map(|i| match marginals[i] {
+            Some(m) => {
+                let t = crate::stats::bonferroni_threshold(m.len() - 1, alpha, n_rows);
+                crate::slack::requirement::requirement_and_deviation(&predictions[i], m, t)
+            }
+            None => (0.0, 0.0),
+        })
+        .unzip()
 }
 
 /// Intrinsic slack omega_k of kind `k` in a solution (0 when the kind has no problem).

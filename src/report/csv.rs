@@ -18,6 +18,32 @@ fn opt<T: ToString>(v: Option<T>) -> String {
     v.map(|x| x.to_string()).unwrap_or_default()
 }
 
+/// A value that may be infinite (never tested): empty when it is.
+fn finite(v: f64) -> String {
+    if v.is_finite() {
+        v.to_string()
+    } else {
+        String::new()
+    }
+}
+
+/// Method, level, low, high, upper bound, median and P(score > 0) of a confidence; empty
+/// cells without one.
+fn confidence_cells(c: Option<&super::Confidence>) -> Vec<String> {
+    match c {
+        Some(c) => vec![
+            c.method.clone(),
+            c.level.to_string(),
+            c.low_tvd_per_layer.to_string(),
+            c.high_tvd_per_layer.to_string(),
+            c.upper_bound_tvd_per_layer.to_string(),
+            c.median_tvd_per_layer.to_string(),
+            c.p_positive.to_string(),
+        ],
+        None => vec![String::new(); 7],
+    }
+}
+
 /// Renders `edges.csv`.
 pub struct EdgesCsv;
 
@@ -45,6 +71,23 @@ impl Render for EdgesCsv {
             "most_influential_circuit",
             "confounded_with",
             "verdict",
+            "estimate_tvd_per_layer",
+            "sensitivity_tvd_per_layer",
+            "interval_method",
+            "interval_level",
+            "interval_low_tvd_per_layer",
+            "interval_high_tvd_per_layer",
+            "upper_bound_tvd_per_layer",
+            "bootstrap_median_tvd_per_layer",
+            "p_positive",
+            "median_rank",
+            "rank_low",
+            "rank_high",
+            "top_k",
+            "p_top_k",
+            "parametric_limit_tvd_per_layer",
+            "parametric_p_value",
+            "replicate_estimates_tvd_per_layer",
         ];
         let rows = r
             .edges
@@ -68,7 +111,30 @@ impl Render for EdgesCsv {
                     opt(e.most_influential_circuit.clone()),
                     e.confounded_with.join(";"),
                     e.verdict.word().to_string(),
+                    e.estimate_tvd_per_layer.to_string(),
+                    finite(e.sensitivity_tvd_per_layer),
                 ]
+                .into_iter()
+                .chain(confidence_cells(e.confidence.as_ref()))
+                .chain(match &e.rank_confidence {
+                    Some(k) => vec![
+                        k.median_rank.to_string(),
+                        k.rank_low.to_string(),
+                        k.rank_high.to_string(),
+                        k.top_k.to_string(),
+                        k.p_top_k.to_string(),
+                    ],
+                    None => vec![String::new(); 5],
+                })
+                .chain([opt(e.parametric_limit_tvd_per_layer), opt(e.parametric_p_value)])
+                .chain([e.confidence.as_ref().map_or(String::new(), |c| {
+                    c.replicates_tvd_per_layer
+                        .iter()
+                        .map(|x| x.to_string())
+                        .collect::<Vec<_>>()
+                        .join(";")
+                })])
+                .collect()
             })
             .collect();
         to_bytes(&header, rows)
@@ -121,6 +187,14 @@ impl Render for IntrinsicCsv {
             "slack_tvd_per_occurrence",
             "fitted_error_rate",
             "fitted_on_all_rows",
+            "estimate_tvd_per_occurrence",
+            "interval_method",
+            "interval_level",
+            "interval_low_tvd_per_occurrence",
+            "interval_high_tvd_per_occurrence",
+            "upper_bound_tvd_per_occurrence",
+            "bootstrap_median_tvd_per_occurrence",
+            "p_positive",
         ];
         let rows = r
             .intrinsic
@@ -133,7 +207,11 @@ impl Render for IntrinsicCsv {
                     k.slack_tvd_per_occurrence.to_string(),
                     k.fitted_error_rate.to_string(),
                     k.fitted_on_all_rows.to_string(),
+                    k.estimate_tvd_per_occurrence.to_string(),
                 ]
+                .into_iter()
+                .chain(confidence_cells(k.confidence.as_ref()))
+                .collect()
             })
             .collect();
         to_bytes(&header, rows)

@@ -256,8 +256,10 @@ pub fn html(r: &AuditReport) -> String {
         ("score x1e-3", true),
         ("a<-b x1e-3", true),
         ("b<-a x1e-3", true),
+        ("estimate x1e-3", true),
         ("interval x1e-3", true),
         ("detection limit x1e-3", true),
+        ("sensitivity x1e-3", true),
         ("p", true),
         ("attribution x1e-3", true),
         ("rows", true),
@@ -302,8 +304,14 @@ pub fn html(r: &AuditReport) -> String {
                     pm_cell(e.score_tvd_per_layer),
                     pm_cell(e.a_from_b_tvd_per_layer),
                     pm_cell(e.b_from_a_tvd_per_layer),
+                    pm_cell(e.estimate_tvd_per_layer),
                     interval,
                     pm_cell(e.detection_limit_tvd_per_layer),
+                    if e.sensitivity_tvd_per_layer.is_finite() {
+                        pm_cell(e.sensitivity_tvd_per_layer)
+                    } else {
+                        num("untested", None)
+                    },
                     num(format!("{:.3}", e.p_value), Some(e.p_value)),
                     num(
                         format!(
@@ -324,7 +332,7 @@ pub fn html(r: &AuditReport) -> String {
         })
         .collect();
     write_table(&mut o, "edge-table", true, &heads, rows);
-    o.push_str("<p class=\"hint\">a&lt;-b is the crosstalk onto a from b. Attribution is the range of the score over near-optimal budgets; leave-one-out drops the most influential circuit.</p></section>\n");
+    o.push_str("<p class=\"hint\">a&lt;-b is the crosstalk onto a from b. The score is the least slack the data demand, a lower bound built for detection; the estimate is the size it would have at unlimited shots, and the interval is around the estimate. Sensitivity is about the smallest estimate these circuits could tell from zero (first order, depolarizing-like error): a clean edge can still hide crosstalk below it. Attribution is the range of the score over near-optimal budgets; leave-one-out drops the most influential circuit.</p></section>\n");
 
     // Intrinsic slack.
     let _ = writeln!(o, "<section id=\"intrinsic\"><h2>Intrinsic slack (unmodelled error that is not crosstalk)</h2>");

@@ -19,7 +19,7 @@ pub mod svg;
 pub mod terminal;
 
 /// Version of the `audit.json` format written by this build.
-pub const SCHEMA: u32 = 1;
+pub const SCHEMA: u32 = 2;
 
 /// The caution every audit output carries, because a score can be mistaken for a diagnosis.
 pub const CAUTION: &str = "Slack bounds unmodelled error in the data's own units (total variation \
@@ -229,6 +229,16 @@ pub struct EdgeReport {
     pub b_from_a_tvd_per_layer: f64,
     /// Rank among edges with a positive score (1 = worst); null for "none found".
     pub rank: Option<usize>,
+    /// Unlimited-shot estimate of the edge: the larger directed estimate, TVD per layer
+    /// (see [`DirectedReport::estimate_tvd_per_layer`]); the interval in `confidence` is
+    /// around it.
+    pub estimate_tvd_per_layer: f64,
+    /// Sensitivity: the smaller estimate that each direction's rows could tell from zero,
+    /// taken over both directions (the larger of the two), TVD per layer (see
+    /// [`DirectedReport::sensitivity_tvd_per_layer`]); infinite when a direction was never
+    /// tested.
+    #[serde(with = "finite_or_null")]
+    pub sensitivity_tvd_per_layer: f64,
     /// Detection limit: the (1 - alpha) quantile of the permutation-null score of the
     /// direction that gives the edge score, TVD per layer.
     pub detection_limit_tvd_per_layer: f64,
@@ -248,9 +258,9 @@ pub struct EdgeReport {
     pub most_influential_circuit: Option<String>,
     /// Other aggressors that could carry this edge's slack (for `confounded`).
     pub confounded_with: Vec<String>,
-    /// Bootstrap confidence for the edge score; null when no replicates were run.
+    /// Bootstrap confidence for the edge's estimate; null when no replicates were run.
     pub confidence: Option<Confidence>,
-    /// Bootstrap rank statistics; null when no replicates were run.
+    /// Bootstrap rank statistics of the edge score; null when no replicates were run.
     pub rank_confidence: Option<RankConfidence>,
     /// Parametric-null detection limit of the direction that gives the edge score: the
     /// (1 - alpha) quantile of its score on data drawn from the fitted crosstalk-free model,
@@ -266,7 +276,8 @@ pub struct EdgeReport {
     pub reason: String,
 }
 
-/// Bootstrap confidence of one score (method.md section 5).
+/// Bootstrap confidence of one unlimited-shot estimate (method.md section 5; the interval is
+/// around the estimate, not around the score: DEVELOPERS.md explains why).
 #[derive(Clone, Debug, Serialize, Deserialize, PartialEq)]
 pub struct Confidence {
     /// Two-sided interval level, e.g. 0.95.
@@ -279,11 +290,11 @@ pub struct Confidence {
     pub high_tvd_per_layer: f64,
     /// One-sided upper bound at `level`, TVD per layer.
     pub upper_bound_tvd_per_layer: f64,
-    /// Median of the replicate scores, TVD per layer.
+    /// Median of the replicate estimates, TVD per layer.
     pub median_tvd_per_layer: f64,
-    /// Fraction of replicates with a positive score.
+    /// Fraction of replicates whose score (not estimate) is positive.
     pub p_positive: f64,
-    /// Every replicate score in replicate order, TVD per layer (for merging and comparing).
+    /// Every replicate estimate in replicate order, TVD per layer (for comparing).
     pub replicates_tvd_per_layer: Vec<f64>,
 }
 
@@ -311,6 +322,18 @@ pub struct DirectedReport {
     pub aggressor: String,
     /// X(q <- r): context slack per layer, averaged over q's kinds by frequency, TVD.
     pub score_tvd_per_layer: f64,
+    /// Unlimited-shot estimate of X(q <- r): the same two stages with every row that needs
+    /// slack asked for its whole deviation TVD(p, f) rather than the least radius that
+    /// passes its threshold, TVD per layer. The score is built to detect (it allows for shot
+    /// noise, so it grows with shots); this estimates the size.
+    pub estimate_tvd_per_layer: f64,
+    /// Sensitivity: the least estimate at which some row of this pair would need slack, to
+    /// first order: min over the victim's rows with the aggressor active of (detectable
+    /// shift of the row) / (occurrences with the aggressor active x the row's polarization
+    /// relative to the victim's most polarized row), TVD per layer. Infinite (null in
+    /// JSON) when no row tests the pair.
+    #[serde(with = "finite_or_null")]
+    pub sensitivity_tvd_per_layer: f64,
     /// The part of the score from the victim's driven operations (gates), TVD per layer.
     pub driven_tvd_per_layer: f64,
     /// The victim's idle context slack, TVD per layer.
@@ -340,7 +363,7 @@ pub struct DirectedReport {
     pub most_influential_circuit: Option<String>,
     /// Per-kind context slack kappa(k, r), TVD per occurrence, as `kind` to value.
     pub per_kind: Vec<KindValue>,
-    /// Bootstrap confidence for the directed score; null when no replicates were run.
+    /// Bootstrap confidence for the directed estimate; null when no replicates were run.
     pub confidence: Option<Confidence>,
     /// Parametric-null detection limit (see [`EdgeReport::parametric_limit_tvd_per_layer`]).
     #[serde(default, skip_serializing_if = "Option::is_none")]
@@ -370,6 +393,8 @@ pub struct IntrinsicReport {
     pub reference_occurrences: u64,
     /// Intrinsic slack omega_k, TVD per occurrence.
     pub slack_tvd_per_occurrence: f64,
+    /// Unlimited-shot estimate of omega_k (deviation requirements), TVD per occurrence.
+    pub estimate_tvd_per_occurrence: f64,
     /// Fitted error rate of the kind's channel (total error probability).
     pub fitted_error_rate: f64,
     /// True when the kind had no reference rows and was fitted on all its rows (its context
@@ -377,7 +402,7 @@ pub struct IntrinsicReport {
     pub fitted_on_all_rows: bool,
     /// The qubits the kind acts on (ids), for drawing and comparing.
     pub qubits: Vec<String>,
-    /// Bootstrap confidence for the intrinsic slack, TVD per occurrence (the `_tvd_per_layer`
+    /// Bootstrap confidence for the intrinsic estimate, TVD per occurrence (the `_tvd_per_layer`
     /// field names of [`Confidence`] then carry per-occurrence values); absent when no
     /// replicates were run or the writer predates the field.
     #[serde(default, skip_serializing_if = "Option::is_none")]
@@ -491,4 +516,22 @@ fn copy_tree(from: &Path, to: &Path) -> Result<()> {
         std::fs::copy(from, to).map_err(|e| Error::io(from, e))?;
     }
     Ok(())
+}
+
+/// Serialises a non-negative value that may be infinite as a number or null (JSON has no
+/// infinity), and reads null back as infinity.
+mod finite_or_null {
+    use serde::{Deserialize, Deserializer, Serializer};
+
+    pub fn serialize<S: Serializer>(v: &f64, s: S) -> Result<S::Ok, S::Error> {
+        if v.is_finite() {
+            s.serialize_f64(*v)
+        } else {
+            s.serialize_none()
+        }
+    }
+
+    pub fn deserialize<'de, D: Deserializer<'de>>(d: D) -> Result<f64, D::Error> {
+        Ok(Option::<f64>::deserialize(d)?.unwrap_or(f64::INFINITY))
+    }
 }

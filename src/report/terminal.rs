@@ -161,7 +161,7 @@ pub fn render(r: &AuditReport, opt: &TerminalOptions) -> String {
         "a<-b x1e-3",
         "b<-a x1e-3",
         "rows",
-        "interval x1e-3",
+        "estimate [interval] x1e-3",
         "attribution x1e-3",
         "limit x1e-3",
         "p",
@@ -178,11 +178,12 @@ pub fn render(r: &AuditReport, opt: &TerminalOptions) -> String {
             right(e.supporting_rows.to_string()),
             right(match &e.confidence {
                 Some(c) => format!(
-                    "{}..{}",
+                    "{} [{}..{}]",
+                    per_mille(e.estimate_tvd_per_layer),
                     per_mille(c.low_tvd_per_layer),
                     per_mille(c.high_tvd_per_layer)
                 ),
-                None => "-".into(),
+                None => per_mille(e.estimate_tvd_per_layer),
             }),
             right(format!(
                 "{}..{}",
@@ -204,6 +205,17 @@ pub fn render(r: &AuditReport, opt: &TerminalOptions) -> String {
         let _ = writeln!(out, "... {} more ranked edges in edges.csv", ranked - shown);
     }
     let _ = writeln!(out, "{none} edges: none found (score exactly zero, not ranked).");
+    if let Some((median, worst)) = sensitivity_spread(r.edges.iter().filter(|e| e.rank.is_none())) {
+        let _ = writeln!(
+            out,
+            "  None found is not zero: their rows would show crosstalk from about {median} (median edge) to {worst} (least sensitive edge) x1e-3 per layer (first-order sensitivity, depolarizing-like error)."
+        );
+    }
+    let _ = writeln!(
+        out,
+        "The score is the least slack the data demand (a lower bound, for detection); the estimate is its size at unlimited shots, and the interval ({}) is around the estimate.",
+        r.edges.iter().find_map(|e| e.confidence.as_ref()).map_or("none: no replicates", |c| c.method.as_str())
+    );
     for e in r.edges.iter().filter(|e| e.verdict == Verdict::Confounded) {
         let _ = writeln!(
             out,
@@ -235,6 +247,19 @@ pub fn render(r: &AuditReport, opt: &TerminalOptions) -> String {
     }
     let _ = writeln!(out, "\nCaution: {}", r.caution);
     out
+}
+
+/// Median and largest finite sensitivity of some edges, in 1e-3 units; None when no edge
+/// has a finite one.
+fn sensitivity_spread<'e>(edges: impl Iterator<Item = &'e EdgeReport>) -> Option<(String, String)> {
+    let mut v: Vec<f64> =
+        edges.map(|e| e.sensitivity_tvd_per_layer).filter(|x| x.is_finite()).collect();
+    if v.is_empty() {
+        return None;
+    }
+    v.sort_by(f64::total_cmp);
+    let median = crate::confidence::intervals::quantile(&v, 0.5);
+    Some((per_mille(median), per_mille(v[v.len() - 1])))
 }
 
 fn render_adjacency(r: &AuditReport, opt: &TerminalOptions, out: &mut String, title: String) {
@@ -308,12 +333,28 @@ fn render_intrinsic(r: &AuditReport, color: bool, out: &mut String, title: Strin
         return;
     }
     let mut t = table(color);
-    t.set_header(vec!["kind", "occurrences", "slack x1e-3 per op", "fitted error x1e-3", "note"]);
+    t.set_header(vec![
+        "kind",
+        "occurrences",
+        "slack x1e-3 per op",
+        "estimate [interval] x1e-3",
+        "fitted error x1e-3",
+        "note",
+    ]);
     for k in kinds.iter().filter(|k| k.slack_tvd_per_occurrence > 0.0).take(12) {
         t.add_row(vec![
             Cell::new(&k.kind),
             right(k.occurrences.to_string()),
             right(per_mille(k.slack_tvd_per_occurrence)),
+            right(match &k.confidence {
+                Some(c) => format!(
+                    "{} [{}..{}]",
+                    per_mille(k.estimate_tvd_per_occurrence),
+                    per_mille(c.low_tvd_per_layer),
+                    per_mille(c.high_tvd_per_layer)
+                ),
+                None => per_mille(k.estimate_tvd_per_occurrence),
+            }),
             right(per_mille(k.fitted_error_rate)),
             Cell::new(if k.fitted_on_all_rows { "no reference rows" } else { "" }),
         ]);

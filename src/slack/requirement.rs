@@ -23,6 +23,52 @@ pub fn requirement(p: &[f64], n: &[u64], threshold: f64) -> f64 {
     requirement_of(&Weakening::new(p, n), threshold)
 }
 
+/// d_row and the deviation requirement of one row: (d_row, TVD(p, f) when d_row > 0 else 0).
+///
+/// # Panics
+/// When `p` and `n` differ in length.
+pub fn requirement_and_deviation(p: &[f64], n: &[u64], threshold: f64) -> (f64, f64) {
+    let wk = Weakening::new(p, n);
+    let d = requirement_of(&wk, threshold);
+    (d, if d > 0.0 { wk.tvd_to_frequencies() } else { 0.0 })
+}
+
+/// The least shift `delta` of probability from outcome probability `p_top` to the other
+/// outcomes at which a row of `shots` shots fails threshold `threshold`: the root of
+/// 2 N KL(p_top - delta || p_top) = T in the binary grouping (top outcome against the rest).
+/// Grouping outcomes never raises the LLR, so the full row is at least this sensitive.
+/// Returns `p_top` when even moving all of it would pass, and infinity without shots.
+pub fn detectable_shift(p_top: f64, shots: u64, threshold: f64) -> f64 {
+    if shots == 0 {
+        return f64::INFINITY;
+    }
+    let p = p_top.clamp(0.0, 1.0);
+    let n = shots as f64;
+    let t = threshold.max(0.0);
+    let llr = |d: f64| {
+        let (q, qc, pc) = (p - d, 1.0 - p + d, 1.0 - p);
+        let term = |a: f64, b: f64| if a > 0.0 { a * (a / b).ln() } else { 0.0 };
+        2.0 * n * (term(q, p) + term(qc, pc))
+    };
+    if p <= 0.0 || llr(p) <= t {
+        return p;
+    }
+    // LLR(delta) rises from 0 at delta = 0 and is convex there: bisection.
+    let (mut lo, mut hi) = (0.0, p);
+    for _ in 0..200 {
+        let mid = 0.5 * (lo + hi);
+        if llr(mid) > t {
+            hi = mid;
+        } else {
+            lo = mid;
+        }
+        if hi - lo <= REQUIREMENT_TOLERANCE {
+            break;
+        }
+    }
+    hi
+}
+
 /// [`requirement`] for a row already prepared, so a caller that tries several thresholds
 /// sorts the outcomes once.
 pub fn requirement_of(wk: &Weakening, threshold: f64) -> f64 {
@@ -73,6 +119,34 @@ mod tests {
         // 0.0694110039144 (independent computation in double precision).
         let d = requirement(&[0.5, 0.5], &[600, 400], 3.841);
         assert!((d - 0.069_411_003_914_4).abs() < 1e-11, "{d}");
+    }
+
+    #[test]
+    fn deviation_requirement_is_the_whole_tvd_on_failing_rows_only() {
+        let t = 3.841;
+        let (d, full) = requirement_and_deviation(&[0.5, 0.5], &[600, 400], t);
+        assert!((d - 0.069_411_003_914_4).abs() < 1e-11);
+        assert!((full - 0.1).abs() < 1e-12, "{full}");
+        assert_eq!(requirement_and_deviation(&[0.5, 0.5], &[510, 490], t), (0.0, 0.0));
+    }
+
+    #[test]
+    fn detectable_shift_matches_the_wald_approximation() {
+        // Common practice (from memory): a binomial proportion p moves detectably at level
+        // T when N delta^2 / (p (1 - p)) reaches T, to first order in delta.
+        let (p, n, t) = (0.9, 100_000u64, 3.841);
+        let wald = (t * p * (1.0 - p) / n as f64).sqrt();
+        let d = detectable_shift(p, n, t);
+        assert!((d / wald - 1.0).abs() < 0.02, "{d} against {wald}");
+        // The root is tight: a row shifted by it sits at the threshold.
+        let k = (n as f64 * (p - d)).round() as u64;
+        let llr = crate::slack::llr(&[k, n - k], &[p, 1.0 - p]);
+        assert!((llr - t).abs() < 0.05, "{llr}");
+        // Four times the shots halve it, as binomial error does (common practice).
+        let d4 = detectable_shift(p, 4 * n, t);
+        assert!((d / d4 - 2.0).abs() < 0.02, "{}", d / d4);
+        assert!(detectable_shift(p, 0, t).is_infinite());
+        assert_eq!(detectable_shift(0.6, 1, 100.0), 0.6);
     }
 
     #[test]
