@@ -1,8 +1,10 @@
 //! Shot planning: how many shots a design needs before the audit sees a given crosstalk.
 //!
 //! For each shot count, data are simulated under the noise scenario with its crosstalk
-//! removed and audited, giving every edge's detection limit; then context errors of growing
-//! size are injected on representative directed pairs until the audit flags them (verdict
+//! removed and audited, giving every edge's sensitivity (the least estimate its rows could
+//! tell from zero; the permutation-null limit is zero on most edges of a clean chip and
+//! measures nothing there); then context errors of growing size are injected on the
+//! directed pairs of median and worst sensitivity until the audit flags them (verdict
 //! watch or recalibrate), and bisected. Binomial shot noise scales as 1/sqrt(shots)
 //! (common practice), which is how the recommendation interpolates between shot counts.
 
@@ -18,7 +20,7 @@ use crate::report::{AuditReport, Verdict};
 use crate::simulate::{self, ContextTerm, ErrorSpec, Noise, Role, Rotation, SimConfig};
 
 /// Version of the `plan.json` format written by this build.
-pub const SCHEMA: u32 = 1;
+pub const SCHEMA: u32 = 2;
 
 /// Largest depolarizing rate the search injects (beyond it the "error" is a coin flip).
 const MAX_STOCHASTIC: f64 = 0.5;
@@ -181,23 +183,23 @@ pub struct RemovedTerms {
 pub struct ShotPlan {
     /// Shots per circuit.
     pub shots: u64,
-    /// Median over edges of the baseline audit's detection limit, TVD per layer.
-    pub edge_limit_median_tvd_per_layer: f64,
-    /// Largest edge detection limit, TVD per layer.
-    pub edge_limit_worst_tvd_per_layer: f64,
-    /// The edge with the largest limit, as `a-b`.
+    /// Median over tested edges of the baseline audit's sensitivity, TVD per layer (see
+    /// [`crate::report::EdgeReport::sensitivity_tvd_per_layer`]).
+    pub edge_sensitivity_median_tvd_per_layer: f64,
+    /// Largest finite edge sensitivity (the least sensitive edge), TVD per layer.
+    pub edge_sensitivity_worst_tvd_per_layer: f64,
+    /// The least sensitive edge, as `a-b`.
     pub worst_edge: String,
-    /// Edges whose limit is exactly zero: their null never needed context slack, so a
-    /// single row needing slack there would pass the null (the injected search below is the
-    /// sensitivity that counts).
-    pub edges_with_zero_limit: usize,
-    /// Median over directed pairs of the baseline detection limit, TVD per layer.
-    pub directed_limit_median_tvd_per_layer: f64,
-    /// Largest directed detection limit, TVD per layer.
-    pub directed_limit_worst_tvd_per_layer: f64,
-    /// Every edge's baseline detection limit.
+    /// Edges the design never tests in some direction (infinite sensitivity).
+    pub untested_edges: usize,
+    /// Median over edges of the baseline's permutation-null detection limit, TVD per
+    /// layer (zero on most edges of a clean chip).
+    pub edge_limit_median_tvd_per_layer: f64,
+    /// Largest edge permutation-null detection limit, TVD per layer.
+    pub edge_limit_worst_tvd_per_layer: f64,
+    /// Every edge's baseline sensitivity and detection limit.
     pub edges: Vec<EdgeLimit>,
-    /// Every directed pair's baseline detection limit.
+    /// Every directed pair's baseline sensitivity and detection limit.
     pub directed: Vec<DirectedLimit>,
     /// Edges the baseline audit flagged although no crosstalk was simulated (false alarms),
     /// as `a-b`.
@@ -206,7 +208,9 @@ pub struct ShotPlan {
     pub searches: Vec<SearchResult>,
     /// Audits run at this shot count (baseline included).
     pub audits: usize,
-    /// Wall-clock seconds spent at this shot count (informative only; not reproducible).
+    /// Wall-clock seconds spent at this shot count: shown on the terminal, never written to
+    /// plan.json, so that the file is a function of the inputs and seeds alone.
+    #[serde(skip)]
     pub elapsed_seconds: f64,
 }
 
@@ -217,7 +221,11 @@ pub struct EdgeLimit {
     pub a: String,
     /// Second qubit id.
     pub b: String,
-    /// Detection limit of the edge (of its higher-scoring direction), TVD per layer.
+    /// Sensitivity of the edge (its less sensitive direction), TVD per layer; null when a
+    /// direction is untested.
+    pub sensitivity_tvd_per_layer: Option<f64>,
+    /// Permutation-null detection limit of the edge (of its higher-scoring direction), TVD
+    /// per layer.
     pub detection_limit_tvd_per_layer: f64,
 }
 
@@ -228,6 +236,8 @@ pub struct DirectedLimit {
     pub victim: String,
     /// Aggressor qubit id.
     pub aggressor: String,
+    /// Sensitivity, TVD per layer; null when the design never tests the pair.
+    pub sensitivity_tvd_per_layer: Option<f64>,
     /// Permutation-null detection limit, TVD per layer.
     pub detection_limit_tvd_per_layer: f64,
 }
@@ -235,15 +245,15 @@ pub struct DirectedLimit {
 /// The search for the smallest flagged error of one kind on one directed pair.
 #[derive(Clone, Debug, Serialize, Deserialize, PartialEq)]
 pub struct SearchResult {
-    /// Why this pair was chosen: `median` or `worst` baseline directed detection limit
+    /// Why this pair was chosen: `median` or `worst` baseline directed sensitivity
     /// (`median+worst` when it is both).
     pub role: String,
     /// Victim qubit id.
     pub victim: String,
     /// Aggressor qubit id.
     pub aggressor: String,
-    /// The pair's baseline directed detection limit, TVD per layer.
-    pub pair_detection_limit_tvd_per_layer: f64,
+    /// The pair's baseline directed sensitivity, TVD per layer.
+    pub pair_sensitivity_tvd_per_layer: f64,
     /// The injected error kind.
     pub kind: ErrorKind,
     /// Smallest tested size flagged in every trial (depolarizing rate per layer for
@@ -295,7 +305,7 @@ struct Representative {
     role: String,
     victim: QubitIx,
     aggressor: QubitIx,
-    limit: f64,
+    sensitivity: f64,
 }
 
 /// The state of one search.
@@ -463,17 +473,18 @@ fn median(mut v: Vec<f64>) -> f64 {
     }
 }
 
-/// The median and the worst directed pair by baseline limit, among pairs the design tests
-/// and whose edge the baseline did not flag. Ties are broken by layout order (victim,
-/// then aggressor), so with many zero limits the "median" pair is the middle one of them.
+/// The median and the worst directed pair by baseline sensitivity, among pairs the design
+/// tests and whose edge the baseline did not flag. Ties are broken by layout order
+/// (victim, then aggressor).
 fn representatives(layout: &Layout, rep: &AuditReport) -> Vec<Representative> {
     let mut pairs: Vec<(f64, QubitIx, QubitIx)> = rep
         .directed
         .iter()
+        .filter(|d| d.sensitivity_tvd_per_layer.is_finite())
         .filter(|d| !is_flagged(rep, &d.victim, &d.aggressor))
         .filter_map(|d| {
             Some((
-                d.detection_limit_tvd_per_layer,
+                d.sensitivity_tvd_per_layer,
                 layout.qubit(&d.victim)?,
                 layout.qubit(&d.aggressor)?,
             ))
@@ -486,7 +497,7 @@ fn representatives(layout: &Layout, rep: &AuditReport) -> Vec<Representative> {
         role: role.into(),
         victim: p.1,
         aggressor: p.2,
-        limit: p.0,
+        sensitivity: p.0,
     };
     if (mid.1, mid.2) == (worst.1, worst.2) {
         vec![rep("median+worst", worst)]
@@ -568,12 +579,14 @@ fn plan_shots(
         trial(layout, design, noise, shots, &cfg.audit, data_seed(t), &p)
     };
     let baseline = run(base, 0)?;
+    let finite = |v: f64| v.is_finite().then_some(v);
     let edges: Vec<EdgeLimit> = baseline
         .edges
         .iter()
         .map(|e| EdgeLimit {
             a: e.a.clone(),
             b: e.b.clone(),
+            sensitivity_tvd_per_layer: finite(e.sensitivity_tvd_per_layer),
             detection_limit_tvd_per_layer: e.detection_limit_tvd_per_layer,
         })
         .collect();
@@ -583,21 +596,25 @@ fn plan_shots(
         .map(|d| DirectedLimit {
             victim: d.victim.clone(),
             aggressor: d.aggressor.clone(),
+            sensitivity_tvd_per_layer: finite(d.sensitivity_tvd_per_layer),
             detection_limit_tvd_per_layer: d.detection_limit_tvd_per_layer,
         })
         .collect();
     let worst = edges
         .iter()
-        .max_by(|x, y| x.detection_limit_tvd_per_layer.total_cmp(&y.detection_limit_tvd_per_layer));
+        .filter_map(|e| e.sensitivity_tvd_per_layer.map(|v| (v, e)))
+        .max_by(|x, y| x.0.total_cmp(&y.0));
     let reps = representatives(layout, &baseline);
     let mut searches: Vec<Search> = Vec::new();
     for kind in [ErrorKind::Stochastic, ErrorKind::Coherent] {
         for (pair, r) in reps.iter().enumerate() {
-            // Start where the pair's own limit says the score would just pass, or at the
-            // target when the limit is zero; the ladder corrects either way.
+            // Start where the pair's sensitivity says rows would just need slack, or at the
+            // target when that is larger; the ladder corrects either way. (A depolarizing
+            // rate p costs about 2p/3 of TVD on a one-qubit outcome.)
+            let start = (1.5 * r.sensitivity).max(cfg.target_tvd_per_layer).min(0.5);
             let start = match kind {
-                ErrorKind::Stochastic => r.limit.max(cfg.target_tvd_per_layer),
-                ErrorKind::Coherent => 2.0 * r.limit.max(cfg.target_tvd_per_layer).asin(),
+                ErrorKind::Stochastic => start,
+                ErrorKind::Coherent => 2.0 * start.sqrt().min(1.0).asin(),
             };
             searches.push(Search {
                 pair,
@@ -667,7 +684,7 @@ fn plan_shots(
                 role: r.role.clone(),
                 victim: layout.id(r.victim).to_string(),
                 aggressor: layout.id(r.aggressor).to_string(),
-                pair_detection_limit_tvd_per_layer: r.limit,
+                pair_sensitivity_tvd_per_layer: r.sensitivity,
                 kind: s.kind,
                 smallest_flagged: s.hi,
                 largest_unflagged: match (s.lo, s.hi) {
@@ -683,21 +700,18 @@ fn plan_shots(
         .collect();
     Ok(ShotPlan {
         shots,
+        edge_sensitivity_median_tvd_per_layer: median(
+            edges.iter().filter_map(|e| e.sensitivity_tvd_per_layer).collect(),
+        ),
+        edge_sensitivity_worst_tvd_per_layer: worst.map_or(0.0, |w| w.0),
+        worst_edge: worst.map_or(String::new(), |w| format!("{}-{}", w.1.a, w.1.b)),
+        untested_edges: edges.iter().filter(|e| e.sensitivity_tvd_per_layer.is_none()).count(),
         edge_limit_median_tvd_per_layer: median(
             edges.iter().map(|e| e.detection_limit_tvd_per_layer).collect(),
         ),
-        edge_limit_worst_tvd_per_layer: worst.map_or(0.0, |e| e.detection_limit_tvd_per_layer),
-        worst_edge: worst.map_or(String::new(), |e| format!("{}-{}", e.a, e.b)),
-        edges_with_zero_limit: edges
+        edge_limit_worst_tvd_per_layer: edges
             .iter()
-            .filter(|e| e.detection_limit_tvd_per_layer == 0.0)
-            .count(),
-        directed_limit_median_tvd_per_layer: median(
-            directed.iter().map(|d| d.detection_limit_tvd_per_layer).collect(),
-        ),
-        directed_limit_worst_tvd_per_layer: directed
-            .iter()
-            .map(|d| d.detection_limit_tvd_per_layer)
+            .map(|e| e.detection_limit_tvd_per_layer)
             .fold(0.0, f64::max),
         baseline_flagged: baseline
             .edges
@@ -870,9 +884,9 @@ pub fn render_terminal(r: &PlanReport) -> String {
     t.load_style(presets::UTF8_FULL_CONDENSED).set_content_arrangement(ContentArrangement::Dynamic);
     t.set_header(vec![
         "shots",
-        "edge limit median x1e-3",
-        "edge limit worst x1e-3",
-        "zero-limit edges",
+        "sensitivity median x1e-3",
+        "sensitivity worst x1e-3",
+        "null limit median/worst x1e-3",
         "false alarms",
         "audits",
         "seconds",
@@ -880,19 +894,25 @@ pub fn render_terminal(r: &PlanReport) -> String {
     for s in &r.shot_counts {
         t.add_row(vec![
             s.shots.to_string(),
-            pm(s.edge_limit_median_tvd_per_layer),
-            format!("{} ({})", pm(s.edge_limit_worst_tvd_per_layer), s.worst_edge),
-            format!("{}/{}", s.edges_with_zero_limit, s.edges.len()),
+            pm(s.edge_sensitivity_median_tvd_per_layer),
+            format!("{} ({})", pm(s.edge_sensitivity_worst_tvd_per_layer), s.worst_edge),
+            format!(
+                "{}/{}",
+                pm(s.edge_limit_median_tvd_per_layer),
+                pm(s.edge_limit_worst_tvd_per_layer)
+            ),
             s.baseline_flagged.len().to_string(),
             s.audits.to_string(),
             format!("{:.0}", s.elapsed_seconds),
         ]);
     }
-    out.push_str("Detection limits of the crosstalk-free baseline, per layer\n");
+    out.push_str("Sensitivity of the crosstalk-free baseline per edge, TVD per layer\n");
     out.push_str(&t.to_string());
     out.push_str(
-        "\nA zero limit means the permutation null never needed context slack on that edge: it \
-         measures no sensitivity there; the searched minima below do.",
+        "\nSensitivity: the least estimate at which some row of the edge would need slack, to \
+         first order. Below it nothing can be seen; detection needs more than that (the \
+         permutation null must also tell it apart), which the searched minima below measure. \
+         The permutation-null limit is zero wherever the clean data never needed context slack.",
     );
     out.push_str("\n\nSmallest context error the audit flags (watch or recalibrate)\n");
     let mut t = Table::new();
@@ -986,12 +1006,12 @@ mod tests {
     fn recommendation_interpolates_in_inverse_root_shots() {
         let plan = |shots: u64, min: f64| ShotPlan {
             shots,
+            edge_sensitivity_median_tvd_per_layer: 0.0,
+            edge_sensitivity_worst_tvd_per_layer: 0.0,
+            worst_edge: String::new(),
+            untested_edges: 0,
             edge_limit_median_tvd_per_layer: 0.0,
             edge_limit_worst_tvd_per_layer: 0.0,
-            worst_edge: String::new(),
-            edges_with_zero_limit: 0,
-            directed_limit_median_tvd_per_layer: 0.0,
-            directed_limit_worst_tvd_per_layer: 0.0,
             edges: Vec::new(),
             directed: Vec::new(),
             baseline_flagged: Vec::new(),
@@ -999,7 +1019,7 @@ mod tests {
                 role: "worst".into(),
                 victim: "q0".into(),
                 aggressor: "q1".into(),
-                pair_detection_limit_tvd_per_layer: 0.0,
+                pair_sensitivity_tvd_per_layer: 0.0,
                 kind: ErrorKind::Stochastic,
                 smallest_flagged: Some(min),
                 largest_unflagged: None,

@@ -29,7 +29,8 @@ pub enum ModelArg {
 }
 
 impl ModelArg {
-    fn family(self) -> Family {
+    /// The model family this argument names.
+    pub fn family(self) -> Family {
         match self {
             ModelArg::Depolarizing => Family::Depolarizing,
             ModelArg::Pauli => Family::Pauli,
@@ -169,13 +170,19 @@ pub fn demo(args: DemoArgs) -> anyhow::Result<()> {
     run_audit(&inputs, &d.join("counts.csv"), &analysis)
 }
 
-fn run_audit(inputs: &InputArgs, counts: &Path, a: &AnalysisArgs) -> anyhow::Result<()> {
-    if let Some(t) = a.threads {
+/// Starts `threads` worker threads for the whole run (all cores when None).
+pub fn start_threads(threads: Option<usize>) -> anyhow::Result<()> {
+    if let Some(t) = threads {
         rayon::ThreadPoolBuilder::new()
             .num_threads(t.max(1))
             .build_global()
             .context("could not start the worker threads")?;
     }
+    Ok(())
+}
+
+fn run_audit(inputs: &InputArgs, counts: &Path, a: &AnalysisArgs) -> anyhow::Result<()> {
+    start_threads(a.threads)?;
     let loaded = inputs.load(Some(counts))?;
     let counts = loaded.counts.as_ref().context("counts were not read")?;
     let cfg = AuditConfig {

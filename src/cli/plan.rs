@@ -10,7 +10,6 @@ use std::sync::Arc;
 
 use slackmap::audit::{AuditConfig, Cancel};
 use slackmap::design::{DesignConfig, Kind};
-use slackmap::model::Family;
 use slackmap::plan::{self, PlanConfig};
 use slackmap::simulate::Noise;
 
@@ -22,9 +21,11 @@ const EXAMPLE: &str = "Example:
 
 For each shot count: designs the circuits, simulates them under the noise file with its
 crosstalk removed (context, zz and readout crosstalk terms), audits them for every edge's
-detection limit, then injects context errors of growing size (stochastic: extra
-depolarizing; coherent: a rotation about X) on the pairs with the median and the worst
-limit until the audit flags them. Writes plan1/plan.json.
+sensitivity (the least estimate its rows could tell from zero), then injects context
+errors of growing size (stochastic: extra depolarizing; coherent: a rotation about X) on
+the pairs with the median and the worst sensitivity until the audit flags them, and
+recommends a shot count for the --target. Writes plan1/plan.json (no wall-clock times in
+it: the same inputs and seed give the same file on any machine and thread count).
 
 Exit codes: 0 success, 1 the analysis failed, 2 bad input or usage, 130 interrupted.";
 
@@ -50,6 +51,18 @@ pub struct PlanArgs {
     /// Seed of the design, the simulated data and the audits.
     #[arg(long, default_value_t = 0, value_name = "S")]
     seed: u64,
+    /// Error family of the audits' crosstalk-free model.
+    #[arg(long, value_enum, default_value = "depolarizing")]
+    model: super::audit::ModelArg,
+    /// Family-wise error level of every audit (as `slackmap audit --alpha`).
+    #[arg(long, default_value_t = 0.05)]
+    alpha: f64,
+    /// The audits' action threshold, TVD per layer (as `slackmap audit --action-threshold`).
+    #[arg(long, default_value_t = 1e-3, value_name = "TVD")]
+    action_threshold: f64,
+    /// Worker threads (default: all cores); results do not depend on it.
+    #[arg(long)]
+    threads: Option<usize>,
     /// Context-permutation null replicates per directed pair in every audit.
     #[arg(long, default_value_t = 100, value_name = "N")]
     null_replicates: usize,
@@ -72,6 +85,7 @@ pub struct PlanArgs {
 
 /// Runs `slackmap plan`.
 pub fn run(args: PlanArgs) -> anyhow::Result<()> {
+    super::audit::start_threads(args.threads)?;
     let layout = slackmap::layout::read_layout(&args.layout)?;
     let noise = Noise::read(&args.noise, &layout)?;
     let design = DesignConfig::new(
@@ -84,9 +98,9 @@ pub fn run(args: PlanArgs) -> anyhow::Result<()> {
         shots: args.shots.clone(),
         design,
         audit: AuditConfig {
-            family: Family::Depolarizing,
-            alpha: 0.05,
-            action_threshold_tvd_per_layer: 1e-3,
+            family: args.model.family(),
+            alpha: args.alpha,
+            action_threshold_tvd_per_layer: args.action_threshold,
             null_replicates: args.null_replicates,
             seed: args.seed,
             bit_order: "as-measured".into(),
