@@ -130,8 +130,8 @@ fn detection_limit_rate(s: &Scenario, shots: u64) -> f64 {
 ///
 /// Measured (release, 20 seeds, 100 replicates): at 1000 shots the 50%-detection rate is
 /// 2.83e-3 and at three times it the edge is detected in 20/20 seeds; the basic interval
-/// holds the 100x-shot score in 19/20 (percentile 1/20, bias-corrected 5/20). At 300 shots:
-/// 5.66e-3, 20/20, and 19/20 (2/20, 10/20). Run with `--nocapture` to see the figures.
+/// holds the 100x-shot score in 18/20 (percentile 7/20, bias-corrected 12/20). At 300 shots:
+/// 5.66e-3, 20/20, and 18/20 (15/20, 15/20). Run with `--nocapture` to see the figures.
 fn power_and_coverage(shots: u64) -> (usize, [usize; 3], [usize; 3], f64) {
     let s = scenario(1);
     let limit = detection_limit_rate(&s, shots);

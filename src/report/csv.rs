@@ -27,6 +27,11 @@ fn finite(v: f64) -> String {
     }
 }
 
+/// Values joined by `;` in one cell (empty without any).
+fn joined(v: Option<&Vec<f64>>) -> String {
+    v.map_or(String::new(), |v| v.iter().map(|x| x.to_string()).collect::<Vec<_>>().join(";"))
+}
+
 /// Method, level, low, high, upper bound, median and P(score > 0) of a confidence; empty
 /// cells without one.
 fn confidence_cells(c: Option<&super::Confidence>) -> Vec<String> {
@@ -88,6 +93,7 @@ impl Render for EdgesCsv {
             "parametric_limit_tvd_per_layer",
             "parametric_p_value",
             "replicate_estimates_tvd_per_layer",
+            "replicate_scores_tvd_per_layer",
         ];
         let rows = r
             .edges
@@ -127,13 +133,10 @@ impl Render for EdgesCsv {
                     None => vec![String::new(); 5],
                 })
                 .chain([opt(e.parametric_limit_tvd_per_layer), opt(e.parametric_p_value)])
-                .chain([e.confidence.as_ref().map_or(String::new(), |c| {
-                    c.replicates_tvd_per_layer
-                        .iter()
-                        .map(|x| x.to_string())
-                        .collect::<Vec<_>>()
-                        .join(";")
-                })])
+                .chain([
+                    joined(e.confidence.as_ref().map(|c| &c.replicates_tvd_per_layer)),
+                    joined(e.confidence.as_ref().map(|c| &c.score_replicates_tvd_per_layer)),
+                ])
                 .collect()
             })
             .collect();

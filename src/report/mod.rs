@@ -296,6 +296,10 @@ pub struct Confidence {
     pub p_positive: f64,
     /// Every replicate estimate in replicate order, TVD per layer (for comparing).
     pub replicates_tvd_per_layer: Vec<f64>,
+    /// Every replicate score in replicate order, TVD per layer (the rank statistics and
+    /// `p_positive` rest on these).
+    #[serde(default)]
+    pub score_replicates_tvd_per_layer: Vec<f64>,
 }
 
 /// Bootstrap rank statistics of one edge.

@@ -23,14 +23,21 @@ pub fn requirement(p: &[f64], n: &[u64], threshold: f64) -> f64 {
     requirement_of(&Weakening::new(p, n), threshold)
 }
 
-/// d_row and the deviation requirement of one row: (d_row, TVD(p, f) when d_row > 0 else 0).
+/// d_row and the deviation requirement of one row: (d_row, TVD(p, f) (1 - T / LLR(0)) when
+/// d_row > 0, else 0); the second is never below the first.
 ///
 /// # Panics
 /// When `p` and `n` differ in length.
 pub fn requirement_and_deviation(p: &[f64], n: &[u64], threshold: f64) -> (f64, f64) {
     let wk = Weakening::new(p, n);
     let d = requirement_of(&wk, threshold);
-    (d, if d > 0.0 { wk.tvd_to_frequencies() } else { 0.0 })
+    if d <= 0.0 {
+        return (0.0, 0.0);
+    }
+    let tvd = wk.tvd_to_frequencies();
+    let llr0 = wk.llr(0.0);
+    let keep = if llr0.is_finite() && llr0 > 0.0 { (1.0 - threshold / llr0).max(0.0) } else { 1.0 };
+    (d, (tvd * keep).max(d))
 }
 
 /// The least shift `delta` of probability from outcome probability `p_top` to the other
@@ -122,11 +129,14 @@ mod tests {
     }
 
     #[test]
-    fn deviation_requirement_is_the_whole_tvd_on_failing_rows_only() {
+    fn deviation_requirement_is_the_shrunk_tvd_on_failing_rows_only() {
         let t = 3.841;
         let (d, full) = requirement_and_deviation(&[0.5, 0.5], &[600, 400], t);
         assert!((d - 0.069_411_003_914_4).abs() < 1e-11);
-        assert!((full - 0.1).abs() < 1e-12, "{full}");
+        // TVD 0.1 shrunk by 1 - T / LLR(0), LLR(0) = 2 [600 ln 1.2 + 400 ln 0.8].
+        let llr0 = 2.0 * (600.0 * 1.2f64.ln() + 400.0 * 0.8f64.ln());
+        assert!((full - 0.1 * (1.0 - t / llr0)).abs() < 1e-12, "{full}");
+        assert!(full > d);
         assert_eq!(requirement_and_deviation(&[0.5, 0.5], &[510, 490], t), (0.0, 0.0));
     }
 
