@@ -531,8 +531,14 @@ pub fn plan(
         readout_crosstalk: noise.readout_crosstalk().len(),
     };
     let mut shot_counts = Vec::with_capacity(cfg.shots.len());
+    // The pairs are chosen once, at the first shot count, and searched at every count, so
+    // that the minima of different counts are comparable.
+    let mut pairs: Option<Vec<Representative>> = None;
     for (i, &shots) in cfg.shots.iter().enumerate() {
-        shot_counts.push(plan_shots(layout, &design, &base, cfg, i, shots, progress)?);
+        let bench = Bench { layout, design: &design, base: &base, cfg };
+        let (plan, chosen) = plan_shots(&bench, i, shots, pairs.as_deref(), progress)?;
+        shot_counts.push(plan);
+        pairs.get_or_insert(chosen);
     }
     let recommendation = recommend(&shot_counts, cfg.target_tvd_per_layer);
     let a = &cfg.audit;
@@ -561,15 +567,25 @@ pub fn plan(
     })
 }
 
+/// What every shot count of a plan shares: the chip, the design, the crosstalk-free
+/// baseline and the settings.
+struct Bench<'a> {
+    layout: &'a Layout,
+    design: &'a Design,
+    base: &'a Noise,
+    cfg: &'a PlanConfig,
+}
+
+/// The plan at shot count `shots` (index `index` of the plan's counts), searching `pairs`
+/// or, when None, the pairs this count's baseline picks; returns the pairs searched too.
 fn plan_shots(
-    layout: &Layout,
-    design: &Design,
-    base: &Noise,
-    cfg: &PlanConfig,
+    bench: &Bench,
     index: usize,
     shots: u64,
+    pairs: Option<&[Representative]>,
     progress: &dyn Progress,
-) -> Result<ShotPlan> {
+) -> Result<(ShotPlan, Vec<Representative>)> {
+    let Bench { layout, design, base, cfg } = *bench;
     let start = Instant::now();
     let data_seed = |t: usize| derive_seed(cfg.seed, index as u64, t as u64);
     let mut audits = 0usize;
@@ -604,7 +620,10 @@ fn plan_shots(
         .iter()
         .filter_map(|e| e.sensitivity_tvd_per_layer.map(|v| (v, e)))
         .max_by(|x, y| x.0.total_cmp(&y.0));
-    let reps = representatives(layout, &baseline);
+    let reps = match pairs {
+        Some(p) => p.to_vec(),
+        None => representatives(layout, &baseline),
+    };
     let mut searches: Vec<Search> = Vec::new();
     for kind in [ErrorKind::Stochastic, ErrorKind::Coherent] {
         for (pair, r) in reps.iter().enumerate() {
@@ -698,7 +717,7 @@ fn plan_shots(
             }
         })
         .collect();
-    Ok(ShotPlan {
+    let plan = ShotPlan {
         shots,
         edge_sensitivity_median_tvd_per_layer: median(
             edges.iter().filter_map(|e| e.sensitivity_tvd_per_layer).collect(),
@@ -724,7 +743,8 @@ fn plan_shots(
         searches: results,
         audits,
         elapsed_seconds: start.elapsed().as_secs_f64(),
-    })
+    };
+    Ok((plan, reps))
 }
 
 /// The stochastic error the worst searched pair needs before it is flagged, per shot count
@@ -763,14 +783,30 @@ fn recommend(plans: &[ShotPlan], target: f64) -> Recommendation {
             basis: "none".into(),
         };
     }
+    let searched: Vec<String> = {
+        let mut v: Vec<String> = Vec::new();
+        for s in plans.iter().flat_map(|p| &p.searches) {
+            let label = format!("{}<-{} ({})", s.victim, s.aggressor, s.role);
+            if !v.contains(&label) {
+                v.push(label);
+            }
+        }
+        v
+    };
     let sentence = |n: u64, how: &str| {
         format!(
             "to see {} per layer of stochastic crosstalk on every edge, take at least {n} shots \
-             per circuit at {depths}{how}",
-            pm(target)
+             per circuit at {depths}{how}; measured on the pairs of median and lowest \
+             sensitivity ({}), so an edge whose victim drifts or carries error the model \
+             lacks can need more",
+            pm(target),
+            searched.join(", ")
         )
     };
-    match pts.iter().position(|p| p.1 <= target) {
+    // The first tested count from which every larger one suffices too (a pair limited by
+    // drift can fail at more shots than a count that passed by chance).
+    let first = (0..pts.len()).find(|&i| pts[i..].iter().all(|p| p.1 <= target));
+    match first {
         Some(0) => Recommendation {
             text: sentence(pts[0].0, " (the smallest tested count already suffices; fewer may do)"),
             shots_needed: Some(pts[0].0),
@@ -1044,6 +1080,12 @@ mod tests {
         assert_eq!((r.basis.as_str(), r.shots_needed), ("not-shot-limited", None));
         let r = recommend(&[plan(3000, f(3000))], 1e-3);
         assert_eq!((r.basis.as_str(), r.shots_needed), ("tested", Some(3000)));
+        // A count that passes is not recommended when a larger one fails after it.
+        let r = recommend(&[plan(300, 0.9e-3), plan(1000, 2e-3), plan(3000, 0.5e-3)], 1e-3);
+        assert_eq!(r.basis, "interpolated");
+        assert!(r.shots_needed.is_some_and(|n| n > 1000 && n <= 3000), "{r:?}");
+        let r = recommend(&[plan(300, 0.9e-3), plan(1000, 2e-3)], 1e-3);
+        assert_eq!((r.basis.as_str(), r.shots_needed), ("not-shot-limited", None));
     }
 
     #[test]

@@ -41,6 +41,7 @@ fn confidence(score: f64, salt: usize) -> Confidence {
         high_tvd_per_layer: score * 1.31,
         upper_bound_tvd_per_layer: score * 1.25,
         median_tvd_per_layer: score * 1.01,
+        centre_tvd_per_layer: score * 0.99,
         p_positive: 1.0,
         score_replicates_tvd_per_layer: reps.clone(),
         replicates_tvd_per_layer: reps,

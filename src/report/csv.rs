@@ -32,7 +32,8 @@ fn joined(v: Option<&Vec<f64>>) -> String {
     v.map_or(String::new(), |v| v.iter().map(|x| x.to_string()).collect::<Vec<_>>().join(";"))
 }
 
-/// Method, level, low, high, upper bound, median and P(score > 0) of a confidence; empty
+/// Method, level, low, high, upper bound, median, bias-corrected estimate and P(score > 0)
+/// of a confidence; empty
 /// cells without one.
 fn confidence_cells(c: Option<&super::Confidence>) -> Vec<String> {
     match c {
@@ -43,9 +44,10 @@ fn confidence_cells(c: Option<&super::Confidence>) -> Vec<String> {
             c.high_tvd_per_layer.to_string(),
             c.upper_bound_tvd_per_layer.to_string(),
             c.median_tvd_per_layer.to_string(),
+            c.centre_tvd_per_layer.to_string(),
             c.p_positive.to_string(),
         ],
-        None => vec![String::new(); 7],
+        None => vec![String::new(); 8],
     }
 }
 
@@ -84,6 +86,7 @@ impl Render for EdgesCsv {
             "interval_high_tvd_per_layer",
             "upper_bound_tvd_per_layer",
             "bootstrap_median_tvd_per_layer",
+            "bias_corrected_tvd_per_layer",
             "p_positive",
             "median_rank",
             "rank_low",
@@ -197,6 +200,7 @@ impl Render for IntrinsicCsv {
             "interval_high_tvd_per_occurrence",
             "upper_bound_tvd_per_occurrence",
             "bootstrap_median_tvd_per_occurrence",
+            "bias_corrected_tvd_per_occurrence",
             "p_positive",
         ];
         let rows = r

@@ -304,7 +304,11 @@ pub fn html(r: &AuditReport) -> String {
                     pm_cell(e.score_tvd_per_layer),
                     pm_cell(e.a_from_b_tvd_per_layer),
                     pm_cell(e.b_from_a_tvd_per_layer),
-                    pm_cell(e.estimate_tvd_per_layer),
+                    pm_cell(
+                        e.confidence
+                            .as_ref()
+                            .map_or(e.estimate_tvd_per_layer, |c| c.centre_tvd_per_layer),
+                    ),
                     interval,
                     pm_cell(e.detection_limit_tvd_per_layer),
                     if e.sensitivity_tvd_per_layer.is_finite() {
@@ -332,7 +336,7 @@ pub fn html(r: &AuditReport) -> String {
         })
         .collect();
     write_table(&mut o, "edge-table", true, &heads, rows);
-    o.push_str("<p class=\"hint\">a&lt;-b is the crosstalk onto a from b. The score is the least slack the data demand, a lower bound built for detection; the estimate is the size it would have at unlimited shots, and the interval is around the estimate. Sensitivity is about the smallest estimate these circuits could tell from zero (first order, depolarizing-like error): a clean edge can still hide crosstalk below it. Attribution is the range of the score over near-optimal budgets; leave-one-out drops the most influential circuit.</p></section>\n");
+    o.push_str("<p class=\"hint\">a&lt;-b is the crosstalk onto a from b. The score is the least slack the data demand, a lower bound built for detection; the estimate is the size it would have at unlimited shots (bias-corrected where replicates were run), and the interval is around it. Sensitivity is about the smallest estimate these circuits could tell from zero (first order, depolarizing-like error): a clean edge can still hide crosstalk below it. Attribution is the range of the score over near-optimal budgets; leave-one-out drops the most influential circuit.</p></section>\n");
 
     // Intrinsic slack.
     let _ = writeln!(o, "<section id=\"intrinsic\"><h2>Intrinsic slack (unmodelled error that is not crosstalk)</h2>");
@@ -349,6 +353,22 @@ pub fn html(r: &AuditReport) -> String {
                     num(k.occurrences.to_string(), Some(k.occurrences as f64)),
                     num(k.reference_occurrences.to_string(), Some(k.reference_occurrences as f64)),
                     pm_cell(k.slack_tvd_per_occurrence),
+                    pm_cell(
+                        k.confidence
+                            .as_ref()
+                            .map_or(k.estimate_tvd_per_occurrence, |c| c.centre_tvd_per_layer),
+                    ),
+                    match &k.confidence {
+                        Some(c) => num(
+                            format!(
+                                "{}..{}",
+                                per_mille(c.low_tvd_per_layer),
+                                per_mille(c.high_tvd_per_layer)
+                            ),
+                            Some(c.low_tvd_per_layer),
+                        ),
+                        None => num("-", None),
+                    },
                     pm_cell(k.fitted_error_rate),
                     td(if k.fitted_on_all_rows {
                         "no reference rows: fitted on all rows"
@@ -369,6 +389,8 @@ pub fn html(r: &AuditReport) -> String {
             ("occurrences", true),
             ("reference occurrences", true),
             ("slack x1e-3 per op", true),
+            ("estimate x1e-3 per op", true),
+            ("interval x1e-3", true),
             ("fitted error x1e-3", true),
             ("note", false),
         ],

@@ -292,6 +292,13 @@ pub struct Confidence {
     pub upper_bound_tvd_per_layer: f64,
     /// Median of the replicate estimates, TVD per layer.
     pub median_tvd_per_layer: f64,
+    /// Bias-corrected estimate, 2 x estimate - `median_tvd_per_layer`, clipped at zero: the
+    /// centre of the basic interval, which always contains it (Efron & Tibshirani, An
+    /// Introduction to the Bootstrap, 1993, sec. 10.6, with the median for the mean). The
+    /// replicates of a maximum over noisy rows run above the estimate, so the plain
+    /// estimate can sit above its own interval; this is the value to quote with it.
+    #[serde(default)]
+    pub centre_tvd_per_layer: f64,
     /// Fraction of replicates whose score (not estimate) is positive.
     pub p_positive: f64,
     /// Every replicate estimate in replicate order, TVD per layer (for comparing).

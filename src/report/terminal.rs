@@ -179,7 +179,7 @@ pub fn render(r: &AuditReport, opt: &TerminalOptions) -> String {
             right(match &e.confidence {
                 Some(c) => format!(
                     "{} [{}..{}]",
-                    per_mille(e.estimate_tvd_per_layer),
+                    per_mille(c.centre_tvd_per_layer),
                     per_mille(c.low_tvd_per_layer),
                     per_mille(c.high_tvd_per_layer)
                 ),
@@ -213,7 +213,7 @@ pub fn render(r: &AuditReport, opt: &TerminalOptions) -> String {
     }
     let _ = writeln!(
         out,
-        "The score is the least slack the data demand (a lower bound, for detection); the estimate is its size at unlimited shots, and the interval ({}) is around the estimate.",
+        "The score is the least slack the data demand (a lower bound, for detection); the estimate is its size at unlimited shots (bias-corrected where replicates were run), and the interval ({}) is around it.",
         r.edges.iter().find_map(|e| e.confidence.as_ref()).map_or("none: no replicates", |c| c.method.as_str())
     );
     for e in r.edges.iter().filter(|e| e.verdict == Verdict::Confounded) {
@@ -349,7 +349,7 @@ fn render_intrinsic(r: &AuditReport, color: bool, out: &mut String, title: Strin
             right(match &k.confidence {
                 Some(c) => format!(
                     "{} [{}..{}]",
-                    per_mille(k.estimate_tvd_per_occurrence),
+                    per_mille(c.centre_tvd_per_layer),
                     per_mille(c.low_tvd_per_layer),
                     per_mille(c.high_tvd_per_layer)
                 ),
