@@ -341,6 +341,8 @@ fn polarization(p: &[f64]) -> (f64, f64) {
 fn sensitivity(a: &Analysis, p: &Problem, r: QubitIx) -> f64 {
     let n_rows = a.used.len();
     let pi_max = p.rows.iter().map(|&i| polarization(&a.predictions[i]).0).fold(0.0, f64::max);
+    // The threshold depends on the outcome count alone; a quantile costs a root search.
+    let mut thresholds: Vec<(usize, f64)> = Vec::new();
     let mut best = f64::INFINITY;
     for &i in &p.rows {
         let row = &a.rows.rows[i];
@@ -353,7 +355,15 @@ fn sensitivity(a: &Analysis, p: &Problem, r: QubitIx) -> f64 {
         if pi <= 0.0 {
             continue;
         }
-        let t = crate::stats::bonferroni_threshold(pred.len() - 1, a.alpha, n_rows);
+        let dof = pred.len() - 1;
+        let t = match thresholds.iter().find(|e| e.0 == dof) {
+            Some(e) => e.1,
+            None => {
+                let t = crate::stats::bonferroni_threshold(dof, a.alpha, n_rows);
+                thresholds.push((dof, t));
+                t
+            }
+        };
         let shift = crate::slack::requirement::detectable_shift(top, row.shots, t);
         best = best.min(shift * pi_max / (c as f64 * pi));
     }

@@ -129,8 +129,8 @@ pub(crate) struct Analysis<'a> {
     pub used: Vec<usize>,
     pub predictions: Vec<Vec<f64>>,
     pub requirement: Vec<f64>,
-    /// Deviation requirements (TVD(p, f) on rows with a positive requirement, else 0): the
-    /// requirements of the unlimited-shot estimate.
+    /// Deviation requirements of the unlimited-shot estimate, aligned with `requirement`
+    /// (see [`crate::slack::requirement::requirement_and_deviation`]).
     pub deviation: Vec<f64>,
     /// 1q rows per qubit and 2q rows per coupler (global indices).
     pub qubit_rows: Vec<Vec<usize>>,

@@ -5,7 +5,7 @@ use std::collections::HashMap;
 
 use super::{AuditReport, Render};
 
-fn to_bytes(header: &[&str], rows: Vec<Vec<String>>) -> Vec<u8> {
+fn to_bytes<S: AsRef<[u8]>>(header: &[S], rows: Vec<Vec<String>>) -> Vec<u8> {
     let mut w = csv::Writer::from_writer(Vec::new());
     let _ = w.write_record(header);
     for r in rows {
@@ -32,9 +32,20 @@ fn joined(v: Option<&Vec<f64>>) -> String {
     v.map_or(String::new(), |v| v.iter().map(|x| x.to_string()).collect::<Vec<_>>().join(";"))
 }
 
+/// The header names of [`confidence_cells`], values in `unit` (e.g. `tvd_per_layer`).
+fn confidence_columns(unit: &str) -> Vec<String> {
+    let mut v = vec!["interval_method".to_string(), "interval_level".to_string()];
+    for name in
+        ["interval_low", "interval_high", "upper_bound", "bootstrap_median", "bias_corrected"]
+    {
+        v.push(format!("{name}_{unit}"));
+    }
+    v.push("p_positive".into());
+    v
+}
+
 /// Method, level, low, high, upper bound, median, bias-corrected estimate and P(score > 0)
-/// of a confidence; empty
-/// cells without one.
+/// of a confidence; empty cells without one.
 fn confidence_cells(c: Option<&super::Confidence>) -> Vec<String> {
     match c {
         Some(c) => vec![
@@ -80,24 +91,25 @@ impl Render for EdgesCsv {
             "verdict",
             "estimate_tvd_per_layer",
             "sensitivity_tvd_per_layer",
-            "interval_method",
-            "interval_level",
-            "interval_low_tvd_per_layer",
-            "interval_high_tvd_per_layer",
-            "upper_bound_tvd_per_layer",
-            "bootstrap_median_tvd_per_layer",
-            "bias_corrected_tvd_per_layer",
-            "p_positive",
-            "median_rank",
-            "rank_low",
-            "rank_high",
-            "top_k",
-            "p_top_k",
-            "parametric_limit_tvd_per_layer",
-            "parametric_p_value",
-            "replicate_estimates_tvd_per_layer",
-            "replicate_scores_tvd_per_layer",
-        ];
+        ]
+        .map(String::from)
+        .into_iter()
+        .chain(confidence_columns("tvd_per_layer"))
+        .chain(
+            [
+                "median_rank",
+                "rank_low",
+                "rank_high",
+                "top_k",
+                "p_top_k",
+                "parametric_limit_tvd_per_layer",
+                "parametric_p_value",
+                "replicate_estimates_tvd_per_layer",
+                "replicate_scores_tvd_per_layer",
+            ]
+            .map(String::from),
+        )
+        .collect::<Vec<_>>();
         let rows = r
             .edges
             .iter()
@@ -194,15 +206,11 @@ impl Render for IntrinsicCsv {
             "fitted_error_rate",
             "fitted_on_all_rows",
             "estimate_tvd_per_occurrence",
-            "interval_method",
-            "interval_level",
-            "interval_low_tvd_per_occurrence",
-            "interval_high_tvd_per_occurrence",
-            "upper_bound_tvd_per_occurrence",
-            "bootstrap_median_tvd_per_occurrence",
-            "bias_corrected_tvd_per_occurrence",
-            "p_positive",
-        ];
+        ]
+        .map(String::from)
+        .into_iter()
+        .chain(confidence_columns("tvd_per_occurrence"))
+        .collect::<Vec<_>>();
         let rows = r
             .intrinsic
             .iter()

@@ -176,15 +176,7 @@ pub fn render(r: &AuditReport, opt: &TerminalOptions) -> String {
             right(per_mille(e.a_from_b_tvd_per_layer)),
             right(per_mille(e.b_from_a_tvd_per_layer)),
             right(e.supporting_rows.to_string()),
-            right(match &e.confidence {
-                Some(c) => format!(
-                    "{} [{}..{}]",
-                    per_mille(c.centre_tvd_per_layer),
-                    per_mille(c.low_tvd_per_layer),
-                    per_mille(c.high_tvd_per_layer)
-                ),
-                None => per_mille(e.estimate_tvd_per_layer),
-            }),
+            right(estimate_text(e.estimate_tvd_per_layer, e.confidence.as_ref())),
             right(format!(
                 "{}..{}",
                 per_mille(e.attribution_min_tvd_per_layer),
@@ -247,6 +239,19 @@ pub fn render(r: &AuditReport, opt: &TerminalOptions) -> String {
     }
     let _ = writeln!(out, "\nCaution: {}", r.caution);
     out
+}
+
+/// "centre [low..high]" in 1e-3 units with replicates, the plain estimate without.
+fn estimate_text(estimate: f64, c: Option<&super::Confidence>) -> String {
+    match c {
+        Some(c) => format!(
+            "{} [{}..{}]",
+            per_mille(c.centre_tvd_per_layer),
+            per_mille(c.low_tvd_per_layer),
+            per_mille(c.high_tvd_per_layer)
+        ),
+        None => per_mille(estimate),
+    }
 }
 
 /// Median and largest finite sensitivity of some edges, in 1e-3 units; None when no edge
@@ -346,15 +351,7 @@ fn render_intrinsic(r: &AuditReport, color: bool, out: &mut String, title: Strin
             Cell::new(&k.kind),
             right(k.occurrences.to_string()),
             right(per_mille(k.slack_tvd_per_occurrence)),
-            right(match &k.confidence {
-                Some(c) => format!(
-                    "{} [{}..{}]",
-                    per_mille(c.centre_tvd_per_layer),
-                    per_mille(c.low_tvd_per_layer),
-                    per_mille(c.high_tvd_per_layer)
-                ),
-                None => per_mille(k.estimate_tvd_per_occurrence),
-            }),
+            right(estimate_text(k.estimate_tvd_per_occurrence, k.confidence.as_ref())),
             right(per_mille(k.fitted_error_rate)),
             Cell::new(if k.fitted_on_all_rows { "no reference rows" } else { "" }),
         ]);
