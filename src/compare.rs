@@ -600,7 +600,7 @@ pub fn terminal(r: &CompareReport, max_rows: usize) -> String {
         ]);
     }
     let _ =
-        writeln!(out, "\nEdges that changed, were flagged, or are in one audit only (per layer)");
+        writeln!(out, "\nEdges that changed, were flagged, or are in one audit only (unlimited-shot estimates, per layer)");
     if !shown.is_empty() {
         let _ = writeln!(out, "{t}");
     }
@@ -624,7 +624,7 @@ pub fn terminal(r: &CompareReport, max_rows: usize) -> String {
             Cell::new(change_text(d, c.presence)),
         ]);
     }
-    let _ = writeln!(out, "\nIntrinsic slack per qubit (occurrence-weighted over its one-qubit kinds, per occurrence)");
+    let _ = writeln!(out, "\nIntrinsic slack per qubit: unlimited-shot estimate, occurrence-weighted over its one-qubit kinds, per occurrence");
     let _ = writeln!(out, "{q}");
     if r.qubits.len() > max_rows {
         let _ = writeln!(out, "{} more qubits are in compare.csv.", r.qubits.len() - max_rows);
