@@ -208,6 +208,10 @@ fn command_writes_plan_json_and_rejects_unordered_shots() {
     let err = String::from_utf8_lossy(&bad.get_output().stderr).to_string();
     assert!(err.contains("increasing"), "{err}");
     assert!(!out.exists(), "nothing is written on a usage error");
+    let bad = args("500").args(["--kinds", "spiral"]).assert().code(2);
+    let err = String::from_utf8_lossy(&bad.get_output().stderr).to_string();
+    assert!(err.contains("--kinds") && err.contains("repeated-x"), "{err}");
+    assert!(!out.exists(), "nothing is written on a usage error");
 
     let ok = args("500").assert().success();
     let text = String::from_utf8_lossy(&ok.get_output().stdout).to_string();

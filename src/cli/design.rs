@@ -31,6 +31,19 @@ pub struct DesignArgs {
     /// Layout file (TOML).
     #[arg(long, value_name = "FILE")]
     layout: PathBuf,
+    #[command(flatten)]
+    sequences: SequenceArgs,
+    /// Seed for every random choice (sequences and run order).
+    #[arg(long, default_value_t = 0, value_name = "S")]
+    seed: u64,
+    /// Output folder (must not exist, or be empty).
+    #[arg(long, value_name = "DIR")]
+    out: PathBuf,
+}
+
+/// The sequences of a design (shared by `design` and `plan`).
+#[derive(Args, Debug, Clone)]
+pub struct SequenceArgs {
     /// Sequence depths, comma separated: Cliffords per randomized sequence, cycle
     /// repetitions per repeated one.
     #[arg(long, value_delimiter = ',', default_value = "1,4,16,64", value_name = "LIST")]
@@ -38,30 +51,31 @@ pub struct DesignArgs {
     /// Independent randomized sequences per depth and pattern.
     #[arg(long, default_value_t = 4, value_name = "N")]
     sequences: usize,
-    /// Seed for every random choice (sequences and run order).
-    #[arg(long, default_value_t = 0, value_name = "S")]
-    seed: u64,
-    /// Output folder (must not exist, or be empty).
-    #[arg(long, value_name = "DIR")]
-    out: PathBuf,
     /// Sequence kinds, comma separated: randomized, repeated-x, repeated-z, or repeated
     /// (both repeated framings).
     #[arg(long, value_delimiter = ',', default_value = "randomized,repeated", value_name = "LIST")]
     kinds: Vec<String>,
 }
 
+impl SequenceArgs {
+    /// The validated design settings with this `seed`.
+    pub fn config(&self, seed: u64) -> anyhow::Result<DesignConfig> {
+        let mut kinds = Vec::new();
+        for k in &self.kinds {
+            let parsed = Kind::parse_list(k).ok_or_else(|| {
+                slackmap::Error::Usage(format!(
+                    "--kinds: '{k}' is not a kind (valid: randomized, repeated-x, repeated-z, repeated)"
+                ))
+            })?;
+            kinds.extend(parsed);
+        }
+        Ok(DesignConfig::new(self.depths.clone(), self.sequences, seed, kinds)?)
+    }
+}
+
 /// Runs `slackmap design`.
 pub fn run(args: DesignArgs) -> anyhow::Result<()> {
-    let mut kinds = Vec::new();
-    for k in &args.kinds {
-        let parsed = Kind::parse_list(k).ok_or_else(|| {
-            slackmap::Error::Usage(format!(
-                "--kinds: '{k}' is not a kind (valid: randomized, repeated-x, repeated-z, repeated)"
-            ))
-        })?;
-        kinds.extend(parsed);
-    }
-    let cfg = DesignConfig::new(args.depths.clone(), args.sequences, args.seed, kinds)?;
+    let cfg = args.sequences.config(args.seed)?;
     let layout = slackmap::layout::read_layout(&args.layout)?;
     let d =
         design(&layout, &cfg).with_context(|| format!("designing for layout '{}'", layout.name))?;

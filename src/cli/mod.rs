@@ -49,7 +49,7 @@ enum Command {
     Compare(compare::CompareArgs),
     /// Scheduling hints from an audit: conflict graph, parallel groups, layer counts.
     Hints(hints::HintsArgs),
-    /// Plan shot counts: detection limits and smallest flagged crosstalk from simulated audits.
+    /// Plan shot counts: sensitivity and smallest flagged crosstalk from simulated audits.
     Plan(plan::PlanArgs),
     /// Combine the partial results of `audit --replicate-range` shards into one audit.
     Merge(merge::MergeArgs),

@@ -9,7 +9,6 @@ use std::sync::atomic::AtomicBool;
 use std::sync::Arc;
 
 use slackmap::audit::{AuditConfig, Cancel};
-use slackmap::design::{DesignConfig, Kind};
 use slackmap::plan::{self, PlanConfig};
 use slackmap::simulate::Noise;
 
@@ -42,12 +41,9 @@ pub struct PlanArgs {
     /// Shots per circuit to evaluate, comma separated, increasing.
     #[arg(long, value_delimiter = ',', default_value = "300,1000,3000", value_name = "LIST")]
     shots: Vec<u64>,
-    /// Sequence depths of the design, comma separated.
-    #[arg(long, value_delimiter = ',', default_value = "1,4,16,64", value_name = "LIST")]
-    depths: Vec<usize>,
-    /// Randomized sequences per depth and pattern.
-    #[arg(long, default_value_t = 4, value_name = "N")]
-    sequences: usize,
+    /// The design every shot count is evaluated on (as `slackmap design`).
+    #[command(flatten)]
+    design: super::design::SequenceArgs,
     /// Seed of the design, the simulated data and the audits.
     #[arg(long, default_value_t = 0, value_name = "S")]
     seed: u64,
@@ -88,12 +84,7 @@ pub fn run(args: PlanArgs) -> anyhow::Result<()> {
     super::audit::start_threads(args.threads)?;
     let layout = slackmap::layout::read_layout(&args.layout)?;
     let noise = Noise::read(&args.noise, &layout)?;
-    let design = DesignConfig::new(
-        args.depths.clone(),
-        args.sequences,
-        args.seed,
-        vec![Kind::Randomized, Kind::RepeatedX, Kind::RepeatedZ],
-    )?;
+    let design = args.design.config(args.seed)?;
     let cfg = PlanConfig {
         shots: args.shots.clone(),
         design,
