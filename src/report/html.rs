@@ -304,11 +304,10 @@ pub fn html(r: &AuditReport) -> String {
                     pm_cell(e.score_tvd_per_layer),
                     pm_cell(e.a_from_b_tvd_per_layer),
                     pm_cell(e.b_from_a_tvd_per_layer),
-                    pm_cell(
-                        e.confidence
-                            .as_ref()
-                            .map_or(e.estimate_tvd_per_layer, |c| c.centre_tvd_per_layer),
-                    ),
+                    pm_cell(super::quoted_estimate(
+                        e.estimate_tvd_per_layer,
+                        e.confidence.as_ref(),
+                    )),
                     interval,
                     pm_cell(e.detection_limit_tvd_per_layer),
                     if e.sensitivity_tvd_per_layer.is_finite() {
@@ -353,11 +352,10 @@ pub fn html(r: &AuditReport) -> String {
                     num(k.occurrences.to_string(), Some(k.occurrences as f64)),
                     num(k.reference_occurrences.to_string(), Some(k.reference_occurrences as f64)),
                     pm_cell(k.slack_tvd_per_occurrence),
-                    pm_cell(
-                        k.confidence
-                            .as_ref()
-                            .map_or(k.estimate_tvd_per_occurrence, |c| c.centre_tvd_per_layer),
-                    ),
+                    pm_cell(super::quoted_estimate(
+                        k.estimate_tvd_per_occurrence,
+                        k.confidence.as_ref(),
+                    )),
                     match &k.confidence {
                         Some(c) => num(
                             format!(

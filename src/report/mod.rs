@@ -309,6 +309,12 @@ pub struct Confidence {
     pub score_replicates_tvd_per_layer: Vec<f64>,
 }
 
+/// The estimate tables quote beside an interval: with replicates the bias-corrected centre
+/// of the interval, without them the plain estimate.
+pub fn quoted_estimate(estimate: f64, c: Option<&Confidence>) -> f64 {
+    c.map_or(estimate, |c| c.centre_tvd_per_layer)
+}
+
 /// Bootstrap rank statistics of one edge.
 #[derive(Clone, Debug, Serialize, Deserialize, PartialEq)]
 pub struct RankConfidence {

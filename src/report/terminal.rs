@@ -241,16 +241,16 @@ pub fn render(r: &AuditReport, opt: &TerminalOptions) -> String {
     out
 }
 
-/// "centre [low..high]" in 1e-3 units with replicates, the plain estimate without.
+/// The quoted estimate in 1e-3 units, with "[low..high]" when replicates were run.
 fn estimate_text(estimate: f64, c: Option<&super::Confidence>) -> String {
+    let quoted = per_mille(super::quoted_estimate(estimate, c));
     match c {
         Some(c) => format!(
-            "{} [{}..{}]",
-            per_mille(c.centre_tvd_per_layer),
+            "{quoted} [{}..{}]",
             per_mille(c.low_tvd_per_layer),
             per_mille(c.high_tvd_per_layer)
         ),
-        None => per_mille(estimate),
+        None => quoted,
     }
 }
 
