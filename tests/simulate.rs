@@ -554,20 +554,22 @@ fn cli_writes_counts_and_truth() {
     )
     .unwrap();
     let out = dir.path().join("counts.csv");
-    let run = || {
-        assert_cmd::Command::cargo_bin("slackmap")
-            .unwrap()
-            .arg("simulate")
+    // `slackmap simulate` on the fixture, writing `out`; callers add shots and seed.
+    let simulate = || {
+        let mut c = assert_cmd::Command::cargo_bin("slackmap").unwrap();
+        c.arg("simulate")
             .arg("--layout")
             .arg(fixtures.join("layout.toml"))
             .arg("--circuits")
             .arg(fixtures.join("circuits.json"))
             .arg("--noise")
             .arg(&noise_path)
-            .args(["--shots", "500", "--seed", "4", "--out"])
-            .arg(&out)
-            .assert()
-            .success();
+            .arg("--out")
+            .arg(&out);
+        c
+    };
+    let run = || {
+        simulate().args(["--shots", "500", "--seed", "4"]).assert().success();
         std::fs::read_to_string(&out).unwrap()
     };
     let first = run();
@@ -598,19 +600,7 @@ fn cli_writes_counts_and_truth() {
     assert_eq!(pair["driven"]["half_diamond_method"], "exact_unitary");
     // A bad noise file fails with exit code 2 and names the line.
     std::fs::write(&noise_path, "schema = 1\n[intrinsic.sx]\n\ndepolarizing = -0.1\n").unwrap();
-    let a = assert_cmd::Command::cargo_bin("slackmap")
-        .unwrap()
-        .arg("simulate")
-        .arg("--layout")
-        .arg(fixtures.join("layout.toml"))
-        .arg("--circuits")
-        .arg(fixtures.join("circuits.json"))
-        .arg("--noise")
-        .arg(&noise_path)
-        .arg("--out")
-        .arg(&out)
-        .assert()
-        .code(2);
+    let a = simulate().assert().code(2);
     let err = String::from_utf8_lossy(&a.get_output().stderr).into_owned();
     assert!(err.contains("line 4") && err.contains("[0, 1]"), "{err}");
 }
