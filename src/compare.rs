@@ -14,15 +14,18 @@
 use std::collections::{BTreeMap, HashMap};
 use std::fmt::Write as _;
 
-use comfy_table::{presets, Cell, CellAlignment, ContentArrangement, Table};
+use schemars::JsonSchema;
 use serde::{Deserialize, Serialize};
 
 use crate::error::{Error, Result};
-use crate::report::terminal::per_mille;
-use crate::report::{AuditReport, Confidence, EdgeReport, Verdict, CAUTION};
+use crate::report::terminal::{
+    self, bold, number, per_mille, text, verdict_colour, Column, Style, TextCell,
+};
+use crate::report::{AuditReport, Confidence, EdgeReport, OccurrenceConfidence, Verdict, CAUTION};
 
-/// Version of the `compare.json` format written by this build.
-pub const SCHEMA: u32 = 2;
+/// Version of the `compare.json` format written by this build (3: audit labels and creation
+/// times, and warnings about layouts that differ).
+pub const SCHEMA: u32 = 3;
 
 /// Validated settings of a comparison.
 #[derive(Clone, Copy, Debug, PartialEq)]
@@ -50,7 +53,7 @@ impl CompareOptions {
 }
 
 /// How B compares with A.
-#[derive(Clone, Copy, Debug, Serialize, Deserialize, PartialEq, Eq)]
+#[derive(Clone, Copy, Debug, Serialize, Deserialize, PartialEq, Eq, JsonSchema)]
 #[serde(rename_all = "kebab-case")]
 pub enum Change {
     /// B is lower: the interval lies entirely below zero.
@@ -73,7 +76,7 @@ impl Change {
 }
 
 /// What a change rests on.
-#[derive(Clone, Copy, Debug, Serialize, Deserialize, PartialEq, Eq)]
+#[derive(Clone, Copy, Debug, Serialize, Deserialize, PartialEq, Eq, JsonSchema)]
 #[serde(rename_all = "kebab-case")]
 pub enum Basis {
     /// Basic bootstrap interval from replicate i of A paired with replicate i of B.
@@ -102,7 +105,7 @@ impl Basis {
 }
 
 /// Where an edge or qubit appears.
-#[derive(Clone, Copy, Debug, Serialize, Deserialize, PartialEq, Eq)]
+#[derive(Clone, Copy, Debug, Serialize, Deserialize, PartialEq, Eq, JsonSchema)]
 #[serde(rename_all = "kebab-case")]
 pub enum Presence {
     /// In both audits.
@@ -173,7 +176,7 @@ pub fn change_of(low: f64, high: f64) -> Change {
 }
 
 /// A difference B - A with what it rests on.
-#[derive(Clone, Debug, Serialize, Deserialize, PartialEq)]
+#[derive(Clone, Debug, Serialize, Deserialize, PartialEq, JsonSchema)]
 pub struct Difference {
     /// B - A; null when the item is in one audit only.
     pub estimate: Option<f64>,
@@ -189,6 +192,10 @@ pub struct Difference {
 
 fn replicates(c: &Option<Confidence>) -> &[f64] {
     c.as_ref().map_or(&[], |c| c.replicates_tvd_per_layer.as_slice())
+}
+
+fn occurrence_replicates(c: &Option<OccurrenceConfidence>) -> &[f64] {
+    c.as_ref().map_or(&[], |c| c.replicates_tvd_per_occurrence.as_slice())
 }
 
 /// The difference of two estimates: bootstrap when both have replicates, else the
@@ -242,10 +249,16 @@ fn one_only() -> Difference {
 }
 
 /// One audit as the comparison names it.
-#[derive(Clone, Debug, Serialize, Deserialize, PartialEq)]
+#[derive(Clone, Debug, Serialize, Deserialize, PartialEq, JsonSchema)]
 pub struct AuditSide {
     /// The audit file as given.
     pub path: String,
+    /// The audit's label (`audit --label`), when it has one.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub label: Option<String>,
+    /// When the audit was written (RFC 3339 UTC), when recorded.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub created: Option<String>,
     /// Its layout name.
     pub layout: String,
     /// Bootstrap replicates it ran (0 = none).
@@ -253,7 +266,7 @@ pub struct AuditSide {
 }
 
 /// One neighbour pair in the comparison.
-#[derive(Clone, Debug, Serialize, Deserialize, PartialEq)]
+#[derive(Clone, Debug, Serialize, Deserialize, PartialEq, JsonSchema)]
 pub struct EdgeChange {
     /// First qubit id (as in A when in both).
     pub a: String,
@@ -275,7 +288,7 @@ pub struct EdgeChange {
 
 /// One qubit's intrinsic slack in the comparison: the occurrence-weighted mean over the
 /// qubit's one-qubit kinds (gates and idle), TVD per occurrence.
-#[derive(Clone, Debug, Serialize, Deserialize, PartialEq)]
+#[derive(Clone, Debug, Serialize, Deserialize, PartialEq, JsonSchema)]
 pub struct QubitChange {
     /// Qubit id.
     pub qubit: String,
@@ -291,7 +304,7 @@ pub struct QubitChange {
 }
 
 /// What `compare.json` holds.
-#[derive(Clone, Debug, Serialize, Deserialize, PartialEq)]
+#[derive(Clone, Debug, Serialize, Deserialize, PartialEq, JsonSchema)]
 pub struct CompareReport {
     /// Format version, [`SCHEMA`].
     pub schema: u32,
@@ -307,6 +320,10 @@ pub struct CompareReport {
     pub level: f64,
     /// What the reader should know about the bases used, in words.
     pub notes: Vec<String>,
+    /// Differences between the two audits' layouts that make some rows incomparable (other
+    /// qubits or neighbour pairs, another layout name); empty when the layouts agree.
+    #[serde(default)]
+    pub warnings: Vec<String>,
     /// Every neighbour pair of either audit: A's order, then B-only pairs.
     pub edges: Vec<EdgeChange>,
     /// Every qubit with intrinsic slack in either audit.
@@ -347,11 +364,17 @@ fn intrinsic_per_qubit(r: &AuditReport) -> BTreeMap<String, QubitSlack> {
                 }
             };
             let value = kinds.iter().map(|k| weight(k) * k.estimate_tvd_per_occurrence).sum();
-            let n = replicates(&kinds[0].confidence).len();
-            let same = n > 0 && kinds.iter().all(|k| replicates(&k.confidence).len() == n);
+            let n = occurrence_replicates(&kinds[0].confidence).len();
+            let same =
+                n > 0 && kinds.iter().all(|k| occurrence_replicates(&k.confidence).len() == n);
             let reps = if same {
                 (0..n)
-                    .map(|i| kinds.iter().map(|k| weight(k) * replicates(&k.confidence)[i]).sum())
+                    .map(|i| {
+                        kinds
+                            .iter()
+                            .map(|k| weight(k) * occurrence_replicates(&k.confidence)[i])
+                            .sum()
+                    })
                     .collect()
             } else {
                 Vec::new()
@@ -364,20 +387,83 @@ fn intrinsic_per_qubit(r: &AuditReport) -> BTreeMap<String, QubitSlack> {
 fn side(r: &AuditReport, path: &str) -> AuditSide {
     AuditSide {
         path: path.to_string(),
+        label: r.label.clone(),
+        created: r.created.clone(),
         layout: r.layout.name.clone(),
         replicates: r.parameters.replicates,
     }
 }
 
-/// Compares audit B with audit A. Prints nothing, reads nothing.
+/// What differs between two audits' layouts, in words (empty when nothing does).
+fn layout_warnings(a: &AuditReport, b: &AuditReport) -> Vec<String> {
+    let mut w = Vec::new();
+    if a.layout.name != b.layout.name {
+        w.push(format!(
+            "the audits are of different layouts ('{}' and '{}'): edges are matched by qubit names",
+            a.layout.name, b.layout.name
+        ));
+    }
+    let set = |r: &AuditReport| {
+        r.layout.qubits.iter().cloned().collect::<std::collections::BTreeSet<_>>()
+    };
+    let (qa, qb) = (set(a), set(b));
+    if qa != qb {
+        let only = |x: &std::collections::BTreeSet<String>,
+                    y: &std::collections::BTreeSet<String>| {
+            let v: Vec<&String> = x.difference(y).collect();
+            let shown: Vec<&str> = v.iter().take(8).map(|s| s.as_str()).collect();
+            format!(
+                "{}{}",
+                shown.join(", "),
+                if v.len() > 8 { format!(" and {} more", v.len() - 8) } else { String::new() }
+            )
+        };
+        w.push(format!(
+            "the qubits differ: {} only in A, {} only in B",
+            if qa.difference(&qb).next().is_some() { only(&qa, &qb) } else { "none".into() },
+            if qb.difference(&qa).next().is_some() { only(&qb, &qa) } else { "none".into() }
+        ));
+    }
+    let edges = |r: &AuditReport| {
+        r.edges.iter().map(|e| key(&e.a, &e.b)).collect::<std::collections::BTreeSet<_>>()
+    };
+    let (ea, eb) = (edges(a), edges(b));
+    if ea != eb {
+        w.push(format!(
+            "the neighbour pairs differ: {} only in A, {} only in B, {} in both; only those in both are compared",
+            ea.difference(&eb).count(),
+            eb.difference(&ea).count(),
+            ea.intersection(&eb).count()
+        ));
+    }
+    w
+}
+
+/// Compares audit B with audit A. Prints nothing, reads nothing. Refuses two audits that
+/// share no neighbour pair (nothing to compare); differing layouts are compared where they
+/// overlap and listed in `warnings`.
 pub fn compare(
     a: &AuditReport,
     a_path: &str,
     b: &AuditReport,
     b_path: &str,
     opt: &CompareOptions,
-) -> CompareReport {
+) -> Result<CompareReport> {
     let level = opt.level;
+    let warnings = layout_warnings(a, b);
+    {
+        let keys: std::collections::HashSet<(String, String)> =
+            a.edges.iter().map(|e| key(&e.a, &e.b)).collect();
+        if !b.edges.is_empty()
+            && !a.edges.is_empty()
+            && !b.edges.iter().any(|e| keys.contains(&key(&e.a, &e.b)))
+        {
+            return Err(Error::Usage(format!(
+                "{a_path} (layout '{}') and {b_path} (layout '{}') share no neighbour pair: nothing to compare. Compare audits of the same chip (the same qubit names)",
+                a.layout.name, b.layout.name
+            )));
+        }
+    }
     let b_edges: HashMap<(String, String), &EdgeReport> =
         b.edges.iter().map(|e| (key(&e.a, &e.b), e)).collect();
     let a_keys: std::collections::HashSet<(String, String)> =
@@ -470,7 +556,7 @@ pub fn compare(
                  (changed only when |B - A| exceeds the larger detection limit), no interval"
             ));
         }
-        if r.intrinsic.iter().all(|k| replicates(&k.confidence).is_empty()) {
+        if r.intrinsic.iter().all(|k| occurrence_replicates(&k.confidence).is_empty()) {
             notes.push(format!(
                 "audit {name} has no intrinsic-slack replicates: qubit changes are estimates only, no interval"
             ));
@@ -484,7 +570,7 @@ pub fn compare(
             }
         }
     }
-    CompareReport {
+    Ok(CompareReport {
         schema: SCHEMA,
         tool_version: env!("CARGO_PKG_VERSION").to_string(),
         caution: CAUTION.to_string(),
@@ -492,10 +578,11 @@ pub fn compare(
         b: side(b, b_path),
         level,
         notes,
+        warnings,
         edges,
         qubits,
         positions,
-    }
+    })
 }
 
 // ---------------------------------------------------------------------------------------
@@ -536,38 +623,61 @@ fn change_text(d: &Difference, presence: Presence) -> String {
     }
 }
 
-fn new_table() -> Table {
-    let mut t = Table::new();
-    t.load_style(presets::UTF8_FULL_CONDENSED).set_content_arrangement(ContentArrangement::Dynamic);
-    t.force_no_tty();
-    t
+fn verdict_text(v: Option<Verdict>, style: Style) -> TextCell {
+    match v {
+        Some(v) => terminal::verdict_cell(v, style),
+        None => text("-"),
+    }
 }
 
-fn right(s: String) -> Cell {
-    Cell::new(s).set_alignment(CellAlignment::Right)
+fn change_cell(d: &Difference, presence: Presence, style: Style) -> TextCell {
+    let colour = match d.change {
+        Some(Change::Worse) if presence == Presence::Both => verdict_colour(Verdict::Recalibrate),
+        Some(Change::Improved) if presence == Presence::Both => {
+            Some((comfy_table::Color::Green, false))
+        }
+        _ => None,
+    };
+    TextCell {
+        text: change_text(d, presence),
+        right: false,
+        colour: colour.filter(|_| style.color),
+    }
+}
+
+fn side_words(s: &AuditSide) -> String {
+    match &s.label {
+        Some(l) => format!("{} \"{l}\", {}", s.path, s.layout),
+        None => format!("{}, {}", s.path, s.layout),
+    }
 }
 
 /// The terminal report: edges that changed, were flagged or appear in one audit only, then
-/// the qubits. Values in 1e-3 per layer (edges) or per occurrence (qubits).
-pub fn terminal(r: &CompareReport, max_rows: usize) -> String {
+/// the qubits. Values in 1e-3 per layer (edges) or per occurrence (qubits). Tables fit the
+/// style's width.
+pub fn terminal(r: &CompareReport, max_rows: usize, style: Style) -> String {
     let mut out = String::new();
+    let prose = |out: &mut String, s: &str| out.push_str(&terminal::wrap(s, style.width, "  "));
     let count =
         |c: Change| r.edges.iter().filter(|e| e.difference_tvd_per_layer.change == Some(c)).count();
-    let _ = writeln!(
-        out,
-        "B ({}, {}) against A ({}, {}) at level {}: {} edges improved, {} worse, {} unchanged, {} in one audit only.",
-        r.b.path,
-        r.b.layout,
-        r.a.path,
-        r.a.layout,
-        r.level,
-        count(Change::Improved),
-        count(Change::Worse),
-        count(Change::Unchanged),
-        r.edges.iter().filter(|e| e.presence != Presence::Both).count()
+    prose(
+        &mut out,
+        &format!(
+            "B ({}) against A ({}) at level {}: {} edges improved, {} worse, {} unchanged, {} in one audit only.",
+            side_words(&r.b),
+            side_words(&r.a),
+            r.level,
+            count(Change::Improved),
+            count(Change::Worse),
+            count(Change::Unchanged),
+            r.edges.iter().filter(|e| e.presence != Presence::Both).count()
+        ),
     );
+    for w in &r.warnings {
+        prose(&mut out, &format!("warning: {w}"));
+    }
     for n in &r.notes {
-        let _ = writeln!(out, "note: {n}");
+        prose(&mut out, &format!("note: {n}"));
     }
     let interesting = |e: &&EdgeChange| {
         e.presence != Presence::Both
@@ -576,33 +686,39 @@ pub fn terminal(r: &CompareReport, max_rows: usize) -> String {
             || e.verdict_b.is_some_and(|v| v != Verdict::Clean)
     };
     let shown: Vec<&EdgeChange> = r.edges.iter().filter(interesting).take(max_rows).collect();
-    let mut t = new_table();
-    t.set_header(vec![
-        "edge",
-        "estimate A x1e-3",
-        "estimate B x1e-3",
-        "B-A x1e-3",
-        "interval x1e-3",
-        "verdicts A -> B",
-        "change",
-    ]);
+    let mut cols = vec![
+        Column::new("edge", 0),
+        Column::new("estimate A", 0),
+        Column::new("estimate B", 0),
+        Column::new("B-A", 0),
+        Column::new("interval", 1),
+        Column::new("verdict A", 2),
+        Column::new("verdict B", 2),
+        Column::new("change", 0),
+    ];
     for e in &shown {
         let d = &e.difference_tvd_per_layer;
-        let word = |v: Option<Verdict>| v.map_or("-", |v| v.word());
-        t.add_row(vec![
-            Cell::new(format!("{}-{}", e.a, e.b)),
-            right(opt_pm(e.estimate_a_tvd_per_layer)),
-            right(opt_pm(e.estimate_b_tvd_per_layer)),
-            right(d.estimate.map(signed_pm).unwrap_or_else(|| "-".into())),
-            right(interval_text(d)),
-            Cell::new(format!("{} -> {}", word(e.verdict_a), word(e.verdict_b))),
-            Cell::new(change_text(d, e.presence)),
-        ]);
+        let cells = [
+            text(format!("{}-{}", e.a, e.b)),
+            number(opt_pm(e.estimate_a_tvd_per_layer)),
+            number(opt_pm(e.estimate_b_tvd_per_layer)),
+            number(d.estimate.map(signed_pm).unwrap_or_else(|| "-".into())),
+            number(interval_text(d)),
+            verdict_text(e.verdict_a, style),
+            verdict_text(e.verdict_b, style),
+            change_cell(d, e.presence, style),
+        ];
+        for (c, cell) in cols.iter_mut().zip(cells) {
+            c.cells.push(cell);
+        }
     }
-    let _ =
-        writeln!(out, "\nEdges that changed, were flagged, or are in one audit only (unlimited-shot estimates, per layer)");
+    let _ = writeln!(
+        out,
+        "\n{}",
+        bold("Edges that changed, were flagged, or are in one audit only (unlimited-shot estimates, x1e-3 TVD per layer)", style)
+    );
     if !shown.is_empty() {
-        let _ = writeln!(out, "{t}");
+        terminal::fitted_table(cols, style, "compare.csv", &mut out);
     }
     let hidden = r.edges.len() - shown.len();
     if hidden > 0 {
@@ -611,21 +727,35 @@ pub fn terminal(r: &CompareReport, max_rows: usize) -> String {
             "{hidden} more edges (clean in both, unchanged or not shown) are in compare.csv."
         );
     }
-    let mut q = new_table();
-    q.set_header(vec!["qubit", "A x1e-3", "B x1e-3", "B-A x1e-3", "interval x1e-3", "change"]);
+    let mut q = vec![
+        Column::new("qubit", 0),
+        Column::new("A", 0),
+        Column::new("B", 0),
+        Column::new("B-A", 0),
+        Column::new("interval", 1),
+        Column::new("change", 0),
+    ];
     for c in r.qubits.iter().take(max_rows) {
         let d = &c.difference_tvd_per_occurrence;
-        q.add_row(vec![
-            Cell::new(&c.qubit),
-            right(opt_pm(c.intrinsic_a_tvd_per_occurrence)),
-            right(opt_pm(c.intrinsic_b_tvd_per_occurrence)),
-            right(d.estimate.map(signed_pm).unwrap_or_else(|| "-".into())),
-            right(interval_text(d)),
-            Cell::new(change_text(d, c.presence)),
-        ]);
+        let cells = [
+            text(c.qubit.as_str()),
+            number(opt_pm(c.intrinsic_a_tvd_per_occurrence)),
+            number(opt_pm(c.intrinsic_b_tvd_per_occurrence)),
+            number(d.estimate.map(signed_pm).unwrap_or_else(|| "-".into())),
+            number(interval_text(d)),
+            change_cell(d, c.presence, style),
+        ];
+        for (col, cell) in q.iter_mut().zip(cells) {
+            col.cells.push(cell);
+        }
     }
-    let _ = writeln!(out, "\nIntrinsic slack per qubit: unlimited-shot estimate, occurrence-weighted over its one-qubit kinds, per occurrence");
-    let _ = writeln!(out, "{q}");
+    let _ = writeln!(out);
+    out.push_str(&terminal::wrap(
+        &bold("Intrinsic slack per qubit: unlimited-shot estimate, occurrence-weighted over its one-qubit kinds, x1e-3 TVD per occurrence", style),
+        style.width,
+        "",
+    ));
+    terminal::fitted_table(q, style, "compare.csv", &mut out);
     if r.qubits.len() > max_rows {
         let _ = writeln!(out, "{} more qubits are in compare.csv.", r.qubits.len() - max_rows);
     }
@@ -635,21 +765,27 @@ pub fn terminal(r: &CompareReport, max_rows: usize) -> String {
 /// `compare.csv`: one row per edge, then one per qubit, full precision.
 pub fn csv_bytes(r: &CompareReport) -> Vec<u8> {
     let mut w = csv::Writer::from_writer(Vec::new());
+    // Names follow compare.json: `estimate_a`/`estimate_b` are `estimate_a_tvd_per_layer`
+    // (edges) or `intrinsic_a_tvd_per_occurrence` (qubits) in the unit of column `unit`, and
+    // `difference.*` the fields of the difference.
     let _ = w.write_record([
         "item",
         "a",
         "b",
         "presence",
         "unit",
-        "value_a",
-        "value_b",
-        "difference",
-        "low",
-        "high",
-        "basis",
-        "change",
+        "estimate_a",
+        "estimate_b",
+        "difference.estimate",
+        "difference.low",
+        "difference.high",
+        "difference.basis",
+        "difference.change",
+        "verdict_a",
+        "verdict_b",
     ]);
-    let f = |v: Option<f64>| v.map(|x| x.to_string()).unwrap_or_default();
+    let f = |v: Option<f64>| v.map(crate::report::csv::num).unwrap_or_default();
+    let verdict = |v: Option<Verdict>| v.map(|v| v.word().to_string()).unwrap_or_default();
     let word = |d: &Difference| d.change.map(|c| c.word().to_string()).unwrap_or_default();
     for e in &r.edges {
         let d = &e.difference_tvd_per_layer;
@@ -666,6 +802,8 @@ pub fn csv_bytes(r: &CompareReport) -> Vec<u8> {
             f(d.high),
             d.basis.word().to_string(),
             word(d),
+            verdict(e.verdict_a),
+            verdict(e.verdict_b),
         ]);
     }
     for q in &r.qubits {
@@ -683,6 +821,8 @@ pub fn csv_bytes(r: &CompareReport) -> Vec<u8> {
             f(d.high),
             d.basis.word().to_string(),
             word(d),
+            String::new(),
+            String::new(),
         ]);
     }
     w.into_inner().unwrap_or_default()

@@ -17,12 +17,13 @@ use std::collections::BTreeMap;
 use std::fmt::Write as _;
 use std::path::Path;
 
-use comfy_table::{presets, Cell, CellAlignment, ContentArrangement, Table};
 use petgraph::graph::{NodeIndex, UnGraph};
+use schemars::JsonSchema;
 use serde::{Deserialize, Serialize};
 
 use crate::error::{Error, Result};
 use crate::layout::{generate, Layout, Qubit, QubitIx};
+use crate::report::terminal::{self, bold, number, text, Column, Style, TextCell};
 use crate::report::{AuditReport, Verdict};
 
 /// Version of the `hints.json` format written by this build.
@@ -155,7 +156,7 @@ impl BitGraph {
 
 /// A figure from a search: the value found, the bound it is proven against, and whether
 /// the two meet (the figure is then exact).
-#[derive(Clone, Debug, PartialEq, Eq, Serialize, Deserialize)]
+#[derive(Clone, Debug, PartialEq, Eq, Serialize, Deserialize, JsonSchema)]
 pub struct Figure {
     /// The value found (a set size or a number of layers).
     pub value: usize,
@@ -739,7 +740,7 @@ pub fn parallelism(
 // ---------------------------------------------------------------------------------------
 
 /// What `hints.json` holds: the conflict graph, the parallel groups and the figures.
-#[derive(Clone, Debug, Serialize, Deserialize, PartialEq)]
+#[derive(Clone, Debug, Serialize, Deserialize, PartialEq, JsonSchema)]
 pub struct HintsReport {
     /// Format version, [`SCHEMA`].
     pub schema: u32,
@@ -772,7 +773,7 @@ pub struct HintsReport {
 }
 
 /// One flagged direction.
-#[derive(Clone, Debug, Serialize, Deserialize, PartialEq)]
+#[derive(Clone, Debug, Serialize, Deserialize, PartialEq, JsonSchema)]
 pub struct FlaggedEntry {
     /// Victim qubit id.
     pub victim: String,
@@ -785,7 +786,7 @@ pub struct FlaggedEntry {
 }
 
 /// One operation.
-#[derive(Clone, Debug, Serialize, Deserialize, PartialEq)]
+#[derive(Clone, Debug, Serialize, Deserialize, PartialEq, JsonSchema)]
 pub struct OperationEntry {
     /// Operation id: a qubit id for a one-qubit gate, `a-b` for a coupler's two-qubit gate.
     pub id: String,
@@ -796,7 +797,7 @@ pub struct OperationEntry {
 }
 
 /// One conflict.
-#[derive(Clone, Debug, Serialize, Deserialize, PartialEq)]
+#[derive(Clone, Debug, Serialize, Deserialize, PartialEq, JsonSchema)]
 pub struct ConflictEntry {
     /// First operation id.
     pub a: String,
@@ -807,7 +808,7 @@ pub struct ConflictEntry {
 }
 
 /// The parallelism figures of one setting.
-#[derive(Clone, Debug, Serialize, Deserialize, PartialEq)]
+#[derive(Clone, Debug, Serialize, Deserialize, PartialEq, JsonSchema)]
 pub struct Figures {
     /// Most couplers whose two-qubit gates can share one layer (bound: upper).
     pub largest_coupler_set: Figure,
@@ -991,46 +992,51 @@ fn figure_rows() -> [FigureRow; 3] {
     ]
 }
 
-fn figure_cell(f: &Figure, bound_word: &str) -> Cell {
-    let text = if f.exact {
-        format!("{} (exact)", f.value)
+fn figure_cell(f: &Figure, bound_word: &str) -> TextCell {
+    if f.exact {
+        number(format!("{} (exact)", f.value))
     } else {
-        format!("{} ({bound_word} {})", f.value, f.bound)
-    };
-    Cell::new(text).set_alignment(CellAlignment::Right)
+        number(format!("{} ({bound_word} {})", f.value, f.bound))
+    }
 }
 
-fn new_table() -> Table {
-    let mut t = Table::new();
-    t.load_style(presets::UTF8_FULL_CONDENSED).set_content_arrangement(ContentArrangement::Dynamic);
-    t.force_no_tty();
-    t
-}
-
-/// The terminal table of one audit's hints.
-pub fn terminal(h: &HintsReport) -> String {
-    let mut t = new_table();
-    t.set_header(vec!["", "bare layout", "with flagged conflicts"]);
-    let rows = figure_rows();
-    for (name, get, word) in rows {
-        t.add_row(vec![
-            Cell::new(name),
+/// The terminal table of one audit's hints, fitted to the style's width.
+pub fn terminal(h: &HintsReport, style: Style) -> String {
+    let mut cols = vec![
+        Column::new("", 0),
+        Column::new("bare layout", 0),
+        Column::new("with flagged\nconflicts", 0),
+    ];
+    for (name, get, word) in figure_rows() {
+        for (c, cell) in cols.iter_mut().zip([
+            text(name),
             figure_cell(get(&h.without_conflicts), word),
             figure_cell(get(&h.with_conflicts), word),
-        ]);
+        ]) {
+            c.cells.push(cell);
+        }
     }
-    format!(
-        "Scheduling hints for layout {} from {} ({} flagged directions at level {}, {} conflicts)\n{t}\n",
-        h.layout,
-        h.audit,
-        h.flagged.len(),
-        h.flagged_level,
-        h.conflicts.len()
-    )
+    let mut out = terminal::wrap(
+        &bold(
+            &format!(
+                "Scheduling hints for layout {} from {} ({} flagged directions at level {}, {} conflicts)",
+                h.layout,
+                h.audit,
+                h.flagged.len(),
+                h.flagged_level,
+                h.conflicts.len()
+            ),
+            style,
+        ),
+        style.width,
+        "",
+    );
+    terminal::fitted_table(cols, style, "hints.json", &mut out);
+    out
 }
 
 /// Two audits' hints side by side ("which layout should we schedule on").
-#[derive(Clone, Debug, Serialize, Deserialize, PartialEq)]
+#[derive(Clone, Debug, Serialize, Deserialize, PartialEq, JsonSchema)]
 pub struct HintsComparison {
     /// Format version, [`SCHEMA`].
     pub schema: u32,
@@ -1040,34 +1046,42 @@ pub struct HintsComparison {
     pub b: HintsReport,
 }
 
-/// The terminal table of two audits' hints.
-pub fn terminal_compare(c: &HintsComparison) -> String {
-    let mut t = new_table();
-    t.set_header(vec![
-        "".to_string(),
-        format!("A: {} bare", c.a.layout),
-        format!("A: {} flagged", c.a.layout),
-        format!("B: {} bare", c.b.layout),
-        format!("B: {} flagged", c.b.layout),
-    ]);
-    let rows = figure_rows();
-    for (name, get, word) in rows {
-        t.add_row(vec![
-            Cell::new(name),
+/// The terminal table of two audits' hints, fitted to the style's width.
+pub fn terminal_compare(c: &HintsComparison, style: Style) -> String {
+    let mut cols = vec![
+        Column::new("", 0),
+        Column::new(&format!("A: {}\nbare", c.a.layout), 0),
+        Column::new(&format!("A: {}\nflagged", c.a.layout), 0),
+        Column::new(&format!("B: {}\nbare", c.b.layout), 0),
+        Column::new(&format!("B: {}\nflagged", c.b.layout), 0),
+    ];
+    for (name, get, word) in figure_rows() {
+        for (col, cell) in cols.iter_mut().zip([
+            text(name),
             figure_cell(get(&c.a.without_conflicts), word),
             figure_cell(get(&c.a.with_conflicts), word),
             figure_cell(get(&c.b.without_conflicts), word),
             figure_cell(get(&c.b.with_conflicts), word),
-        ]);
+        ]) {
+            col.cells.push(cell);
+        }
     }
-    t.add_row(vec![
-        Cell::new("flagged directions / conflicts"),
-        Cell::new(""),
-        Cell::new(format!("{} / {}", c.a.flagged.len(), c.a.conflicts.len())),
-        Cell::new(""),
-        Cell::new(format!("{} / {}", c.b.flagged.len(), c.b.conflicts.len())),
-    ]);
-    format!("A = {}, B = {} (flag level {})\n{t}\n", c.a.audit, c.b.audit, c.a.flagged_level)
+    for (col, cell) in cols.iter_mut().zip([
+        text("flagged directions / conflicts"),
+        text(""),
+        number(format!("{} / {}", c.a.flagged.len(), c.a.conflicts.len())),
+        text(""),
+        number(format!("{} / {}", c.b.flagged.len(), c.b.conflicts.len())),
+    ]) {
+        col.cells.push(cell);
+    }
+    let mut out = terminal::wrap(
+        &format!("A = {}, B = {} (flag level {})", c.a.audit, c.b.audit, c.a.flagged_level),
+        style.width,
+        "",
+    );
+    terminal::fitted_table(cols, style, "hints-compare.json", &mut out);
+    out
 }
 
 /// The files `hints` writes for one audit: `hints.json` and `conflicts.dot`.

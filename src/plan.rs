@@ -10,6 +10,7 @@
 
 use std::time::Instant;
 
+use schemars::JsonSchema;
 use serde::{Deserialize, Serialize};
 
 use crate::audit::{self, AuditConfig, Progress};
@@ -32,7 +33,9 @@ const MIN_SIZE: f64 = 1e-6;
 const MAX_LADDER_STEPS: usize = 16;
 
 /// The two kinds of injected context error.
-#[derive(Clone, Copy, Debug, PartialEq, Eq, Serialize, Deserialize, PartialOrd, Ord)]
+#[derive(
+    Clone, Copy, Debug, PartialEq, Eq, Serialize, Deserialize, PartialOrd, Ord, JsonSchema,
+)]
 #[serde(rename_all = "kebab-case")]
 pub enum ErrorKind {
     /// Extra depolarizing on the victim's operations (idle included) while the aggressor
@@ -117,7 +120,7 @@ impl PlanConfig {
 }
 
 /// A complete plan: what `plan.json` holds.
-#[derive(Clone, Debug, Serialize, Deserialize, PartialEq)]
+#[derive(Clone, Debug, Serialize, Deserialize, PartialEq, JsonSchema)]
 pub struct PlanReport {
     /// Format version, [`SCHEMA`].
     pub schema: u32,
@@ -139,7 +142,7 @@ pub struct PlanReport {
 }
 
 /// The settings of a plan.
-#[derive(Clone, Debug, Serialize, Deserialize, PartialEq)]
+#[derive(Clone, Debug, Serialize, Deserialize, PartialEq, JsonSchema)]
 pub struct PlanParameters {
     /// Sequence depths of the design.
     pub depths: Vec<usize>,
@@ -168,7 +171,7 @@ pub struct PlanParameters {
 }
 
 /// Counts of the crosstalk terms taken out of the noise scenario for the baseline.
-#[derive(Clone, Debug, Serialize, Deserialize, PartialEq)]
+#[derive(Clone, Debug, Serialize, Deserialize, PartialEq, JsonSchema)]
 pub struct RemovedTerms {
     /// Directed context terms, from `context` entries.
     pub context: usize,
@@ -179,7 +182,7 @@ pub struct RemovedTerms {
 }
 
 /// Results at one shot count.
-#[derive(Clone, Debug, Serialize, Deserialize, PartialEq)]
+#[derive(Clone, Debug, Serialize, Deserialize, PartialEq, JsonSchema)]
 pub struct ShotPlan {
     /// Shots per circuit.
     pub shots: u64,
@@ -215,35 +218,39 @@ pub struct ShotPlan {
 }
 
 /// One edge's baseline detection limit.
-#[derive(Clone, Debug, Serialize, Deserialize, PartialEq)]
+#[derive(Clone, Debug, Serialize, Deserialize, PartialEq, JsonSchema)]
 pub struct EdgeLimit {
     /// First qubit id.
     pub a: String,
     /// Second qubit id.
     pub b: String,
-    /// Sensitivity of the edge (its less sensitive direction), TVD per layer; null when a
-    /// direction is untested.
-    pub sensitivity_tvd_per_layer: Option<f64>,
+    /// Sensitivity of the edge (its less sensitive direction), TVD per layer; `"unbounded"`
+    /// when a direction is untested.
+    #[serde(with = "crate::report::special::unbounded")]
+    #[schemars(with = "crate::report::special::Number")]
+    pub sensitivity_tvd_per_layer: f64,
     /// Permutation-null detection limit of the edge (of its higher-scoring direction), TVD
     /// per layer.
     pub detection_limit_tvd_per_layer: f64,
 }
 
 /// One directed pair's baseline detection limit.
-#[derive(Clone, Debug, Serialize, Deserialize, PartialEq)]
+#[derive(Clone, Debug, Serialize, Deserialize, PartialEq, JsonSchema)]
 pub struct DirectedLimit {
     /// Victim qubit id.
     pub victim: String,
     /// Aggressor qubit id.
     pub aggressor: String,
-    /// Sensitivity, TVD per layer; null when the design never tests the pair.
-    pub sensitivity_tvd_per_layer: Option<f64>,
+    /// Sensitivity, TVD per layer; `"unbounded"` when the design never tests the pair.
+    #[serde(with = "crate::report::special::unbounded")]
+    #[schemars(with = "crate::report::special::Number")]
+    pub sensitivity_tvd_per_layer: f64,
     /// Permutation-null detection limit, TVD per layer.
     pub detection_limit_tvd_per_layer: f64,
 }
 
 /// The search for the smallest flagged error of one kind on one directed pair.
-#[derive(Clone, Debug, Serialize, Deserialize, PartialEq)]
+#[derive(Clone, Debug, Serialize, Deserialize, PartialEq, JsonSchema)]
 pub struct SearchResult {
     /// Why this pair was chosen: `median` or `worst` baseline directed sensitivity
     /// (`median+worst` when it is both).
@@ -273,7 +280,7 @@ pub struct SearchResult {
 }
 
 /// One tested size.
-#[derive(Clone, Debug, Serialize, Deserialize, PartialEq)]
+#[derive(Clone, Debug, Serialize, Deserialize, PartialEq, JsonSchema)]
 pub struct SearchStep {
     /// The injected size (rate or radians).
     pub size: f64,
@@ -284,7 +291,7 @@ pub struct SearchStep {
 }
 
 /// The recommendation in words and numbers.
-#[derive(Clone, Debug, Serialize, Deserialize, PartialEq)]
+#[derive(Clone, Debug, Serialize, Deserialize, PartialEq, JsonSchema)]
 pub struct Recommendation {
     /// The recommendation as a sentence.
     pub text: String,
@@ -602,7 +609,7 @@ fn plan_shots(
         .map(|e| EdgeLimit {
             a: e.a.clone(),
             b: e.b.clone(),
-            sensitivity_tvd_per_layer: finite(e.sensitivity_tvd_per_layer),
+            sensitivity_tvd_per_layer: e.sensitivity_tvd_per_layer,
             detection_limit_tvd_per_layer: e.detection_limit_tvd_per_layer,
         })
         .collect();
@@ -612,13 +619,13 @@ fn plan_shots(
         .map(|d| DirectedLimit {
             victim: d.victim.clone(),
             aggressor: d.aggressor.clone(),
-            sensitivity_tvd_per_layer: finite(d.sensitivity_tvd_per_layer),
+            sensitivity_tvd_per_layer: d.sensitivity_tvd_per_layer,
             detection_limit_tvd_per_layer: d.detection_limit_tvd_per_layer,
         })
         .collect();
     let worst = edges
         .iter()
-        .filter_map(|e| e.sensitivity_tvd_per_layer.map(|v| (v, e)))
+        .filter_map(|e| finite(e.sensitivity_tvd_per_layer).map(|v| (v, e)))
         .max_by(|x, y| x.0.total_cmp(&y.0));
     let reps = match pairs {
         Some(p) => p.to_vec(),
@@ -720,11 +727,11 @@ fn plan_shots(
     let plan = ShotPlan {
         shots,
         edge_sensitivity_median_tvd_per_layer: median(
-            edges.iter().filter_map(|e| e.sensitivity_tvd_per_layer).collect(),
+            edges.iter().filter_map(|e| finite(e.sensitivity_tvd_per_layer)).collect(),
         ),
         edge_sensitivity_worst_tvd_per_layer: worst.map_or(0.0, |w| w.0),
         worst_edge: worst.map_or(String::new(), |w| format!("{}-{}", w.1.a, w.1.b)),
-        untested_edges: edges.iter().filter(|e| e.sensitivity_tvd_per_layer.is_none()).count(),
+        untested_edges: edges.iter().filter(|e| !e.sensitivity_tvd_per_layer.is_finite()).count(),
         edge_limit_median_tvd_per_layer: median(
             edges.iter().map(|e| e.detection_limit_tvd_per_layer).collect(),
         ),
@@ -896,71 +903,83 @@ pub fn plan_json(report: &PlanReport) -> Vec<u8> {
 }
 
 /// The plan as terminal text: limits and smallest flagged errors per shot count, then the
-/// recommendation.
-pub fn render_terminal(r: &PlanReport) -> String {
-    use comfy_table::{presets, ContentArrangement, Table};
-    let pm = |x: f64| crate::report::terminal::per_mille(x);
+/// recommendation; tables fit the style's width.
+pub fn render_terminal(r: &PlanReport, style: crate::report::terminal::Style) -> String {
+    use crate::report::terminal::{self, bold, number, text, wrap, Column};
+    let pm = |x: f64| terminal::per_mille(x);
     let opt = |x: Option<f64>, f: &dyn Fn(f64) -> String| x.map_or("not flagged".into(), f);
-    let mut out = format!(
-        "slackmap plan for layout {} ({} circuits per shot count; depths {:?}, {} sequences; \
-         {} null replicates, {} trial(s) per size)\n\
-         Baseline: the noise scenario without its crosstalk ({} context, {} zz, {} readout \
-         crosstalk terms removed).\n\n",
-        r.layout,
-        r.circuits,
-        r.parameters.depths,
-        r.parameters.sequences,
-        r.parameters.null_replicates,
-        r.parameters.trials,
-        r.removed_terms.context,
-        r.removed_terms.zz,
-        r.removed_terms.readout_crosstalk
+    let mut out = wrap(
+        &format!(
+            "slackmap plan for layout {} ({} circuits per shot count; depths {:?}, {} sequences; \
+             {} null replicates, {} trial(s) per size)\n\
+             Baseline: the noise scenario without its crosstalk ({} context, {} zz, {} readout \
+             crosstalk terms removed).",
+            r.layout,
+            r.circuits,
+            r.parameters.depths,
+            r.parameters.sequences,
+            r.parameters.null_replicates,
+            r.parameters.trials,
+            r.removed_terms.context,
+            r.removed_terms.zz,
+            r.removed_terms.readout_crosstalk
+        ),
+        style.width,
+        "",
     );
-    let mut t = Table::new();
-    t.load_style(presets::UTF8_FULL_CONDENSED).set_content_arrangement(ContentArrangement::Dynamic);
-    t.set_header(vec![
-        "shots",
-        "sensitivity median x1e-3",
-        "sensitivity worst x1e-3",
-        "null limit median/worst x1e-3",
-        "false alarms",
-        "audits",
-        "seconds",
-    ]);
+    out.push('\n');
+    let mut cols = vec![
+        Column::new("shots", 0),
+        Column::new("sensitivity\nmedian", 0),
+        Column::new("sensitivity\nworst (edge)", 0),
+        Column::new("null limit\nmedian/worst", 2),
+        Column::new("false\nalarms", 1),
+        Column::new("audits", 3),
+        Column::new("seconds", 3),
+    ];
     for s in &r.shot_counts {
-        t.add_row(vec![
-            s.shots.to_string(),
-            pm(s.edge_sensitivity_median_tvd_per_layer),
-            format!("{} ({})", pm(s.edge_sensitivity_worst_tvd_per_layer), s.worst_edge),
-            format!(
+        let cells = [
+            number(s.shots.to_string()),
+            number(pm(s.edge_sensitivity_median_tvd_per_layer)),
+            number(format!("{} ({})", pm(s.edge_sensitivity_worst_tvd_per_layer), s.worst_edge)),
+            number(format!(
                 "{}/{}",
                 pm(s.edge_limit_median_tvd_per_layer),
                 pm(s.edge_limit_worst_tvd_per_layer)
-            ),
-            s.baseline_flagged.len().to_string(),
-            s.audits.to_string(),
-            format!("{:.0}", s.elapsed_seconds),
-        ]);
+            )),
+            number(s.baseline_flagged.len().to_string()),
+            number(s.audits.to_string()),
+            number(format!("{:.0}", s.elapsed_seconds)),
+        ];
+        for (c, cell) in cols.iter_mut().zip(cells) {
+            c.cells.push(cell);
+        }
     }
-    out.push_str("Sensitivity of the crosstalk-free baseline per edge, TVD per layer\n");
-    out.push_str(&t.to_string());
-    out.push_str(
-        "\nSensitivity: the least estimate at which some row of the edge would need slack, to \
+    out.push_str(&bold(
+        "Sensitivity of the crosstalk-free baseline per edge, x1e-3 TVD per layer",
+        style,
+    ));
+    out.push('\n');
+    terminal::fitted_table(cols, style, "plan.json", &mut out);
+    out.push_str(&wrap(
+        "Sensitivity: the least estimate at which some row of the edge would need slack, to \
          first order. Below it nothing can be seen; detection needs more than that (the \
          permutation null must also tell it apart), which the searched minima below measure. \
          The permutation-null limit is zero wherever the clean data never needed context slack.",
-    );
-    out.push_str("\n\nSmallest context error the audit flags (watch or recalibrate)\n");
-    let mut t = Table::new();
-    t.load_style(presets::UTF8_FULL_CONDENSED).set_content_arrangement(ContentArrangement::Dynamic);
-    t.set_header(vec![
-        "shots",
-        "pair (victim<-aggressor)",
-        "stochastic x1e-3",
-        "coherent angle rad",
-        "infidelity",
-        "half-diamond x1e-3",
-    ]);
+        style.width,
+        "",
+    ));
+    out.push('\n');
+    out.push_str(&bold("Smallest context error the audit flags (watch or recalibrate)", style));
+    out.push('\n');
+    let mut cols = vec![
+        Column::new("shots", 0),
+        Column::new("pair (victim<-aggressor)", 0),
+        Column::new("stochastic\nx1e-3", 0),
+        Column::new("coherent\nangle rad", 0),
+        Column::new("infidelity", 2),
+        Column::new("half-diamond\nx1e-3", 1),
+    ];
     for s in &r.shot_counts {
         let pairs: Vec<(String, String)> = {
             let mut v: Vec<(String, String)> = Vec::new();
@@ -980,21 +999,22 @@ pub fn render_terminal(r: &PlanReport) -> String {
             };
             let st = find(ErrorKind::Stochastic);
             let co = find(ErrorKind::Coherent);
-            t.add_row(vec![
-                s.shots.to_string(),
-                label,
-                opt(st.and_then(|x| x.smallest_flagged), &|v| pm(v)),
-                opt(co.and_then(|x| x.smallest_flagged), &|v| format!("{v:.4}")),
-                opt(co.and_then(|x| x.infidelity), &|v| format!("{v:.1e}")),
-                opt(co.and_then(|x| x.half_diamond), &|v| pm(v)),
-            ]);
+            let cells = [
+                number(s.shots.to_string()),
+                text(label),
+                number(opt(st.and_then(|x| x.smallest_flagged), &|v| pm(v))),
+                number(opt(co.and_then(|x| x.smallest_flagged), &|v| format!("{v:.4}"))),
+                number(opt(co.and_then(|x| x.infidelity), &|v| format!("{v:.1e}"))),
+                number(opt(co.and_then(|x| x.half_diamond), &|v| pm(v))),
+            ];
+            for (c, cell) in cols.iter_mut().zip(cells) {
+                c.cells.push(cell);
+            }
         }
     }
-    out.push_str(&t.to_string());
-    out.push_str("\n\n");
-    out.push_str("Recommendation: ");
-    out.push_str(&r.recommendation.text);
-    out.push_str(".\n");
+    terminal::fitted_table(cols, style, "plan.json", &mut out);
+    out.push('\n');
+    out.push_str(&wrap(&format!("Recommendation: {}.", r.recommendation.text), style.width, ""));
     out
 }
 

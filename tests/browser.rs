@@ -1,6 +1,8 @@
 //! report.html in a real browser: headless Chromium opens it from a file:// URL, runs its
-//! script, and we read back the DOM (rows, sorting, script errors) and a screenshot (not
-//! blank). Skipped with a message when no Chromium is installed (.ci/run installs it).
+//! script, and we read back the DOM (rows, sorting, script errors, the edge table scrolling
+//! in its box with the edge column pinned, the drill-downs and their plots, the folded
+//! intrinsic rows, the threshold on the legends) and a screenshot (not blank). Skipped with
+//! a message when no Chromium is installed (.ci/run installs it).
 
 use std::path::{Path, PathBuf};
 use std::process::{Command, Stdio};
@@ -27,8 +29,32 @@ window.addEventListener('error',function(e){mark(e.message);});\
 var ce=console.error;console.error=function(){mark(Array.prototype.join.call(arguments,' '));\
 ce.apply(console,arguments);};})();</script>";
 
-/// Clicks the first heading (rank) of the edge table once, after the page's own script ran.
-const CLICK_RANK: &str = "<script>document.querySelector('#edge-table th').click();</script>";
+/// Clicks the rank heading (the second: the edge is pinned first) of the edge table once,
+/// after the page's own script ran.
+const CLICK_RANK: &str =
+    "<script>document.querySelector('#edge-table th:nth-child(2)').click();</script>";
+
+/// Measures the edge table's box after scrolling it to the right end, and writes what it
+/// found as attributes of a `#measure` element: the table overflows its box, the first
+/// edge cell stays at the box's left edge (pinned), and the last heading comes into view.
+const MEASURE: &str = "<script>(function(){var box=document.getElementById('edge-table-box');\
+var m=document.createElement('div');m.id='measure';\
+var over=box.scrollWidth>box.clientWidth+1;box.scrollLeft=box.scrollWidth;\
+var b=box.getBoundingClientRect();\
+var cell=document.querySelector('#edge-table tbody tr td.id').getBoundingClientRect();\
+var heads=document.querySelectorAll('#edge-table thead th');\
+var last=heads[heads.length-1].getBoundingClientRect();\
+var page=document.documentElement.scrollWidth<=window.innerWidth+1;\
+m.setAttribute('data-overflow',over?'yes':'no');\
+m.setAttribute('data-scrolled',box.scrollLeft>0?'yes':'no');\
+m.setAttribute('data-pinned',Math.abs(cell.left-b.left)<3?'yes':'no');\
+m.setAttribute('data-last-visible',(last.right<=b.right+2&&last.left>=b.left)?'yes':'no');\
+m.setAttribute('data-page-fits',page?'yes':'no');\
+var plots=document.querySelectorAll('details.drill svg.depth-plot');var drawn=0;\
+Array.prototype.forEach.call(plots,function(p){var r=p.getBoundingClientRect();\
+if(p.querySelectorAll('circle.observed').length>0&&r.width>100){drawn++;}});\
+m.setAttribute('data-plots',String(drawn));\
+document.body.appendChild(m);})();</script>";
 
 /// Runs Chromium headless on `page` with `extra` flags; returns stdout. Fails after 90 s.
 fn run(browser: &Path, page: &Path, extra: &[String]) -> String {
@@ -71,11 +97,14 @@ fn run(browser: &Path, page: &Path, extra: &[String]) -> String {
     reader.join().expect("reader")
 }
 
+fn fixture_path(fixture: &str) -> PathBuf {
+    Path::new(env!("CARGO_MANIFEST_DIR")).join("tests/fixtures/audit").join(fixture)
+}
+
 /// Writes the report of a fixture into `dir`, with `head` right after `<head>` and `tail`
 /// right before `</body>`; returns the page's path.
 fn page(dir: &Path, fixture: &str, head: &str, tail: &str) -> (PathBuf, usize) {
-    let path = Path::new(env!("CARGO_MANIFEST_DIR")).join("tests/fixtures/audit").join(fixture);
-    let audit = report::json::read(&path).expect("fixture");
+    let audit = report::json::read(&fixture_path(fixture)).expect("fixture");
     let out = dir.join("out");
     report::write_folder(&out, &report::audit_files(&audit)).expect("write");
     let html_path = out.join("report.html");
@@ -88,6 +117,13 @@ fn page(dir: &Path, fixture: &str, head: &str, tail: &str) -> (PathBuf, usize) {
     let probed = out.join("probed.html");
     std::fs::write(&probed, html).expect("write page");
     (probed, audit.edges.len())
+}
+
+/// The value of attribute `name` of the `#measure` element.
+fn measured<'a>(dom: &'a str, name: &str) -> &'a str {
+    let m = dom.split("id=\"measure\"").nth(1).unwrap_or("");
+    let m = m.split('>').next().unwrap_or("");
+    m.split(&format!("{name}=\"")).nth(1).and_then(|r| r.split('"').next()).unwrap_or("")
 }
 
 /// The `data-sort` keys of the rank column, in DOM order.
@@ -110,8 +146,8 @@ fn report_runs_in_chromium_without_errors() {
     };
     for fixture in ["grid-4x4.json", "grid-12x12.json"] {
         let dir = tempfile::tempdir().expect("tempdir");
-        let (path, edges) = page(dir.path(), fixture, PROBE, CLICK_RANK);
-        let dom = run(&browser, &path, &["--dump-dom".into()]);
+        let (path, edges) = page(dir.path(), fixture, PROBE, &format!("{CLICK_RANK}{MEASURE}"));
+        let dom = run(&browser, &path, &["--dump-dom".into(), "--window-size=1280,2000".into()]);
         assert!(dom.contains("id=\"edge-table\""), "{fixture}: no edge table in the DOM");
         assert!(
             !dom.contains("id=\"page-error\""),
@@ -131,6 +167,39 @@ fn report_runs_in_chromium_without_errors() {
         let ranked: Vec<f64> = keys.iter().map_while(|k| *k).collect();
         assert!(ranked.windows(2).all(|w| w[0] <= w[1]), "{fixture}: {ranked:?}");
         assert!(keys[ranked.len()..].iter().all(Option::is_none), "{fixture}: unranked rows last");
+
+        // The edge table scrolls inside its box, the page itself does not, and the edge
+        // column stays in view while the last column is reached.
+        for (name, want) in [
+            ("data-overflow", "yes"),
+            ("data-scrolled", "yes"),
+            ("data-pinned", "yes"),
+            ("data-last-visible", "yes"),
+            ("data-page-fits", "yes"),
+        ] {
+            assert_eq!(measured(&dom, name), want, "{fixture}: {name}");
+        }
+        // One drill-down per flagged edge, each with a drawn plot per direction.
+        let audit = report::json::read(&fixture_path(fixture)).expect("fixture");
+        let flagged: Vec<_> =
+            audit.edges.iter().filter(|e| e.verdict != report::Verdict::Clean).collect();
+        assert_eq!(dom.matches("<details class=\"drill ").count(), flagged.len(), "{fixture}");
+        for e in &flagged {
+            assert!(dom.contains(&format!("id=\"drill-{}-{}\"", e.a, e.b)), "{fixture}");
+            assert!(dom.contains(&format!("href=\"#drill-{}-{}\"", e.a, e.b)), "{fixture}");
+        }
+        assert_eq!(measured(&dom, "data-plots"), (2 * flagged.len()).to_string(), "{fixture}");
+        // Reason codes with their legend; the threshold on both pictures' legends.
+        assert!(dom.contains("id=\"why-legend\"") && dom.contains("above-threshold"));
+        assert_eq!(dom.matches("class=\"threshold\"").count(), 2, "{fixture}");
+        // Intrinsic kinds in layout order (q2 before q10), zero rows folded into one line.
+        let table = dom.split("id=\"intrinsic-table\"").nth(1).unwrap_or("");
+        let table = table.split("</table>").next().unwrap_or("");
+        let (q2, q10) = (table.find(">sx@q2<"), table.find(">sx@q10<"));
+        if let (Some(a), Some(b)) = (q2, q10) {
+            assert!(a < b, "{fixture}: sx@q2 after sx@q10");
+        }
+        assert!(dom.contains("id=\"intrinsic-zero\""), "{fixture}: zero rows not folded");
 
         let shot = dir.path().join("shot.png");
         run(

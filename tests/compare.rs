@@ -16,6 +16,7 @@ struct CompareFile {
     schema: u32,
     level: f64,
     notes: Vec<String>,
+    warnings: Vec<String>,
     edges: Vec<EdgeRow>,
     qubits: Vec<QubitRow>,
 }
@@ -100,7 +101,7 @@ fn fixtures_match_their_generator() {
 fn the_improved_edge_is_improved_and_the_rest_unchanged() {
     let dir = Path::new(FIXTURES);
     let (f, out) = run_compare(&dir.join("before.json"), &dir.join("after.json"), &[]);
-    assert_eq!(f.schema, 2);
+    assert_eq!(f.schema, 3);
     assert!((f.level - 0.95).abs() < 1e-12);
     let e = edge(&f, "q5", "q6");
     assert_eq!(e.difference_tvd_per_layer.change.as_deref(), Some("improved"));
@@ -206,4 +207,54 @@ fn a_bad_level_or_file_is_a_usage_error() {
     ]);
     assert_eq!(o.status.code(), Some(2));
     assert!(String::from_utf8_lossy(&o.stderr).contains("junk.json"));
+}
+
+#[test]
+fn audits_of_different_layouts_warn_and_disjoint_ones_are_refused() {
+    use slackmap::layout::generate::{chain, grid};
+    let tmp = tempfile::tempdir().unwrap();
+    let g = AuditBuilder::new(&grid(4, 4)).replicates(20, 1, 2e-4).build();
+    let c = AuditBuilder::new(&chain(4)).replicates(20, 2, 2e-4).build();
+    let (pg, pc) = (write_audit(tmp.path(), "g.json", &g), write_audit(tmp.path(), "c.json", &c));
+    // The chain's q0-q1, q1-q2, q2-q3 are also grid pairs: compared there, with warnings.
+    let out = tmp.path().join("o");
+    let o = run_slackmap(&[
+        "compare",
+        pg.to_str().unwrap(),
+        pc.to_str().unwrap(),
+        "--out",
+        out.to_str().unwrap(),
+    ]);
+    assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
+    let err = String::from_utf8_lossy(&o.stderr);
+    assert!(err.contains("warning: the audits are of different layouts"), "{err}");
+    assert!(err.contains("warning: the qubits differ"), "{err}");
+    assert!(err.contains("3 in both"), "{err}");
+    let f: CompareFile =
+        serde_json::from_str(&std::fs::read_to_string(out.join("compare.json")).unwrap()).unwrap();
+    assert_eq!(f.warnings.len(), 3, "{:?}", f.warnings);
+    assert_eq!(f.edges.iter().filter(|e| e.presence == "both").count(), 3);
+    // A layout whose qubits have other names shares no pair: refused, naming both files.
+    let renamed = slackmap::layout::Layout::new(
+        "other".into(),
+        (0..4).map(|i| slackmap::layout::Qubit { id: format!("r{i}"), position: None }).collect(),
+        (0..3).map(|i| (format!("r{i}"), format!("r{}", i + 1))).collect(),
+        slackmap::layout::generate::default_gates(),
+        1,
+        Vec::new(),
+    )
+    .unwrap();
+    let r = AuditBuilder::new(&renamed).build();
+    let pr = write_audit(tmp.path(), "r.json", &r);
+    let o = run_slackmap(&[
+        "compare",
+        pg.to_str().unwrap(),
+        pr.to_str().unwrap(),
+        "--out",
+        tmp.path().join("o2").to_str().unwrap(),
+    ]);
+    assert_eq!(o.status.code(), Some(2));
+    let err = String::from_utf8_lossy(&o.stderr);
+    assert!(err.contains("share no neighbour pair") && err.contains("r.json"), "{err}");
+    assert!(!tmp.path().join("o2").exists(), "nothing written");
 }

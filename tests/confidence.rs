@@ -1,5 +1,7 @@
 //! Bootstrap determinism and sharding through the binary: the same seed gives the same
-//! audit.json on one thread and on two, and merging two shards gives the single run's bytes.
+//! audit.json on one thread and on two, and merging two shards gives the single run's files,
+//! byte for byte. The audits run with SOURCE_DATE_EPOCH set, which fixes audit.json's
+//! creation time (the one field that otherwise differs between identical runs).
 
 mod common;
 
@@ -61,7 +63,7 @@ fn audit(dir: &Path, out: &str, extra: &[&str]) -> std::process::Output {
         out,
     ];
     args.extend_from_slice(extra);
-    slackmap().args(&args).current_dir(dir).output().unwrap()
+    slackmap().args(&args).env("SOURCE_DATE_EPOCH", "1700000000").current_dir(dir).output().unwrap()
 }
 
 #[test]
@@ -91,12 +93,43 @@ fn threads_and_shards_give_identical_audits() {
     // Merge in either order gives the single run's bytes.
     let m = slackmap()
         .args(["merge", "p2", "p1/partial.json", "--out", "merged"])
+        .env("SOURCE_DATE_EPOCH", "1700000000")
         .current_dir(dir)
         .output()
         .unwrap();
     assert!(m.status.success(), "{}", String::from_utf8_lossy(&m.stderr));
     let merged = std::fs::read(dir.join("merged/audit.json")).unwrap();
     assert!(merged == one, "merged audit.json differs from the single run");
+    assert!(String::from_utf8_lossy(&one).contains("\"created\": \"2023-11-14T22:13:20Z\""));
+    // The same set of files, each with the same bytes (rows.csv and replicates.csv too).
+    let names = |d: &str| {
+        let mut v: Vec<String> = std::fs::read_dir(dir.join(d))
+            .unwrap()
+            .map(|e| e.unwrap().file_name().to_string_lossy().to_string())
+            .collect();
+        v.sort();
+        v
+    };
+    assert_eq!(names("merged"), names("one"));
+    for f in names("one") {
+        let (x, y) =
+            (std::fs::read(dir.join("one").join(&f)), std::fs::read(dir.join("merged").join(&f)));
+        assert!(x.unwrap() == y.unwrap(), "{f} differs between the merge and the single run");
+    }
+    assert!(names("one").contains(&"rows.csv".to_string()));
+
+    // A truncated score vector is refused naming its file.
+    let text = std::fs::read_to_string(dir.join("p1/partial.json")).unwrap();
+    let mut v: serde_json::Value = serde_json::from_str(&text).unwrap();
+    v["scores"][0]["directed_tvd_per_layer"].as_array_mut().unwrap().pop();
+    std::fs::create_dir_all(dir.join("cut")).unwrap();
+    std::fs::write(dir.join("cut/partial.json"), serde_json::to_vec(&v).unwrap()).unwrap();
+    let m =
+        slackmap().args(["merge", "cut", "p2", "--out", "bad"]).current_dir(dir).output().unwrap();
+    assert_eq!(m.status.code(), Some(2));
+    let err = String::from_utf8_lossy(&m.stderr);
+    assert!(err.contains("cut/partial.json") && err.contains("directed_tvd_per_layer"), "{err}");
+    assert!(!dir.join("bad").exists());
 
     // Overlapping or incomplete parts are refused, with exit code 2 and nothing written.
     for parts in [&["p1", "p2", "p3"][..], &["p1"][..]] {

@@ -9,9 +9,9 @@ use proptest::prelude::*;
 use sha2::{Digest, Sha256};
 use slackmap::report::svg::{self, Doc};
 use slackmap::report::{
-    self, html, AuditReport, Confidence, DataSummary, DirectedReport, EdgeReport, FitSummary,
-    InputFile, IntrinsicReport, KindValue, LayoutSummary, Parameters, RankConfidence,
-    ReadoutReport, Render, Verdict, WarningReport,
+    self, html, AuditReport, Confidence, DataSummary, DepthPoint, DirectedReport, EdgeReport,
+    FitSummary, InputFile, IntrinsicReport, KindValue, LayoutSummary, Parameters, RankConfidence,
+    ReadoutReport, ReasonCode, Render, Verdict, WarningReport,
 };
 
 /// A flagged edge of a fixture: a, b, verdict, X(a <- b), X(b <- a), confounding partner.
@@ -41,11 +41,30 @@ fn confidence(score: f64, salt: usize) -> Confidence {
         high_tvd_per_layer: score * 1.31,
         upper_bound_tvd_per_layer: score * 1.25,
         median_tvd_per_layer: score * 1.01,
-        centre_tvd_per_layer: score * 0.99,
         p_positive: 1.0,
         score_replicates_tvd_per_layer: reps.clone(),
         replicates_tvd_per_layer: reps,
     }
+}
+
+/// A made-up depth profile of a direction with score `s`: the prediction decays with depth,
+/// the observed value with the aggressor active falls below it by about s per layer.
+fn depth_profile(s: f64) -> Vec<DepthPoint> {
+    let mut v = Vec::new();
+    for active in [false, true] {
+        for (k, layers) in [2.0, 8.0, 32.0, 128.0].into_iter().enumerate() {
+            let predicted = 0.5 + 0.48 * (1.0f64 - 2e-3).powf(layers);
+            let observed = predicted - if active { s * layers * 0.5 } else { 1e-4 * k as f64 };
+            v.push(DepthPoint {
+                timed_layers: layers,
+                aggressor_active: active,
+                rows: 12 + k,
+                observed,
+                predicted,
+            });
+        }
+    }
+    v
 }
 
 /// A made-up audit of a rows x cols grid (ids q0.. row-major, coupler neighbourhoods) with the
@@ -131,6 +150,13 @@ fn grid_audit(rows: usize, cols: usize, flags: &[Flag]) -> AuditReport {
             parametric_limit_tvd_per_layer: None,
             parametric_p_value: None,
             verdict,
+            reason_code: match verdict {
+                Verdict::Recalibrate => ReasonCode::AboveThreshold,
+                Verdict::Watch => ReasonCode::BelowThreshold,
+                Verdict::Confounded => ReasonCode::Shared,
+                Verdict::Clean if score > 0.0 => ReasonCode::InNull,
+                Verdict::Clean => ReasonCode::NoSlack,
+            },
             reason,
         });
         for (v, g, s) in [(a, b, ab), (b, a, ba)] {
@@ -160,6 +186,7 @@ fn grid_audit(rows: usize, cols: usize, flags: &[Flag]) -> AuditReport {
                     KindValue { kind: format!("sx@{}", id(v)), value: s * 0.5 },
                     KindValue { kind: format!("id@{}", id(v)), value: s * 0.3 },
                 ],
+                depth_profile: if flagged { depth_profile(s) } else { Vec::new() },
                 confidence: conf.as_ref().map(|_| confidence(s, v * n + g)),
                 parametric_limit_tvd_per_layer: None,
                 parametric_p_value: None,
@@ -217,6 +244,8 @@ fn grid_audit(rows: usize, cols: usize, flags: &[Flag]) -> AuditReport {
     AuditReport {
         schema: report::SCHEMA,
         tool_version: "0.1.0".into(),
+        label: Some(format!("fixture {rows}x{cols}, cooldown 1")),
+        created: Some("2026-01-01T00:00:00Z".into()),
         caution: report::CAUTION.into(),
         layout: LayoutSummary {
             name: name.clone(),

@@ -28,28 +28,30 @@ fn median(v: &mut [u64]) -> u64 {
 /// A positive score that another aggressor could carry is `confounded` only when the share
 /// it might carry exceeds the action threshold: tiny shares are noise, and calling them
 /// confounded would send users to redesign circuits for nothing.
-fn direction_verdict(d: &Directed, cfg: &AuditConfig) -> (Verdict, String) {
+fn direction_verdict(d: &Directed, cfg: &AuditConfig) -> (Verdict, ReasonCode, String) {
     let pm = |x: f64| crate::report::terminal::per_mille(x);
     if !d.tested {
         return (
             Verdict::Clean,
+            ReasonCode::Untested,
             "never tested: no circuit ran the victim with this aggressor active".into(),
         );
     }
     if d.score <= 0.0 {
-        return (Verdict::Clean, "no context slack needed".into());
+        return (Verdict::Clean, ReasonCode::NoSlack, "no context slack needed".into());
     }
     if d.attribution.0 <= ZERO_SCORE || d.isolated <= ZERO_SCORE {
-        let why = if d.attribution.0 <= ZERO_SCORE {
-            "another aggressor active at the same time could carry this slack"
+        let (code, why) = if d.attribution.0 <= ZERO_SCORE {
+            (ReasonCode::Shared, "another aggressor active at the same time could carry this slack")
         } else {
-            "only circuits where other neighbours were active too need it"
+            (ReasonCode::NotAlone, "only circuits where other neighbours were active too need it")
         };
         // Whether it is significant cannot be asked of the conditional null: permuting r among
         // rows where its partner is always active changes nothing. Size is what matters.
         return if d.attribution.1 > cfg.action_threshold_tvd_per_layer {
             (
                 Verdict::Confounded,
+                code,
                 format!(
                     "{why}: up to {} per layer could be this pair's, which would be above the action threshold; run circuits where they are active apart",
                     pm(d.attribution.1)
@@ -58,6 +60,7 @@ fn direction_verdict(d: &Directed, cfg: &AuditConfig) -> (Verdict, String) {
         } else {
             (
                 Verdict::Clean,
+                code,
                 format!(
                     "{why}, and at most {} per layer: below the action threshold",
                     pm(d.attribution.1)
@@ -68,18 +71,21 @@ fn direction_verdict(d: &Directed, cfg: &AuditConfig) -> (Verdict, String) {
     if cfg.null_replicates == 0 {
         return (
             Verdict::Clean,
+            ReasonCode::NoNull,
             "no null replicates were run, so nothing can be called detected".into(),
         );
     }
     if d.score <= d.limit {
         return (
             Verdict::Clean,
+            ReasonCode::InNull,
             format!("score {} is within the permutation-null limit {}", pm(d.score), pm(d.limit)),
         );
     }
     if d.loo <= d.limit {
         return (
             Verdict::Clean,
+            ReasonCode::OneCircuit,
             format!(
                 "rests on one circuit: without it the score falls to {}, below the limit {}",
                 pm(d.loo),
@@ -106,11 +112,16 @@ pub(crate) fn is_detected(d: &DirectedReport) -> bool {
 }
 
 /// The verdict of a detected direction whose lower bound is `lower` (TVD per layer).
-pub(crate) fn detected_verdict(p_value: f64, lower: f64, threshold: f64) -> (Verdict, String) {
+pub(crate) fn detected_verdict(
+    p_value: f64,
+    lower: f64,
+    threshold: f64,
+) -> (Verdict, ReasonCode, String) {
     let pm = |x: f64| crate::report::terminal::per_mille(x);
     if lower > threshold {
         (
             Verdict::Recalibrate,
+            ReasonCode::AboveThreshold,
             format!(
                 "detected (p = {:.3}); even its lower bound {} exceeds the action threshold {}",
                 p_value,
@@ -121,6 +132,7 @@ pub(crate) fn detected_verdict(p_value: f64, lower: f64, threshold: f64) -> (Ver
     } else {
         (
             Verdict::Watch,
+            ReasonCode::BelowThreshold,
             format!(
                 "detected (p = {:.3}) but its lower bound {} is not above the action threshold {}",
                 p_value,
@@ -202,6 +214,13 @@ pub(crate) fn report(
                 .iter()
                 .map(|&(k, v)| KindValue { kind: kinds.get(k).label(layout), value: v })
                 .collect(),
+            depth_profile: if d.score > 0.0
+                || x.directed[x.index[&(d.aggressor, d.victim)]].score > 0.0
+            {
+                super::profile::depth_profile(a, d.victim, d.aggressor)
+            } else {
+                Vec::new()
+            },
             confidence: None,
             parametric_limit_tvd_per_layer: par(i).and_then(|p| finite(p.0)),
             parametric_p_value: par(i).map(|p| p.1),
@@ -216,12 +235,13 @@ pub(crate) fn report(
             let (iab, iba) = (x.index[&(qa, qb)], x.index[&(qb, qa)]);
             let (ab, ba) = (&x.directed[iab], &x.directed[iba]);
             let imain = if ba.score > ab.score { iba } else { iab };
-            let (va, ra) = direction_verdict(ab, cfg);
-            let (vb, rb) = direction_verdict(ba, cfg);
+            let (va, ca, ra) = direction_verdict(ab, cfg);
+            let (vb, cb, rb) = direction_verdict(ba, cfg);
             let main = if ba.score > ab.score { ba } else { ab };
             // The direction with the stronger verdict leads; between equal verdicts, the larger score.
             let a_leads = va < vb || (va == vb && ab.score >= ba.score);
-            let (verdict, reason, lead) = if a_leads { (va, ra, ab) } else { (vb, rb, ba) };
+            let (verdict, code, reason, lead) =
+                if a_leads { (va, ca, ra, ab) } else { (vb, cb, rb, ba) };
             let confounded_with = if verdict == Verdict::Confounded {
                 lead.co_active
                     .iter()
@@ -261,6 +281,7 @@ pub(crate) fn report(
                 parametric_limit_tvd_per_layer: par(imain).and_then(|p| finite(p.0)),
                 parametric_p_value: par(imain).map(|p| p.1),
                 verdict,
+                reason_code: code,
                 reason: format!("{}<-{}: {}", id(lead.victim), id(lead.aggressor), reason),
             }
         })
@@ -401,6 +422,8 @@ pub(crate) fn report(
     AuditReport {
         schema: SCHEMA,
         tool_version: env!("CARGO_PKG_VERSION").to_string(),
+        label: None,
+        created: None,
         caution: CAUTION.to_string(),
         layout: LayoutSummary {
             name: layout.name.clone(),

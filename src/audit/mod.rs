@@ -23,6 +23,7 @@ use crate::slack::lp::TwoStageSolution;
 mod assess;
 mod build;
 pub mod problems;
+mod profile;
 
 use problems::{Budget, Problem};
 

@@ -1,6 +1,6 @@
 //! `slackmap audit` and `slackmap demo`: run the audit, print the report, write the files.
 
-use std::io::{IsTerminal, Write};
+use std::io::Write;
 use std::path::{Path, PathBuf};
 use std::sync::atomic::AtomicBool;
 use std::sync::Arc;
@@ -49,8 +49,9 @@ pub struct AnalysisArgs {
     /// 1 - alpha/R (R rows), and detection uses the (1 - alpha) null quantile.
     #[arg(long, default_value_t = 0.05)]
     pub alpha: f64,
-    /// Context slack per layer (TVD) above which a detected edge is worth recalibrating.
-    #[arg(long, default_value_t = 1e-3, value_name = "TVD")]
+    /// Context slack per layer above which a detected edge is worth recalibrating: raw TVD
+    /// (0.001, 1e-3) or in the tables' unit of 1e-3 with suffix m (1m = 0.001); at most 0.5.
+    #[arg(long, default_value = "1e-3", value_name = "TVD", value_parser = super::units::tvd_per_layer)]
     pub action_threshold: f64,
     /// Replicates of the context-permutation null per directed pair (0 turns detection off).
     #[arg(long, default_value_t = 200)]
@@ -81,6 +82,9 @@ pub struct AnalysisArgs {
     /// Output folder (written atomically: an existing folder is replaced only when done).
     #[arg(long, value_name = "DIR")]
     pub out: PathBuf,
+    /// A label recorded in audit.json and shown on every output, e.g. "chip 7, cooldown 3".
+    #[arg(long, value_name = "TEXT")]
+    pub label: Option<String>,
     /// No progress bars.
     #[arg(long, short)]
     pub quiet: bool,
@@ -109,8 +113,25 @@ fn parse_range(s: &str) -> Result<std::ops::Range<usize>, String> {
     Ok(a..b)
 }
 
+const AUDIT_HELP: &str = "Examples:
+  slackmap audit --layout chip.toml --circuits run1/circuits.json --counts run1/counts.csv \\
+      --label \"chip 7, cooldown 3\" --out run1/audit
+  slackmap audit ... --action-threshold 0.5m --replicates 400 --out run1/audit   # 0.5e-3 per layer
+  slackmap audit ... --replicate-range 0..50 --out shards/0 -q   # one shard; then `slackmap merge`
+
+Writes audit.json, edges.csv, replicates.csv, adjacency.csv, intrinsic.csv, rows.csv, \
+adjacency.svg, layout.svg and report.html into DIR and prints the report. Values are shown in \
+1e-3 TVD per layer; the files keep full precision. audit.json records the time it was written: \
+set SOURCE_DATE_EPOCH (seconds since 1970) to fix it, e.g. to compare two runs byte for byte. \
+Terminal tables fit the width in COLUMNS, else the terminal's (columns are dropped by priority; \
+the files keep every column); colour only on a terminal and never with NO_COLOR set. Progress \
+goes to stderr: a bar on a terminal, a plain line every few seconds otherwise (-q: none).
+
+Exit codes: 0 success, 1 the analysis failed, 2 bad input or usage, 130 interrupted.";
+
 /// Arguments of `slackmap audit`.
 #[derive(clap::Args, Debug)]
+#[command(after_help = AUDIT_HELP)]
 pub struct AuditArgs {
     #[command(flatten)]
     inputs: InputArgs,
@@ -163,6 +184,7 @@ pub fn demo(args: DemoArgs) -> anyhow::Result<()> {
         top_k: 5,
         replicate_range: None,
         out: args.out.clone(),
+        label: None,
         quiet: args.quiet,
         timings: false,
     };
@@ -218,6 +240,7 @@ fn run_audit(inputs: &InputArgs, counts: &Path, a: &AnalysisArgs) -> anyhow::Res
     for w in &loaded.warnings {
         rep.warnings.insert(0, w.into());
     }
+    rep.label = a.label.clone();
     if cfg.bootstrap.range.is_some() {
         let part = Partial::new(rep, replicates, &cfg.bootstrap);
         let bytes = serde_json::to_vec_pretty(&part).context("could not encode the partial")?;
@@ -233,15 +256,35 @@ fn run_audit(inputs: &InputArgs, counts: &Path, a: &AnalysisArgs) -> anyhow::Res
         return Ok(());
     }
     confidence::finish(&mut rep, &replicates, &cfg.bootstrap)?;
-    write_and_print(&rep, &a.out)
+    write_and_print(&mut rep, &a.out)
 }
 
-/// Writes every audit file into `out` and prints the terminal report (audit and merge).
-pub fn write_and_print(rep: &report::AuditReport, out_dir: &Path) -> anyhow::Result<()> {
+/// The time an audit is written, RFC 3339 UTC: `SOURCE_DATE_EPOCH` (seconds since 1970, the
+/// reproducible-builds convention) when set, else the system clock.
+pub fn creation_time() -> anyhow::Result<String> {
+    let secs = match std::env::var("SOURCE_DATE_EPOCH") {
+        Ok(v) => v.trim().parse::<u64>().map_err(|_| {
+            slackmap::Error::Usage(format!(
+                "SOURCE_DATE_EPOCH '{v}' is not a whole number of seconds since 1970-01-01 UTC"
+            ))
+        })?,
+        Err(_) => std::time::SystemTime::now()
+            .duration_since(std::time::UNIX_EPOCH)
+            .map(|d| d.as_secs())
+            .unwrap_or(0),
+    };
+    Ok(report::rfc3339_utc(secs))
+}
+
+/// Stamps the creation time, writes every audit file into `out` and prints the terminal
+/// report (audit and merge).
+pub fn write_and_print(rep: &mut report::AuditReport, out_dir: &Path) -> anyhow::Result<()> {
+    rep.created = Some(creation_time()?);
+    let rep = &*rep;
     let files = report::audit_files(rep);
     report::write_folder(out_dir, &files)?;
-    let color = std::io::stdout().is_terminal() && std::env::var_os("NO_COLOR").is_none();
-    let text = terminal::render(rep, &terminal::TerminalOptions { color, ..Default::default() });
+    let style = super::style::stdout_style();
+    let text = terminal::render(rep, &terminal::TerminalOptions { style, ..Default::default() });
     let mut out = std::io::stdout().lock();
     out.write_all(text.as_bytes())?;
     let main_file =

@@ -6,8 +6,25 @@ use anyhow::Context;
 use slackmap::compare::{self, CompareOptions};
 use slackmap::report::{json, write_folder};
 
+const HELP: &str = "Example (the chip before and after a recalibration):
+  slackmap audit --layout chip.toml --circuits run1/circuits.json --counts run1/counts.csv \\
+      --label before --out before
+  slackmap audit --layout chip.toml --circuits run1/circuits.json --counts run2/counts.csv \\
+      --label after --out after
+  slackmap compare before/audit.json after/audit.json --out cmp
+
+Compares unlimited-shot estimates (not scores, which grow with shots), with basic bootstrap \
+intervals for B - A from the audits' stored replicates: improved when the interval lies below \
+zero, worse when above, unchanged when it holds zero. Writes compare.json, compare.csv and \
+compare.svg. Audits of different layouts are compared where their neighbour pairs (matched by \
+qubit names) overlap, with a warning; audits that share no pair are refused. Terminal tables \
+fit the width in COLUMNS, else the terminal's.
+
+Exit codes: 0 success, 2 bad input or usage.";
+
 /// Arguments of `slackmap compare`.
 #[derive(clap::Args, Debug)]
+#[command(after_help = HELP)]
 pub struct CompareArgs {
     /// The earlier (or first) audit.json.
     a: PathBuf,
@@ -35,10 +52,13 @@ pub fn run(args: CompareArgs) -> anyhow::Result<()> {
         &b,
         &args.b.display().to_string(),
         &opt,
-    );
+    )?;
+    for w in &report.warnings {
+        eprintln!("warning: {w}");
+    }
     write_folder(&args.out, &compare::files(&report))
         .with_context(|| format!("writing {}", args.out.display()))?;
-    print!("{}", compare::terminal(&report, args.max_rows));
+    print!("{}", compare::terminal(&report, args.max_rows, super::style::stdout_style()));
     println!("wrote {}", args.out.display());
     Ok(())
 }

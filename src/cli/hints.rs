@@ -15,8 +15,22 @@ pub enum Flagged {
     Recalibrate,
 }
 
+const HELP: &str = "Examples:
+  slackmap hints run1/audit/audit.json --out hints               # one chip
+  slackmap hints --compare grid/audit.json hex/audit.json --out hints-ab   # two layouts
+  slackmap hints run1/audit/audit.json --flagged recalibrate --out hints
+
+Turns flagged directions into conflicts a scheduler should respect: two operations conflict \
+when one's qubit is the aggressor of a flagged direction onto the other's. Writes hints.json \
+(the conflicts, coupler and qubit groups that can share a layer, and how many layers the \
+layout needs with and without the conflicts; each figure is exact or bounded) and \
+conflicts.dot (Graphviz, `neato -n -Tsvg conflicts.dot`).
+
+Exit codes: 0 success, 2 bad input or usage.";
+
 /// Arguments of `slackmap hints`.
 #[derive(clap::Args, Debug)]
+#[command(after_help = HELP)]
 pub struct HintsArgs {
     /// The audit.json to read.
     #[arg(required_unless_present = "compare", conflicts_with = "compare")]
@@ -49,7 +63,7 @@ pub fn run(args: HintsArgs) -> anyhow::Result<()> {
             let (h, wire) = one(path)?;
             write_folder(&args.out, &hints::files(&h, &wire))
                 .with_context(|| format!("writing {}", args.out.display()))?;
-            print!("{}", hints::terminal(&wire));
+            print!("{}", hints::terminal(&wire, super::style::stdout_style()));
         }
         (None, Some(pair)) if pair.len() == 2 => {
             let (ha, wa) = one(&pair[0])?;
@@ -64,7 +78,7 @@ pub fn run(args: HintsArgs) -> anyhow::Result<()> {
             files.push(("hints-compare.json".into(), hints::json_bytes(&both)));
             write_folder(&args.out, &files)
                 .with_context(|| format!("writing {}", args.out.display()))?;
-            print!("{}", hints::terminal_compare(&both));
+            print!("{}", hints::terminal_compare(&both, super::style::stdout_style()));
         }
         _ => anyhow::bail!(slackmap::Error::Usage(
             "give one AUDIT.json, or --compare A.json B.json".into()

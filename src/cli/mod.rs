@@ -16,7 +16,10 @@ mod merge;
 mod plan;
 mod progress;
 mod report;
+mod schema;
 mod simulate;
+mod style;
+mod units;
 
 /// Exit-code documentation shown at the end of `--help`.
 const EXIT_CODES: &str = "Exit codes: 0 success, 1 the analysis failed, 2 bad input or usage.";
@@ -53,6 +56,8 @@ enum Command {
     Plan(plan::PlanArgs),
     /// Combine the partial results of `audit --replicate-range` shards into one audit.
     Merge(merge::MergeArgs),
+    /// Print or write the JSON Schemas of audit.json, compare.json, hints.json and plan.json.
+    Schema(schema::SchemaArgs),
 }
 
 /// Runs the CLI and maps the outcome to an exit code.
@@ -70,6 +75,7 @@ pub fn main() -> ExitCode {
         Command::Report(args) => report::run(args),
         Command::Plan(args) => plan::run(args),
         Command::Merge(args) => merge::run(args),
+        Command::Schema(args) => schema::run(args),
     };
     match result {
         Ok(()) => ExitCode::SUCCESS,

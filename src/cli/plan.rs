@@ -23,7 +23,8 @@ crosstalk removed (context, zz and readout crosstalk terms), audits them for eve
 sensitivity (the least estimate its rows could tell from zero), then injects context
 errors of growing size (stochastic: extra depolarizing; coherent: a rotation about X) on
 the pairs with the median and the worst sensitivity until the audit flags them, and
-recommends a shot count for the --target. Writes plan1/plan.json (no wall-clock times in
+recommends a shot count for the --target (e.g. --target 0.5m for 0.5e-3 per layer). Progress
+goes to stderr: a bar on a terminal, a plain line every few seconds otherwise. Writes plan1/plan.json (no wall-clock times in
 it: the same inputs and seed give the same file on any machine and thread count).
 
 Exit codes: 0 success, 1 the analysis failed, 2 bad input or usage, 130 interrupted.";
@@ -53,8 +54,9 @@ pub struct PlanArgs {
     /// Family-wise error level of every audit (as `slackmap audit --alpha`).
     #[arg(long, default_value_t = 0.05)]
     alpha: f64,
-    /// The audits' action threshold, TVD per layer (as `slackmap audit --action-threshold`).
-    #[arg(long, default_value_t = 1e-3, value_name = "TVD")]
+    /// The audits' action threshold (as `slackmap audit --action-threshold`): raw TVD per
+    /// layer (1e-3) or in the tables' unit with suffix m (1m).
+    #[arg(long, default_value = "1e-3", value_name = "TVD", value_parser = super::units::tvd_per_layer)]
     action_threshold: f64,
     /// Worker threads (default: all cores); results do not depend on it.
     #[arg(long)]
@@ -68,8 +70,9 @@ pub struct PlanArgs {
     /// Bisection steps after the factor-2 ladder has bracketed the smallest flagged size.
     #[arg(long, default_value_t = 3, value_name = "N")]
     bisection_steps: usize,
-    /// Stochastic crosstalk per layer the recommendation is for (TVD per layer).
-    #[arg(long, default_value_t = 1e-3, value_name = "TVD")]
+    /// Stochastic crosstalk per layer the recommendation is for: raw TVD per layer (1e-3) or
+    /// in the tables' unit of 1e-3 with suffix m (1m = 0.001); at most 0.5.
+    #[arg(long, default_value = "1e-3", value_name = "TVD", value_parser = super::units::tvd_per_layer)]
     target: f64,
     /// Output folder for plan.json (written atomically, only when the plan is complete).
     #[arg(long, value_name = "DIR")]
@@ -116,7 +119,7 @@ pub fn run(args: PlanArgs) -> anyhow::Result<()> {
     let report = result?;
     slackmap::report::write_folder(&args.out, &[("plan.json".into(), plan::plan_json(&report))])?;
     let mut out = std::io::stdout().lock();
-    out.write_all(plan::render_terminal(&report).as_bytes())?;
+    out.write_all(plan::render_terminal(&report, super::style::stdout_style()).as_bytes())?;
     writeln!(out, "\nWrote {}", args.out.join("plan.json").display())?;
     Ok(())
 }

@@ -8,11 +8,18 @@ use slackmap::report;
 
 /// Arguments of `slackmap report`.
 #[derive(clap::Args, Debug)]
-#[command(
-    after_help = "Writes audit.json, edges.csv, adjacency.csv, intrinsic.csv, adjacency.svg, \
-layout.svg and report.html into DIR (other files already in DIR are kept) and prints the path of \
-report.html. The page is one self-contained file: open it from disk, no network needed."
-)]
+#[command(after_help = "Examples:
+  slackmap report run1/audit/audit.json --out run1/audit      # re-render in place
+  slackmap report colleague/audit.json --out review           # render a saved audit elsewhere
+
+Writes audit.json, edges.csv, replicates.csv, adjacency.csv, intrinsic.csv, adjacency.svg, \
+layout.svg and report.html into DIR (other files already in DIR are kept; rows.csv is written \
+only by audit and merge) and prints the path of report.html. The page is one self-contained \
+file: open it from disk, no network needed. Reads audit schemas 2 and 3, and refuses an \
+inconsistent audit (no qubits, fewer positions than qubits, an edge or pair naming a qubit the \
+layout lacks), naming the file and what is wrong.
+
+Exit codes: 0 success, 2 bad input or usage.")]
 pub struct ReportArgs {
     /// A saved audit (the audit.json an earlier audit wrote).
     #[arg(value_name = "AUDIT.json")]

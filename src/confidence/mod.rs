@@ -14,7 +14,7 @@ use serde::{Deserialize, Serialize};
 
 use crate::audit::{self, Analysis, AuditConfig, Progress};
 use crate::error::{Error, Result};
-use crate::report::{AuditReport, Confidence, RankConfidence, Verdict};
+use crate::report::{AuditReport, Confidence, RankConfidence, ReasonCode, Verdict};
 
 pub mod intervals;
 pub mod partial;
@@ -256,7 +256,6 @@ fn summarise(estimate: f64, reps: &[f64], scores: &[f64], level: f64) -> Confide
         high_tvd_per_layer: i.high,
         upper_bound_tvd_per_layer: i.upper,
         median_tvd_per_layer: median,
-        centre_tvd_per_layer: (2.0 * estimate - median).max(0.0),
         p_positive: scores.iter().filter(|&&x| x > 0.0).count() as f64 / scores.len().max(1) as f64,
         replicates_tvd_per_layer: reps.to_vec(),
         score_replicates_tvd_per_layer: scores.to_vec(),
@@ -298,7 +297,7 @@ pub fn finish(
     for (j, k) in report.intrinsic.iter_mut().enumerate() {
         let v: Vec<f64> = reps.iter().map(|r| r.intrinsic_estimate_tvd_per_occurrence[j]).collect();
         let s: Vec<f64> = reps.iter().map(|r| r.intrinsic_tvd_per_occurrence[j]).collect();
-        k.confidence = Some(summarise(k.estimate_tvd_per_occurrence, &v, &s, level));
+        k.confidence = Some(summarise(k.estimate_tvd_per_occurrence, &v, &s, level).into());
     }
     let index: std::collections::HashMap<(&str, &str), usize> = report
         .directed
@@ -358,7 +357,7 @@ pub fn finish(
         });
         // Revisit the verdict with the interval's lower end (build.rs used the attribution
         // minimum or leave-one-out); the same rule as direction_verdict decides "detected".
-        let mut lead: Option<(Verdict, String)> = None;
+        let mut lead: Option<(Verdict, ReasonCode, String)> = None;
         for j in [ab, ba] {
             let d = &report.directed[j];
             let detected = nulls > 0 && audit::is_detected(d);
@@ -366,13 +365,14 @@ pub fn finish(
                 continue;
             }
             let low = d.confidence.as_ref().map_or(0.0, |c| c.low_tvd_per_layer);
-            let (v, why) = audit::detected_verdict(d.p_value, low, threshold);
+            let (v, code, why) = audit::detected_verdict(d.p_value, low, threshold);
             if lead.as_ref().is_none_or(|l| v < l.0) {
-                lead = Some((v, format!("{}<-{}: {}", d.victim, d.aggressor, why)));
+                lead = Some((v, code, format!("{}<-{}: {}", d.victim, d.aggressor, why)));
             }
         }
-        if let Some((v, why)) = lead {
+        if let Some((v, code, why)) = lead {
             e.verdict = v;
+            e.reason_code = code;
             e.reason = why;
         }
     }
@@ -386,12 +386,13 @@ mod tests {
     use proptest::prelude::*;
 
     proptest! {
-        /// The bias-corrected estimate is the basic interval's centre: always inside it.
+        /// 2 x estimate - median is the basic interval's centre: always inside it.
         #[test]
         fn centre_lies_in_the_interval(est in 0.0f64..1.0, reps in proptest::collection::vec(0.0f64..2.0, 1..60), level in 0.5f64..0.99) {
             let c = summarise(est, &reps, &reps, level);
-            prop_assert!(c.low_tvd_per_layer <= c.centre_tvd_per_layer + 1e-12);
-            prop_assert!(c.centre_tvd_per_layer <= c.high_tvd_per_layer + 1e-12);
+            let centre = (2.0 * est - c.median_tvd_per_layer).max(0.0);
+            prop_assert!(c.low_tvd_per_layer <= centre + 1e-12);
+            prop_assert!(centre <= c.high_tvd_per_layer + 1e-12);
         }
     }
 }

@@ -9,7 +9,7 @@ use serde::{Deserialize, Serialize};
 
 use super::{BootstrapConfig, ReplicateScores, Resample};
 use crate::error::{Error, Result};
-use crate::report::{AuditReport, InputFile};
+use crate::report::{AuditReport, InputFile, RowReport};
 
 /// The `format` field of every partial file.
 pub const FORMAT: &str = "slackmap-partial";
@@ -45,6 +45,9 @@ pub struct Partial {
     pub report: AuditReport,
     /// The shard's replicate scores in index order.
     pub scores: Vec<ReplicateScores>,
+    /// The point report's per-row diagnostics (for `rows.csv`; not part of `report`).
+    #[serde(default)]
+    pub rows: Vec<RowReport>,
 }
 
 impl Partial {
@@ -61,6 +64,7 @@ impl Partial {
             level: cfg.level,
             top_k: cfg.top_k,
             range: [r.start, r.end],
+            rows: report.rows.clone(),
             report,
             scores,
         }

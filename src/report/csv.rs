@@ -1,9 +1,16 @@
-//! CSV outputs: `edges.csv` (ranked edges), `adjacency.csv` (the full victim x aggressor
-//! matrix) and `intrinsic.csv` (per-kind intrinsic slack). Full precision, TVD per layer.
+//! CSV outputs: `edges.csv` (ranked edges), `replicates.csv` (every bootstrap replicate of
+//! every directed pair, long form), `adjacency.csv` (the full victim x aggressor matrix),
+//! `intrinsic.csv` (per-kind intrinsic slack) and `rows.csv` (per-row fit diagnostics).
+//!
+//! One value per cell, at full precision. Column names are the field names of `audit.json`,
+//! nested fields joined with `.` (as `pandas.json_normalize` names them), so a column means
+//! what the JSON field of the same name means. Lists (`confounded_with`, `qubits`) are joined
+//! with `;`. A number without a finite value (JSON `"unbounded"` or `"not-identified"`) and
+//! an absent value (JSON field missing or null) are empty cells.
 
 use std::collections::HashMap;
 
-use super::{AuditReport, Render};
+use super::{AuditReport, Confidence, OccurrenceConfidence, Render};
 
 fn to_bytes<S: AsRef<[u8]>>(header: &[S], rows: Vec<Vec<String>>) -> Vec<u8> {
     let mut w = csv::Writer::from_writer(Vec::new());
@@ -14,12 +21,9 @@ fn to_bytes<S: AsRef<[u8]>>(header: &[S], rows: Vec<Vec<String>>) -> Vec<u8> {
     w.into_inner().unwrap_or_default()
 }
 
-fn opt<T: ToString>(v: Option<T>) -> String {
-    v.map(|x| x.to_string()).unwrap_or_default()
-}
-
-/// A value that may be infinite (never tested): empty when it is.
-fn finite(v: f64) -> String {
+/// A number at full precision (shortest text that reads back to the same value); empty
+/// when it has no finite value.
+pub fn num(v: f64) -> String {
     if v.is_finite() {
         v.to_string()
     } else {
@@ -27,58 +31,91 @@ fn finite(v: f64) -> String {
     }
 }
 
-/// Values joined by `;` in one cell (empty without any).
-fn joined(v: Option<&Vec<f64>>) -> String {
-    v.map_or(String::new(), |v| v.iter().map(|x| x.to_string()).collect::<Vec<_>>().join(";"))
+fn opt<T: ToString>(v: Option<T>) -> String {
+    v.map(|x| x.to_string()).unwrap_or_default()
 }
 
-/// The header names of [`confidence_cells`], values in `unit` (e.g. `tvd_per_layer`).
+fn opt_num(v: Option<f64>) -> String {
+    v.map(num).unwrap_or_default()
+}
+
+/// The `confidence.*` columns (replicates excluded: they are in `replicates.csv` and
+/// `audit.json`), for values in `unit`.
 fn confidence_columns(unit: &str) -> Vec<String> {
-    let mut v = vec!["interval_method".to_string(), "interval_level".to_string()];
-    for name in
-        ["interval_low", "interval_high", "upper_bound", "bootstrap_median", "bias_corrected"]
-    {
-        v.push(format!("{name}_{unit}"));
+    let mut v = vec!["confidence.level".to_string(), "confidence.method".to_string()];
+    for name in ["low", "high", "upper_bound", "median"] {
+        v.push(format!("confidence.{name}_{unit}"));
     }
-    v.push("p_positive".into());
+    v.push("confidence.p_positive".into());
     v
 }
 
-/// Method, level, low, high, upper bound, median, bias-corrected estimate and P(score > 0)
-/// of a confidence; empty cells without one.
-fn confidence_cells(c: Option<&super::Confidence>) -> Vec<String> {
-    match c {
-        Some(c) => vec![
-            c.method.clone(),
-            c.level.to_string(),
-            c.low_tvd_per_layer.to_string(),
-            c.high_tvd_per_layer.to_string(),
-            c.upper_bound_tvd_per_layer.to_string(),
-            c.median_tvd_per_layer.to_string(),
-            c.centre_tvd_per_layer.to_string(),
-            c.p_positive.to_string(),
-        ],
-        None => vec![String::new(); 8],
+/// The cells of [`confidence_columns`]: level, method, low, high, upper bound, median,
+/// P(score > 0).
+fn confidence_cells(c: Option<[f64; 5]>, level_method: Option<(f64, &str)>) -> Vec<String> {
+    match (c, level_method) {
+        (Some(v), Some((level, method))) => {
+            let mut cells = vec![num(level), method.to_string()];
+            cells.extend(v.iter().map(|&x| num(x)));
+            cells
+        }
+        _ => vec![String::new(); 7],
     }
 }
 
-/// Renders `edges.csv`.
+fn layer_cells(c: Option<&Confidence>) -> Vec<String> {
+    confidence_cells(
+        c.map(|c| {
+            [
+                c.low_tvd_per_layer,
+                c.high_tvd_per_layer,
+                c.upper_bound_tvd_per_layer,
+                c.median_tvd_per_layer,
+                c.p_positive,
+            ]
+        }),
+        c.map(|c| (c.level, c.method.as_str())),
+    )
+}
+
+fn occurrence_cells(c: Option<&OccurrenceConfidence>) -> Vec<String> {
+    confidence_cells(
+        c.map(|c| {
+            [
+                c.low_tvd_per_occurrence,
+                c.high_tvd_per_occurrence,
+                c.upper_bound_tvd_per_occurrence,
+                c.median_tvd_per_occurrence,
+                c.p_positive,
+            ]
+        }),
+        c.map(|c| (c.level, c.method.as_str())),
+    )
+}
+
+/// Renders `edges.csv`: one row per edge in ranked order, one value per cell.
 pub struct EdgesCsv;
 
-impl Render for EdgesCsv {
-    fn file_name(&self) -> &'static str {
-        "edges.csv"
-    }
-
-    fn render(&self, r: &AuditReport) -> Vec<u8> {
-        let header = [
-            "rank",
-            "a",
-            "b",
-            "coupled",
-            "score_tvd_per_layer",
-            "a_from_b_tvd_per_layer",
-            "b_from_a_tvd_per_layer",
+/// The columns of `edges.csv`, in order.
+pub fn edges_header() -> Vec<String> {
+    [
+        "rank",
+        "a",
+        "b",
+        "coupled",
+        "verdict",
+        "reason_code",
+        "score_tvd_per_layer",
+        "a_from_b_tvd_per_layer",
+        "b_from_a_tvd_per_layer",
+        "estimate_tvd_per_layer",
+    ]
+    .map(String::from)
+    .into_iter()
+    .chain(confidence_columns("tvd_per_layer"))
+    .chain(
+        [
+            "sensitivity_tvd_per_layer",
             "detection_limit_tvd_per_layer",
             "p_value",
             "attribution_min_tvd_per_layer",
@@ -88,28 +125,26 @@ impl Render for EdgesCsv {
             "leave_one_out_tvd_per_layer",
             "most_influential_circuit",
             "confounded_with",
-            "verdict",
-            "estimate_tvd_per_layer",
-            "sensitivity_tvd_per_layer",
+            "rank_confidence.median_rank",
+            "rank_confidence.rank_low",
+            "rank_confidence.rank_high",
+            "rank_confidence.top_k",
+            "rank_confidence.p_top_k",
+            "parametric_limit_tvd_per_layer",
+            "parametric_p_value",
+            "reason",
         ]
-        .map(String::from)
-        .into_iter()
-        .chain(confidence_columns("tvd_per_layer"))
-        .chain(
-            [
-                "median_rank",
-                "rank_low",
-                "rank_high",
-                "top_k",
-                "p_top_k",
-                "parametric_limit_tvd_per_layer",
-                "parametric_p_value",
-                "replicate_estimates_tvd_per_layer",
-                "replicate_scores_tvd_per_layer",
-            ]
-            .map(String::from),
-        )
-        .collect::<Vec<_>>();
+        .map(String::from),
+    )
+    .collect()
+}
+
+impl Render for EdgesCsv {
+    fn file_name(&self) -> &'static str {
+        "edges.csv"
+    }
+
+    fn render(&self, r: &AuditReport) -> Vec<u8> {
         let rows = r
             .edges
             .iter()
@@ -119,42 +154,84 @@ impl Render for EdgesCsv {
                     e.a.clone(),
                     e.b.clone(),
                     e.coupled.to_string(),
-                    e.score_tvd_per_layer.to_string(),
-                    e.a_from_b_tvd_per_layer.to_string(),
-                    e.b_from_a_tvd_per_layer.to_string(),
-                    e.detection_limit_tvd_per_layer.to_string(),
-                    e.p_value.to_string(),
-                    e.attribution_min_tvd_per_layer.to_string(),
-                    e.attribution_max_tvd_per_layer.to_string(),
-                    e.supporting_rows.to_string(),
-                    e.supporting_circuits.to_string(),
-                    e.leave_one_out_tvd_per_layer.to_string(),
-                    opt(e.most_influential_circuit.clone()),
-                    e.confounded_with.join(";"),
                     e.verdict.word().to_string(),
-                    e.estimate_tvd_per_layer.to_string(),
-                    finite(e.sensitivity_tvd_per_layer),
+                    e.reason_code.code().to_string(),
+                    num(e.score_tvd_per_layer),
+                    num(e.a_from_b_tvd_per_layer),
+                    num(e.b_from_a_tvd_per_layer),
+                    num(e.estimate_tvd_per_layer),
                 ]
                 .into_iter()
-                .chain(confidence_cells(e.confidence.as_ref()))
+                .chain(layer_cells(e.confidence.as_ref()))
+                .chain([
+                    num(e.sensitivity_tvd_per_layer),
+                    num(e.detection_limit_tvd_per_layer),
+                    num(e.p_value),
+                    num(e.attribution_min_tvd_per_layer),
+                    num(e.attribution_max_tvd_per_layer),
+                    e.supporting_rows.to_string(),
+                    e.supporting_circuits.to_string(),
+                    num(e.leave_one_out_tvd_per_layer),
+                    opt(e.most_influential_circuit.clone()),
+                    e.confounded_with.join(";"),
+                ])
                 .chain(match &e.rank_confidence {
                     Some(k) => vec![
-                        k.median_rank.to_string(),
+                        num(k.median_rank),
                         k.rank_low.to_string(),
                         k.rank_high.to_string(),
                         k.top_k.to_string(),
-                        k.p_top_k.to_string(),
+                        num(k.p_top_k),
                     ],
                     None => vec![String::new(); 5],
                 })
-                .chain([opt(e.parametric_limit_tvd_per_layer), opt(e.parametric_p_value)])
                 .chain([
-                    joined(e.confidence.as_ref().map(|c| &c.replicates_tvd_per_layer)),
-                    joined(e.confidence.as_ref().map(|c| &c.score_replicates_tvd_per_layer)),
+                    opt_num(e.parametric_limit_tvd_per_layer),
+                    opt_num(e.parametric_p_value),
+                    e.reason.clone(),
                 ])
                 .collect()
             })
             .collect();
+        to_bytes(&edges_header(), rows)
+    }
+}
+
+/// Renders `replicates.csv`: one row per (edge, direction, bootstrap replicate) with the
+/// replicate's score and unlimited-shot estimate, edges in ranked order. The edge's own
+/// replicate value is the larger of its two directions' in the same replicate. Only the
+/// header when no replicates were run.
+pub struct ReplicatesCsv;
+
+impl Render for ReplicatesCsv {
+    fn file_name(&self) -> &'static str {
+        "replicates.csv"
+    }
+
+    fn render(&self, r: &AuditReport) -> Vec<u8> {
+        let header =
+            ["edge", "direction", "replicate", "score_tvd_per_layer", "estimate_tvd_per_layer"];
+        let directed: HashMap<(&str, &str), &super::DirectedReport> =
+            r.directed.iter().map(|d| ((d.victim.as_str(), d.aggressor.as_str()), d)).collect();
+        let mut rows = Vec::new();
+        for e in &r.edges {
+            for (v, a) in [(&e.a, &e.b), (&e.b, &e.a)] {
+                let Some(c) =
+                    directed.get(&(v.as_str(), a.as_str())).and_then(|d| d.confidence.as_ref())
+                else {
+                    continue;
+                };
+                for (i, est) in c.replicates_tvd_per_layer.iter().enumerate() {
+                    rows.push(vec![
+                        format!("{}-{}", e.a, e.b),
+                        format!("{v}<-{a}"),
+                        i.to_string(),
+                        c.score_replicates_tvd_per_layer.get(i).map_or(String::new(), |&s| num(s)),
+                        num(*est),
+                    ]);
+                }
+            }
+        }
         to_bytes(&header, rows)
     }
 }
@@ -181,7 +258,9 @@ impl Render for AdjacencyCsv {
             .iter()
             .map(|v| {
                 let mut row = vec![v.clone()];
-                row.extend(ids.iter().map(|a| opt(scores.get(&(v.as_str(), a.as_str())).copied())));
+                row.extend(
+                    ids.iter().map(|a| opt_num(scores.get(&(v.as_str(), a.as_str())).copied())),
+                );
                 row
             })
             .collect();
@@ -189,7 +268,7 @@ impl Render for AdjacencyCsv {
     }
 }
 
-/// Renders `intrinsic.csv`.
+/// Renders `intrinsic.csv`, kinds in layout order of their qubits.
 pub struct IntrinsicCsv;
 
 impl Render for IntrinsicCsv {
@@ -200,32 +279,32 @@ impl Render for IntrinsicCsv {
     fn render(&self, r: &AuditReport) -> Vec<u8> {
         let header = [
             "kind",
+            "qubits",
             "occurrences",
             "reference_occurrences",
             "slack_tvd_per_occurrence",
-            "fitted_error_rate",
-            "fitted_on_all_rows",
             "estimate_tvd_per_occurrence",
         ]
         .map(String::from)
         .into_iter()
         .chain(confidence_columns("tvd_per_occurrence"))
+        .chain(["fitted_error_rate", "fitted_on_all_rows"].map(String::from))
         .collect::<Vec<_>>();
         let rows = r
-            .intrinsic
-            .iter()
+            .intrinsic_in_layout_order()
+            .into_iter()
             .map(|k| {
                 vec![
                     k.kind.clone(),
+                    k.qubits.join(";"),
                     k.occurrences.to_string(),
                     k.reference_occurrences.to_string(),
-                    k.slack_tvd_per_occurrence.to_string(),
-                    k.fitted_error_rate.to_string(),
-                    k.fitted_on_all_rows.to_string(),
-                    k.estimate_tvd_per_occurrence.to_string(),
+                    num(k.slack_tvd_per_occurrence),
+                    num(k.estimate_tvd_per_occurrence),
                 ]
                 .into_iter()
-                .chain(confidence_cells(k.confidence.as_ref()))
+                .chain(occurrence_cells(k.confidence.as_ref()))
+                .chain([num(k.fitted_error_rate), k.fitted_on_all_rows.to_string()])
                 .collect()
             })
             .collect();
@@ -233,7 +312,8 @@ impl Render for IntrinsicCsv {
     }
 }
 
-/// Renders `rows.csv`: per-row fit diagnostics (written by an audit, not by a re-render).
+/// Renders `rows.csv`: per-row fit diagnostics (written by an audit or a merge, not by a
+/// re-render).
 pub struct RowsCsv;
 
 impl Render for RowsCsv {
@@ -263,10 +343,10 @@ impl Render for RowsCsv {
                     x.reference.to_string(),
                     x.shots.to_string(),
                     x.timed_layers.to_string(),
-                    x.llr_before.to_string(),
-                    x.requirement_tvd.to_string(),
-                    x.slack_tvd.to_string(),
-                    x.llr_after.to_string(),
+                    num(x.llr_before),
+                    num(x.requirement_tvd),
+                    num(x.slack_tvd),
+                    num(x.llr_after),
                 ]
             })
             .collect();

@@ -6,6 +6,7 @@
 
 use std::path::{Path, PathBuf};
 
+use schemars::JsonSchema;
 use serde::{Deserialize, Serialize};
 
 use crate::error::{Error, Result};
@@ -15,11 +16,18 @@ pub mod csv;
 pub mod html;
 pub mod json;
 pub mod markup;
+pub mod schema;
+pub mod special;
 pub mod svg;
 pub mod terminal;
 
-/// Version of the `audit.json` format written by this build.
-pub const SCHEMA: u32 = 2;
+pub use special::SpecialWord;
+
+/// Version of the `audit.json` format written by this build. Schema 3 writes numbers that
+/// have no finite value as words ([`SpecialWord`]), records a reason code per edge, the
+/// label and creation time, and per-pair depth profiles, and no longer carries a
+/// bias-corrected centre; [`json::read`] still reads schema 2.
+pub const SCHEMA: u32 = 3;
 
 /// The caution every audit output carries, because a score can be mistaken for a diagnosis.
 pub const CAUTION: &str = "Slack bounds unmodelled error in the data's own units (total variation \
@@ -27,12 +35,23 @@ distance per layer); it does not name a physical mechanism. A clean audit is no 
 the contexts the circuits tested.";
 
 /// A complete audit result: what `audit.json` holds.
-#[derive(Clone, Debug, Serialize, Deserialize, PartialEq)]
+#[derive(Clone, Debug, Serialize, Deserialize, PartialEq, JsonSchema)]
+#[schemars(title = "slackmap audit.json")]
 pub struct AuditReport {
     /// Format version, [`SCHEMA`].
     pub schema: u32,
     /// The slackmap version that wrote the file.
     pub tool_version: String,
+    /// The user's label for this audit (`audit --label`), e.g. a chip and cooldown name.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub label: Option<String>,
+    /// When the audit was written, as RFC 3339 UTC (`2026-12-02T06:52:00Z`). Taken from the
+    /// `SOURCE_DATE_EPOCH` environment variable (seconds since 1970) when it is set, so that
+    /// two runs on the same inputs give the same bytes; otherwise from the system clock. It
+    /// is the only field that differs between two otherwise identical runs. Absent in files
+    /// the library writes without the command line.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub created: Option<String>,
     /// The caution that slack names no mechanism (see [`CAUTION`]).
     pub caution: String,
     /// The layout analysed.
@@ -61,8 +80,9 @@ pub struct AuditReport {
     pub rows: Vec<RowReport>,
 }
 
-/// Fit diagnostics of one row (circuit, block), for `rows.csv`.
-#[derive(Clone, Debug, PartialEq)]
+/// Fit diagnostics of one row (circuit, block), for `rows.csv` (and the partial files of a
+/// sharded audit, so that `merge` writes it too).
+#[derive(Clone, Debug, PartialEq, Serialize, Deserialize)]
 pub struct RowReport {
     /// Circuit id.
     pub circuit: String,
@@ -75,17 +95,21 @@ pub struct RowReport {
     /// Timed layers of the circuit.
     pub timed_layers: u32,
     /// LLR of the crosstalk-free prediction against the row's frequencies.
+    #[serde(with = "special::number")]
     pub llr_before: f64,
     /// The row's requirement d_row, TVD.
+    #[serde(with = "special::number")]
     pub requirement_tvd: f64,
     /// The slack the solved budgets give the row, TVD (at least the requirement).
+    #[serde(with = "special::number")]
     pub slack_tvd: f64,
     /// LLR after the prediction is weakened by that slack.
+    #[serde(with = "special::number")]
     pub llr_after: f64,
 }
 
 /// The layout, as far as a reader of the report needs it.
-#[derive(Clone, Debug, Serialize, Deserialize, PartialEq)]
+#[derive(Clone, Debug, Serialize, Deserialize, PartialEq, JsonSchema)]
 pub struct LayoutSummary {
     /// Layout name.
     pub name: String,
@@ -100,7 +124,7 @@ pub struct LayoutSummary {
 }
 
 /// One input file.
-#[derive(Clone, Debug, Serialize, Deserialize, PartialEq)]
+#[derive(Clone, Debug, Serialize, Deserialize, PartialEq, JsonSchema)]
 pub struct InputFile {
     /// What the file is: `layout`, `circuits` or `counts`.
     pub role: String,
@@ -112,7 +136,7 @@ pub struct InputFile {
 }
 
 /// The run's settings.
-#[derive(Clone, Debug, Serialize, Deserialize, PartialEq)]
+#[derive(Clone, Debug, Serialize, Deserialize, PartialEq, JsonSchema)]
 pub struct Parameters {
     /// Error family of the crosstalk-free model: `depolarizing`, `pauli` or `pauli+coherent`.
     pub model: String,
@@ -135,7 +159,7 @@ pub struct Parameters {
 }
 
 /// Sizes of the data.
-#[derive(Clone, Debug, Serialize, Deserialize, PartialEq)]
+#[derive(Clone, Debug, Serialize, Deserialize, PartialEq, JsonSchema)]
 pub struct DataSummary {
     /// Circuits in the circuit file.
     pub circuits: usize,
@@ -156,27 +180,45 @@ pub struct DataSummary {
 }
 
 /// Fit quality of the crosstalk-free model.
-#[derive(Clone, Debug, Serialize, Deserialize, PartialEq)]
+#[derive(Clone, Debug, Serialize, Deserialize, PartialEq, JsonSchema)]
 pub struct FitSummary {
     /// Log-likelihood ratio 2 sum n ln(f/p) over reference rows, against the data's own
     /// frequencies.
+    #[serde(with = "special::number")]
+    #[schemars(with = "special::Number")]
     pub reference_llr: f64,
     /// Degrees of freedom of the reference fit: outcomes minus one, summed over reference
     /// rows, minus identified parameters.
+    #[serde(with = "special::number")]
+    #[schemars(with = "special::Number")]
     pub reference_dof: f64,
     /// (LLR - dof) / sqrt(2 dof) over reference rows: near 0 when the model fits.
+    #[serde(with = "special::number")]
+    #[schemars(with = "special::Number")]
     pub reference_excess_sigma: f64,
     /// LLR over all rows with the fitted model and no slack.
+    #[serde(with = "special::number")]
+    #[schemars(with = "special::Number")]
     pub all_llr_before: f64,
     /// Degrees of freedom over all rows (outcomes minus one summed, minus parameters).
+    #[serde(with = "special::number")]
+    #[schemars(with = "special::Number")]
     pub all_dof: f64,
     /// Excess in standard deviations over all rows before slack.
+    #[serde(with = "special::number")]
+    #[schemars(with = "special::Number")]
     pub all_excess_sigma_before: f64,
     /// LLR over all rows after each row's prediction is weakened by its slack budget.
+    #[serde(with = "special::number")]
+    #[schemars(with = "special::Number")]
     pub all_llr_after: f64,
     /// Excess in standard deviations over all rows after slack.
+    #[serde(with = "special::number")]
+    #[schemars(with = "special::Number")]
     pub all_excess_sigma_after: f64,
     /// The per-row LLR threshold used (largest over row outcome counts).
+    #[serde(with = "special::number")]
+    #[schemars(with = "special::Number")]
     pub row_threshold_llr: f64,
     /// Rows that needed any slack at all.
     pub rows_needing_slack: usize,
@@ -187,7 +229,9 @@ pub struct FitSummary {
 }
 
 /// Verdict for one edge.
-#[derive(Clone, Copy, Debug, Serialize, Deserialize, PartialEq, Eq, PartialOrd, Ord)]
+#[derive(
+    Clone, Copy, Debug, Serialize, Deserialize, PartialEq, Eq, PartialOrd, Ord, JsonSchema,
+)]
 #[serde(rename_all = "kebab-case")]
 pub enum Verdict {
     /// Detected and above the action threshold: recalibrate this pair.
@@ -213,7 +257,7 @@ impl Verdict {
 }
 
 /// One neighbour pair {a, b}.
-#[derive(Clone, Debug, Serialize, Deserialize, PartialEq)]
+#[derive(Clone, Debug, Serialize, Deserialize, PartialEq, JsonSchema)]
 pub struct EdgeReport {
     /// First qubit id (lower layout index).
     pub a: String,
@@ -235,9 +279,10 @@ pub struct EdgeReport {
     pub estimate_tvd_per_layer: f64,
     /// Sensitivity: the smaller estimate that each direction's rows could tell from zero,
     /// taken over both directions (the larger of the two), TVD per layer (see
-    /// [`DirectedReport::sensitivity_tvd_per_layer`]); infinite when a direction was never
-    /// tested.
-    #[serde(with = "finite_or_null")]
+    /// [`DirectedReport::sensitivity_tvd_per_layer`]); `"unbounded"` when a direction was
+    /// never tested.
+    #[serde(with = "special::unbounded")]
+    #[schemars(with = "special::Number")]
     pub sensitivity_tvd_per_layer: f64,
     /// Detection limit: the (1 - alpha) quantile of the permutation-null score of the
     /// direction that gives the edge score, TVD per layer.
@@ -272,13 +317,109 @@ pub struct EdgeReport {
     pub parametric_p_value: Option<f64>,
     /// The verdict.
     pub verdict: Verdict,
-    /// Why the verdict is what it is, in words.
+    /// Why the verdict is what it is, as a short code (the terminal's `why` column).
+    pub reason_code: ReasonCode,
+    /// Why the verdict is what it is, in words, naming the direction that decided it.
     pub reason: String,
+}
+
+/// Why an edge got its verdict: the step of the verdict rule (method.md section 6) that
+/// decided it, for the direction that leads.
+#[derive(Clone, Copy, Debug, Serialize, Deserialize, PartialEq, Eq, JsonSchema)]
+#[serde(rename_all = "kebab-case")]
+pub enum ReasonCode {
+    /// No circuit ran the victim with the aggressor active.
+    Untested,
+    /// The data need no context slack for this pair.
+    NoSlack,
+    /// Another aggressor active at the same time could carry the slack (the attribution
+    /// range reaches zero).
+    Shared,
+    /// Only circuits where other neighbours were active too need it (the isolated score is
+    /// zero).
+    NotAlone,
+    /// No permutation-null replicates were run, so nothing can be called detected.
+    NoNull,
+    /// The score is within the permutation-null detection limit.
+    InNull,
+    /// Without its most influential circuit the score falls to the detection limit.
+    OneCircuit,
+    /// Detected, and the lower end of its interval is above the action threshold.
+    AboveThreshold,
+    /// Detected, but the lower end of its interval is not above the action threshold.
+    BelowThreshold,
+}
+
+impl ReasonCode {
+    /// Every code, in the order of the verdict rule.
+    pub const ALL: [ReasonCode; 9] = [
+        ReasonCode::Untested,
+        ReasonCode::NoSlack,
+        ReasonCode::Shared,
+        ReasonCode::NotAlone,
+        ReasonCode::NoNull,
+        ReasonCode::InNull,
+        ReasonCode::OneCircuit,
+        ReasonCode::AboveThreshold,
+        ReasonCode::BelowThreshold,
+    ];
+
+    /// The code as written in every output (JSON, CSV, terminal, HTML).
+    pub fn code(self) -> &'static str {
+        match self {
+            ReasonCode::Untested => "untested",
+            ReasonCode::NoSlack => "no-slack",
+            ReasonCode::Shared => "shared",
+            ReasonCode::NotAlone => "not-alone",
+            ReasonCode::NoNull => "no-null",
+            ReasonCode::InNull => "in-null",
+            ReasonCode::OneCircuit => "one-circuit",
+            ReasonCode::AboveThreshold => "above-threshold",
+            ReasonCode::BelowThreshold => "below-threshold",
+        }
+    }
+
+    /// One line for a legend.
+    pub fn legend(self) -> &'static str {
+        match self {
+            ReasonCode::Untested => "no circuit ran the victim with this aggressor active",
+            ReasonCode::NoSlack => "the data need no context slack for this pair",
+            ReasonCode::Shared => {
+                "another aggressor, active at the same time, could carry the slack"
+            }
+            ReasonCode::NotAlone => "only circuits with other neighbours active too need it",
+            ReasonCode::NoNull => "no null replicates were run: nothing can be called detected",
+            ReasonCode::InNull => "score within the permutation-null detection limit",
+            ReasonCode::OneCircuit => "rests on one circuit: without it, within the null limit",
+            ReasonCode::AboveThreshold => {
+                "detected; the interval's lower end is above the action threshold"
+            }
+            ReasonCode::BelowThreshold => {
+                "detected; the interval's lower end is not above the action threshold"
+            }
+        }
+    }
+
+    /// The code of a reason sentence written by schema-2 audits (which recorded words only).
+    pub fn from_words(words: &str) -> Option<ReasonCode> {
+        let table = [
+            ("never tested", ReasonCode::Untested),
+            ("no context slack needed", ReasonCode::NoSlack),
+            ("another aggressor active at the same time", ReasonCode::Shared),
+            ("only circuits where other neighbours", ReasonCode::NotAlone),
+            ("no null replicates", ReasonCode::NoNull),
+            ("within the permutation-null limit", ReasonCode::InNull),
+            ("rests on one circuit", ReasonCode::OneCircuit),
+            ("exceeds the action threshold", ReasonCode::AboveThreshold),
+            ("not above the action threshold", ReasonCode::BelowThreshold),
+        ];
+        table.iter().find(|(w, _)| words.contains(w)).map(|&(_, c)| c)
+    }
 }
 
 /// Bootstrap confidence of one unlimited-shot estimate (method.md section 5; the interval is
 /// around the estimate, not around the score: DEVELOPERS.md explains why).
-#[derive(Clone, Debug, Serialize, Deserialize, PartialEq)]
+#[derive(Clone, Debug, Serialize, Deserialize, PartialEq, JsonSchema)]
 pub struct Confidence {
     /// Two-sided interval level, e.g. 0.95.
     pub level: f64,
@@ -290,15 +431,11 @@ pub struct Confidence {
     pub high_tvd_per_layer: f64,
     /// One-sided upper bound at `level`, TVD per layer.
     pub upper_bound_tvd_per_layer: f64,
-    /// Median of the replicate estimates, TVD per layer.
+    /// Median of the replicate estimates, TVD per layer. The replicates of a maximum over
+    /// noisy rows run above the estimate, and the basic interval (2 x estimate - quantiles)
+    /// shifts down by as much, so the estimate can sit above its own interval: the interval
+    /// is the statement to act on.
     pub median_tvd_per_layer: f64,
-    /// Bias-corrected estimate, 2 x estimate - `median_tvd_per_layer`, clipped at zero: the
-    /// centre of the basic interval, which always contains it (Efron & Tibshirani, An
-    /// Introduction to the Bootstrap, 1993, sec. 10.6, with the median for the mean). The
-    /// replicates of a maximum over noisy rows run above the estimate, so the plain
-    /// estimate can sit above its own interval; this is the value to quote with it.
-    #[serde(default)]
-    pub centre_tvd_per_layer: f64,
     /// Fraction of replicates whose score (not estimate) is positive.
     pub p_positive: f64,
     /// Every replicate estimate in replicate order, TVD per layer (for comparing).
@@ -309,14 +446,49 @@ pub struct Confidence {
     pub score_replicates_tvd_per_layer: Vec<f64>,
 }
 
-/// The estimate tables quote beside an interval: with replicates the bias-corrected centre
-/// of the interval, without them the plain estimate.
-pub fn quoted_estimate(estimate: f64, c: Option<&Confidence>) -> f64 {
-    c.map_or(estimate, |c| c.centre_tvd_per_layer)
+/// [`Confidence`] of a per-occurrence value (intrinsic slack): the same fields, TVD per
+/// occurrence.
+#[derive(Clone, Debug, Serialize, Deserialize, PartialEq, JsonSchema)]
+pub struct OccurrenceConfidence {
+    /// Two-sided interval level, e.g. 0.95.
+    pub level: f64,
+    /// Interval method, e.g. `basic`.
+    pub method: String,
+    /// Lower end of the interval, TVD per occurrence (clipped at zero).
+    pub low_tvd_per_occurrence: f64,
+    /// Upper end of the interval, TVD per occurrence.
+    pub high_tvd_per_occurrence: f64,
+    /// One-sided upper bound at `level`, TVD per occurrence.
+    pub upper_bound_tvd_per_occurrence: f64,
+    /// Median of the replicate estimates, TVD per occurrence.
+    pub median_tvd_per_occurrence: f64,
+    /// Fraction of replicates whose slack (not estimate) is positive.
+    pub p_positive: f64,
+    /// Every replicate estimate in replicate order, TVD per occurrence.
+    pub replicates_tvd_per_occurrence: Vec<f64>,
+    /// Every replicate's slack in replicate order, TVD per occurrence.
+    #[serde(default)]
+    pub score_replicates_tvd_per_occurrence: Vec<f64>,
+}
+
+impl From<Confidence> for OccurrenceConfidence {
+    fn from(c: Confidence) -> Self {
+        OccurrenceConfidence {
+            level: c.level,
+            method: c.method,
+            low_tvd_per_occurrence: c.low_tvd_per_layer,
+            high_tvd_per_occurrence: c.high_tvd_per_layer,
+            upper_bound_tvd_per_occurrence: c.upper_bound_tvd_per_layer,
+            median_tvd_per_occurrence: c.median_tvd_per_layer,
+            p_positive: c.p_positive,
+            replicates_tvd_per_occurrence: c.replicates_tvd_per_layer,
+            score_replicates_tvd_per_occurrence: c.score_replicates_tvd_per_layer,
+        }
+    }
 }
 
 /// Bootstrap rank statistics of one edge.
-#[derive(Clone, Debug, Serialize, Deserialize, PartialEq)]
+#[derive(Clone, Debug, Serialize, Deserialize, PartialEq, JsonSchema)]
 pub struct RankConfidence {
     /// Median rank over replicates (1 = worst).
     pub median_rank: f64,
@@ -331,7 +503,7 @@ pub struct RankConfidence {
 }
 
 /// One directed pair: victim q, aggressor r.
-#[derive(Clone, Debug, Serialize, Deserialize, PartialEq)]
+#[derive(Clone, Debug, Serialize, Deserialize, PartialEq, JsonSchema)]
 pub struct DirectedReport {
     /// Victim qubit id.
     pub victim: String,
@@ -347,9 +519,10 @@ pub struct DirectedReport {
     /// Sensitivity: the least estimate at which some row of this pair would need slack, to
     /// first order: min over the victim's rows with the aggressor active of (detectable
     /// shift of the row) / (occurrences with the aggressor active x the row's polarization
-    /// relative to the victim's most polarized row), TVD per layer. Infinite (null in
-    /// JSON) when no row tests the pair.
-    #[serde(with = "finite_or_null")]
+    /// relative to the victim's most polarized row), TVD per layer. `"unbounded"` when no
+    /// row tests the pair.
+    #[serde(with = "special::unbounded")]
+    #[schemars(with = "special::Number")]
     pub sensitivity_tvd_per_layer: f64,
     /// The part of the score from the victim's driven operations (gates), TVD per layer.
     pub driven_tvd_per_layer: f64,
@@ -380,6 +553,12 @@ pub struct DirectedReport {
     pub most_influential_circuit: Option<String>,
     /// Per-kind context slack kappa(k, r), TVD per occurrence, as `kind` to value.
     pub per_kind: Vec<KindValue>,
+    /// Observed against predicted probability of the victim's likeliest outcome, by depth
+    /// class, in the victim's rows with and without the aggressor active: where crosstalk
+    /// shows as the observed value falling below the crosstalk-free prediction as sequences
+    /// grow. Filled for both directions of every edge with a positive score.
+    #[serde(default)]
+    pub depth_profile: Vec<DepthPoint>,
     /// Bootstrap confidence for the directed estimate; null when no replicates were run.
     pub confidence: Option<Confidence>,
     /// Parametric-null detection limit (see [`EdgeReport::parametric_limit_tvd_per_layer`]).
@@ -390,8 +569,27 @@ pub struct DirectedReport {
     pub parametric_p_value: Option<f64>,
 }
 
+/// One point of a [`DirectedReport::depth_profile`]: the victim's rows of one depth class
+/// (half-octave classes of the timed-layer count, as the permutation strata), with or
+/// without the aggressor active.
+#[derive(Clone, Debug, Serialize, Deserialize, PartialEq, JsonSchema)]
+pub struct DepthPoint {
+    /// Mean timed layers of the rows in the class.
+    pub timed_layers: f64,
+    /// True for rows in which the aggressor was active beside the victim, false for the
+    /// victim's rows in which it never was.
+    pub aggressor_active: bool,
+    /// Rows in the class.
+    pub rows: usize,
+    /// Observed frequency of the victim's likeliest outcome (the bit value the
+    /// crosstalk-free model predicts more often in each row), shot-weighted over the rows.
+    pub observed: f64,
+    /// The crosstalk-free model's probability of the same outcome, shot-weighted.
+    pub predicted: f64,
+}
+
 /// A value attached to an operation kind.
-#[derive(Clone, Debug, Serialize, Deserialize, PartialEq)]
+#[derive(Clone, Debug, Serialize, Deserialize, PartialEq, JsonSchema)]
 pub struct KindValue {
     /// Operation kind label, e.g. `sx@q3`.
     pub kind: String,
@@ -400,7 +598,7 @@ pub struct KindValue {
 }
 
 /// Intrinsic slack of one operation kind.
-#[derive(Clone, Debug, Serialize, Deserialize, PartialEq)]
+#[derive(Clone, Debug, Serialize, Deserialize, PartialEq, JsonSchema)]
 pub struct IntrinsicReport {
     /// Operation kind label, e.g. `sx@q3`, `id@q3`, `cz@q3-q4`.
     pub kind: String,
@@ -412,22 +610,44 @@ pub struct IntrinsicReport {
     pub slack_tvd_per_occurrence: f64,
     /// Unlimited-shot estimate of omega_k (deviation requirements), TVD per occurrence.
     pub estimate_tvd_per_occurrence: f64,
-    /// Fitted error rate of the kind's channel (total error probability).
+    /// Fitted error rate of the kind's channel (total error probability); `"not-identified"`
+    /// when the data could not determine it.
+    #[serde(with = "special::number")]
+    #[schemars(with = "special::Number")]
     pub fitted_error_rate: f64,
     /// True when the kind had no reference rows and was fitted on all its rows (its context
     /// slack is then a lower bound).
     pub fitted_on_all_rows: bool,
     /// The qubits the kind acts on (ids), for drawing and comparing.
     pub qubits: Vec<String>,
-    /// Bootstrap confidence for the intrinsic estimate, TVD per occurrence (the `_tvd_per_layer`
-    /// field names of [`Confidence`] then carry per-occurrence values); absent when no
-    /// replicates were run or the writer predates the field.
+    /// Bootstrap confidence for the intrinsic estimate; absent when no replicates were run.
     #[serde(default, skip_serializing_if = "Option::is_none")]
-    pub confidence: Option<Confidence>,
+    pub confidence: Option<OccurrenceConfidence>,
+}
+
+impl AuditReport {
+    /// The intrinsic kinds in layout order: by the layout index of their qubits (so `q2`
+    /// comes before `q10`), one-qubit kinds before two-qubit kinds on the same first qubit,
+    /// then by label.
+    pub fn intrinsic_in_layout_order(&self) -> Vec<&IntrinsicReport> {
+        let index: std::collections::HashMap<&str, usize> =
+            self.layout.qubits.iter().enumerate().map(|(i, q)| (q.as_str(), i)).collect();
+        let key = |k: &IntrinsicReport| {
+            let ix: Vec<usize> = k
+                .qubits
+                .iter()
+                .map(|q| index.get(q.as_str()).copied().unwrap_or(usize::MAX))
+                .collect();
+            (ix.first().copied().unwrap_or(usize::MAX), ix.len(), ix, k.kind.clone())
+        };
+        let mut v: Vec<&IntrinsicReport> = self.intrinsic.iter().collect();
+        v.sort_by_cached_key(|k| key(k));
+        v
+    }
 }
 
 /// Readout of one qubit.
-#[derive(Clone, Debug, Serialize, Deserialize, PartialEq)]
+#[derive(Clone, Debug, Serialize, Deserialize, PartialEq, JsonSchema)]
 pub struct ReadoutReport {
     /// Qubit id.
     pub qubit: String,
@@ -440,7 +660,7 @@ pub struct ReadoutReport {
 }
 
 /// A warning as recorded in the report.
-#[derive(Clone, Debug, Serialize, Deserialize, PartialEq)]
+#[derive(Clone, Debug, Serialize, Deserialize, PartialEq, JsonSchema)]
 pub struct WarningReport {
     /// Stable code.
     pub code: String,
@@ -464,11 +684,13 @@ pub trait Render {
     fn render(&self, report: &AuditReport) -> Vec<u8>;
 }
 
-/// Every file an audit writes, in order.
+/// Every file an audit writes, in order (`rows.csv` only when the report carries rows: an
+/// audit and a merge do, a re-render from `audit.json` does not).
 pub fn audit_files(report: &AuditReport) -> Vec<(String, Vec<u8>)> {
-    let renderers: [&dyn Render; 7] = [
+    let renderers: [&dyn Render; 8] = [
         &json::AuditJson,
         &csv::EdgesCsv,
+        &csv::ReplicatesCsv,
         &csv::AdjacencyCsv,
         &csv::IntrinsicCsv,
         &svg::AdjacencySvg,
@@ -535,20 +757,38 @@ fn copy_tree(from: &Path, to: &Path) -> Result<()> {
     Ok(())
 }
 
-/// Serialises a non-negative value that may be infinite as a number or null (JSON has no
-/// infinity), and reads null back as infinity.
-mod finite_or_null {
-    use serde::{Deserialize, Deserializer, Serializer};
+/// A time as RFC 3339 UTC to the second (`2023-11-14T22:13:20Z`), from seconds since
+/// 1970-01-01 (civil-from-days: H. Hinnant, "chrono-Compatible Low-Level Date Algorithms").
+pub fn rfc3339_utc(secs: u64) -> String {
+    let days = (secs / 86_400) as i64;
+    let rem = secs % 86_400;
+    let z = days + 719_468;
+    let era = z.div_euclid(146_097);
+    let doe = z - era * 146_097;
+    let yoe = (doe - doe / 1_460 + doe / 36_524 - doe / 146_096) / 365;
+    let doy = doe - (365 * yoe + yoe / 4 - yoe / 100);
+    let mp = (5 * doy + 2) / 153;
+    let day = doy - (153 * mp + 2) / 5 + 1;
+    let month = if mp < 10 { mp + 3 } else { mp - 9 };
+    let year = yoe + era * 400 + i64::from(month <= 2);
+    format!(
+        "{year:04}-{month:02}-{day:02}T{:02}:{:02}:{:02}Z",
+        rem / 3_600,
+        rem % 3_600 / 60,
+        rem % 60
+    )
+}
 
-    pub fn serialize<S: Serializer>(v: &f64, s: S) -> Result<S::Ok, S::Error> {
-        if v.is_finite() {
-            s.serialize_f64(*v)
-        } else {
-            s.serialize_none()
-        }
-    }
+#[cfg(test)]
+mod tests {
+    use super::*;
 
-    pub fn deserialize<'de, D: Deserializer<'de>>(d: D) -> Result<f64, D::Error> {
-        Ok(Option::<f64>::deserialize(d)?.unwrap_or(f64::INFINITY))
+    #[test]
+    fn rfc3339_matches_known_instants() {
+        // `date -u -d @SECONDS` (GNU coreutils) gives these.
+        assert_eq!(rfc3339_utc(0), "1970-01-01T00:00:00Z");
+        assert_eq!(rfc3339_utc(1_700_000_000), "2023-11-14T22:13:20Z");
+        // 2000-02-29, a leap day in a year divisible by 400.
+        assert_eq!(rfc3339_utc(951_782_400), "2000-02-29T00:00:00Z");
     }
 }

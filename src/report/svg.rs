@@ -1,8 +1,10 @@
 //! The two pictures of an audit: `adjacency.svg` (victims by aggressors, one cell per directed
 //! neighbour pair) and `layout.svg` (the chip, each neighbour pair drawn as two half-edges).
 //!
-//! Both use one score scale (colour from [`colour::SCORE`], top rounded up to a round number in
-//! units of 1e-3 TVD per layer), the same verdict marks, and data attributes plus `<title>`
+//! Both use one logarithmic score scale ([`ScoreScale`]: colour from [`colour::SCORE`], in
+//! units of 1e-3 TVD per layer, the action threshold marked on the legend), so that scores
+//! a hundred times apart look different even when one edge dwarfs the rest; the same verdict
+//! marks; flagged edges labelled with their score; and data attributes plus `<title>`
 //! tooltips so a reader (or a test) can find every cell and edge. Pure string building.
 
 use std::collections::HashMap;
@@ -79,18 +81,88 @@ fn text(x: f64, y: f64, size: f64, anchor: &str, extra: &str, body: &str) -> Str
     )
 }
 
-/// Top of the score scale in units of 1e-3 per layer: the largest score or the action
-/// threshold, whichever is larger, rounded up. Anchoring at the threshold keeps a chip with
-/// only tiny scores from looking alarming.
-fn score_top_per_mille(r: &AuditReport) -> f64 {
-    let m = r
-        .directed
-        .iter()
-        .map(|d| d.score_tvd_per_layer)
-        .chain(r.edges.iter().map(|e| e.score_tvd_per_layer))
-        .filter(|v| v.is_finite())
-        .fold(r.parameters.action_threshold_tvd_per_layer, f64::max);
-    nice_ceil(m * 1e3)
+/// The logarithmic colour scale of the scores, in units of 1e-3 TVD per layer.
+///
+/// The top is the largest score or the action threshold, whichever is larger, rounded up
+/// (anchoring at the threshold keeps a chip with only tiny scores from looking alarming).
+/// The bottom is the decade of the smallest positive score, but at least two decades below
+/// the top and one below the threshold, and at most four below the top; smaller positive
+/// scores take the bottom colour. A linear scale would paint everything but the worst edge
+/// the same pale colour.
+#[derive(Clone, Copy, Debug, PartialEq)]
+pub struct ScoreScale {
+    /// Bottom of the scale, 1e-3 TVD per layer (a power of ten).
+    pub low_per_mille: f64,
+    /// Top of the scale, 1e-3 TVD per layer.
+    pub high_per_mille: f64,
+    /// The action threshold, 1e-3 TVD per layer.
+    pub threshold_per_mille: f64,
+}
+
+impl ScoreScale {
+    /// The scale of an audit's directed and edge scores.
+    pub fn of(r: &AuditReport) -> ScoreScale {
+        let scores = || {
+            r.directed
+                .iter()
+                .map(|d| d.score_tvd_per_layer)
+                .chain(r.edges.iter().map(|e| e.score_tvd_per_layer))
+                .filter(|v| v.is_finite() && *v > 0.0)
+        };
+        let threshold = r.parameters.action_threshold_tvd_per_layer * 1e3;
+        let high =
+            nice_ceil(scores().fold(r.parameters.action_threshold_tvd_per_layer, f64::max) * 1e3);
+        let decade = |x: f64| 10f64.powf(x.log10().floor());
+        let smallest = scores().fold(f64::INFINITY, f64::min) * 1e3;
+        let mut low = if smallest.is_finite() { decade(smallest) } else { high / 100.0 };
+        low = low.min(decade(high / 100.0));
+        if threshold > 0.0 {
+            low = low.min(decade(threshold / 10.0));
+        }
+        low = low.max(10f64.powf((high / 1e4).log10().ceil()));
+        ScoreScale { low_per_mille: low, high_per_mille: high, threshold_per_mille: threshold }
+    }
+
+    /// Position in [0, 1] of a value in TVD per layer (values at or below the bottom: 0).
+    pub fn at(&self, v: f64) -> f64 {
+        self.at_per_mille(v * 1e3)
+    }
+
+    fn at_per_mille(&self, pm: f64) -> f64 {
+        if pm.is_nan() || pm <= self.low_per_mille {
+            return 0.0;
+        }
+        let span = (self.high_per_mille / self.low_per_mille).log10();
+        ((pm / self.low_per_mille).log10() / span).clamp(0.0, 1.0)
+    }
+
+    /// Tick values, 1e-3 TVD per layer: every decade from the bottom, and the top.
+    pub fn ticks(&self) -> Vec<f64> {
+        let mut v = Vec::new();
+        let mut t = self.low_per_mille;
+        while t < self.high_per_mille * (1.0 - 1e-9) {
+            v.push(t);
+            t *= 10.0;
+        }
+        v.push(self.high_per_mille);
+        // A top within a factor 2 of the last decade crowds its label: keep the top only.
+        if v.len() >= 2 && v[v.len() - 1] / v[v.len() - 2] < 2.0 {
+            v.remove(v.len() - 2);
+        }
+        v
+    }
+
+    /// Where the threshold sits on the scale, when it is inside it.
+    pub fn threshold_at(&self) -> Option<f64> {
+        (self.threshold_per_mille > self.low_per_mille
+            && self.threshold_per_mille <= self.high_per_mille)
+            .then(|| self.at_per_mille(self.threshold_per_mille))
+    }
+}
+
+/// A tick label of a logarithmic scale value.
+fn log_label(v: f64) -> String {
+    tick_label(v, 10f64.powf(v.log10().floor()))
 }
 
 fn pm(v: f64) -> String {
@@ -180,7 +252,7 @@ pub fn adjacency(r: &AuditReport, doc: Doc) -> String {
     let index: HashMap<&str, usize> =
         ids.iter().enumerate().map(|(i, q)| (q.as_str(), i)).collect();
     let edges = edge_index(r);
-    let top_pm = score_top_per_mille(r);
+    let scale = ScoreScale::of(r);
 
     let cell = (900.0 / n as f64).clamp(2.0, 26.0);
     let font = (cell * 0.75).clamp(6.0, 11.0);
@@ -282,7 +354,7 @@ pub fn adjacency(r: &AuditReport, doc: Doc) -> String {
         let fill = if zero {
             "url(#adj-hatch)".to_string()
         } else {
-            colour::SCORE.hex(d.score_tvd_per_layer * 1e3 / top_pm)
+            colour::SCORE.hex(scale.at(d.score_tvd_per_layer))
         };
         let _ = write!(
             s,
@@ -345,9 +417,8 @@ pub fn adjacency(r: &AuditReport, doc: Doc) -> String {
         px(ly),
         px(bar_h)
     );
-    let (tv, step) = ticks(top_pm);
-    for v in tv {
-        let y = ly + bar_h - bar_h * v / top_pm;
+    for v in scale.ticks() {
+        let y = ly + bar_h - bar_h * scale.at_per_mille(v);
         let _ = writeln!(
             s,
             "<line x1=\"{}\" y1=\"{}\" x2=\"{}\" y2=\"{}\" stroke=\"#333333\" stroke-width=\"0.8\"/>",
@@ -356,16 +427,30 @@ pub fn adjacency(r: &AuditReport, doc: Doc) -> String {
             px(lx + 23.0),
             px(y)
         );
-        s.push_str(&text(
-            lx + 27.0,
-            y + 4.0,
-            11.0,
-            "start",
-            " class=\"tick\"",
-            &tick_label(v, step),
-        ));
+        s.push_str(&text(lx + 27.0, y + 4.0, 11.0, "start", " class=\"tick\"", &log_label(v)));
     }
-    ly += bar_h + 26.0;
+    if let Some(t) = scale.threshold_at() {
+        let y = ly + bar_h - bar_h * t;
+        let _ = writeln!(
+            s,
+            "<g class=\"threshold\"><line x1=\"{}\" y1=\"{}\" x2=\"{}\" y2=\"{}\" stroke=\"#c0392b\" stroke-width=\"2\"/>{}</g>",
+            px(lx - 4.0),
+            px(y),
+            px(lx + 22.0),
+            px(y),
+            text(lx + 60.0, y + 4.0, 10.0, "start", " fill-opacity=\"1\"", &format!("action threshold {}", pm(scale.threshold_per_mille / 1e3)))
+        );
+    }
+    ly += bar_h + 8.0;
+    s.push_str(&text(
+        lx,
+        ly + 6.0,
+        10.0,
+        "start",
+        "",
+        "logarithmic; smaller scores take the palest colour",
+    ));
+    ly += 26.0;
     let _ = writeln!(
         s,
         "<rect x=\"{}\" y=\"{}\" width=\"16\" height=\"16\" fill=\"url(#adj-hatch)\" stroke=\"#8a8a8a\" stroke-width=\"0.8\"/>",
@@ -492,7 +577,7 @@ pub fn layout(r: &AuditReport, doc: Doc) -> String {
     let index: HashMap<&str, usize> =
         ids.iter().enumerate().map(|(i, q)| (q.as_str(), i)).collect();
     let pos = positions(r);
-    let top_pm = score_top_per_mille(r);
+    let score_scale = ScoreScale::of(r);
     let only_flagged = n > FULL_LAYOUT_UP_TO;
 
     let pairs: Vec<(&EdgeReport, usize, usize)> = r
@@ -606,7 +691,7 @@ pub fn layout(r: &AuditReport, doc: Doc) -> String {
                         format!(" stroke-dasharray=\"{} {}\"", px(wmin * 3.0), px(wmin * 2.5)),
                     )
                 } else {
-                    let t = (score * 1e3 / top_pm).clamp(0.0, 1.0);
+                    let t = score_scale.at(score);
                     (colour::SCORE.hex(t), wmin + (wmax - wmin) * t, String::new())
                 };
                 let _ = write!(
@@ -621,7 +706,19 @@ pub fn layout(r: &AuditReport, doc: Doc) -> String {
                 );
             }
             if flagged(e) {
-                s.push_str(&verdict_mark(e.verdict, mx, my, (dpx * 0.09).clamp(3.0, 9.0)));
+                let h = (dpx * 0.09).clamp(3.0, 9.0);
+                s.push_str(&verdict_mark(e.verdict, mx, my, h));
+                // The score beside the mark, offset across the edge so it never sits on it.
+                let (nx, ny) = (-uy, ux);
+                let off = h + 4.0 + (dpx * 0.06).clamp(4.0, 9.0);
+                let _ = write!(
+                    s,
+                    "<text class=\"value\" x=\"{}\" y=\"{}\" {FONT} font-size=\"{}\" font-weight=\"bold\" text-anchor=\"middle\" fill=\"#1a1a1a\" stroke=\"#ffffff\" stroke-width=\"3\" paint-order=\"stroke\">{}</text>",
+                    px(mx + nx * off),
+                    px(my + ny * off + 4.0),
+                    px((dpx * 0.1).clamp(8.0, 12.0)),
+                    escape(&pm(e.score_tvd_per_layer))
+                );
             }
         }
         s.push_str("</g>\n");
@@ -696,7 +793,7 @@ pub fn layout(r: &AuditReport, doc: Doc) -> String {
     ));
     ly += 15.0;
     s.push_str(&text(lx, ly, 11.0, "start", "", "x1e-3 TVD per layer (width and colour)"));
-    ly += 10.0;
+    ly += if score_scale.threshold_at().is_some() { 24.0 } else { 10.0 };
     let (lw0, lw1) = (3.0, 14.0);
     let _ = writeln!(
         s,
@@ -708,9 +805,8 @@ pub fn layout(r: &AuditReport, doc: Doc) -> String {
         c = px(ly + lw1),
         d = px(ly + lw1 / 2.0 + lw0 / 2.0)
     );
-    let (tv, step) = ticks(top_pm);
-    for v in tv {
-        let x = lx + bar_w * v / top_pm;
+    for v in score_scale.ticks() {
+        let x = lx + bar_w * score_scale.at_per_mille(v);
         let _ = writeln!(
             s,
             "<line x1=\"{}\" y1=\"{}\" x2=\"{}\" y2=\"{}\" stroke=\"#333333\" stroke-width=\"0.8\"/>",
@@ -719,16 +815,30 @@ pub fn layout(r: &AuditReport, doc: Doc) -> String {
             px(x),
             px(ly + lw1 + 4.0)
         );
-        s.push_str(&text(
-            x,
-            ly + lw1 + 16.0,
-            11.0,
-            "middle",
-            " class=\"tick\"",
-            &tick_label(v, step),
-        ));
+        s.push_str(&text(x, ly + lw1 + 16.0, 11.0, "middle", " class=\"tick\"", &log_label(v)));
     }
-    ly += lw1 + 38.0;
+    if let Some(t) = score_scale.threshold_at() {
+        let x = lx + bar_w * t;
+        let _ = writeln!(
+            s,
+            "<g class=\"threshold\"><line x1=\"{}\" y1=\"{}\" x2=\"{}\" y2=\"{}\" stroke=\"#c0392b\" stroke-width=\"2\"/>{}</g>",
+            px(x),
+            px(ly - 4.0),
+            px(x),
+            px(ly + lw1 + 2.0),
+            text(x, ly - 7.0, 10.0, "middle", "", &format!("action threshold {}", pm(score_scale.threshold_per_mille / 1e3)))
+        );
+    }
+    ly += lw1 + 30.0;
+    s.push_str(&text(
+        lx,
+        ly,
+        10.0,
+        "start",
+        "",
+        "logarithmic; flagged pairs are labelled with their score",
+    ));
+    ly += 18.0;
     let _ = writeln!(
         s,
         "<line x1=\"{}\" y1=\"{}\" x2=\"{}\" y2=\"{}\" stroke=\"#a0a0a0\" stroke-width=\"1.5\" stroke-dasharray=\"4.5 3.5\"/>",

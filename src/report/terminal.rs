@@ -1,19 +1,33 @@
 //! The terminal report: a summary in words, the ranked edges, the adjacency table and the
-//! intrinsic-slack table. Scores are shown in units of 1e-3 TVD per layer; files keep full
-//! precision. Colour is a caller's decision (only on a terminal, never with NO_COLOR).
+//! intrinsic-slack table. Values are shown in units of 1e-3 TVD per layer; files keep full
+//! precision and every column.
+//!
+//! Tables fit a given width: columns are dropped by priority (the least needed first) until
+//! the table fits, and prose is wrapped. Colour is the caller's decision ([`Style`]): on a
+//! terminal, never with `NO_COLOR` or into a pipe. The same [`Style`], column fitting and
+//! number format serve `compare`, `hints` and `plan`.
 
 use std::collections::HashMap;
 use std::fmt::Write;
 
 use comfy_table::{presets, Attribute, Cell, CellAlignment, Color, ContentArrangement, Table};
 
-use super::{AuditReport, EdgeReport, Verdict};
+use super::{AuditReport, Confidence, EdgeReport, ReasonCode, Verdict};
 
-/// How the terminal report is drawn.
+/// How terminal text is drawn.
+#[derive(Clone, Copy, Debug, Default, PartialEq, Eq)]
+pub struct Style {
+    /// Use colour and bold (ANSI escapes).
+    pub color: bool,
+    /// The width to fit, in columns; None for no limit (every column shown).
+    pub width: Option<usize>,
+}
+
+/// How the audit's terminal report is drawn.
 #[derive(Clone, Copy, Debug)]
 pub struct TerminalOptions {
-    /// Use colour and bold.
-    pub color: bool,
+    /// Colour and width.
+    pub style: Style,
     /// Largest layout (in qubits) whose full adjacency table is printed.
     pub full_adjacency_up_to: usize,
     /// Most edges listed in the ranked table (the rest are in edges.csv).
@@ -22,13 +36,17 @@ pub struct TerminalOptions {
 
 impl Default for TerminalOptions {
     fn default() -> Self {
-        TerminalOptions { color: false, full_adjacency_up_to: 24, max_edges: 20 }
+        TerminalOptions { style: Style::default(), full_adjacency_up_to: 24, max_edges: 20 }
     }
 }
 
-/// Per-mille string of a TVD-per-layer value.
+/// Per-mille string of a TVD-per-layer value: the display unit, 1e-3 TVD per layer.
 pub fn per_mille(v: f64) -> String {
-    if v == 0.0 {
+    if v.is_nan() {
+        "not-identified".into()
+    } else if v == f64::INFINITY {
+        "unbounded".into()
+    } else if v == 0.0 {
         "0".into()
     } else if v * 1e3 >= 10.0 {
         format!("{:.1}", v * 1e3)
@@ -37,32 +55,220 @@ pub fn per_mille(v: f64) -> String {
     }
 }
 
-fn verdict_cell(v: Verdict, color: bool) -> Cell {
-    let c = Cell::new(v.word());
-    if !color {
-        return c;
-    }
+/// The colour of a verdict on a terminal (none for `clean`).
+pub fn verdict_colour(v: Verdict) -> Option<(Color, bool)> {
     match v {
-        Verdict::Recalibrate => c.fg(Color::Red).add_attribute(Attribute::Bold),
-        Verdict::Watch => c.fg(Color::Yellow),
-        Verdict::Confounded => c.fg(Color::Magenta),
-        Verdict::Clean => c,
+        Verdict::Recalibrate => Some((Color::Red, true)),
+        Verdict::Watch => Some((Color::Yellow, false)),
+        Verdict::Confounded => Some((Color::Magenta, false)),
+        Verdict::Clean => None,
     }
 }
 
-fn table(color: bool) -> Table {
+/// A cell with a verdict's word, coloured when the style says so.
+pub fn verdict_cell(v: Verdict, style: Style) -> TextCell {
+    TextCell {
+        text: v.word().into(),
+        right: false,
+        colour: verdict_colour(v).filter(|_| style.color),
+    }
+}
+
+/// Bold text when the style has colour.
+pub fn bold(s: &str, style: Style) -> String {
+    if style.color {
+        format!("\x1b[1m{s}\x1b[0m")
+    } else {
+        s.to_string()
+    }
+}
+
+/// One cell of a [`Column`].
+#[derive(Clone, Debug, Default)]
+pub struct TextCell {
+    /// The text (may hold line breaks).
+    pub text: String,
+    /// Right-aligned (numbers).
+    pub right: bool,
+    /// Foreground colour and bold, when drawn in colour.
+    pub colour: Option<(Color, bool)>,
+}
+
+/// A left-aligned cell.
+pub fn text(s: impl Into<String>) -> TextCell {
+    TextCell { text: s.into(), ..Default::default() }
+}
+
+/// A right-aligned cell.
+pub fn number(s: impl Into<String>) -> TextCell {
+    TextCell { text: s.into(), right: true, colour: None }
+}
+
+/// A table column: heading, cells, and its priority (0 = always shown; larger numbers are
+/// dropped first when the table is too wide).
+#[derive(Clone, Debug)]
+pub struct Column {
+    /// Heading (may hold a line break).
+    pub head: String,
+    /// One cell per row.
+    pub cells: Vec<TextCell>,
+    /// Drop order: the highest priority number goes first.
+    pub priority: u8,
+}
+
+impl Column {
+    /// A column of `priority` with heading `head`.
+    pub fn new(head: &str, priority: u8) -> Column {
+        Column { head: head.to_string(), cells: Vec::new(), priority }
+    }
+
+    fn width(&self) -> usize {
+        self.cells
+            .iter()
+            .map(|c| c.text.as_str())
+            .chain(std::iter::once(self.head.as_str()))
+            .flat_map(|t| t.lines())
+            .map(|l| l.chars().count())
+            .max()
+            .unwrap_or(0)
+    }
+}
+
+/// Width of a table with columns of these content widths (box drawing, one space padding).
+fn table_width(widths: &[usize]) -> usize {
+    widths.iter().sum::<usize>() + 3 * widths.len() + 1
+}
+
+/// Drops columns by priority until the table fits `style.width`; returns the kept columns
+/// and the headings of the dropped ones, in display order.
+pub fn fit_columns(cols: Vec<Column>, style: Style) -> (Vec<Column>, Vec<String>) {
+    let mut cols: Vec<(usize, Column)> = cols.into_iter().enumerate().collect();
+    let mut dropped: Vec<(usize, String)> = Vec::new();
+    if let Some(w) = style.width {
+        loop {
+            let widths: Vec<usize> = cols.iter().map(|(_, c)| c.width()).collect();
+            if table_width(&widths) <= w {
+                break;
+            }
+            let Some((i, _)) = cols
+                .iter()
+                .enumerate()
+                .filter(|(_, (_, c))| c.priority > 0)
+                .max_by_key(|(i, (_, c))| (c.priority, *i))
+            else {
+                break;
+            };
+            let (at, c) = cols.remove(i);
+            dropped.push((at, c.head.replace("-\n", "-").replace('\n', " ")));
+        }
+    }
+    dropped.sort();
+    (cols.into_iter().map(|(_, c)| c).collect(), dropped.into_iter().map(|(_, h)| h).collect())
+}
+
+/// `prefix` then `text` wrapped to `width`, continuation lines indented to the text.
+pub fn hanging(prefix: &str, text: &str, width: Option<usize>) -> String {
+    let indent = " ".repeat(prefix.chars().count());
+    let body = wrap(text, width.map(|w| w.saturating_sub(indent.len()).max(20)), "");
+    let mut out = String::new();
+    for (i, line) in body.lines().enumerate() {
+        out.push_str(if i == 0 { prefix } else { &indent });
+        out.push_str(line);
+        out.push('\n');
+    }
+    out
+}
+
+/// The table of fitted columns (all rows as long as the first column), drawn with box
+/// characters; wider than the width only when even the priority-0 columns do not fit, and
+/// then wrapped by the table itself.
+pub fn draw(cols: &[Column], style: Style) -> Table {
     let mut t = Table::new();
-    t.load_style(presets::UTF8_FULL_CONDENSED).set_content_arrangement(ContentArrangement::Dynamic);
-    if color {
+    t.load_style(presets::UTF8_FULL_CONDENSED);
+    match style.width {
+        Some(w) => {
+            t.set_content_arrangement(ContentArrangement::Dynamic);
+            t.set_width(w.min(u16::MAX as usize) as u16);
+        }
+        None => {
+            t.set_content_arrangement(ContentArrangement::Disabled);
+        }
+    }
+    if style.color {
         t.enforce_styling();
     } else {
         t.force_no_tty();
     }
+    t.set_header(cols.iter().map(|c| Cell::new(&c.head)).collect::<Vec<_>>());
+    let rows = cols.first().map_or(0, |c| c.cells.len());
+    for i in 0..rows {
+        t.add_row(
+            cols.iter()
+                .map(|c| {
+                    let x = c.cells.get(i).cloned().unwrap_or_default();
+                    let mut cell = Cell::new(x.text);
+                    if x.right {
+                        cell = cell.set_alignment(CellAlignment::Right);
+                    }
+                    if let Some((colour, strong)) = x.colour.filter(|_| style.color) {
+                        cell = cell.fg(colour);
+                        if strong {
+                            cell = cell.add_attribute(Attribute::Bold);
+                        }
+                    }
+                    cell
+                })
+                .collect::<Vec<_>>(),
+        );
+    }
     t
 }
 
-fn right(s: String) -> Cell {
-    Cell::new(s).set_alignment(CellAlignment::Right)
+/// Fits and draws; appends a line naming the dropped columns and where they are.
+pub fn fitted_table(cols: Vec<Column>, style: Style, files: &str, out: &mut String) {
+    let (cols, dropped) = fit_columns(cols, style);
+    let _ = writeln!(out, "{}", draw(&cols, style));
+    if !dropped.is_empty() {
+        let line = format!(
+            "Not shown at this width ({} columns): {}; {files} has every column.",
+            style.width.unwrap_or(0),
+            dropped.join(", ")
+        );
+        out.push_str(&wrap(&line, style.width, ""));
+    }
+}
+
+/// Wraps prose at word boundaries to `width` (no limit: unchanged), continuation lines
+/// indented by `indent`; ends with a line break.
+pub fn wrap(text: &str, width: Option<usize>, indent: &str) -> String {
+    let mut out = String::new();
+    for para in text.split('\n') {
+        let Some(w) = width else {
+            out.push_str(para);
+            out.push('\n');
+            continue;
+        };
+        let lead: String = para.chars().take_while(|c| *c == ' ').collect();
+        let mut line = lead.clone();
+        let mut empty = true;
+        for word in para.split_whitespace() {
+            let len = line.chars().count();
+            if !empty && len + 1 + word.chars().count() > w {
+                out.push_str(&line);
+                out.push('\n');
+                line = format!("{lead}{indent}");
+                empty = true;
+            }
+            if !empty {
+                line.push(' ');
+            }
+            line.push_str(word);
+            empty = false;
+        }
+        out.push_str(&line);
+        out.push('\n');
+    }
+    out
 }
 
 /// The summary in words: what was found, how sure, what to do.
@@ -94,11 +300,34 @@ pub fn summary_words(r: &AuditReport) -> String {
     if !worst.is_empty() {
         let names: Vec<String> = worst
             .iter()
-            .map(|e| format!("{}-{} ({} x1e-3)", e.a, e.b, per_mille(e.score_tvd_per_layer)))
+            .map(|e| {
+                format!(
+                    "{}-{} (estimate {} x1e-3)",
+                    e.a,
+                    e.b,
+                    estimate_text(e.estimate_tvd_per_layer, e.confidence.as_ref())
+                )
+            })
             .collect();
         let _ = write!(s, " Recalibrate first: {}.", names.join(", "));
     }
     s
+}
+
+/// What the three numbers of an edge mean, in words (terminal and HTML say the same).
+pub fn quantity_words(r: &AuditReport) -> String {
+    let interval = r
+        .edges
+        .iter()
+        .find_map(|e| e.confidence.as_ref())
+        .map_or("no interval: no bootstrap replicates were run".to_string(), |c| {
+            format!("[interval]: its {:.0}% {} bootstrap interval", c.level * 100.0, c.method)
+        });
+    format!(
+        "score: the least slack these data demand at this shot count (built for detection; it \
+         grows with shots). estimate: the size at unlimited shots, {interval}; the interval is \
+         what a verdict rests on, and compare estimates, not scores, across audits."
+    )
 }
 
 /// The fit quality in words.
@@ -127,131 +356,172 @@ pub fn fit_words(r: &AuditReport) -> String {
     )
 }
 
-/// Renders the whole terminal report.
-pub fn render(r: &AuditReport, opt: &TerminalOptions) -> String {
-    let mut out = String::new();
-    let bold = |s: &str| if opt.color { format!("\x1b[1m{s}\x1b[0m") } else { s.to_string() };
-    let _ = writeln!(
-        out,
-        "{}",
-        bold(&format!(
-            "slackmap audit of layout {} ({} qubits, {} neighbour pairs)",
-            r.layout.name,
-            r.layout.qubits.len(),
-            r.layout.neighbour_pairs
-        ))
-    );
-    let _ = writeln!(
-        out,
-        "{} circuits, {} rows ({} reference), shots per circuit {}/{}/{} (min/median/max)",
-        r.data.circuits,
-        r.data.rows,
-        r.data.reference_rows,
-        r.data.shots_min,
-        r.data.shots_median,
-        r.data.shots_max
-    );
-    let _ = writeln!(out, "{}", fit_words(r));
-    let _ = writeln!(out, "\n{}\n", summary_words(r));
+/// True when an estimate lies outside its own interval (the replicates ran above it).
+pub fn outside_interval(estimate: f64, c: Option<&Confidence>) -> bool {
+    c.is_some_and(|c| estimate < c.low_tvd_per_layer || estimate > c.high_tvd_per_layer)
+}
 
-    let mut t = table(opt.color);
-    t.set_header(vec![
-        "rank",
-        "edge",
-        "a<-b x1e-3",
-        "b<-a x1e-3",
-        "rows",
-        "estimate [interval] x1e-3",
-        "attribution x1e-3",
-        "limit x1e-3",
-        "p",
-        "verdict",
-    ]);
-    let mut shown = 0;
-    for e in r.edges.iter().filter(|e| e.rank.is_some()).take(opt.max_edges) {
-        shown += 1;
-        t.add_row(vec![
-            right(e.rank.map(|k| k.to_string()).unwrap_or_default()),
-            Cell::new(format!("{}-{}", e.a, e.b)),
-            right(per_mille(e.a_from_b_tvd_per_layer)),
-            right(per_mille(e.b_from_a_tvd_per_layer)),
-            right(e.supporting_rows.to_string()),
-            right(estimate_text(e.estimate_tvd_per_layer, e.confidence.as_ref())),
-            right(format!(
+/// The estimate in 1e-3 units, with `[low..high]` when replicates were run and `*` when it
+/// lies outside that interval.
+pub fn estimate_text(estimate: f64, c: Option<&Confidence>) -> String {
+    let star = if outside_interval(estimate, c) { "*" } else { "" };
+    match c {
+        Some(c) => format!(
+            "{}{star} [{}..{}]",
+            per_mille(estimate),
+            per_mille(c.low_tvd_per_layer),
+            per_mille(c.high_tvd_per_layer)
+        ),
+        None => per_mille(estimate),
+    }
+}
+
+/// The edge table's columns for these edges, in display order, with priorities.
+fn edge_columns(edges: &[&EdgeReport], style: Style) -> Vec<Column> {
+    let level = edges
+        .iter()
+        .find_map(|e| e.confidence.as_ref())
+        .map_or(String::new(), |c| format!("{:.0}% ", c.level * 100.0));
+    let mut cols = vec![
+        Column::new("rank", 4),
+        Column::new("edge", 0),
+        Column::new("score", 0),
+        Column::new("a<-b", 6),
+        Column::new("b<-a", 6),
+        Column::new(&format!("estimate\n[{level}interval]"), 0),
+        Column::new("p", 3),
+        Column::new("limit", 5),
+        Column::new("sensitivity", 8),
+        Column::new("rows", 7),
+        Column::new("attribution", 9),
+        Column::new("leave-\none-out", 10),
+        Column::new("verdict", 0),
+        Column::new("why", 0),
+    ];
+    for e in edges {
+        let cells = [
+            number(e.rank.map(|k| k.to_string()).unwrap_or_default()),
+            text(format!("{}-{}", e.a, e.b)),
+            number(per_mille(e.score_tvd_per_layer)),
+            number(per_mille(e.a_from_b_tvd_per_layer)),
+            number(per_mille(e.b_from_a_tvd_per_layer)),
+            number(estimate_text(e.estimate_tvd_per_layer, e.confidence.as_ref())),
+            number(format!("{:.3}", e.p_value)),
+            number(per_mille(e.detection_limit_tvd_per_layer)),
+            number(per_mille(e.sensitivity_tvd_per_layer)),
+            number(e.supporting_rows.to_string()),
+            number(format!(
                 "{}..{}",
                 per_mille(e.attribution_min_tvd_per_layer),
                 per_mille(e.attribution_max_tvd_per_layer)
             )),
-            right(per_mille(e.detection_limit_tvd_per_layer)),
-            right(format!("{:.3}", e.p_value)),
-            verdict_cell(e.verdict, opt.color),
-        ]);
+            number(per_mille(e.leave_one_out_tvd_per_layer)),
+            verdict_cell(e.verdict, style),
+            text(e.reason_code.code()),
+        ];
+        for (c, cell) in cols.iter_mut().zip(cells) {
+            c.cells.push(cell);
+        }
     }
+    cols
+}
+
+/// Renders the whole terminal report.
+pub fn render(r: &AuditReport, opt: &TerminalOptions) -> String {
+    let style = opt.style;
+    let mut out = String::new();
+    let title = format!(
+        "slackmap audit of layout {} ({} qubits, {} neighbour pairs){}",
+        r.layout.name,
+        r.layout.qubits.len(),
+        r.layout.neighbour_pairs,
+        r.label.as_ref().map_or(String::new(), |l| format!(": {l}"))
+    );
+    let _ = writeln!(out, "{}", bold(&title, style));
+    let prose = |out: &mut String, s: &str| out.push_str(&wrap(s, style.width, ""));
+    prose(
+        &mut out,
+        &format!(
+            "{} circuits, {} rows ({} reference), shots per circuit {}/{}/{} (min/median/max){}",
+            r.data.circuits,
+            r.data.rows,
+            r.data.reference_rows,
+            r.data.shots_min,
+            r.data.shots_median,
+            r.data.shots_max,
+            r.created.as_ref().map_or(String::new(), |c| format!("; written {c}"))
+        ),
+    );
+    prose(&mut out, &fit_words(r));
+    out.push('\n');
+    prose(&mut out, &summary_words(r));
+    out.push('\n');
+
+    let shown: Vec<&EdgeReport> =
+        r.edges.iter().filter(|e| e.rank.is_some()).take(opt.max_edges).collect();
     let ranked = r.edges.iter().filter(|e| e.rank.is_some()).count();
     let none = r.edges.len() - ranked;
-    let _ = writeln!(out, "{}", bold("Edges with context slack (worst first)"));
-    if shown > 0 {
-        let _ = writeln!(out, "{t}");
+    let _ = writeln!(
+        out,
+        "{}",
+        bold("Edges with context slack, worst first (x1e-3 TVD per layer)", style)
+    );
+    if !shown.is_empty() {
+        fitted_table(edge_columns(&shown, style), style, "edges.csv", &mut out);
+        let mut codes: Vec<ReasonCode> = Vec::new();
+        for e in &shown {
+            if !codes.contains(&e.reason_code) {
+                codes.push(e.reason_code);
+            }
+        }
+        codes.sort_by_key(|c| ReasonCode::ALL.iter().position(|x| x == c));
+        let _ = writeln!(out, "why:");
+        let pad = codes.iter().map(|c| c.code().len()).max().unwrap_or(0);
+        for c in codes {
+            out.push_str(&hanging(&format!("  {:pad$}  ", c.code()), c.legend(), style.width));
+        }
+        if shown.iter().any(|e| outside_interval(e.estimate_tvd_per_layer, e.confidence.as_ref())) {
+            prose(
+                &mut out,
+                "* the estimate lies outside its interval: its replicates ran above it (a maximum over noisy rows is biased up, and the basic interval corrects that); act on the interval.",
+            );
+        }
     }
-    if ranked > shown {
-        let _ = writeln!(out, "... {} more ranked edges in edges.csv", ranked - shown);
+    if ranked > shown.len() {
+        let _ = writeln!(out, "... {} more ranked edges in edges.csv", ranked - shown.len());
     }
     let _ = writeln!(out, "{none} edges: none found (score exactly zero, not ranked).");
     if let Some((median, worst)) = sensitivity_spread(r.edges.iter().filter(|e| e.rank.is_none())) {
-        let _ = writeln!(
-            out,
-            "  None found is not zero: their rows would show crosstalk from about {median} (median edge) to {worst} (least sensitive edge) x1e-3 per layer (first-order sensitivity, depolarizing-like error)."
+        prose(
+            &mut out,
+            &format!("  None found is not zero: their rows would show crosstalk from about {median} (median edge) to {worst} (least sensitive edge) x1e-3 per layer (first-order sensitivity, depolarizing-like error)."),
         );
     }
-    let _ = writeln!(
-        out,
-        "The score is the least slack the data demand (a lower bound, for detection); the estimate is its size at unlimited shots (bias-corrected where replicates were run), and the interval ({}) is around it.",
-        r.edges.iter().find_map(|e| e.confidence.as_ref()).map_or("none: no replicates", |c| c.method.as_str())
-    );
+    prose(&mut out, &quantity_words(r));
     for e in r.edges.iter().filter(|e| e.verdict == Verdict::Confounded) {
-        let _ = writeln!(
-            out,
-            "  {}-{} is confounded with {}: add circuits where they run apart.",
-            e.a,
-            e.b,
-            e.confounded_with.join(", ")
+        prose(
+            &mut out,
+            &format!(
+                "  {}-{} is confounded with {}: add circuits where they run apart.",
+                e.a,
+                e.b,
+                e.confounded_with.join(", ")
+            ),
         );
     }
 
-    render_adjacency(
-        r,
-        opt,
-        &mut out,
-        bold("Directed scores x1e-3 per layer: victims (rows) by aggressors (columns)"),
-    );
-    render_intrinsic(
-        r,
-        opt.color,
-        &mut out,
-        bold("Intrinsic slack (unmodelled error that is not crosstalk), worst kinds"),
-    );
+    render_adjacency(r, opt, &mut out);
+    render_intrinsic(r, style, &mut out);
 
     if !r.warnings.is_empty() {
-        let _ = writeln!(out, "\n{}", bold("Warnings"));
+        let _ = writeln!(out, "\n{}", bold("Warnings", style));
         for w in &r.warnings {
-            let _ = writeln!(out, "- {} (hint: {})", w.message, w.hint);
+            out.push_str(&wrap(&format!("- {} (hint: {})", w.message, w.hint), style.width, "  "));
         }
     }
-    let _ = writeln!(out, "\nCaution: {}", r.caution);
+    out.push('\n');
+    prose(&mut out, &format!("Caution: {}", r.caution));
     out
-}
-
-/// The quoted estimate in 1e-3 units, with "[low..high]" when replicates were run.
-fn estimate_text(estimate: f64, c: Option<&super::Confidence>) -> String {
-    let quoted = per_mille(super::quoted_estimate(estimate, c));
-    match c {
-        Some(c) => format!(
-            "{quoted} [{}..{}]",
-            per_mille(c.low_tvd_per_layer),
-            per_mille(c.high_tvd_per_layer)
-        ),
-        None => quoted,
-    }
 }
 
 /// Median and largest finite sensitivity of some edges, in 1e-3 units; None when no edge
@@ -267,37 +537,33 @@ fn sensitivity_spread<'e>(edges: impl Iterator<Item = &'e EdgeReport>) -> Option
     Some((per_mille(median), per_mille(v[v.len() - 1])))
 }
 
-fn render_adjacency(r: &AuditReport, opt: &TerminalOptions, out: &mut String, title: String) {
+fn render_adjacency(r: &AuditReport, opt: &TerminalOptions, out: &mut String) {
+    let style = opt.style;
     let ids = &r.layout.qubits;
     let score: HashMap<(&str, &str), f64> = r
         .directed
         .iter()
         .map(|d| ((d.victim.as_str(), d.aggressor.as_str()), d.score_tvd_per_layer))
         .collect();
-    let _ = writeln!(out, "\n{title}");
-    let (victims, note): (Vec<&String>, Option<String>) = if ids.len() <= opt.full_adjacency_up_to {
-        (ids.iter().collect(), None)
-    } else {
-        let mut worst: Vec<(&String, f64)> = ids
+    let worst_of = |v: &String| {
+        r.directed
             .iter()
-            .map(|v| {
-                let m = r
-                    .directed
-                    .iter()
-                    .filter(|d| &d.victim == v)
-                    .map(|d| d.score_tvd_per_layer)
-                    .fold(0.0, f64::max);
-                (v, m)
-            })
-            .filter(|(_, m)| *m > 0.0)
-            .collect();
+            .filter(|d| &d.victim == v)
+            .map(|d| d.score_tvd_per_layer)
+            .fold(0.0, f64::max)
+    };
+    let title = "Directed scores x1e-3 per layer, victim <- aggressor";
+    let _ = writeln!(out, "\n{}", bold(title, style));
+    let mut victims: Vec<&String> = ids.iter().collect();
+    let mut note = None;
+    if ids.len() > opt.full_adjacency_up_to {
+        let mut worst: Vec<(&String, f64)> =
+            ids.iter().map(|v| (v, worst_of(v))).filter(|(_, m)| *m > 0.0).collect();
         worst.sort_by(|a, b| b.1.total_cmp(&a.1));
         worst.truncate(10);
-        (
-            worst.into_iter().map(|(v, _)| v).collect(),
-            Some("Worst victims only; the full matrix is in adjacency.csv.".to_string()),
-        )
-    };
+        victims = worst.into_iter().map(|(v, _)| v).collect();
+        note = Some("Worst victims only; the full matrix is in adjacency.csv.");
+    }
     if victims.is_empty() {
         let _ = writeln!(out, "no victim has any context slack.");
         return;
@@ -306,59 +572,148 @@ fn render_adjacency(r: &AuditReport, opt: &TerminalOptions, out: &mut String, ti
         .iter()
         .filter(|a| victims.iter().any(|v| score.contains_key(&(v.as_str(), a.as_str()))))
         .collect();
-    let mut t = table(opt.color);
-    let mut header = vec![Cell::new("victim")];
-    header.extend(aggressors.iter().map(|a| Cell::new(a.as_str())));
-    t.set_header(header);
-    for v in victims {
-        let mut row = vec![Cell::new(v.as_str())];
-        for a in &aggressors {
-            row.push(match score.get(&(v.as_str(), a.as_str())) {
-                Some(&s) if s > 0.0 => right(per_mille(s)),
-                Some(_) => right(".".into()),
-                None => Cell::new(""),
+    let mut cols = vec![Column::new("victim", 0)];
+    cols.extend(aggressors.iter().map(|a| Column::new(a, 0)));
+    for v in &victims {
+        cols[0].cells.push(text(v.as_str()));
+        for (c, a) in cols[1..].iter_mut().zip(&aggressors) {
+            c.cells.push(match score.get(&(v.as_str(), a.as_str())) {
+                Some(&s) if s > 0.0 => number(per_mille(s)),
+                Some(_) => number("."),
+                None => text(""),
             });
         }
-        t.add_row(row);
     }
-    let _ = writeln!(out, "{t}");
-    let _ = writeln!(out, "'.' = neighbours with no context slack; blank = not neighbours.");
+    let widths: Vec<usize> = cols.iter().map(Column::width).collect();
+    if style.width.is_none_or(|w| table_width(&widths) <= w) {
+        let _ = writeln!(out, "victims (rows) by aggressors (columns)\n{}", draw(&cols, style));
+        let _ = writeln!(out, "'.' = neighbours with no context slack; blank = not neighbours.");
+    } else {
+        // Too wide for a matrix: one line per victim with its aggressors that need slack.
+        let mut cols =
+            vec![Column::new("victim", 0), Column::new("aggressors with context slack", 0)];
+        for v in victims.iter().filter(|v| worst_of(v) > 0.0) {
+            let mut parts: Vec<(&str, f64)> = r
+                .directed
+                .iter()
+                .filter(|d| &d.victim == *v && d.score_tvd_per_layer > 0.0)
+                .map(|d| (d.aggressor.as_str(), d.score_tvd_per_layer))
+                .collect();
+            parts.sort_by(|a, b| b.1.total_cmp(&a.1));
+            cols[0].cells.push(text(v.as_str()));
+            cols[1].cells.push(text(
+                parts
+                    .iter()
+                    .map(|(a, s)| format!("<-{a} {}", per_mille(*s)))
+                    .collect::<Vec<_>>()
+                    .join(", "),
+            ));
+        }
+        if cols[0].cells.is_empty() {
+            let _ = writeln!(out, "no victim has any context slack.");
+        } else {
+            let _ = writeln!(out, "{}", draw(&cols, style));
+            out.push_str(&wrap(
+                "Victims with any context slack only (the matrix is wider than the terminal); the full matrix is in adjacency.csv.",
+                style.width,
+                "",
+            ));
+        }
+    }
     if let Some(n) = note {
         let _ = writeln!(out, "{n}");
     }
 }
 
-fn render_intrinsic(r: &AuditReport, color: bool, out: &mut String, title: String) {
+fn render_intrinsic(r: &AuditReport, style: Style, out: &mut String) {
     let mut kinds: Vec<_> = r.intrinsic.iter().collect();
     kinds.sort_by(|a, b| b.slack_tvd_per_occurrence.total_cmp(&a.slack_tvd_per_occurrence));
-    let _ = writeln!(out, "\n{title}");
+    let title = "Intrinsic slack (unmodelled error that is not crosstalk), worst kinds";
+    let _ = writeln!(out, "\n{}", bold(title, style));
     let with_slack = kinds.iter().filter(|k| k.slack_tvd_per_occurrence > 0.0).count();
     if with_slack == 0 {
-        let _ = writeln!(out, "no operation kind needed intrinsic slack: the crosstalk-free model explains the reference circuits.");
+        out.push_str(&wrap("no operation kind needed intrinsic slack: the crosstalk-free model explains the reference circuits.", style.width, ""));
         return;
     }
-    let mut t = table(color);
-    t.set_header(vec![
-        "kind",
-        "occurrences",
-        "slack x1e-3 per op",
-        "estimate [interval] x1e-3",
-        "fitted error x1e-3",
-        "note",
-    ]);
+    let mut cols = vec![
+        Column::new("kind", 0),
+        Column::new("occurrences", 3),
+        Column::new("slack\nper op", 0),
+        Column::new("estimate per op\n[interval]", 0),
+        Column::new("fitted\nerror", 2),
+        Column::new("note", 1),
+    ];
     for k in kinds.iter().filter(|k| k.slack_tvd_per_occurrence > 0.0).take(12) {
-        t.add_row(vec![
-            Cell::new(&k.kind),
-            right(k.occurrences.to_string()),
-            right(per_mille(k.slack_tvd_per_occurrence)),
-            right(estimate_text(k.estimate_tvd_per_occurrence, k.confidence.as_ref())),
-            right(per_mille(k.fitted_error_rate)),
-            Cell::new(if k.fitted_on_all_rows { "no reference rows" } else { "" }),
-        ]);
+        let est = match &k.confidence {
+            Some(c) => format!(
+                "{} [{}..{}]",
+                per_mille(k.estimate_tvd_per_occurrence),
+                per_mille(c.low_tvd_per_occurrence),
+                per_mille(c.high_tvd_per_occurrence)
+            ),
+            None => per_mille(k.estimate_tvd_per_occurrence),
+        };
+        let cells = [
+            text(k.kind.as_str()),
+            number(k.occurrences.to_string()),
+            number(per_mille(k.slack_tvd_per_occurrence)),
+            number(est),
+            number(per_mille(k.fitted_error_rate)),
+            text(if k.fitted_on_all_rows { "no reference rows" } else { "" }),
+        ];
+        for (c, cell) in cols.iter_mut().zip(cells) {
+            c.cells.push(cell);
+        }
     }
-    let _ = writeln!(out, "{t}");
-    let _ = writeln!(
-        out,
-        "{with_slack} kinds need intrinsic slack (drift, leakage or other error the model lacks); all kinds in intrinsic.csv."
-    );
+    if cols[5].cells.iter().all(|c| c.text.is_empty()) {
+        cols.pop();
+    }
+    let _ = writeln!(out, "x1e-3 TVD per operation");
+    fitted_table(cols, style, "intrinsic.csv", out);
+    out.push_str(&wrap(
+        &format!("{with_slack} kinds need intrinsic slack (drift, leakage or other error the model lacks); all kinds in intrinsic.csv."),
+        style.width,
+        "",
+    ));
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn wrap_breaks_at_words_and_keeps_short_lines() {
+        assert_eq!(wrap("a bb ccc", Some(4), "  "), "a bb\n  ccc\n");
+        assert_eq!(wrap("short", Some(80), ""), "short\n");
+        assert_eq!(wrap("no limit at all", None, ""), "no limit at all\n");
+    }
+
+    #[test]
+    fn columns_drop_by_priority_until_the_table_fits() {
+        let col = |h: &str, p: u8, w: usize| Column {
+            head: h.into(),
+            cells: vec![text("x".repeat(w))],
+            priority: p,
+        };
+        let cols = vec![col("a", 0, 10), col("b", 2, 10), col("c", 1, 10), col("d", 0, 10)];
+        // Four columns of 10: 40 + 13 = 53; three: 40; two: 27.
+        let (kept, dropped) = fit_columns(cols.clone(), Style { color: false, width: Some(45) });
+        assert_eq!(kept.iter().map(|c| c.head.as_str()).collect::<Vec<_>>(), ["a", "c", "d"]);
+        assert_eq!(dropped, ["b"]);
+        let (kept, _) = fit_columns(cols.clone(), Style { color: false, width: Some(30) });
+        assert_eq!(kept.len(), 2);
+        let (kept, _) = fit_columns(cols, Style { color: false, width: None });
+        assert_eq!(kept.len(), 4);
+        let drawn = draw(&kept[..2], Style::default()).to_string();
+        let first = drawn.lines().next().unwrap_or("");
+        assert_eq!(first.chars().count(), table_width(&[10, 10]), "{drawn}");
+    }
+
+    #[test]
+    fn per_mille_names_special_values() {
+        assert_eq!(per_mille(f64::INFINITY), "unbounded");
+        assert_eq!(per_mille(f64::NAN), "not-identified");
+        assert_eq!(per_mille(2.59e-3), "2.59");
+        assert_eq!(per_mille(0.0259), "25.9");
+    }
 }

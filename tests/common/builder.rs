@@ -11,7 +11,7 @@ use slackmap::layout::generate::default_gates;
 use slackmap::layout::Layout;
 use slackmap::report::{
     AuditReport, Confidence, DataSummary, DirectedReport, EdgeReport, FitSummary, IntrinsicReport,
-    LayoutSummary, Parameters, Verdict, CAUTION, SCHEMA,
+    LayoutSummary, Parameters, ReasonCode, Verdict, CAUTION, SCHEMA,
 };
 
 /// Runs the binary with arguments.
@@ -132,7 +132,6 @@ impl AuditBuilder {
             high_tvd_per_layer: 2.0 * estimate - q(0.025),
             upper_bound_tvd_per_layer: 2.0 * estimate - q(0.05),
             median_tvd_per_layer: q(0.5),
-            centre_tvd_per_layer: (2.0 * estimate - q(0.5)).max(0.0),
             p_positive: reps.iter().filter(|&&r| r > 0.0).count() as f64 / reps.len() as f64,
             score_replicates_tvd_per_layer: reps.clone(),
             replicates_tvd_per_layer: reps,
@@ -178,6 +177,13 @@ impl AuditBuilder {
                 parametric_limit_tvd_per_layer: None,
                 parametric_p_value: None,
                 verdict,
+                reason_code: match verdict {
+                    Verdict::Recalibrate => ReasonCode::AboveThreshold,
+                    Verdict::Watch => ReasonCode::BelowThreshold,
+                    Verdict::Confounded => ReasonCode::Shared,
+                    Verdict::Clean if s > 0.0 => ReasonCode::InNull,
+                    Verdict::Clean => ReasonCode::NoSlack,
+                },
                 reason: "built for a test".into(),
             });
             for (v, ag, x, salt) in
@@ -202,6 +208,7 @@ impl AuditBuilder {
                     leave_one_out_tvd_per_layer: x,
                     most_influential_circuit: None,
                     per_kind: Vec::new(),
+                    depth_profile: Vec::new(),
                     confidence: self.confidence(x, salt),
                     parametric_limit_tvd_per_layer: None,
                     parametric_p_value: None,
@@ -231,7 +238,8 @@ impl AuditBuilder {
                     fitted_on_all_rows: false,
                     qubits: vec![id(q)],
                     confidence: self
-                        .confidence(slack, 1_000_000 + 2 * q as u64 + u64::from(gate == "id")),
+                        .confidence(slack, 1_000_000 + 2 * q as u64 + u64::from(gate == "id"))
+                        .map(Into::into),
                 });
             }
         }
@@ -251,6 +259,8 @@ impl AuditBuilder {
         AuditReport {
             schema: SCHEMA,
             tool_version: "test".into(),
+            label: None,
+            created: None,
             caution: CAUTION.into(),
             layout: LayoutSummary {
                 name: l.name.clone(),
