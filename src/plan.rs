@@ -20,8 +20,9 @@ use crate::layout::{Layout, QubitIx};
 use crate::report::{AuditReport, Verdict};
 use crate::simulate::{self, ContextTerm, ErrorSpec, Noise, Role, Rotation, SimConfig};
 
-/// Version of the `plan.json` format written by this build.
-pub const SCHEMA: u32 = 2;
+/// Version of the `plan.json` format written by this build (3: an untested sensitivity is the
+/// word "unbounded", no longer null).
+pub const SCHEMA: u32 = 3;
 
 /// Largest depolarizing rate the search injects (beyond it the "error" is a coin flip).
 const MAX_STOCHASTIC: f64 = 0.5;
@@ -188,8 +189,12 @@ pub struct ShotPlan {
     pub shots: u64,
     /// Median over tested edges of the baseline audit's sensitivity, TVD per layer (see
     /// [`crate::report::EdgeReport::sensitivity_tvd_per_layer`]).
+    #[serde(with = "crate::report::special::number")]
+    #[schemars(with = "crate::report::special::Number")]
     pub edge_sensitivity_median_tvd_per_layer: f64,
     /// Largest finite edge sensitivity (the least sensitive edge), TVD per layer.
+    #[serde(with = "crate::report::special::number")]
+    #[schemars(with = "crate::report::special::Number")]
     pub edge_sensitivity_worst_tvd_per_layer: f64,
     /// The least sensitive edge, as `a-b`.
     pub worst_edge: String,
@@ -197,8 +202,12 @@ pub struct ShotPlan {
     pub untested_edges: usize,
     /// Median over edges of the baseline's permutation-null detection limit, TVD per
     /// layer (zero on most edges of a clean chip).
+    #[serde(with = "crate::report::special::number")]
+    #[schemars(with = "crate::report::special::Number")]
     pub edge_limit_median_tvd_per_layer: f64,
     /// Largest edge permutation-null detection limit, TVD per layer.
+    #[serde(with = "crate::report::special::number")]
+    #[schemars(with = "crate::report::special::Number")]
     pub edge_limit_worst_tvd_per_layer: f64,
     /// Every edge's baseline sensitivity and detection limit.
     pub edges: Vec<EdgeLimit>,
@@ -231,6 +240,8 @@ pub struct EdgeLimit {
     pub sensitivity_tvd_per_layer: f64,
     /// Permutation-null detection limit of the edge (of its higher-scoring direction), TVD
     /// per layer.
+    #[serde(with = "crate::report::special::number")]
+    #[schemars(with = "crate::report::special::Number")]
     pub detection_limit_tvd_per_layer: f64,
 }
 
@@ -246,6 +257,8 @@ pub struct DirectedLimit {
     #[schemars(with = "crate::report::special::Number")]
     pub sensitivity_tvd_per_layer: f64,
     /// Permutation-null detection limit, TVD per layer.
+    #[serde(with = "crate::report::special::number")]
+    #[schemars(with = "crate::report::special::Number")]
     pub detection_limit_tvd_per_layer: f64,
 }
 

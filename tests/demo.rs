@@ -161,8 +161,29 @@ fn recalibration_improves_the_strong_edge_only() {
         "--out",
         &out.to_string_lossy(),
     ]);
-    let c: Value =
-        serde_json::from_str(&std::fs::read_to_string(out.join("compare.json")).unwrap()).unwrap();
+    // The files the demo writes match their published schemas and read back column by column.
+    for side in ["before", "after"] {
+        let a = common::assert_file_valid("audit", &tmp.path().join(side).join("audit.json"));
+        common::assert_csv_matches_json(
+            &tmp.path().join(side).join("edges.csv"),
+            a["edges"].as_array().unwrap(),
+            None,
+        );
+        common::assert_csv_matches_json(
+            &tmp.path().join(side).join("intrinsic.csv"),
+            a["intrinsic"].as_array().unwrap(),
+            Some("kind"),
+        );
+    }
+    let hints = tmp.path().join("hints");
+    run(&[
+        "hints",
+        &tmp.path().join("before/audit.json").to_string_lossy(),
+        "--out",
+        &hints.to_string_lossy(),
+    ]);
+    common::assert_file_valid("hints", &hints.join("hints.json"));
+    let c = common::assert_file_valid("compare", &out.join("compare.json"));
     let change = |x: &str, y: &str| {
         c["edges"].as_array().unwrap().iter().find(|e| e["a"] == x && e["b"] == y).unwrap()
             ["difference_tvd_per_layer"]["change"]

@@ -219,7 +219,8 @@ fn command_writes_plan_json_and_rejects_unordered_shots() {
     assert!(text.contains("Smallest context error"), "{text}");
     let json: serde_json::Value =
         serde_json::from_slice(&std::fs::read(out.join("plan.json")).unwrap()).unwrap();
-    assert_eq!(json["schema"], 2);
+    assert_eq!(json["schema"], 3);
+    common::assert_valid("plan", &json);
     assert!(s_has_no_clock(&json), "plan.json holds no wall-clock time");
     let s = &json["shot_counts"][0];
     assert_eq!(s["shots"], 500);

@@ -725,3 +725,33 @@ proptest! {
         prop_assert_eq!(edge_rows(&html::html(&r)), r.edges.len());
     }
 }
+
+/// The terminal report of the 4x4 fixture at 80 and 160 columns: no line wider than the
+/// terminal, the reason codes and their legend shown, and the text as accepted.
+#[test]
+fn terminal_report_fits_80_and_160_columns() {
+    use slackmap::report::terminal::{render, Style, TerminalOptions};
+    let r = report::json::read(&fixture_dir().join("grid-4x4.json")).expect("fixture");
+    for width in [80, 160] {
+        let opt = TerminalOptions {
+            style: Style { color: false, width: Some(width) },
+            ..Default::default()
+        };
+        let text = render(&r, &opt);
+        for line in text.lines() {
+            assert!(line.chars().count() <= width, "{width}: {line}");
+        }
+        assert!(text.contains("why:") && text.contains("above-threshold"), "{text}");
+        assert!(!text.contains('\x1b'));
+        insta::assert_snapshot!(format!("terminal_{width}"), text);
+    }
+    // Without a width every column is shown; with colour the verdicts are coloured.
+    let wide = render(&r, &TerminalOptions::default());
+    assert!(
+        wide.contains("leave-") && wide.contains("attribution") && wide.contains("sensitivity")
+    );
+    let opt =
+        TerminalOptions { style: Style { color: true, width: Some(160) }, ..Default::default() };
+    let coloured = render(&r, &opt);
+    assert!(coloured.contains("\x1b["), "no colour escapes with colour on");
+}

@@ -135,7 +135,8 @@ pub fn merge(
                 name(i)
             )));
         }
-        if p.report != first.report {
+        // Compared as written: a value the data cannot identify (NaN) equals itself there.
+        if serde_json::to_value(&p.report).ok() != serde_json::to_value(&first.report).ok() {
             return Err(Error::Usage(format!(
                 "{} and {}: point estimates differ (other settings, seed or version)",
                 name(0),

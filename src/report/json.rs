@@ -39,8 +39,18 @@ pub fn read(path: &Path) -> Result<AuditReport> {
         schema: u32,
     }
     let version: Version = serde_json::from_str(&text).map_err(bad)?;
+    // The field at fault, as a path (`edges[0].p_value`), beside the line.
+    let at_path = |e: serde_path_to_error::Error<serde_json::Error>| {
+        let field = e.path().to_string();
+        let inner = e.into_inner();
+        let line = (inner.line() > 0).then_some(inner.line());
+        Error::input(path, line, format!("not a slackmap audit file: {field}: {inner}"))
+    };
     let report = match version.schema {
-        super::SCHEMA => serde_json::from_str::<AuditReport>(&text).map_err(bad)?,
+        super::SCHEMA => {
+            let de = &mut serde_json::Deserializer::from_str(&text);
+            serde_path_to_error::deserialize::<_, AuditReport>(de).map_err(at_path)?
+        }
         2 => {
             let mut v: serde_json::Value = serde_json::from_str(&text).map_err(bad)?;
             if let Some(edges) = v.get_mut("edges").and_then(|e| e.as_array_mut()) {
@@ -48,6 +58,25 @@ pub fn read(path: &Path) -> Result<AuditReport> {
                     let words = e.get("reason").and_then(|r| r.as_str()).unwrap_or("");
                     let code = ReasonCode::from_words(words).unwrap_or(ReasonCode::NoSlack);
                     e["reason_code"] = serde_json::Value::from(code.code());
+                }
+            }
+            // Schema 2 wrote numbers without a finite value as null: an unidentified fitted
+            // error rate, an unbounded detection limit.
+            let word = |x: &mut serde_json::Value, field: &str, w: &str| {
+                if x.get(field).is_some_and(|f| f.is_null()) {
+                    x[field] = serde_json::Value::from(w);
+                }
+            };
+            for list in ["edges", "directed"] {
+                if let Some(items) = v.get_mut(list).and_then(|e| e.as_array_mut()) {
+                    for x in items {
+                        word(x, "detection_limit_tvd_per_layer", "unbounded");
+                    }
+                }
+            }
+            if let Some(kinds) = v.get_mut("intrinsic").and_then(|e| e.as_array_mut()) {
+                for k in kinds {
+                    word(k, "fitted_error_rate", "not-identified");
                 }
             }
             // Schema 2 wrote intrinsic intervals under per-layer names.
@@ -63,7 +92,10 @@ pub fn read(path: &Path) -> Result<AuditReport> {
                     }
                 }
             }
-            let mut r: AuditReport = serde_json::from_value(v).map_err(bad)?;
+            let mut r: AuditReport = serde_path_to_error::deserialize(v).map_err(|e| {
+                let field = e.path().to_string();
+                Error::input(path, None, format!("not a slackmap audit file: {field}: {}", e.into_inner()))
+            })?;
             r.schema = super::SCHEMA;
             r
         }

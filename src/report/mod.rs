@@ -266,16 +266,24 @@ pub struct EdgeReport {
     /// True when a and b share a coupler.
     pub coupled: bool,
     /// Edge score: the larger directed score, TVD per layer.
+    #[serde(with = "special::number")]
+    #[schemars(with = "special::Number")]
     pub score_tvd_per_layer: f64,
     /// Directed score X(a <- b), TVD per layer.
+    #[serde(with = "special::number")]
+    #[schemars(with = "special::Number")]
     pub a_from_b_tvd_per_layer: f64,
     /// Directed score X(b <- a), TVD per layer.
+    #[serde(with = "special::number")]
+    #[schemars(with = "special::Number")]
     pub b_from_a_tvd_per_layer: f64,
     /// Rank among edges with a positive score (1 = worst); null for "none found".
     pub rank: Option<usize>,
     /// Unlimited-shot estimate of the edge: the larger directed estimate, TVD per layer
     /// (see [`DirectedReport::estimate_tvd_per_layer`]); the interval in `confidence` is
     /// around it.
+    #[serde(with = "special::number")]
+    #[schemars(with = "special::Number")]
     pub estimate_tvd_per_layer: f64,
     /// Sensitivity: the smaller estimate that each direction's rows could tell from zero,
     /// taken over both directions (the larger of the two), TVD per layer (see
@@ -286,18 +294,28 @@ pub struct EdgeReport {
     pub sensitivity_tvd_per_layer: f64,
     /// Detection limit: the (1 - alpha) quantile of the permutation-null score of the
     /// direction that gives the edge score, TVD per layer.
+    #[serde(with = "special::number")]
+    #[schemars(with = "special::Number")]
     pub detection_limit_tvd_per_layer: f64,
     /// Permutation p-value of that direction.
+    #[serde(with = "special::number")]
+    #[schemars(with = "special::Number")]
     pub p_value: f64,
     /// Attribution range (min, max) of the edge score over near-optimal budgets.
+    #[serde(with = "special::number")]
+    #[schemars(with = "special::Number")]
     pub attribution_min_tvd_per_layer: f64,
     /// See `attribution_min_tvd_per_layer`.
+    #[serde(with = "special::number")]
+    #[schemars(with = "special::Number")]
     pub attribution_max_tvd_per_layer: f64,
     /// Rows whose context slack for this edge is binding.
     pub supporting_rows: usize,
     /// Circuits of those rows.
     pub supporting_circuits: usize,
     /// The score with its single most influential circuit left out, TVD per layer.
+    #[serde(with = "special::number")]
+    #[schemars(with = "special::Number")]
     pub leave_one_out_tvd_per_layer: f64,
     /// The circuit left out for `leave_one_out_tvd_per_layer`, if any.
     pub most_influential_circuit: Option<String>,
@@ -422,27 +440,42 @@ impl ReasonCode {
 #[derive(Clone, Debug, Serialize, Deserialize, PartialEq, JsonSchema)]
 pub struct Confidence {
     /// Two-sided interval level, e.g. 0.95.
+    #[serde(with = "special::number")]
+    #[schemars(with = "special::Number")]
     pub level: f64,
     /// Interval method, e.g. `basic`.
     pub method: String,
     /// Lower end of the interval, TVD per layer (clipped at zero).
+    #[serde(with = "special::number")]
+    #[schemars(with = "special::Number")]
     pub low_tvd_per_layer: f64,
     /// Upper end of the interval, TVD per layer.
+    #[serde(with = "special::number")]
+    #[schemars(with = "special::Number")]
     pub high_tvd_per_layer: f64,
     /// One-sided upper bound at `level`, TVD per layer.
+    #[serde(with = "special::number")]
+    #[schemars(with = "special::Number")]
     pub upper_bound_tvd_per_layer: f64,
     /// Median of the replicate estimates, TVD per layer. The replicates of a maximum over
     /// noisy rows run above the estimate, and the basic interval (2 x estimate - quantiles)
     /// shifts down by as much, so the estimate can sit above its own interval: the interval
     /// is the statement to act on.
+    #[serde(with = "special::number")]
+    #[schemars(with = "special::Number")]
     pub median_tvd_per_layer: f64,
     /// Fraction of replicates whose score (not estimate) is positive.
+    #[serde(with = "special::number")]
+    #[schemars(with = "special::Number")]
     pub p_positive: f64,
     /// Every replicate estimate in replicate order, TVD per layer (for comparing).
+    #[serde(with = "special::numbers")]
+    #[schemars(with = "Vec<special::Number>")]
     pub replicates_tvd_per_layer: Vec<f64>,
     /// Every replicate score in replicate order, TVD per layer (the rank statistics and
     /// `p_positive` rest on these).
-    #[serde(default)]
+    #[serde(default, with = "special::numbers")]
+    #[schemars(with = "Vec<special::Number>")]
     pub score_replicates_tvd_per_layer: Vec<f64>,
 }
 
@@ -451,23 +484,38 @@ pub struct Confidence {
 #[derive(Clone, Debug, Serialize, Deserialize, PartialEq, JsonSchema)]
 pub struct OccurrenceConfidence {
     /// Two-sided interval level, e.g. 0.95.
+    #[serde(with = "special::number")]
+    #[schemars(with = "special::Number")]
     pub level: f64,
     /// Interval method, e.g. `basic`.
     pub method: String,
     /// Lower end of the interval, TVD per occurrence (clipped at zero).
+    #[serde(with = "special::number")]
+    #[schemars(with = "special::Number")]
     pub low_tvd_per_occurrence: f64,
     /// Upper end of the interval, TVD per occurrence.
+    #[serde(with = "special::number")]
+    #[schemars(with = "special::Number")]
     pub high_tvd_per_occurrence: f64,
     /// One-sided upper bound at `level`, TVD per occurrence.
+    #[serde(with = "special::number")]
+    #[schemars(with = "special::Number")]
     pub upper_bound_tvd_per_occurrence: f64,
     /// Median of the replicate estimates, TVD per occurrence.
+    #[serde(with = "special::number")]
+    #[schemars(with = "special::Number")]
     pub median_tvd_per_occurrence: f64,
     /// Fraction of replicates whose slack (not estimate) is positive.
+    #[serde(with = "special::number")]
+    #[schemars(with = "special::Number")]
     pub p_positive: f64,
     /// Every replicate estimate in replicate order, TVD per occurrence.
+    #[serde(with = "special::numbers")]
+    #[schemars(with = "Vec<special::Number>")]
     pub replicates_tvd_per_occurrence: Vec<f64>,
     /// Every replicate's slack in replicate order, TVD per occurrence.
-    #[serde(default)]
+    #[serde(default, with = "special::numbers")]
+    #[schemars(with = "Vec<special::Number>")]
     pub score_replicates_tvd_per_occurrence: Vec<f64>,
 }
 
@@ -510,11 +558,15 @@ pub struct DirectedReport {
     /// Aggressor qubit id.
     pub aggressor: String,
     /// X(q <- r): context slack per layer, averaged over q's kinds by frequency, TVD.
+    #[serde(with = "special::number")]
+    #[schemars(with = "special::Number")]
     pub score_tvd_per_layer: f64,
     /// Unlimited-shot estimate of X(q <- r): the same two stages with every row that needs
     /// slack asked for its whole deviation TVD(p, f) rather than the least radius that
     /// passes its threshold, TVD per layer. The score is built to detect (it allows for shot
     /// noise, so it grows with shots); this estimates the size.
+    #[serde(with = "special::number")]
+    #[schemars(with = "special::Number")]
     pub estimate_tvd_per_layer: f64,
     /// Sensitivity: the least estimate at which some row of this pair would need slack, to
     /// first order: min over the victim's rows with the aggressor active of (detectable
@@ -525,16 +577,28 @@ pub struct DirectedReport {
     #[schemars(with = "special::Number")]
     pub sensitivity_tvd_per_layer: f64,
     /// The part of the score from the victim's driven operations (gates), TVD per layer.
+    #[serde(with = "special::number")]
+    #[schemars(with = "special::Number")]
     pub driven_tvd_per_layer: f64,
     /// The victim's idle context slack, TVD per layer.
+    #[serde(with = "special::number")]
+    #[schemars(with = "special::Number")]
     pub idle_tvd_per_layer: f64,
     /// Minimum of the score over the near-optimal face.
+    #[serde(with = "special::number")]
+    #[schemars(with = "special::Number")]
     pub attribution_min_tvd_per_layer: f64,
     /// Maximum of the score over the near-optimal face.
+    #[serde(with = "special::number")]
+    #[schemars(with = "special::Number")]
     pub attribution_max_tvd_per_layer: f64,
     /// Permutation-null detection limit, TVD per layer.
+    #[serde(with = "special::number")]
+    #[schemars(with = "special::Number")]
     pub detection_limit_tvd_per_layer: f64,
     /// Permutation p-value, (1 + #{null >= estimate}) / (1 + replicates).
+    #[serde(with = "special::number")]
+    #[schemars(with = "special::Number")]
     pub p_value: f64,
     /// Binding rows with positive coefficient on this pair's variables.
     pub supporting_rows: usize,
@@ -543,11 +607,15 @@ pub struct DirectedReport {
     /// The score on reference rows and rows where the aggressor is the victim's only active
     /// neighbour; zero means other aggressors could carry it (`confounded`).
     #[serde(default)]
+    #[serde(with = "special::number")]
+    #[schemars(with = "special::Number")]
     pub isolated_tvd_per_layer: f64,
     /// The supporting circuits that need the most context slack (at most ten), most first.
     #[serde(default)]
     pub top_supporting_circuits: Vec<String>,
     /// Score with the most influential circuit left out.
+    #[serde(with = "special::number")]
+    #[schemars(with = "special::Number")]
     pub leave_one_out_tvd_per_layer: f64,
     /// That circuit.
     pub most_influential_circuit: Option<String>,
@@ -575,6 +643,8 @@ pub struct DirectedReport {
 #[derive(Clone, Debug, Serialize, Deserialize, PartialEq, JsonSchema)]
 pub struct DepthPoint {
     /// Mean timed layers of the rows in the class.
+    #[serde(with = "special::number")]
+    #[schemars(with = "special::Number")]
     pub timed_layers: f64,
     /// True for rows in which the aggressor was active beside the victim, false for the
     /// victim's rows in which it never was.
@@ -583,8 +653,12 @@ pub struct DepthPoint {
     pub rows: usize,
     /// Observed frequency of the victim's likeliest outcome (the bit value the
     /// crosstalk-free model predicts more often in each row), shot-weighted over the rows.
+    #[serde(with = "special::number")]
+    #[schemars(with = "special::Number")]
     pub observed: f64,
     /// The crosstalk-free model's probability of the same outcome, shot-weighted.
+    #[serde(with = "special::number")]
+    #[schemars(with = "special::Number")]
     pub predicted: f64,
 }
 
@@ -594,6 +668,8 @@ pub struct KindValue {
     /// Operation kind label, e.g. `sx@q3`.
     pub kind: String,
     /// The value.
+    #[serde(with = "special::number")]
+    #[schemars(with = "special::Number")]
     pub value: f64,
 }
 
@@ -607,8 +683,12 @@ pub struct IntrinsicReport {
     /// Occurrences in reference rows.
     pub reference_occurrences: u64,
     /// Intrinsic slack omega_k, TVD per occurrence.
+    #[serde(with = "special::number")]
+    #[schemars(with = "special::Number")]
     pub slack_tvd_per_occurrence: f64,
     /// Unlimited-shot estimate of omega_k (deviation requirements), TVD per occurrence.
+    #[serde(with = "special::number")]
+    #[schemars(with = "special::Number")]
     pub estimate_tvd_per_occurrence: f64,
     /// Fitted error rate of the kind's channel (total error probability); `"not-identified"`
     /// when the data could not determine it.
@@ -652,10 +732,16 @@ pub struct ReadoutReport {
     /// Qubit id.
     pub qubit: String,
     /// Fitted P(read 1 | prepared 0).
+    #[serde(with = "special::number")]
+    #[schemars(with = "special::Number")]
     pub p1_given_0: f64,
     /// Fitted P(read 0 | prepared 1).
+    #[serde(with = "special::number")]
+    #[schemars(with = "special::Number")]
     pub p0_given_1: f64,
     /// Readout slack rho_q, TVD per row.
+    #[serde(with = "special::number")]
+    #[schemars(with = "special::Number")]
     pub slack_tvd: f64,
 }
 

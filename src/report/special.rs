@@ -72,9 +72,9 @@ fn write<S: Serializer>(v: f64, s: S) -> Result<S::Ok, S::Error> {
     }
 }
 
-/// Reads a number, a word, or `null` (read as `null_value`).
+/// Reads a number or a word, and `null` as `null_value` when that is given.
 struct NumberVisitor {
-    null_value: f64,
+    null_value: Option<f64>,
 }
 
 impl<'de> Visitor<'de> for NumberVisitor {
@@ -100,15 +100,14 @@ impl<'de> Visitor<'de> for NumberVisitor {
         }
     }
     fn visit_unit<E: de::Error>(self) -> Result<f64, E> {
-        Ok(self.null_value)
+        self.null_value.ok_or_else(|| E::invalid_type(de::Unexpected::Unit, &self))
     }
     fn visit_none<E: de::Error>(self) -> Result<f64, E> {
-        Ok(self.null_value)
+        self.visit_unit()
     }
 }
 
-/// A number that may be `"unbounded"` or `"not-identified"`; `null` (never written) reads
-/// as not identified.
+/// A number that may be `"unbounded"` or `"not-identified"`; `null` is refused.
 pub mod number {
     use super::*;
 
@@ -119,7 +118,7 @@ pub mod number {
 
     /// Reads what [`serialize`] writes.
     pub fn deserialize<'de, D: Deserializer<'de>>(d: D) -> Result<f64, D::Error> {
-        d.deserialize_any(NumberVisitor { null_value: f64::NAN })
+        d.deserialize_any(NumberVisitor { null_value: None })
     }
 }
 
@@ -134,7 +133,39 @@ pub mod unbounded {
 
     /// Reads what [`serialize`] writes, and `null` as +infinity.
     pub fn deserialize<'de, D: Deserializer<'de>>(d: D) -> Result<f64, D::Error> {
-        d.deserialize_any(NumberVisitor { null_value: f64::INFINITY })
+        d.deserialize_any(NumberVisitor { null_value: Some(f64::INFINITY) })
+    }
+}
+
+/// A list of numbers, each as [`number`] writes it.
+pub mod numbers {
+    use super::*;
+    use serde::ser::SerializeSeq;
+
+    /// Writes each value as [`number::serialize`] does.
+    pub fn serialize<S: Serializer>(v: &[f64], s: S) -> Result<S::Ok, S::Error> {
+        struct One(f64);
+        impl Serialize for One {
+            fn serialize<S: Serializer>(&self, s: S) -> Result<S::Ok, S::Error> {
+                write(self.0, s)
+            }
+        }
+        let mut seq = s.serialize_seq(Some(v.len()))?;
+        for &x in v {
+            seq.serialize_element(&One(x))?;
+        }
+        seq.end()
+    }
+
+    /// Reads what [`serialize`] writes.
+    pub fn deserialize<'de, D: Deserializer<'de>>(d: D) -> Result<Vec<f64>, D::Error> {
+        struct One(f64);
+        impl<'de> Deserialize<'de> for One {
+            fn deserialize<D: Deserializer<'de>>(d: D) -> Result<Self, D::Error> {
+                super::number::deserialize(d).map(One)
+            }
+        }
+        Ok(Vec::<One>::deserialize(d)?.into_iter().map(|o| o.0).collect())
     }
 }
 
@@ -150,6 +181,20 @@ mod tests {
         y: f64,
     }
 
+    #[derive(Serialize, Deserialize, Debug)]
+    struct L {
+        #[serde(with = "numbers")]
+        v: Vec<f64>,
+    }
+
+    #[test]
+    fn lists_write_words_too() {
+        let s = serde_json::to_string(&L { v: vec![1.0, f64::INFINITY] }).unwrap();
+        assert_eq!(s, r#"{"v":[1.0,"unbounded"]}"#);
+        let back: L = serde_json::from_str(&s).unwrap();
+        assert_eq!(back.v, vec![1.0, f64::INFINITY]);
+    }
+
     #[test]
     fn words_round_trip_and_null_reads_by_field() {
         for (x, y, text) in [
@@ -162,8 +207,9 @@ mod tests {
             assert!(back.x == x || (x.is_nan() && back.x.is_nan()));
             assert_eq!(back.y, y);
         }
-        let old: T = serde_json::from_str(r#"{"x":null,"y":null}"#).unwrap();
-        assert!(old.x.is_nan() && old.y == f64::INFINITY);
+        let old: T = serde_json::from_str(r#"{"x":1,"y":null}"#).unwrap();
+        assert!(old.y == f64::INFINITY);
+        assert!(serde_json::from_str::<T>(r#"{"x":null,"y":0}"#).is_err());
         let n: T = serde_json::from_str(r#"{"x":3,"y":0}"#).unwrap();
         assert_eq!((n.x, n.y), (3.0, 0.0));
         assert!(serde_json::from_str::<T>(r#"{"x":"inf","y":0}"#).is_err());

@@ -293,7 +293,8 @@ pub fn summary_words(r: &AuditReport) -> String {
         );
     }
     if conf > 0 {
-        let _ = write!(s, " {conf} pairs carry slack that another aggressor could explain instead (confounded): the circuits cannot tell them apart.");
+        let (n, verb) = if conf == 1 { ("pair", "carries") } else { ("pairs", "carry") };
+        let _ = write!(s, " {conf} {n} {verb} slack that another aggressor could explain instead (confounded): the circuits cannot tell them apart.");
     }
     let worst: Vec<&EdgeReport> =
         r.edges.iter().filter(|e| matches!(e.verdict, Verdict::Recalibrate)).take(3).collect();
@@ -437,7 +438,7 @@ pub fn render(r: &AuditReport, opt: &TerminalOptions) -> String {
         r.layout.neighbour_pairs,
         r.label.as_ref().map_or(String::new(), |l| format!(": {l}"))
     );
-    let _ = writeln!(out, "{}", bold(&title, style));
+    let _ = writeln!(out, "{}", bold(wrap(&title, style.width, "  ").trim_end(), style));
     let prose = |out: &mut String, s: &str| out.push_str(&wrap(s, style.width, ""));
     prose(
         &mut out,

@@ -66,3 +66,85 @@ p0_given_1 = 0.02
 mod builder;
 #[allow(unused_imports)]
 pub use builder::*;
+
+/// Asserts that a JSON document is valid under the schema `slackmap schema NAME` publishes
+/// (validated by the `jsonschema` crate, an independent implementation of JSON Schema).
+pub fn assert_valid(name: &str, value: &serde_json::Value) {
+    let doc = slackmap::report::schema::Document::from_name(name)
+        .unwrap_or_else(|| panic!("no schema named {name}"));
+    let schema = doc.schema();
+    let validator = jsonschema::validator_for(&schema)
+        .unwrap_or_else(|e| panic!("the {name} schema is not a valid JSON Schema: {e}"));
+    let errors: Vec<String> = validator
+        .iter_errors(value)
+        .take(5)
+        .map(|e| format!("{} at {}", e, e.instance_path()))
+        .collect();
+    assert!(errors.is_empty(), "{name}.json does not match its schema: {errors:#?}");
+}
+
+/// Reads a JSON file and asserts it is valid under the schema `name`.
+pub fn assert_file_valid(name: &str, path: &std::path::Path) -> serde_json::Value {
+    let text = std::fs::read_to_string(path)
+        .unwrap_or_else(|e| panic!("cannot read {}: {e}", path.display()));
+    let value: serde_json::Value = serde_json::from_str(&text)
+        .unwrap_or_else(|e| panic!("{} is not JSON: {e}", path.display()));
+    assert_valid(name, &value);
+    value
+}
+
+/// Asserts that every column of a CSV file is the JSON field of the same name (nested names
+/// joined by `.`, as `pandas.json_normalize` names them) of `rows`, with the same value:
+/// numbers equal, lists joined by `;`, booleans and words as written, and empty cells for
+/// null, absent fields and the words `unbounded` and `not-identified`. Records are matched to
+/// `rows` by the column `key` when given, else by position. Returns the header.
+pub fn assert_csv_matches_json(
+    path: &std::path::Path,
+    rows: &[serde_json::Value],
+    key: Option<&str>,
+) -> Vec<String> {
+    use serde_json::Value;
+    let mut r = csv::Reader::from_path(path).unwrap_or_else(|e| panic!("{}: {e}", path.display()));
+    let header: Vec<String> = r.headers().unwrap().iter().map(String::from).collect();
+    let records: Vec<csv::StringRecord> = r.records().map(|x| x.unwrap()).collect();
+    assert_eq!(records.len(), rows.len(), "{}: one record per JSON entry", path.display());
+    for (i, rec) in records.iter().enumerate() {
+        let obj = match key {
+            Some(k) => {
+                let col = header.iter().position(|h| h == k).expect("key column");
+                rows.iter().find(|o| o[k].as_str() == Some(&rec[col])).unwrap_or_else(|| {
+                    panic!("{}: no JSON entry {k} = {}", path.display(), &rec[col])
+                })
+            }
+            None => &rows[i],
+        };
+        for (name, cell) in header.iter().zip(rec.iter()) {
+            let mut v = obj;
+            for part in name.split('.') {
+                v = v.get(part).unwrap_or(&Value::Null);
+            }
+            let want = match v {
+                Value::Null => String::new(),
+                Value::String(s) if s == "unbounded" || s == "not-identified" => String::new(),
+                Value::String(s) => s.clone(),
+                Value::Bool(b) => b.to_string(),
+                Value::Number(n) => {
+                    let x = n.as_f64().unwrap();
+                    let got: f64 = cell.parse().unwrap_or_else(|_| {
+                        panic!("{} record {i} column {name}: '{cell}' is not {x}", path.display())
+                    });
+                    assert_eq!(got, x, "{} record {i} column {name}", path.display());
+                    continue;
+                }
+                Value::Array(a) => a
+                    .iter()
+                    .map(|x| x.as_str().map(String::from).unwrap_or_else(|| x.to_string()))
+                    .collect::<Vec<_>>()
+                    .join(";"),
+                Value::Object(_) => panic!("{}: column {name} is not a leaf field", path.display()),
+            };
+            assert_eq!(cell, want, "{} record {i} column {name}", path.display());
+        }
+    }
+    header
+}
