@@ -19,7 +19,7 @@ use serde::{Deserialize, Serialize};
 
 use crate::error::{Error, Result};
 use crate::report::terminal::{
-    self, bold, number, per_mille, text, verdict_colour, Column, Style, TextCell,
+    self, columns, number, per_mille, push_row, text, verdict_colour, Style, TextCell,
 };
 use crate::report::{AuditReport, Confidence, EdgeReport, OccurrenceConfidence, Verdict, CAUTION};
 
@@ -686,16 +686,16 @@ pub fn terminal(r: &CompareReport, max_rows: usize, style: Style) -> String {
             || e.verdict_b.is_some_and(|v| v != Verdict::Clean)
     };
     let shown: Vec<&EdgeChange> = r.edges.iter().filter(interesting).take(max_rows).collect();
-    let mut cols = vec![
-        Column::new("edge", 0),
-        Column::new("estimate A", 0),
-        Column::new("estimate B", 0),
-        Column::new("B-A", 0),
-        Column::new("interval", 1),
-        Column::new("verdict A", 2),
-        Column::new("verdict B", 2),
-        Column::new("change", 0),
-    ];
+    let mut cols = columns(&[
+        ("edge", 0),
+        ("estimate A", 0),
+        ("estimate B", 0),
+        ("B-A", 0),
+        ("interval", 1),
+        ("verdict A", 2),
+        ("verdict B", 2),
+        ("change", 0),
+    ]);
     for e in &shown {
         let d = &e.difference_tvd_per_layer;
         let cells = [
@@ -708,15 +708,13 @@ pub fn terminal(r: &CompareReport, max_rows: usize, style: Style) -> String {
             verdict_text(e.verdict_b, style),
             change_cell(d, e.presence, style),
         ];
-        for (c, cell) in cols.iter_mut().zip(cells) {
-            c.cells.push(cell);
-        }
+        push_row(&mut cols, cells);
     }
-    let _ = writeln!(
-        out,
-        "\n{}",
-        bold("Edges that changed, were flagged, or are in one audit only (unlimited-shot estimates, x1e-3 TVD per layer)", style)
-    );
+    out.push('\n');
+    out.push_str(&terminal::heading(
+        "Edges that changed, were flagged, or are in one audit only (unlimited-shot estimates, x1e-3 TVD per layer)",
+        style,
+    ));
     if !shown.is_empty() {
         terminal::fitted_table(cols, style, "compare.csv", &mut out);
     }
@@ -727,14 +725,8 @@ pub fn terminal(r: &CompareReport, max_rows: usize, style: Style) -> String {
             "{hidden} more edges (clean in both, unchanged or not shown) are in compare.csv."
         );
     }
-    let mut q = vec![
-        Column::new("qubit", 0),
-        Column::new("A", 0),
-        Column::new("B", 0),
-        Column::new("B-A", 0),
-        Column::new("interval", 1),
-        Column::new("change", 0),
-    ];
+    let mut q =
+        columns(&[("qubit", 0), ("A", 0), ("B", 0), ("B-A", 0), ("interval", 1), ("change", 0)]);
     for c in r.qubits.iter().take(max_rows) {
         let d = &c.difference_tvd_per_occurrence;
         let cells = [
@@ -745,15 +737,12 @@ pub fn terminal(r: &CompareReport, max_rows: usize, style: Style) -> String {
             number(interval_text(d)),
             change_cell(d, c.presence, style),
         ];
-        for (col, cell) in q.iter_mut().zip(cells) {
-            col.cells.push(cell);
-        }
+        push_row(&mut q, cells);
     }
     let _ = writeln!(out);
-    out.push_str(&terminal::wrap(
-        &bold("Intrinsic slack per qubit: unlimited-shot estimate, occurrence-weighted over its one-qubit kinds, x1e-3 TVD per occurrence", style),
-        style.width,
-        "",
+    out.push_str(&terminal::heading(
+        "Intrinsic slack per qubit: unlimited-shot estimate, occurrence-weighted over its one-qubit kinds, x1e-3 TVD per occurrence",
+        style,
     ));
     terminal::fitted_table(q, style, "compare.csv", &mut out);
     if r.qubits.len() > max_rows {

@@ -23,7 +23,7 @@ use serde::{Deserialize, Serialize};
 
 use crate::error::{Error, Result};
 use crate::layout::{generate, Layout, Qubit, QubitIx};
-use crate::report::terminal::{self, bold, number, text, Column, Style, TextCell};
+use crate::report::terminal::{self, columns, number, push_row, text, Style, TextCell};
 use crate::report::{AuditReport, Verdict};
 
 /// Version of the `hints.json` format written by this build.
@@ -1002,22 +1002,19 @@ fn figure_cell(f: &Figure, bound_word: &str) -> TextCell {
 
 /// The terminal table of one audit's hints, fitted to the style's width.
 pub fn terminal(h: &HintsReport, style: Style) -> String {
-    let mut cols = vec![
-        Column::new("", 0),
-        Column::new("bare layout", 0),
-        Column::new("with flagged\nconflicts", 0),
-    ];
+    let mut cols = columns(&[("", 0), ("bare layout", 0), ("with flagged\nconflicts", 0)]);
     for (name, get, word) in figure_rows() {
-        for (c, cell) in cols.iter_mut().zip([
-            text(name),
-            figure_cell(get(&h.without_conflicts), word),
-            figure_cell(get(&h.with_conflicts), word),
-        ]) {
-            c.cells.push(cell);
-        }
+        push_row(
+            &mut cols,
+            [
+                text(name),
+                figure_cell(get(&h.without_conflicts), word),
+                figure_cell(get(&h.with_conflicts), word),
+            ],
+        );
     }
-    let mut out = terminal::wrap(
-        &bold(
+    let mut out = terminal::heading(
+        &
             &format!(
                 "Scheduling hints for layout {} from {} ({} flagged directions at level {}, {} conflicts)",
                 h.layout,
@@ -1026,10 +1023,7 @@ pub fn terminal(h: &HintsReport, style: Style) -> String {
                 h.flagged_level,
                 h.conflicts.len()
             ),
-            style,
-        ),
-        style.width,
-        "",
+        style,
     );
     terminal::fitted_table(cols, style, "hints.json", &mut out);
     out
@@ -1048,33 +1042,35 @@ pub struct HintsComparison {
 
 /// The terminal table of two audits' hints, fitted to the style's width.
 pub fn terminal_compare(c: &HintsComparison, style: Style) -> String {
-    let mut cols = vec![
-        Column::new("", 0),
-        Column::new(&format!("A: {}\nbare", c.a.layout), 0),
-        Column::new(&format!("A: {}\nflagged", c.a.layout), 0),
-        Column::new(&format!("B: {}\nbare", c.b.layout), 0),
-        Column::new(&format!("B: {}\nflagged", c.b.layout), 0),
-    ];
+    let mut cols = columns(&[
+        ("", 0),
+        (&format!("A: {}\nbare", c.a.layout), 0),
+        (&format!("A: {}\nflagged", c.a.layout), 0),
+        (&format!("B: {}\nbare", c.b.layout), 0),
+        (&format!("B: {}\nflagged", c.b.layout), 0),
+    ]);
     for (name, get, word) in figure_rows() {
-        for (col, cell) in cols.iter_mut().zip([
-            text(name),
-            figure_cell(get(&c.a.without_conflicts), word),
-            figure_cell(get(&c.a.with_conflicts), word),
-            figure_cell(get(&c.b.without_conflicts), word),
-            figure_cell(get(&c.b.with_conflicts), word),
-        ]) {
-            col.cells.push(cell);
-        }
+        push_row(
+            &mut cols,
+            [
+                text(name),
+                figure_cell(get(&c.a.without_conflicts), word),
+                figure_cell(get(&c.a.with_conflicts), word),
+                figure_cell(get(&c.b.without_conflicts), word),
+                figure_cell(get(&c.b.with_conflicts), word),
+            ],
+        );
     }
-    for (col, cell) in cols.iter_mut().zip([
-        text("flagged directions / conflicts"),
-        text(""),
-        number(format!("{} / {}", c.a.flagged.len(), c.a.conflicts.len())),
-        text(""),
-        number(format!("{} / {}", c.b.flagged.len(), c.b.conflicts.len())),
-    ]) {
-        col.cells.push(cell);
-    }
+    push_row(
+        &mut cols,
+        [
+            text("flagged directions / conflicts"),
+            text(""),
+            number(format!("{} / {}", c.a.flagged.len(), c.a.conflicts.len())),
+            text(""),
+            number(format!("{} / {}", c.b.flagged.len(), c.b.conflicts.len())),
+        ],
+    );
     let mut out = terminal::wrap(
         &format!("A = {}, B = {} (flag level {})", c.a.audit, c.b.audit, c.a.flagged_level),
         style.width,

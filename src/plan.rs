@@ -918,7 +918,7 @@ pub fn plan_json(report: &PlanReport) -> Vec<u8> {
 /// The plan as terminal text: limits and smallest flagged errors per shot count, then the
 /// recommendation; tables fit the style's width.
 pub fn render_terminal(r: &PlanReport, style: crate::report::terminal::Style) -> String {
-    use crate::report::terminal::{self, bold, number, text, wrap, Column};
+    use crate::report::terminal::{self, columns, number, push_row, text, wrap};
     let pm = |x: f64| terminal::per_mille(x);
     let opt = |x: Option<f64>, f: &dyn Fn(f64) -> String| x.map_or("not flagged".into(), f);
     let mut out = wrap(
@@ -941,15 +941,15 @@ pub fn render_terminal(r: &PlanReport, style: crate::report::terminal::Style) ->
         "",
     );
     out.push('\n');
-    let mut cols = vec![
-        Column::new("shots", 0),
-        Column::new("sensitivity\nmedian", 0),
-        Column::new("sensitivity\nworst (edge)", 0),
-        Column::new("null limit\nmedian/worst", 2),
-        Column::new("false\nalarms", 1),
-        Column::new("audits", 3),
-        Column::new("seconds", 3),
-    ];
+    let mut cols = columns(&[
+        ("shots", 0),
+        ("sensitivity\nmedian", 0),
+        ("sensitivity\nworst (edge)", 0),
+        ("null limit\nmedian/worst", 2),
+        ("false\nalarms", 1),
+        ("audits", 3),
+        ("seconds", 3),
+    ]);
     for s in &r.shot_counts {
         let cells = [
             number(s.shots.to_string()),
@@ -964,15 +964,12 @@ pub fn render_terminal(r: &PlanReport, style: crate::report::terminal::Style) ->
             number(s.audits.to_string()),
             number(format!("{:.0}", s.elapsed_seconds)),
         ];
-        for (c, cell) in cols.iter_mut().zip(cells) {
-            c.cells.push(cell);
-        }
+        push_row(&mut cols, cells);
     }
-    out.push_str(&bold(
+    out.push_str(&terminal::heading(
         "Sensitivity of the crosstalk-free baseline per edge, x1e-3 TVD per layer",
         style,
     ));
-    out.push('\n');
     terminal::fitted_table(cols, style, "plan.json", &mut out);
     out.push_str(&wrap(
         "Sensitivity: the least estimate at which some row of the edge would need slack, to \
@@ -983,16 +980,18 @@ pub fn render_terminal(r: &PlanReport, style: crate::report::terminal::Style) ->
         "",
     ));
     out.push('\n');
-    out.push_str(&bold("Smallest context error the audit flags (watch or recalibrate)", style));
-    out.push('\n');
-    let mut cols = vec![
-        Column::new("shots", 0),
-        Column::new("pair (victim<-aggressor)", 0),
-        Column::new("stochastic\nx1e-3", 0),
-        Column::new("coherent\nangle rad", 0),
-        Column::new("infidelity", 2),
-        Column::new("half-diamond\nx1e-3", 1),
-    ];
+    out.push_str(&terminal::heading(
+        "Smallest context error the audit flags (watch or recalibrate)",
+        style,
+    ));
+    let mut cols = columns(&[
+        ("shots", 0),
+        ("pair (victim<-aggressor)", 0),
+        ("stochastic\nx1e-3", 0),
+        ("coherent\nangle rad", 0),
+        ("infidelity", 2),
+        ("half-diamond\nx1e-3", 1),
+    ]);
     for s in &r.shot_counts {
         let pairs: Vec<(String, String)> = {
             let mut v: Vec<(String, String)> = Vec::new();
@@ -1020,9 +1019,7 @@ pub fn render_terminal(r: &PlanReport, style: crate::report::terminal::Style) ->
                 number(opt(co.and_then(|x| x.infidelity), &|v| format!("{v:.1e}"))),
                 number(opt(co.and_then(|x| x.half_diamond), &|v| pm(v))),
             ];
-            for (c, cell) in cols.iter_mut().zip(cells) {
-                c.cells.push(cell);
-            }
+            push_row(&mut cols, cells);
         }
     }
     terminal::fitted_table(cols, style, "plan.json", &mut out);

@@ -9,45 +9,16 @@ use std::path::Path;
 
 use common::slackmap;
 
-/// The base noise with q2 disturbing q1.
-const CONTEXT: &str = r#"[[context]]
-victim = "q1"
-aggressor = "q2"
-role = "both"
-depolarizing = 6.0e-3
-"#;
-
-/// A 4-chain with a small design and simulated counts in `dir`.
+/// A 4-chain with q2 disturbing q1, a small design and simulated counts in `dir`.
 fn scenario(dir: &Path) {
-    let ok = |args: &[&str]| {
-        let out = slackmap().args(args).current_dir(dir).output().unwrap();
-        assert!(out.status.success(), "{args:?}: {}", String::from_utf8_lossy(&out.stderr));
-    };
-    ok(&["layout", "new", "chain", "4", "--out", "layout.toml"]);
-    std::fs::write(dir.join("noise.toml"), format!("{}{CONTEXT}", common::BASE_NOISE)).unwrap();
-    ok(&["design", "--layout", "layout.toml", "--out", "d", "--depths", "1,8", "--sequences", "2"]);
-    ok(&[
-        "simulate",
-        "--layout",
-        "layout.toml",
-        "--circuits",
-        "d/circuits.json",
-        "--noise",
-        "noise.toml",
-        "--shots",
-        "400",
-        "--seed",
-        "3",
-        "--out",
-        "d/counts.csv",
-    ]);
+    common::chain_scenario(dir, 4, &common::noise_with_context("q1", "q2", 6e-3), "1,8", 2, 400);
 }
 
 fn audit(dir: &Path, out: &str, extra: &[&str]) -> std::process::Output {
     let mut args = vec![
         "audit",
         "--layout",
-        "layout.toml",
+        "chip.toml",
         "--circuits",
         "d/circuits.json",
         "--counts",

@@ -10,48 +10,21 @@ use common::{assert_file_valid, slackmap, BASE_NOISE};
 
 /// A 3-qubit chain with a small design and counts in `dir`.
 fn scenario(dir: &Path) {
-    let ok = |args: &[&str]| {
-        let o = slackmap().args(args).current_dir(dir).output().unwrap();
-        assert!(o.status.success(), "{args:?}: {}", String::from_utf8_lossy(&o.stderr));
-    };
-    ok(&["layout", "new", "chain", "3", "--out", "chip.toml"]);
-    std::fs::write(dir.join("noise.toml"), BASE_NOISE).unwrap();
-    ok(&["design", "--layout", "chip.toml", "--depths", "1,8", "--sequences", "1", "--out", "d"]);
-    ok(&[
-        "simulate",
-        "--layout",
-        "chip.toml",
-        "--circuits",
-        "d/circuits.json",
-        "--noise",
-        "noise.toml",
-        "--shots",
-        "200",
-        "--seed",
-        "1",
-        "--out",
-        "d/counts.csv",
-    ]);
+    common::chain_scenario(dir, 3, BASE_NOISE, "1,8", 1, 200);
+}
+
+/// The audit command of the scenario, writing `out`, with `extra` arguments.
+fn audit_cmd(dir: &Path, out: &str, extra: &[&str]) -> assert_cmd::Command {
+    let mut c = slackmap();
+    c.args(["audit", "--layout", "chip.toml", "--circuits", "d/circuits.json", "--counts"])
+        .args(["d/counts.csv", "--replicates", "3", "--null-replicates", "9", "--out", out])
+        .args(extra)
+        .current_dir(dir);
+    c
 }
 
 fn audit(dir: &Path, out: &str, extra: &[&str]) -> std::process::Output {
-    let mut args = vec![
-        "audit",
-        "--layout",
-        "chip.toml",
-        "--circuits",
-        "d/circuits.json",
-        "--counts",
-        "d/counts.csv",
-        "--replicates",
-        "3",
-        "--null-replicates",
-        "9",
-        "--out",
-        out,
-    ];
-    args.extend_from_slice(extra);
-    slackmap().args(&args).current_dir(dir).output().unwrap()
+    audit_cmd(dir, out, extra).output().unwrap()
 }
 
 #[test]
@@ -93,27 +66,8 @@ fn label_and_creation_time_are_recorded_and_shown() {
     let tmp = tempfile::tempdir().unwrap();
     let dir = tmp.path();
     scenario(dir);
-    let o = slackmap()
-        .args([
-            "audit",
-            "--layout",
-            "chip.toml",
-            "--circuits",
-            "d/circuits.json",
-            "--counts",
-            "d/counts.csv",
-            "--replicates",
-            "3",
-            "--null-replicates",
-            "9",
-            "--out",
-            "a",
-            "-q",
-            "--label",
-            "chip 7 <cooldown 3>",
-        ])
+    let o = audit_cmd(dir, "a", &["-q", "--label", "chip 7 <cooldown 3>"])
         .env("SOURCE_DATE_EPOCH", "951782400")
-        .current_dir(dir)
         .output()
         .unwrap();
     assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
@@ -130,13 +84,7 @@ fn label_and_creation_time_are_recorded_and_shown() {
     let v: serde_json::Value =
         serde_json::from_str(&std::fs::read_to_string(dir.join("b/audit.json")).unwrap()).unwrap();
     assert!(v["created"].as_str().is_some_and(|c| c.starts_with("20") && c.ends_with('Z')));
-    let o = slackmap()
-        .args(["audit", "--layout", "chip.toml", "--circuits", "d/circuits.json"])
-        .args(["--counts", "d/counts.csv", "--replicates", "0", "--out", "c", "-q"])
-        .env("SOURCE_DATE_EPOCH", "yesterday")
-        .current_dir(dir)
-        .output()
-        .unwrap();
+    let o = audit_cmd(dir, "c", &["-q"]).env("SOURCE_DATE_EPOCH", "yesterday").output().unwrap();
     assert_eq!(o.status.code(), Some(2));
     assert!(String::from_utf8_lossy(&o.stderr).contains("SOURCE_DATE_EPOCH"));
 }

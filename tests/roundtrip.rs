@@ -12,15 +12,7 @@ use std::path::Path;
 
 use proptest::prelude::*;
 
-use common::{assert_csv_matches_json, assert_file_valid, slackmap, BASE_NOISE};
-
-/// A context error on q1 from q0, so that some designs flag an edge.
-const CONTEXT: &str = r#"[[context]]
-victim = "q1"
-aggressor = "q0"
-role = "both"
-depolarizing = 8.0e-3
-"#;
+use common::{assert_csv_matches_json, assert_file_valid, slackmap};
 
 /// Runs the binary in `dir` with a fixed creation time; asserts success.
 fn ok(dir: &Path, args: &[&str]) -> String {
@@ -75,7 +67,8 @@ fn pipeline(dir: &Path, layout: &[&str], design: &[&str], shots: u32, seed: u64)
     new.extend_from_slice(layout);
     new.extend_from_slice(&["--out", "chip.toml"]);
     ok(dir, &new);
-    std::fs::write(dir.join("noise.toml"), format!("{BASE_NOISE}{CONTEXT}")).unwrap();
+    // A context error on q1 from q0, so that some designs flag an edge.
+    std::fs::write(dir.join("noise.toml"), common::noise_with_context("q1", "q0", 8e-3)).unwrap();
     let seed = seed.to_string();
     let mut d = vec!["design", "--layout", "chip.toml", "--seed", &seed, "--out", "run"];
     d.extend_from_slice(design);

@@ -83,6 +83,11 @@ pub fn bold(s: &str, style: Style) -> String {
     }
 }
 
+/// A heading: wrapped to the width, bold when the style has colour, with a line break.
+pub fn heading(s: &str, style: Style) -> String {
+    format!("{}\n", bold(wrap(s, style.width, "  ").trim_end(), style))
+}
+
 /// One cell of a [`Column`].
 #[derive(Clone, Debug, Default)]
 pub struct TextCell {
@@ -132,6 +137,18 @@ impl Column {
             .max()
             .unwrap_or(0)
     }
+}
+
+/// Appends one row: cell i to column i.
+pub fn push_row<const N: usize>(cols: &mut [Column], cells: [TextCell; N]) {
+    for (c, cell) in cols.iter_mut().zip(cells) {
+        c.cells.push(cell);
+    }
+}
+
+/// Empty columns from (heading, priority) pairs.
+pub fn columns(spec: &[(&str, u8)]) -> Vec<Column> {
+    spec.iter().map(|&(head, priority)| Column::new(head, priority)).collect()
 }
 
 /// Width of a table with columns of these content widths (box drawing, one space padding).
@@ -383,22 +400,23 @@ fn edge_columns(edges: &[&EdgeReport], style: Style) -> Vec<Column> {
         .iter()
         .find_map(|e| e.confidence.as_ref())
         .map_or(String::new(), |c| format!("{:.0}% ", c.level * 100.0));
-    let mut cols = vec![
-        Column::new("rank", 4),
-        Column::new("edge", 0),
-        Column::new("score", 0),
-        Column::new("a<-b", 6),
-        Column::new("b<-a", 6),
-        Column::new(&format!("estimate\n[{level}interval]"), 0),
-        Column::new("p", 3),
-        Column::new("limit", 5),
-        Column::new("sensitivity", 8),
-        Column::new("rows", 7),
-        Column::new("attribution", 9),
-        Column::new("leave-\none-out", 10),
-        Column::new("verdict", 0),
-        Column::new("why", 0),
-    ];
+    let estimate = format!("estimate\n[{level}interval]");
+    let mut cols = columns(&[
+        ("rank", 4),
+        ("edge", 0),
+        ("score", 0),
+        ("a<-b", 6),
+        ("b<-a", 6),
+        (estimate.as_str(), 0),
+        ("p", 3),
+        ("limit", 5),
+        ("sensitivity", 8),
+        ("rows", 7),
+        ("attribution", 9),
+        ("leave-\none-out", 10),
+        ("verdict", 0),
+        ("why", 0),
+    ]);
     for e in edges {
         let cells = [
             number(e.rank.map(|k| k.to_string()).unwrap_or_default()),
@@ -420,9 +438,7 @@ fn edge_columns(edges: &[&EdgeReport], style: Style) -> Vec<Column> {
             verdict_cell(e.verdict, style),
             text(e.reason_code.code()),
         ];
-        for (c, cell) in cols.iter_mut().zip(cells) {
-            c.cells.push(cell);
-        }
+        push_row(&mut cols, cells);
     }
     cols
 }
@@ -438,7 +454,7 @@ pub fn render(r: &AuditReport, opt: &TerminalOptions) -> String {
         r.layout.neighbour_pairs,
         r.label.as_ref().map_or(String::new(), |l| format!(": {l}"))
     );
-    let _ = writeln!(out, "{}", bold(wrap(&title, style.width, "  ").trim_end(), style));
+    out.push_str(&heading(&title, style));
     let prose = |out: &mut String, s: &str| out.push_str(&wrap(s, style.width, ""));
     prose(
         &mut out,
@@ -636,14 +652,14 @@ fn render_intrinsic(r: &AuditReport, style: Style, out: &mut String) {
         out.push_str(&wrap("no operation kind needed intrinsic slack: the crosstalk-free model explains the reference circuits.", style.width, ""));
         return;
     }
-    let mut cols = vec![
-        Column::new("kind", 0),
-        Column::new("occurrences", 3),
-        Column::new("slack\nper op", 0),
-        Column::new("estimate per op\n[interval]", 0),
-        Column::new("fitted\nerror", 2),
-        Column::new("note", 1),
-    ];
+    let mut cols = columns(&[
+        ("kind", 0),
+        ("occurrences", 3),
+        ("slack\nper op", 0),
+        ("estimate per op\n[interval]", 0),
+        ("fitted\nerror", 2),
+        ("note", 1),
+    ]);
     for k in kinds.iter().filter(|k| k.slack_tvd_per_occurrence > 0.0).take(12) {
         let est = match &k.confidence {
             Some(c) => format!(
@@ -662,9 +678,7 @@ fn render_intrinsic(r: &AuditReport, style: Style, out: &mut String) {
             number(per_mille(k.fitted_error_rate)),
             text(if k.fitted_on_all_rows { "no reference rows" } else { "" }),
         ];
-        for (c, cell) in cols.iter_mut().zip(cells) {
-            c.cells.push(cell);
-        }
+        push_row(&mut cols, cells);
     }
     if cols[5].cells.iter().all(|c| c.text.is_empty()) {
         cols.pop();

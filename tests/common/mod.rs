@@ -148,3 +148,56 @@ pub fn assert_csv_matches_json(
     }
     header
 }
+
+/// The base noise with one context term: `victim`'s operations depolarize at `rate` per
+/// layer while `aggressor` is active.
+pub fn noise_with_context(victim: &str, aggressor: &str, rate: f64) -> String {
+    format!(
+        "{BASE_NOISE}[[context]]\nvictim = \"{victim}\"\naggressor = \"{aggressor}\"\nrole = \"both\"\ndepolarizing = {rate:e}\n"
+    )
+}
+
+/// A chain of `qubits` in `dir` (chip.toml), the given noise (noise.toml), a design with
+/// `depths` and `sequences` (d/circuits.json) and `shots` simulated counts (d/counts.csv).
+pub fn chain_scenario(
+    dir: &std::path::Path,
+    qubits: usize,
+    noise: &str,
+    depths: &str,
+    sequences: usize,
+    shots: u64,
+) {
+    let ok = |args: &[&str]| {
+        let out = slackmap().args(args).current_dir(dir).output().unwrap();
+        assert!(out.status.success(), "{args:?}: {}", String::from_utf8_lossy(&out.stderr));
+    };
+    let (n, seqs, shots) = (qubits.to_string(), sequences.to_string(), shots.to_string());
+    ok(&["layout", "new", "chain", &n, "--out", "chip.toml"]);
+    std::fs::write(dir.join("noise.toml"), noise).unwrap();
+    ok(&[
+        "design",
+        "--layout",
+        "chip.toml",
+        "--out",
+        "d",
+        "--depths",
+        depths,
+        "--sequences",
+        &seqs,
+    ]);
+    ok(&[
+        "simulate",
+        "--layout",
+        "chip.toml",
+        "--circuits",
+        "d/circuits.json",
+        "--noise",
+        "noise.toml",
+        "--shots",
+        &shots,
+        "--seed",
+        "3",
+        "--out",
+        "d/counts.csv",
+    ]);
+}
