@@ -1014,8 +1014,7 @@ pub fn terminal(h: &HintsReport, style: Style) -> String {
         );
     }
     let mut out = terminal::heading(
-        &
-            &format!(
+        &format!(
                 "Scheduling hints for layout {} from {} ({} flagged directions at level {}, {} conflicts)",
                 h.layout,
                 h.audit,
