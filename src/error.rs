@@ -31,9 +31,64 @@ impl Location {
 impl fmt::Display for Location {
     fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
         match self.line {
-            Some(l) => write!(f, "{} line {}", self.path.display(), l),
-            None => write!(f, "{}", self.path.display()),
+            Some(l) => write!(f, "{} line {}", echo_path(&self.path), l),
+            None => write!(f, "{}", echo_path(&self.path)),
         }
+    }
+}
+
+/// The longest value, in characters, that a message quotes whole.
+pub const ECHO_CHARS: usize = 80;
+
+/// A value as a message quotes it: control characters escaped (so the message stays on one
+/// line) and anything past [`ECHO_CHARS`] characters cut, with the full length said. Every
+/// message that repeats what the user gave goes through here, so a 10 MB bad value never
+/// comes back whole.
+pub fn echo(value: &str) -> String {
+    let mut out = escaped(value.chars().take(ECHO_CHARS));
+    if value.chars().nth(ECHO_CHARS).is_some() {
+        out.push_str(&format!("... ({} bytes in all)", value.len()));
+    }
+    out
+}
+
+/// A path as a message shows it: as [`echo`], but paths may be long and still valid, so
+/// the cut comes at 1024 characters and keeps the end (the file name).
+pub fn echo_path(path: &Path) -> String {
+    const PATH_CHARS: usize = 1024;
+    let text = path.to_string_lossy();
+    let n = text.chars().count();
+    if n <= PATH_CHARS {
+        escaped(text.chars())
+    } else {
+        let tail = escaped(text.chars().skip(n - PATH_CHARS));
+        format!("...{tail} ({} bytes in all)", text.len())
+    }
+}
+
+/// The characters with control characters escaped.
+fn escaped(chars: impl Iterator<Item = char>) -> String {
+    let mut out = String::new();
+    for c in chars {
+        if c.is_control() {
+            out.extend(c.escape_debug());
+        } else {
+            out.push(c);
+        }
+    }
+    out
+}
+
+/// The operating system's message, in words a user can act on where the usual text
+/// misleads.
+fn io_text(e: &std::io::Error) -> String {
+    // ELOOP is 40 on Linux and 62 on macOS and the BSDs; the usual text ("too many levels")
+    // does not say that a link points back into its own path.
+    let eloop = if cfg!(target_os = "linux") { 40 } else { 62 };
+    if cfg!(unix) && e.raw_os_error() == Some(eloop) {
+        format!("a loop of symbolic links: a link on this path points back into it ({e})")
+    } else {
+        e.to_string()
     }
 }
 
@@ -41,7 +96,7 @@ impl fmt::Display for Location {
 #[derive(Debug, thiserror::Error)]
 pub enum Error {
     /// A file could not be read or written.
-    #[error("{}: {source}", path.display())]
+    #[error("{}: {}", echo_path(path), io_text(source))]
     Io {
         /// The file concerned.
         path: PathBuf,
@@ -130,5 +185,43 @@ impl Warning {
 impl fmt::Display for Warning {
     fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
         write!(f, "{} (hint: {})", self.message, self.hint)
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn echo_keeps_short_values_and_cuts_long_ones() {
+        assert_eq!(echo("q12"), "q12");
+        let long = "x".repeat(10 << 20);
+        let shown = echo(&long);
+        assert!(shown.starts_with(&"x".repeat(ECHO_CHARS)));
+        assert!(shown.ends_with("... (10485760 bytes in all)"), "{shown}");
+        assert!(shown.len() < ECHO_CHARS + 40);
+        // Characters, not bytes: a multi-byte character is never split.
+        let greek = "\u{3c0}".repeat(200);
+        assert!(echo(&greek).starts_with(&"\u{3c0}".repeat(ECHO_CHARS)));
+        // Control characters are escaped so that a message stays on one line.
+        assert_eq!(echo("a\nb\u{7}"), "a\\nb\\u{7}");
+    }
+
+    #[test]
+    fn long_paths_keep_their_end() {
+        let p = PathBuf::from(format!("/{}/counts.csv", "d".repeat(5000)));
+        let shown = echo_path(&p);
+        assert!(shown.ends_with("counts.csv (5012 bytes in all)"), "{shown:.60}");
+        assert!(shown.len() < 1100);
+        assert_eq!(echo_path(Path::new("run1/counts.csv")), "run1/counts.csv");
+    }
+
+    #[test]
+    fn a_symlink_loop_is_named_as_such() {
+        let e = std::io::Error::from_raw_os_error(if cfg!(target_os = "linux") { 40 } else { 62 });
+        let shown = Error::io(Path::new("a"), e).to_string();
+        if cfg!(unix) {
+            assert!(shown.contains("loop of symbolic links"), "{shown}");
+        }
     }
 }

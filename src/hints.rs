@@ -21,6 +21,7 @@ use petgraph::graph::{NodeIndex, UnGraph};
 use schemars::JsonSchema;
 use serde::{Deserialize, Serialize};
 
+use crate::bitset::{bit, clear_bit, count, members, set_bit};
 use crate::error::{Error, Result};
 use crate::layout::{generate, Layout, Qubit, QubitIx};
 use crate::report::terminal::{self, columns, number, push_row, text, Style, TextCell};
@@ -43,35 +44,6 @@ pub struct BitGraph {
     n: usize,
     words: usize,
     rows: Vec<u64>,
-}
-
-fn bit(set: &[u64], v: usize) -> bool {
-    set[v / 64] >> (v % 64) & 1 == 1
-}
-
-fn set_bit(set: &mut [u64], v: usize) {
-    set[v / 64] |= 1 << (v % 64);
-}
-
-fn clear_bit(set: &mut [u64], v: usize) {
-    set[v / 64] &= !(1 << (v % 64));
-}
-
-fn count(set: &[u64]) -> usize {
-    set.iter().map(|w| w.count_ones() as usize).sum()
-}
-
-fn members(set: &[u64]) -> impl Iterator<Item = usize> + '_ {
-    set.iter().enumerate().flat_map(|(i, &w)| {
-        let mut w = w;
-        std::iter::from_fn(move || {
-            (w != 0).then(|| {
-                let b = w.trailing_zeros() as usize;
-                w &= w - 1;
-                i * 64 + b
-            })
-        })
-    })
 }
 
 impl BitGraph {

@@ -8,6 +8,7 @@
 #![warn(missing_docs)]
 
 pub mod audit;
+mod bitset;
 pub mod check;
 pub mod circuit;
 pub mod clifford;
@@ -16,9 +17,11 @@ pub mod confidence;
 pub mod counts;
 pub mod design;
 pub mod error;
+pub mod files;
 pub mod gate;
 pub mod hints;
 pub mod layout;
+pub mod limits;
 pub mod model;
 pub mod plan;
 pub mod report;

@@ -177,8 +177,9 @@ pub fn read_circuits(path: &Path, layout: &Layout, opts: &ReadOptions) -> Result
             CircuitSet::new(vec![c]).map_err(|m| Error::input(path, None, m))
         }
         _ => {
-            if !path.exists() {
-                return Err(Error::io(path, std::io::Error::from(std::io::ErrorKind::NotFound)));
+            // The operating system's own reason (missing, a loop of links, no permission).
+            if let Err(e) = std::fs::metadata(path) {
+                return Err(Error::io(path, e));
             }
             Err(Error::input(
                 path,

@@ -2,18 +2,20 @@
 
 use std::io::Write;
 use std::path::{Path, PathBuf};
-use std::sync::atomic::AtomicBool;
-use std::sync::Arc;
 
 use anyhow::Context;
+use sha2::{Digest, Sha256};
 
 use slackmap::audit::{self, AuditConfig, Cancel};
 use slackmap::confidence::partial::{self, Partial};
 use slackmap::confidence::{self, BootstrapConfig, Resample};
+use slackmap::counts::{read_counts_from, BitOrder, CountsFormat, CountsOptions};
+use slackmap::files::{FolderRule, OutputDir};
+use slackmap::limits::Limits;
 use slackmap::model::Family;
-use slackmap::report::{self, terminal};
+use slackmap::report::{self, terminal, InputFile};
 
-use super::inputs::InputArgs;
+use super::inputs::{InputArgs, Inputs};
 use super::progress::Bar;
 
 /// Error family of the crosstalk-free model.
@@ -53,16 +55,18 @@ pub struct AnalysisArgs {
     /// (0.001, 1e-3) or in the tables' unit of 1e-3 with suffix m (1m = 0.001); at most 0.5.
     #[arg(long, default_value = "1e-3", value_name = "TVD", value_parser = super::units::tvd_per_layer)]
     pub action_threshold: f64,
-    /// Replicates of the context-permutation null per directed pair (0 turns detection off).
+    /// Replicates of the context-permutation null per directed pair (0 turns detection off;
+    /// at most 100,000 unless --no-limits).
     #[arg(long, default_value_t = 200)]
     pub null_replicates: usize,
     /// Seed of every random draw; the same seed gives the same numbers on any thread count.
     #[arg(long, default_value_t = 0)]
     pub seed: u64,
-    /// Worker threads (default: all cores).
+    /// Worker threads (default: all cores; at most 1024 unless --no-limits).
     #[arg(long)]
     pub threads: Option<usize>,
-    /// Bootstrap replicates for intervals, ranks and verdicts (0 turns the bootstrap off).
+    /// Bootstrap replicates for intervals, ranks and verdicts (0 turns the bootstrap off;
+    /// at most 100,000 unless --no-limits).
     #[arg(long, default_value_t = 200)]
     pub replicates: usize,
     /// What a bootstrap replicate resamples: each circuit's shots, or circuits within
@@ -79,7 +83,8 @@ pub struct AnalysisArgs {
     /// for `slackmap merge`, instead of the report.
     #[arg(long, value_name = "A..B", value_parser = parse_range)]
     pub replicate_range: Option<std::ops::Range<usize>>,
-    /// Output folder (written atomically: an existing folder is replaced only when done).
+    /// Output folder (written atomically: an existing folder is replaced only when done;
+    /// other files in it are kept; an existing file is refused).
     #[arg(long, value_name = "DIR")]
     pub out: PathBuf,
     /// A label recorded in audit.json and shown on every output, e.g. "chip 7, cooldown 3".
@@ -144,41 +149,58 @@ pub struct AuditArgs {
 
 /// Arguments of `slackmap demo`.
 #[derive(clap::Args, Debug)]
+#[command(after_help = "\
+Examples:
+  slackmap demo                          # the scenario built into the program
+  slackmap demo --replicates 20 --null-replicates 20 --out quick   # a quicker look
+  slackmap demo --data my-scenario/      # layout.toml, circuits.json, counts.csv
+
+The demo scenario is described in demo-data/README.md of the source. Exit codes: 0
+success, 1 the analysis failed, 2 bad input or usage, 130 interrupted.")]
 pub struct DemoArgs {
-    /// The demo scenario folder (layout.toml, circuits.json, counts.csv).
-    #[arg(long, value_name = "DIR", default_value = concat!(env!("CARGO_MANIFEST_DIR"), "/demo-data"))]
-    data: PathBuf,
+    /// A scenario folder (layout.toml, circuits.json, counts.csv) to audit instead of the
+    /// demo scenario built into the program.
+    #[arg(long, value_name = "DIR")]
+    data: Option<PathBuf>,
     /// Output folder.
     #[arg(long, value_name = "DIR", default_value = "demo-out")]
     out: PathBuf,
+    /// Bootstrap replicates (fewer for a quicker look).
+    #[arg(long, default_value_t = 200, value_name = "N")]
+    replicates: usize,
+    /// Permutation-null replicates per directed pair (fewer for a quicker look).
+    #[arg(long, default_value_t = 200, value_name = "N")]
+    null_replicates: usize,
     /// No progress bars.
     #[arg(long, short)]
     quiet: bool,
 }
 
+/// The demo scenario's files, built into the program so that `slackmap demo` runs from
+/// any folder and wherever the binary is moved.
+const DEMO_LAYOUT: &[u8] = include_bytes!("../../demo-data/layout.toml");
+const DEMO_CIRCUITS: &[u8] = include_bytes!("../../demo-data/circuits.json");
+const DEMO_COUNTS: &[u8] = include_bytes!("../../demo-data/counts.csv");
+
 /// Runs `slackmap audit`.
 pub fn run(args: AuditArgs) -> anyhow::Result<()> {
-    run_audit(&args.inputs, &args.counts, &args.analysis)
+    let out = OutputDir::claim(&args.analysis.out, FolderRule::Update)?;
+    check_analysis(&args.analysis)?;
+    let loaded = args.inputs.load(Some(&args.counts))?;
+    run_audit(loaded, args.inputs.bit_order.label(), &args.analysis, out)
 }
 
-/// Runs `slackmap demo`: the audit on the bundled scenario.
+/// Runs `slackmap demo`: the audit on the built-in scenario (or the one in `--data`).
 pub fn demo(args: DemoArgs) -> anyhow::Result<()> {
-    let d = &args.data;
-    let inputs = InputArgs {
-        layout: d.join("layout.toml"),
-        circuits: d.join("circuits.json"),
-        bit_order: super::inputs::BitOrderArg::AsMeasured,
-        allow_non_native: false,
-        qubit_map: None,
-    };
+    let out = OutputDir::claim(&args.out, FolderRule::Update)?;
     let analysis = AnalysisArgs {
         model: ModelArg::Depolarizing,
         alpha: 0.05,
         action_threshold: 1e-3,
-        null_replicates: 200,
+        null_replicates: args.null_replicates,
         seed: 0,
         threads: None,
-        replicates: 200,
+        replicates: args.replicates,
         resample: ResampleArg::Shots,
         level: 0.95,
         top_k: 5,
@@ -188,12 +210,71 @@ pub fn demo(args: DemoArgs) -> anyhow::Result<()> {
         quiet: args.quiet,
         timings: false,
     };
-    eprintln!("slackmap demo: auditing the bundled scenario in {}", d.display());
-    run_audit(&inputs, &d.join("counts.csv"), &analysis)
+    check_analysis(&analysis)?;
+    let loaded = match &args.data {
+        Some(d) => {
+            eprintln!("slackmap demo: auditing the scenario in {}", d.display());
+            let inputs = InputArgs {
+                layout: d.join("layout.toml"),
+                circuits: d.join("circuits.json"),
+                bit_order: super::inputs::BitOrderArg::AsMeasured,
+                allow_non_native: false,
+                qubit_map: None,
+            };
+            inputs.load(Some(&d.join("counts.csv")))?
+        }
+        None => {
+            eprintln!("slackmap demo: auditing the built-in demo scenario (a simulated 4x4 grid)");
+            built_in_demo()?
+        }
+    };
+    run_audit(loaded, "as-measured", &analysis, out)
+}
+
+/// Loads the built-in demo scenario; files are named `demo-data/...` in the report.
+fn built_in_demo() -> anyhow::Result<Inputs> {
+    let name = |f: &str| PathBuf::from(format!("demo-data/{f}"));
+    let text = std::str::from_utf8(DEMO_LAYOUT).context("the built-in demo layout")?;
+    let layout = slackmap::layout::parse_layout(text, &name("layout.toml"))?;
+    let wire = serde_json::from_slice(DEMO_CIRCUITS).context("the built-in demo circuits")?;
+    let circuits = slackmap::circuit::json::from_wire(wire, &name("circuits.json"), &layout)?;
+    slackmap::circuit::validate::validate(&circuits, &layout, false)?;
+    let opts = CountsOptions { bit_order: BitOrder::AsMeasured };
+    let (counts, warnings) =
+        read_counts_from(DEMO_COUNTS, CountsFormat::Csv, &name("counts.csv"), &circuits, &opts)?;
+    let digest = |role: &str, file: &str, bytes: &[u8]| InputFile {
+        role: role.to_string(),
+        path: format!("demo-data/{file} (built in)"),
+        sha256: Sha256::digest(bytes).iter().map(|b| format!("{b:02x}")).collect(),
+    };
+    let files = vec![
+        digest("layout", "layout.toml", DEMO_LAYOUT),
+        digest("circuits", "circuits.json", DEMO_CIRCUITS),
+        digest("counts", "counts.csv", DEMO_COUNTS),
+    ];
+    Ok(Inputs { layout, circuits, counts: Some(counts), warnings, files })
+}
+
+/// Checks the analysis settings against the limits, before any input is read.
+fn check_analysis(a: &AnalysisArgs) -> anyhow::Result<()> {
+    check_replicates("--replicates", a.replicates)?;
+    check_replicates("--null-replicates", a.null_replicates)?;
+    check_threads(a.threads)
+}
+
+/// Fails when a replicate count is above the limit (`--replicates`, `--null-replicates`).
+pub fn check_replicates(option: &str, n: usize) -> anyhow::Result<()> {
+    Ok(super::limits().check(option, n as u64, Limits::REPLICATES, "replicates")?)
+}
+
+fn check_threads(threads: Option<usize>) -> anyhow::Result<()> {
+    let n = threads.unwrap_or(0) as u64;
+    Ok(super::limits().check("--threads", n, Limits::THREADS, "threads")?)
 }
 
 /// Starts `threads` worker threads for the whole run (all cores when None).
 pub fn start_threads(threads: Option<usize>) -> anyhow::Result<()> {
+    check_threads(threads)?;
     if let Some(t) = threads {
         rayon::ThreadPoolBuilder::new()
             .num_threads(t.max(1))
@@ -203,9 +284,13 @@ pub fn start_threads(threads: Option<usize>) -> anyhow::Result<()> {
     Ok(())
 }
 
-fn run_audit(inputs: &InputArgs, counts: &Path, a: &AnalysisArgs) -> anyhow::Result<()> {
+fn run_audit(
+    loaded: Inputs,
+    bit_order: &str,
+    a: &AnalysisArgs,
+    out: OutputDir,
+) -> anyhow::Result<()> {
     start_threads(a.threads)?;
-    let loaded = inputs.load(Some(counts))?;
     let counts = loaded.counts.as_ref().context("counts were not read")?;
     let cfg = AuditConfig {
         family: a.model.family(),
@@ -213,7 +298,7 @@ fn run_audit(inputs: &InputArgs, counts: &Path, a: &AnalysisArgs) -> anyhow::Res
         action_threshold_tvd_per_layer: a.action_threshold,
         null_replicates: a.null_replicates,
         seed: a.seed,
-        bit_order: inputs.bit_order.label().to_string(),
+        bit_order: bit_order.to_string(),
         inputs: loaded.files.clone(),
         bootstrap: BootstrapConfig {
             replicates: a.replicates,
@@ -227,13 +312,8 @@ fn run_audit(inputs: &InputArgs, counts: &Path, a: &AnalysisArgs) -> anyhow::Res
         },
     };
     cfg.validate()?;
-    let stop = Arc::new(AtomicBool::new(false));
-    {
-        let stop = stop.clone();
-        let _ = ctrlc::set_handler(move || stop.store(true, std::sync::atomic::Ordering::SeqCst));
-    }
     let bar = Bar::new(a.quiet).with_timings(a.timings);
-    let progress = Cancel { inner: &bar, flag: &stop };
+    let progress = Cancel { inner: &bar, flag: super::stop_flag() };
     let (mut rep, replicates) =
         audit::run_parts(&loaded.layout, &loaded.circuits, counts, &cfg, &progress)?;
     bar.finish();
@@ -244,7 +324,7 @@ fn run_audit(inputs: &InputArgs, counts: &Path, a: &AnalysisArgs) -> anyhow::Res
     if cfg.bootstrap.range.is_some() {
         let part = Partial::new(rep, replicates, &cfg.bootstrap);
         let bytes = serde_json::to_vec_pretty(&part).context("could not encode the partial")?;
-        report::write_folder(&a.out, &[(partial::FILE_NAME.to_string(), bytes)])?;
+        out.write_files(&[(partial::FILE_NAME.to_string(), bytes)])?;
         let r = cfg.bootstrap.computed();
         eprintln!(
             "Wrote replicates {}..{} of {} to {}; combine the parts with `slackmap merge`",
@@ -256,7 +336,7 @@ fn run_audit(inputs: &InputArgs, counts: &Path, a: &AnalysisArgs) -> anyhow::Res
         return Ok(());
     }
     confidence::finish(&mut rep, &replicates, &cfg.bootstrap)?;
-    write_and_print(&mut rep, &a.out)
+    write_claimed_and_print(&mut rep, out)
 }
 
 /// The time an audit is written, RFC 3339 UTC: `SOURCE_DATE_EPOCH` (seconds since 1970, the
@@ -276,13 +356,20 @@ pub fn creation_time() -> anyhow::Result<String> {
     Ok(report::rfc3339_utc(secs))
 }
 
-/// Stamps the creation time, writes every audit file into `out` and prints the terminal
-/// report (audit and merge).
+/// Stamps the creation time, writes every audit file into `out_dir` and prints the terminal
+/// report (merge).
 pub fn write_and_print(rep: &mut report::AuditReport, out_dir: &Path) -> anyhow::Result<()> {
+    write_claimed_and_print(rep, OutputDir::claim(out_dir, FolderRule::Update)?)
+}
+
+/// Stamps the creation time, writes every audit file into the claimed folder and prints the
+/// terminal report.
+fn write_claimed_and_print(rep: &mut report::AuditReport, out: OutputDir) -> anyhow::Result<()> {
     rep.created = Some(creation_time()?);
     let rep = &*rep;
+    let out_dir = out.shown().to_path_buf();
     let files = report::audit_files(rep);
-    report::write_folder(out_dir, &files)?;
+    out.write_files(&files)?;
     let style = super::style::stdout_style();
     let text = terminal::render(rep, &terminal::TerminalOptions { style, ..Default::default() });
     let mut out = std::io::stdout().lock();

@@ -4,10 +4,12 @@
 //! prints the pattern count, circuit count and output folder.
 
 use std::path::PathBuf;
+use std::sync::atomic::Ordering;
 
-use anyhow::Context as _;
 use clap::Args;
-use slackmap::design::{design, write_design, DesignConfig, Kind};
+use slackmap::design::{write_blueprint, Blueprint, DesignConfig, Kind};
+use slackmap::error::echo;
+use slackmap::files::{size_text, FolderRule, OutputDir};
 
 const EXAMPLE: &str = "\
 Example:
@@ -16,8 +18,13 @@ Example:
 Writes run1/circuits.json (circuits in run order), run1/qasm/<id>.qasm (one OpenQASM 3
 program per circuit) and run1/manifest.csv (columns id, pattern, context, kind, depth,
 sequence, active_blocks, ideal_outcome, ideal_p1). The same seed gives identical files.
+The folder appears only when every file is written: a failed or interrupted run leaves
+nothing, and a second run writing the same folder at the same time is refused.
 
-Exit codes: 0 success, 1 the analysis failed, 2 bad input or usage.";
+Limits: each depth at most 10,000, --sequences at most 1,000, at most 1,000,000 circuits
+and 16 GiB of files; --no-limits lifts them.
+
+Exit codes: 0 success, 1 the analysis failed, 2 bad input or usage, 130 interrupted.";
 
 /// Write reference, pair, all-active and all-idle circuits for a layout.
 ///
@@ -45,10 +52,11 @@ pub struct DesignArgs {
 #[derive(Args, Debug, Clone)]
 pub struct SequenceArgs {
     /// Sequence depths, comma separated: Cliffords per randomized sequence, cycle
-    /// repetitions per repeated one.
+    /// repetitions per repeated one (each at most 10,000 unless --no-limits).
     #[arg(long, value_delimiter = ',', default_value = "1,4,16,64", value_name = "LIST")]
     depths: Vec<usize>,
-    /// Independent randomized sequences per depth and pattern.
+    /// Independent randomized sequences per depth and pattern (at most 1,000 unless
+    /// --no-limits).
     #[arg(long, default_value_t = 4, value_name = "N")]
     sequences: usize,
     /// Sequence kinds, comma separated: randomized, repeated-x, repeated-z, or repeated
@@ -64,27 +72,34 @@ impl SequenceArgs {
         for k in &self.kinds {
             let parsed = Kind::parse_list(k).ok_or_else(|| {
                 slackmap::Error::Usage(format!(
-                    "--kinds: '{k}' is not a kind (valid: randomized, repeated-x, repeated-z, repeated)"
+                    "--kinds: '{}' is not a kind (valid: randomized, repeated-x, repeated-z, \
+                     repeated)",
+                    echo(k)
                 ))
             })?;
             kinds.extend(parsed);
         }
-        Ok(DesignConfig::new(self.depths.clone(), self.sequences, seed, kinds)?)
+        let cfg = DesignConfig::new(self.depths.clone(), self.sequences, seed, kinds)?;
+        Ok(cfg.with_limits(super::limits()))
     }
 }
 
-/// Runs `slackmap design`.
+/// Runs `slackmap design`: claims the output folder first (so that a bad path fails before
+/// any work), streams the circuits into its staging folder and commits it at the end.
 pub fn run(args: DesignArgs) -> anyhow::Result<()> {
     let cfg = args.sequences.config(args.seed)?;
+    let out = OutputDir::claim(&args.out, FolderRule::New)?;
     let layout = slackmap::layout::read_layout(&args.layout)?;
-    let d =
-        design(&layout, &cfg).with_context(|| format!("designing for layout '{}'", layout.name))?;
-    write_design(&args.out, &layout, &d)?;
+    let blueprint = Blueprint::new(&layout, &cfg)?;
+    let stop = super::stop_flag();
+    let bytes = write_blueprint(out.staging(), &blueprint, &|| stop.load(Ordering::SeqCst))?;
+    out.commit()?;
     println!(
-        "{} patterns, {} circuits written to {}",
-        d.n_patterns,
-        d.circuits.len(),
-        args.out.display()
+        "{} patterns, {} circuits written to {} ({})",
+        blueprint.patterns().len(),
+        blueprint.len(),
+        args.out.display(),
+        size_text(bytes)
     );
     Ok(())
 }

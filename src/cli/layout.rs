@@ -3,10 +3,11 @@
 
 use std::collections::BTreeMap;
 use std::io::Write;
-use std::path::PathBuf;
+use std::path::{Path, PathBuf};
 
 use anyhow::Context;
 use clap::{Args, Subcommand, ValueEnum};
+use slackmap::files::OutputFile;
 use slackmap::layout::generate::{self, Kind};
 use slackmap::layout::{read_layout, to_toml, Layout};
 
@@ -58,7 +59,8 @@ enum LayoutCommand {
                       hex     RxC or N hexagonal cells in brick-wall form (degree <= 3), \
                       e.g. 3x3 (30 qubits)\n\n\
                       Examples:\n  slackmap layout new grid 4x4 --out grid-4x4.toml\n  \
-                      slackmap layout new ring 12\n\n\
+                      slackmap layout new ring 12\n  \
+                      slackmap layout new chain 8 --out - | less\n\n\
                       Exit codes: 0 success, 2 bad size or unwritable file."
     )]
     New {
@@ -66,7 +68,8 @@ enum LayoutCommand {
         kind: KindArg,
         /// Size, such as 4x4, 8 or 2x8 (see below).
         size: String,
-        /// Write to this file instead of standard output.
+        /// Write to this file instead of standard output (`-` is standard output too). The
+        /// file is replaced only once it is complete.
         #[arg(long, short)]
         out: Option<PathBuf>,
     },
@@ -110,18 +113,12 @@ pub fn run(args: LayoutArgs) -> anyhow::Result<()> {
             Ok(())
         }
         LayoutCommand::New { kind, size, out } => {
+            let out = OutputFile::claim(out.as_deref().unwrap_or(Path::new("-")))?;
             let layout = generate::generate(kind.into(), &size)?;
             let text = to_toml(&layout);
-            match out {
-                Some(path) => std::fs::write(&path, text)
-                    .map_err(|e| slackmap::Error::io(&path, e))
-                    .with_context(|| format!("writing layout {}", layout.name))?,
-                None => {
-                    let mut stdout = std::io::stdout().lock();
-                    stdout.write_all(text.as_bytes())?;
-                    stdout.flush()?;
-                }
-            }
+            out.write_with(|w| w.write_all(text.as_bytes()))
+                .with_context(|| format!("writing layout {}", layout.name))?;
+            out.commit()?;
             Ok(())
         }
     }

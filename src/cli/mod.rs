@@ -2,8 +2,11 @@
 
 use std::io::Write;
 use std::process::ExitCode;
+use std::sync::atomic::{AtomicBool, Ordering};
+use std::sync::OnceLock;
 
 use clap::{Parser, Subcommand};
+use slackmap::limits::Limits;
 
 mod audit;
 mod check;
@@ -21,15 +24,95 @@ mod simulate;
 mod style;
 mod units;
 
-/// Exit-code documentation shown at the end of `--help`.
-const EXIT_CODES: &str = "Exit codes: 0 success, 1 the analysis failed, 2 bad input or usage.";
+/// Exit-code and limit documentation shown at the end of `--help`.
+const EXIT_CODES: &str = "\
+Limits (each refused with exit code 2 and a message; --no-limits lifts them all): at most
+10^9 shots per circuit, 1024 threads, 100,000 bootstrap or null replicates, depth 10,000,
+1,000 sequences per depth, 1,000,000 circuits and 16 GiB of files per design. A request
+that cannot fit in this machine's memory is refused even with --no-limits.
+
+Exit codes: 0 success, 1 the analysis failed, 2 bad input or usage, 130 interrupted.";
 
 /// slackmap: find crosstalk between neighbouring qubits, with confidence.
 #[derive(Parser, Debug)]
 #[command(name = "slackmap", version, about, after_help = EXIT_CODES)]
 pub struct Cli {
+    /// Lift the limits on shots, threads, replicates, depths, sequences and design size
+    /// (listed at the end of `slackmap --help`), for a request that is meant.
+    #[arg(long, global = true)]
+    no_limits: bool,
     #[command(subcommand)]
     command: Command,
+}
+
+static LIMITS: OnceLock<Limits> = OnceLock::new();
+
+/// The limits of this run (`--no-limits` lifts them).
+pub fn limits() -> Limits {
+    LIMITS.get().copied().unwrap_or_default()
+}
+
+/// Set by the first Ctrl-C (or SIGTERM, SIGHUP).
+static STOP: AtomicBool = AtomicBool::new(false);
+/// True once the running command checks [`STOP`] at safe points.
+static POLLED: AtomicBool = AtomicBool::new(false);
+
+/// For long commands that check the flag at safe points and return `Interrupted`: the
+/// first signal then sets it, and a second ends the process at once. Other commands end at
+/// the first signal. Either way the outputs' temporaries are removed, so an interrupted run
+/// leaves nothing behind.
+pub fn stop_flag() -> &'static AtomicBool {
+    POLLED.store(true, Ordering::SeqCst);
+    &STOP
+}
+
+fn install_signal_handler() {
+    let _ = ctrlc::set_handler(|| {
+        let again = STOP.swap(true, Ordering::SeqCst);
+        if POLLED.load(Ordering::SeqCst) && !again {
+            eprintln!(
+                "\nstopping at the next safe point; nothing will be written (press Ctrl-C \
+                 again to stop at once)"
+            );
+            return;
+        }
+        slackmap::files::abandon();
+        eprintln!("\ninterrupted; nothing was written");
+        std::process::exit(130);
+    });
+}
+
+/// Parses the command line; a usage error that quotes a long value is shown with the value
+/// cut (as every message of the program does).
+fn parse() -> Cli {
+    match Cli::try_parse() {
+        Ok(cli) => cli,
+        Err(e) => {
+            let text = e.render().to_string();
+            let cut = cut_quoted(&text);
+            if !e.use_stderr() || cut == text {
+                e.exit();
+            }
+            eprint!("{cut}");
+            std::process::exit(e.exit_code());
+        }
+    }
+}
+
+/// `text` with every single-quoted value longer than the echo limit cut by
+/// [`slackmap::error::echo`].
+fn cut_quoted(text: &str) -> String {
+    text.split('\'')
+        .enumerate()
+        .map(|(i, part)| {
+            if i % 2 == 1 && part.chars().count() > slackmap::error::ECHO_CHARS {
+                slackmap::error::echo(part)
+            } else {
+                part.to_string()
+            }
+        })
+        .collect::<Vec<_>>()
+        .join("'")
 }
 
 #[derive(Subcommand, Debug)]
@@ -62,7 +145,9 @@ enum Command {
 
 /// Runs the CLI and maps the outcome to an exit code.
 pub fn main() -> ExitCode {
-    let cli = Cli::parse();
+    let cli = parse();
+    let _ = LIMITS.set(if cli.no_limits { Limits::NONE } else { Limits::DEFAULT });
+    install_signal_handler();
     let result: anyhow::Result<()> = match cli.command {
         Command::Layout(args) => layout::run(args),
         Command::Check(args) => check::run(args),
@@ -103,4 +188,20 @@ fn report_error(e: &anyhow::Error) -> ExitCode {
         .map(|le| le.exit_code())
         .unwrap_or(2);
     ExitCode::from(code as u8)
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn long_quoted_values_are_cut_and_short_ones_kept() {
+        let long = "7".repeat(5000);
+        let text = format!("error: invalid value '{long}' for '--depths <LIST>': too large\n");
+        let cut = cut_quoted(&text);
+        assert!(cut.len() < 250, "{cut}");
+        assert!(cut.contains("(5000 bytes in all)' for '--depths <LIST>': too large"), "{cut}");
+        let short = "error: invalid value 'x' for '--seed <S>'\n";
+        assert_eq!(cut_quoted(short), short);
+    }
 }

@@ -3,14 +3,12 @@
 //! Converts the arguments into a validated [`PlanConfig`], runs the plan with a progress
 //! bar and Ctrl-C handling, prints the tables and writes plan.json only when all is done.
 
-use std::io::Write;
-use std::path::PathBuf;
-use std::sync::atomic::AtomicBool;
-use std::sync::Arc;
-
 use slackmap::audit::{AuditConfig, Cancel};
+use slackmap::files::{FolderRule, OutputDir};
 use slackmap::plan::{self, PlanConfig};
 use slackmap::simulate::Noise;
+use std::io::Write;
+use std::path::PathBuf;
 
 use super::progress::Bar;
 
@@ -84,7 +82,12 @@ pub struct PlanArgs {
 
 /// Runs `slackmap plan`.
 pub fn run(args: PlanArgs) -> anyhow::Result<()> {
+    let out = OutputDir::claim(&args.out, FolderRule::Update)?;
     super::audit::start_threads(args.threads)?;
+    for &s in &args.shots {
+        super::simulate::check_shots(s)?;
+    }
+    super::audit::check_replicates("--null-replicates", args.null_replicates)?;
     let layout = slackmap::layout::read_layout(&args.layout)?;
     let noise = Noise::read(&args.noise, &layout)?;
     let design = args.design.config(args.seed)?;
@@ -107,17 +110,12 @@ pub fn run(args: PlanArgs) -> anyhow::Result<()> {
         target_tvd_per_layer: args.target,
     };
     cfg.validate()?;
-    let stop = Arc::new(AtomicBool::new(false));
-    {
-        let stop = stop.clone();
-        let _ = ctrlc::set_handler(move || stop.store(true, std::sync::atomic::Ordering::SeqCst));
-    }
     let bar = Bar::new(args.quiet);
-    let progress = Cancel { inner: &bar, flag: &stop };
+    let progress = Cancel { inner: &bar, flag: super::stop_flag() };
     let result = plan::plan(&layout, &noise, &cfg, &progress);
     bar.finish();
     let report = result?;
-    slackmap::report::write_folder(&args.out, &[("plan.json".into(), plan::plan_json(&report))])?;
+    out.write_files(&[("plan.json".into(), plan::plan_json(&report))])?;
     let mut out = std::io::stdout().lock();
     out.write_all(plan::render_terminal(&report, super::style::stdout_style()).as_bytes())?;
     writeln!(out, "\nWrote {}", args.out.join("plan.json").display())?;

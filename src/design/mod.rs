@@ -14,14 +14,15 @@ use rand_chacha::ChaCha8Rng;
 use rayon::prelude::*;
 
 use crate::circuit::{Circuit, CircuitSet};
-use crate::error::{Error, Result};
+use crate::error::{echo, Error, Result};
 use crate::layout::Layout;
+use crate::limits::{check_memory, Limits, OVERRIDE_HINT};
 
 mod output;
 pub mod patterns;
 pub mod sequences;
 
-pub use output::{manifest_csv, write_design, MANIFEST_HEADER};
+pub use output::{manifest_csv, write_blueprint, write_design, MANIFEST_HEADER};
 pub use patterns::{BlockSpec, Context, Pattern};
 pub use sequences::{Ideal, Kind};
 
@@ -38,13 +39,16 @@ pub struct DesignConfig {
     pub seed: u64,
     /// Kinds of sequence.
     pub kinds: Vec<Kind>,
+    /// Size limits (depth, sequences, circuits, bytes of the files); see [`Limits`].
+    pub limits: Limits,
 }
 
 impl DesignConfig {
     /// The default depths.
     pub const DEFAULT_DEPTHS: [usize; 4] = [1, 4, 16, 64];
 
-    /// Validates a configuration.
+    /// Validates a configuration (under the default limits; see
+    /// [`DesignConfig::with_limits`]).
     pub fn new(
         depths: Vec<usize>,
         sequences: usize,
@@ -73,7 +77,22 @@ impl DesignConfig {
                 "give at least one kind (randomized, repeated-x, repeated-z)".into(),
             ));
         }
-        Ok(DesignConfig { depths, sequences, seed, kinds: k })
+        Ok(DesignConfig { depths, sequences, seed, kinds: k, limits: Limits::DEFAULT })
+    }
+
+    /// The same configuration under other limits (checked when the design is built).
+    pub fn with_limits(self, limits: Limits) -> DesignConfig {
+        DesignConfig { limits, ..self }
+    }
+
+    /// Fails when a depth or the sequence count is above its limit.
+    fn check_limits(&self) -> Result<()> {
+        for &d in &self.depths {
+            let what = "(Cliffords or cycles per sequence)";
+            self.limits.check("--depths", d as u64, Limits::DEPTH, what)?;
+        }
+        let n = self.sequences as u64;
+        self.limits.check("--sequences", n, Limits::SEQUENCES, "(per depth and pattern)")
     }
 
     fn sequences_of(&self, kind: Kind) -> usize {
@@ -81,6 +100,13 @@ impl DesignConfig {
             Kind::Randomized => self.sequences,
             Kind::RepeatedX | Kind::RepeatedZ => 1,
         }
+    }
+
+    /// Circuits per pattern (at least 1), or None past u64.
+    fn per_pattern(&self) -> Option<u64> {
+        self.kinds.iter().try_fold(0u64, |sum, &k| {
+            (self.depths.len() as u64).checked_mul(self.sequences_of(k) as u64)?.checked_add(sum)
+        })
     }
 }
 
@@ -122,7 +148,6 @@ pub struct Design {
 }
 
 struct Job {
-    index: usize,
     pattern: usize,
     kind: Kind,
     depth: usize,
@@ -137,84 +162,276 @@ fn rng_for(seed: u64, index: u64) -> ChaCha8Rng {
     rng
 }
 
-/// Builds the design for a layout. Fails when the native gates cannot express Clifford
-/// sequences.
+/// Size model of the files and the working memory, per operation of a circuit: measured on
+/// generated designs (circuits.json about 48 bytes and a QASM program about 18 per
+/// operation; while a circuit is built its block sequences and layers take about 130).
+const FILE_BYTES_PER_OP: u64 = 66;
+const MEMORY_BYTES_PER_OP: u64 = 200;
+/// Per measured qubit (its id in circuits.json, its measure line, its manifest entry) and per
+/// circuit.
+const FILE_BYTES_PER_MEASURED: u64 = 40;
+const FILE_BYTES_PER_CIRCUIT: u64 = 200;
+
+/// A design's circuits, built on demand in run order. [`design`] collects them all;
+/// `slackmap design` writes them a chunk at a time ([`write_blueprint`]), so that its memory is
+/// that of one chunk whatever the size of the design. Sizes are checked against the
+/// configuration's [`Limits`] (and against this machine's memory) before anything large is
+/// allocated.
+pub struct Blueprint<'a> {
+    layout: &'a Layout,
+    cfg: DesignConfig,
+    builder: sequences::Builder<'a>,
+    patterns: Vec<Pattern>,
+    /// Job index of each run position (the seeded shuffle of all jobs).
+    order: Vec<u32>,
+    /// First job index of each kind, in `cfg.kinds` order, then the job count.
+    kind_start: Vec<usize>,
+    all_active: Option<usize>,
+    width: usize,
+}
+
+impl<'a> Blueprint<'a> {
+    /// Packs the patterns and fixes the run order; fails with a usage error when the
+    /// design is above the limits, or when the native gates cannot run Clifford sequences.
+    pub fn new(layout: &'a Layout, cfg: &DesignConfig) -> Result<Blueprint<'a>> {
+        cfg.check_limits()?;
+        let builder = sequences::Builder::new(layout)?;
+        let limits = cfg.limits;
+        let per_pattern = cfg.per_pattern().unwrap_or(u64::MAX);
+        let at_least = patterns::min_patterns(layout).saturating_mul(per_pattern);
+        if limits.enforced && at_least > Limits::CIRCUITS {
+            return Err(Error::Usage(format!(
+                "layout '{}' would need at least {at_least} circuits ({per_pattern} per \
+                 pattern, and its neighbourhoods are too dense to share many), above the \
+                 limit of {} circuits; ask for fewer depths or sequences, or {OVERRIDE_HINT}",
+                echo(&layout.name),
+                Limits::CIRCUITS
+            )));
+        }
+        let patterns = patterns::patterns(layout);
+        let total = (patterns.len() as u64).saturating_mul(per_pattern);
+        if limits.enforced && total > Limits::CIRCUITS {
+            return Err(Error::Usage(format!(
+                "the design would have {total} circuits ({} patterns x {per_pattern}), above \
+                 the limit of {} circuits; ask for fewer depths or sequences, or {OVERRIDE_HINT}",
+                patterns.len(),
+                Limits::CIRCUITS
+            )));
+        }
+        let n = u32::try_from(total).map_err(|_| {
+            Error::Usage(format!("a design of {total} circuits cannot be written; ask for fewer"))
+        })? as usize;
+        let mut bp = Blueprint {
+            layout,
+            cfg: cfg.clone(),
+            builder,
+            patterns,
+            order: Vec::new(),
+            kind_start: Vec::new(),
+            all_active: None,
+            width: n.saturating_sub(1).to_string().len(),
+        };
+        bp.all_active = bp.patterns.iter().position(|p| p.context == Context::AllActive1q);
+        let p = bp.patterns.len();
+        let mut start = 0;
+        for &k in &cfg.kinds {
+            bp.kind_start.push(start);
+            start += cfg.depths.len() * cfg.sequences_of(k) * p;
+        }
+        bp.kind_start.push(start);
+        limits.check_bytes(
+            "the design's files",
+            bp.estimated_file_bytes(),
+            Limits::DESIGN_BYTES,
+        )?;
+        let (largest, depth, qubits) = bp.largest_circuit_ops();
+        check_memory(
+            &format!("a circuit of depth {depth} on {qubits} qubits"),
+            largest.checked_mul(MEMORY_BYTES_PER_OP),
+        )?;
+        check_memory("the run order", (n as u64).checked_mul(4))?;
+        let mut order: Vec<u32> = Vec::new();
+        order.try_reserve_exact(n).map_err(|_| {
+            Error::Usage(format!("no memory for the run order of {n} circuits; ask for fewer"))
+        })?;
+        order.extend(0..n as u32);
+        order.shuffle(&mut rng_for(cfg.seed, u64::MAX));
+        bp.order = order;
+        Ok(bp)
+    }
+
+    /// Number of circuits.
+    pub fn len(&self) -> usize {
+        self.order.len()
+    }
+
+    /// True when the design has no circuits (never, for a valid layout).
+    pub fn is_empty(&self) -> bool {
+        self.order.is_empty()
+    }
+
+    /// The distinct patterns.
+    pub fn patterns(&self) -> &[Pattern] {
+        &self.patterns
+    }
+
+    /// The layout designed for.
+    pub fn layout(&self) -> &Layout {
+        self.layout
+    }
+
+    /// The configuration.
+    pub fn config(&self) -> &DesignConfig {
+        &self.cfg
+    }
+
+    fn job(&self, index: usize) -> Job {
+        let p = self.patterns.len();
+        let k = self.kind_start.partition_point(|&s| s <= index) - 1;
+        let kind = self.cfg.kinds[k];
+        let r = index - self.kind_start[k];
+        let seqs = self.cfg.sequences_of(kind);
+        let (pattern, r) = (r % p, r / p);
+        Job { pattern, kind, depth: self.cfg.depths[r / seqs], sequence: r % seqs }
+    }
+
+    /// A circuit's id, from its index before the shuffle.
+    fn id(&self, index: usize) -> String {
+        format!("c{index:0width$}", width = self.width)
+    }
+
+    /// Rough operation count of a job's circuit (see the size model above): operations per
+    /// active qubit and depth step, measured on generated designs (randomized one-qubit
+    /// blocks about 1.3, coupler blocks about 1.8 per qubit, repeated cycles 4).
+    fn ops_estimate(&self, pattern: usize, kind: Kind, depth: usize) -> u64 {
+        let p = &self.patterns[pattern];
+        let per_step_x10: u64 = match kind {
+            Kind::Randomized => 14,
+            Kind::RepeatedX | Kind::RepeatedZ => 40,
+        };
+        let steps = depth as u64 + 2;
+        let qubit_steps: u64 = if p.context == Context::AllIdle {
+            p.measured.len() as u64 * per_step_x10
+        } else {
+            p.blocks
+                .iter()
+                .map(|b| match b {
+                    BlockSpec::One(_) => per_step_x10,
+                    BlockSpec::Two(..) => 2 * 19,
+                })
+                .sum()
+        };
+        qubit_steps.saturating_mul(steps) / 10
+    }
+
+    fn estimated_file_bytes(&self) -> u64 {
+        let mut total = 0u64;
+        for (i, p) in self.patterns.iter().enumerate() {
+            let fixed = FILE_BYTES_PER_CIRCUIT + FILE_BYTES_PER_MEASURED * p.measured.len() as u64;
+            for &kind in &self.cfg.kinds {
+                for &depth in &self.cfg.depths {
+                    let one = self
+                        .ops_estimate(i, kind, depth)
+                        .saturating_mul(FILE_BYTES_PER_OP)
+                        .saturating_add(fixed);
+                    total = total
+                        .saturating_add(one.saturating_mul(self.cfg.sequences_of(kind) as u64));
+                }
+            }
+        }
+        total
+    }
+
+    /// (operations, depth, active qubits) of the largest circuit.
+    fn largest_circuit_ops(&self) -> (u64, usize, usize) {
+        let mut best = (0, 0, 0);
+        for (i, p) in self.patterns.iter().enumerate() {
+            for &kind in &self.cfg.kinds {
+                for &depth in &self.cfg.depths {
+                    let ops = self.ops_estimate(i, kind, depth);
+                    if ops > best.0 {
+                        best = (ops, depth, p.measured.len());
+                    }
+                }
+            }
+        }
+        best
+    }
+
+    /// Builds the circuits at run positions `run` (in parallel), with their manifest rows.
+    pub fn circuits(&self, run: std::ops::Range<usize>) -> Result<Vec<(Circuit, ManifestRow)>> {
+        self.order[run].par_iter().map(|&index| self.build(index as usize)).collect()
+    }
+
+    /// Circuit positions `start..end` whose estimated working memory stays within
+    /// `budget_ops` operations (at least one circuit).
+    fn chunk_end(&self, start: usize, budget_ops: u64) -> usize {
+        let mut ops = 0u64;
+        let mut end = start;
+        while end < self.order.len() && end - start < 4096 {
+            let job = self.job(self.order[end] as usize);
+            ops = ops.saturating_add(self.ops_estimate(job.pattern, job.kind, job.depth));
+            if ops > budget_ops && end > start {
+                break;
+            }
+            end += 1;
+        }
+        end
+    }
+
+    fn build(&self, index: usize) -> Result<(Circuit, ManifestRow)> {
+        let job = self.job(index);
+        let p = &self.patterns[job.pattern];
+        if p.context == Context::AllIdle {
+            // Idle as long as the all-active circuit of the same kind, depth and sequence.
+            let len = match self.all_active {
+                Some(a) => {
+                    let (c, _) = self.build(index - job.pattern + a)?;
+                    (0..c.layers.len()).filter(|&t| c.is_timed(self.layout, t)).count()
+                }
+                None => job.depth,
+            };
+            let c = self.builder.idle(self.id(index), len, p.measured.clone());
+            let row = row_for(&job, p, &c, |_| Ideal::Bit(false));
+            return Ok((c, row));
+        }
+        let mut rng = rng_for(self.cfg.seed, index as u64);
+        let mut runs = Vec::with_capacity(p.blocks.len());
+        for b in &p.blocks {
+            runs.push(match *b {
+                BlockSpec::One(q) => self.builder.one(q, job.kind, job.depth, &mut rng),
+                BlockSpec::Two(a, b) => self.builder.two(a, b, job.kind, job.depth, &mut rng)?,
+            });
+        }
+        let circuit = self.builder.assemble(self.id(index), &runs, p.measured.clone());
+        let mut ideal = vec![Ideal::Bit(false); self.layout.n_qubits()];
+        for run in &runs {
+            for (q, i) in run.ideals() {
+                ideal[q] = i;
+            }
+        }
+        let row = row_for(&job, p, &circuit, |q| ideal[q]);
+        Ok((circuit, row))
+    }
+}
+
+/// Builds the whole design in memory. Fails when the native gates cannot express Clifford
+/// sequences, or when the design is above the configuration's limits or would not fit in
+/// memory.
 pub fn design(layout: &Layout, cfg: &DesignConfig) -> Result<Design> {
-    let builder = sequences::Builder::new(layout)?;
-    let pats = patterns::patterns(layout);
-    let mut jobs = Vec::new();
-    for &kind in &cfg.kinds {
-        for &depth in &cfg.depths {
-            for sequence in 0..cfg.sequences_of(kind) {
-                for pattern in 0..pats.len() {
-                    jobs.push(Job { index: jobs.len(), pattern, kind, depth, sequence });
-                }
-            }
-        }
-    }
-    let width = jobs.len().saturating_sub(1).to_string().len();
-    let id_of = |i: usize| format!("c{i:0width$}");
-    let built: Vec<Option<(Circuit, ManifestRow)>> = jobs
-        .par_iter()
-        .map(|job| {
-            let p = &pats[job.pattern];
-            if p.context == Context::AllIdle {
-                return Ok(None);
-            }
-            let mut rng = rng_for(cfg.seed, job.index as u64);
-            let mut runs = Vec::with_capacity(p.blocks.len());
-            for b in &p.blocks {
-                runs.push(match *b {
-                    BlockSpec::One(q) => builder.one(q, job.kind, job.depth, &mut rng),
-                    BlockSpec::Two(a, b) => builder.two(a, b, job.kind, job.depth, &mut rng)?,
-                });
-            }
-            let circuit = builder.assemble(id_of(job.index), &runs, p.measured.clone());
-            let mut ideal = vec![Ideal::Bit(false); layout.n_qubits()];
-            for run in &runs {
-                for (q, i) in run.ideals() {
-                    ideal[q] = i;
-                }
-            }
-            let row = row_for(job, p, &circuit, |q| ideal[q]);
-            Ok(Some((circuit, row)))
+    let bp = Blueprint::new(layout, cfg)?;
+    let ops: u64 = (0..bp.len())
+        .map(|i| {
+            let job = bp.job(i);
+            bp.ops_estimate(job.pattern, job.kind, job.depth)
         })
-        .collect::<Result<Vec<_>>>()?;
-    let all_active = pats.iter().position(|p| p.context == Context::AllActive1q);
-    let timed_len: Vec<Option<usize>> = built
-        .iter()
-        .map(|b| {
-            b.as_ref().map(|(c, _)| (0..c.layers.len()).filter(|&t| c.is_timed(layout, t)).count())
-        })
-        .collect();
-    let mut circuits = Vec::with_capacity(jobs.len());
-    let mut rows = Vec::with_capacity(jobs.len());
-    for (job, b) in jobs.iter().zip(built) {
-        match b {
-            Some((c, r)) => {
-                circuits.push(c);
-                rows.push(r);
-            }
-            None => {
-                // Idle as long as the all-active circuit of the same kind, depth, sequence.
-                let len = all_active
-                    .and_then(|a| timed_len.get(job.index - job.pattern + a).copied().flatten())
-                    .unwrap_or(job.depth);
-                let p = &pats[job.pattern];
-                let c = builder.idle(id_of(job.index), len, p.measured.clone());
-                rows.push(row_for(job, p, &c, |_| Ideal::Bit(false)));
-                circuits.push(c);
-            }
-        }
-    }
-    let mut order: Vec<usize> = (0..circuits.len()).collect();
-    order.shuffle(&mut rng_for(cfg.seed, u64::MAX));
-    let mut slots: Vec<Option<(Circuit, ManifestRow)>> =
-        circuits.into_iter().zip(rows).map(Some).collect();
+        .fold(0u64, u64::saturating_add);
+    check_memory("the design", ops.checked_mul(MEMORY_BYTES_PER_OP))?;
     let (circuits, manifest): (Vec<Circuit>, Vec<ManifestRow>) =
-        order.iter().filter_map(|&i| slots[i].take()).unzip();
+        bp.circuits(0..bp.len())?.into_iter().unzip();
     let circuits = CircuitSet::new(circuits).map_err(Error::Analysis)?;
-    Ok(Design { circuits, manifest, n_patterns: pats.len(), patterns: pats })
+    let n_patterns = bp.patterns.len();
+    Ok(Design { circuits, manifest, n_patterns, patterns: bp.patterns })
 }
 
 fn row_for(job: &Job, p: &Pattern, c: &Circuit, ideal: impl Fn(usize) -> Ideal) -> ManifestRow {

@@ -1,15 +1,20 @@
 //! Writing a design: circuits.json (run order), one OpenQASM 3 program per circuit, and
-//! manifest.csv. Files go to a temporary folder beside the target that is renamed at the
-//! end, so an interrupted or failed write leaves nothing partial behind.
+//! manifest.csv, streamed as circuits are built. Files go to a staging folder beside the
+//! target that is renamed at the end ([`crate::files`]), so an interrupted or failed write
+//! leaves nothing partial behind.
 
 use std::fs;
 use std::io::{BufWriter, Write};
 use std::path::{Path, PathBuf};
 
-use super::{Design, ManifestRow};
-use crate::circuit::{json, qasm};
+use rayon::prelude::*;
+
+use super::{Blueprint, Design, ManifestRow};
+use crate::circuit::{json, qasm, Circuit};
 use crate::error::{Error, Result};
+use crate::files::{size_text, FolderRule, OutputDir};
 use crate::layout::Layout;
+use crate::limits::{Limits, OVERRIDE_HINT};
 
 /// The manifest's header line.
 pub const MANIFEST_HEADER: &str =
@@ -54,68 +59,127 @@ pub fn manifest_csv(layout: &Layout, d: &Design) -> String {
     s
 }
 
-fn write_all(dir: &Path, layout: &Layout, d: &Design) -> Result<()> {
-    let io = |p: &Path| {
-        let p = p.to_path_buf();
-        move |e| Error::io(&p, e)
-    };
-    let path = dir.join("circuits.json");
-    let mut w = BufWriter::new(fs::File::create(&path).map_err(io(&path))?);
-    // Same bytes as `json::to_json`, streamed so a large design is never held as one string.
-    writeln!(w, "{{\"schema\": {}, \"circuits\": [", json::SCHEMA).map_err(io(&path))?;
-    let n = d.circuits.len();
-    for (i, c) in d.circuits.circuits.iter().enumerate() {
-        w.write_all(json::circuit_to_json(c, layout).as_bytes()).map_err(io(&path))?;
-        w.write_all(if i + 1 < n { b",\n" } else { b"\n" }).map_err(io(&path))?;
-    }
-    w.write_all(b"]}\n").map_err(io(&path))?;
-    w.flush().map_err(io(&path))?;
-    let qdir = dir.join("qasm");
-    fs::create_dir(&qdir).map_err(io(&qdir))?;
-    for c in &d.circuits.circuits {
-        let p = qdir.join(format!("{}.qasm", c.id));
-        fs::write(&p, qasm::export(c, layout)).map_err(io(&p))?;
-    }
-    let p = dir.join("manifest.csv");
-    let mut w = BufWriter::new(fs::File::create(&p).map_err(io(&p))?);
-    writeln!(w, "{MANIFEST_HEADER}").map_err(io(&p))?;
-    for r in &d.manifest {
-        writeln!(w, "{}", manifest_line(layout, r)).map_err(io(&p))?;
-    }
-    w.flush().map_err(io(&p))?;
-    Ok(())
+/// The three outputs of a design, written as circuits arrive in run order.
+struct Sink {
+    json: BufWriter<fs::File>,
+    json_path: PathBuf,
+    manifest: BufWriter<fs::File>,
+    manifest_path: PathBuf,
+    qasm: PathBuf,
+    total: usize,
+    written: usize,
+    bytes: u64,
 }
 
-/// Writes `circuits.json`, `qasm/<id>.qasm` and `manifest.csv` into `dir`. `dir` must not
-/// exist or be an empty folder; nothing is left behind on failure.
+fn io(p: &Path) -> impl FnOnce(std::io::Error) -> Error + '_ {
+    move |e| Error::io(p, e)
+}
+
+impl Sink {
+    /// Starts the files in `dir` for `total` circuits.
+    fn open(dir: &Path, total: usize) -> Result<Sink> {
+        let json_path = dir.join("circuits.json");
+        let mut json = BufWriter::new(fs::File::create(&json_path).map_err(io(&json_path))?);
+        // Same bytes as `json::to_json`, streamed so a large design is never held whole.
+        writeln!(json, "{{\"schema\": {}, \"circuits\": [", json::SCHEMA)
+            .map_err(io(&json_path))?;
+        let manifest_path = dir.join("manifest.csv");
+        let mut manifest =
+            BufWriter::new(fs::File::create(&manifest_path).map_err(io(&manifest_path))?);
+        writeln!(manifest, "{MANIFEST_HEADER}").map_err(io(&manifest_path))?;
+        let qasm = dir.join("qasm");
+        fs::create_dir(&qasm).map_err(io(&qasm))?;
+        Ok(Sink { json, json_path, manifest, manifest_path, qasm, total, written: 0, bytes: 0 })
+    }
+
+    fn put(&mut self, id: &str, files: &Rendered) -> Result<()> {
+        self.written += 1;
+        let sep: &[u8] = if self.written < self.total { b",\n" } else { b"\n" };
+        self.json.write_all(files.json.as_bytes()).map_err(io(&self.json_path))?;
+        self.json.write_all(sep).map_err(io(&self.json_path))?;
+        let p = self.qasm.join(format!("{id}.qasm"));
+        fs::write(&p, &files.qasm).map_err(io(&p))?;
+        writeln!(self.manifest, "{}", files.manifest).map_err(io(&self.manifest_path))?;
+        self.bytes += (files.json.len() + files.qasm.len() + files.manifest.len() + 3) as u64;
+        Ok(())
+    }
+
+    fn finish(mut self) -> Result<()> {
+        self.json.write_all(b"]}\n").map_err(io(&self.json_path))?;
+        self.json.flush().map_err(io(&self.json_path))?;
+        self.manifest.flush().map_err(io(&self.manifest_path))
+    }
+}
+
+/// One circuit as its three files hold it.
+struct Rendered {
+    json: String,
+    qasm: String,
+    manifest: String,
+}
+
+fn render(layout: &Layout, c: &Circuit, r: &ManifestRow) -> Rendered {
+    Rendered {
+        json: json::circuit_to_json(c, layout),
+        qasm: qasm::export(c, layout),
+        manifest: manifest_line(layout, r),
+    }
+}
+
+/// Writes `circuits.json`, `qasm/<id>.qasm` and `manifest.csv` of a design built in memory
+/// into `dir`, which must not exist or be an empty folder; nothing is left behind on
+/// failure (see [`crate::files`]).
 pub fn write_design(dir: &Path, layout: &Layout, d: &Design) -> Result<()> {
-    if dir.exists() {
-        let empty = fs::read_dir(dir).map_err(|e| Error::io(dir, e))?.next().is_none();
-        if !empty {
+    let out = OutputDir::claim(dir, FolderRule::New)?;
+    let mut sink = Sink::open(out.staging(), d.circuits.len())?;
+    for (c, r) in d.circuits.circuits.iter().zip(&d.manifest) {
+        sink.put(&c.id, &render(layout, c, r))?;
+    }
+    sink.finish()?;
+    out.commit()
+}
+
+/// Operations built at once by [`write_blueprint`] (about 200 MB of working memory at the
+/// size model's 200 bytes per operation).
+const CHUNK_OPS: u64 = 1 << 20;
+
+/// Builds a design's circuits a chunk at a time (each chunk in parallel) and writes them
+/// into `dir` (an empty staging folder), so that memory stays that of one chunk. Stops
+/// with [`Error::Interrupted`] when `stop` says so, and with a usage error when the files
+/// pass the limit on a design's size. Returns the bytes written.
+pub fn write_blueprint(dir: &Path, bp: &Blueprint, stop: &dyn Fn() -> bool) -> Result<u64> {
+    let layout = bp.layout();
+    let limits = bp.config().limits;
+    let mut sink = Sink::open(dir, bp.len())?;
+    let mut start = 0;
+    while start < bp.len() {
+        if stop() {
+            return Err(Error::Interrupted);
+        }
+        let end = bp.chunk_end(start, CHUNK_OPS);
+        let rendered: Vec<(String, Rendered)> = bp
+            .circuits(start..end)?
+            .into_par_iter()
+            .map(|(c, r)| {
+                let files = render(layout, &c, &r);
+                (c.id, files)
+            })
+            .collect();
+        for (id, files) in &rendered {
+            sink.put(id, files)?;
+        }
+        if limits.enforced && sink.bytes > Limits::DESIGN_BYTES {
             return Err(Error::Usage(format!(
-                "output folder {} exists and is not empty; choose a new folder or remove it",
-                dir.display()
+                "the design's files passed the limit of {} after {} of {} circuits; ask for \
+                 fewer depths or sequences, or {OVERRIDE_HINT}",
+                size_text(Limits::DESIGN_BYTES),
+                sink.written,
+                bp.len()
             )));
         }
+        start = end;
     }
-    let name = dir.file_name().map(|n| n.to_string_lossy().into_owned()).unwrap_or_default();
-    let parent = match dir.parent() {
-        Some(p) if !p.as_os_str().is_empty() => p.to_path_buf(),
-        _ => PathBuf::from("."),
-    };
-    let tmp = parent.join(format!(".{name}.partial-{}", std::process::id()));
-    if tmp.exists() {
-        fs::remove_dir_all(&tmp).map_err(|e| Error::io(&tmp, e))?;
-    }
-    fs::create_dir_all(&tmp).map_err(|e| Error::io(&tmp, e))?;
-    let result = write_all(&tmp, layout, d).and_then(|()| {
-        if dir.exists() {
-            fs::remove_dir(dir).map_err(|e| Error::io(dir, e))?;
-        }
-        fs::rename(&tmp, dir).map_err(|e| Error::io(dir, e))
-    });
-    if result.is_err() {
-        let _ = fs::remove_dir_all(&tmp);
-    }
-    result
+    let bytes = sink.bytes;
+    sink.finish()?;
+    Ok(bytes)
 }

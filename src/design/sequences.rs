@@ -158,6 +158,64 @@ fn frame_passage(g: Gate, k: usize) -> Passage {
     }
 }
 
+/// The one-qubit Cliffords a set of gates reaches (closure under composition), counting
+/// each parametric gate at quarter, minus-quarter and half turns.
+fn reachable(gates: &[Gate]) -> Vec<Clifford1> {
+    let quarter = std::f64::consts::FRAC_PI_2;
+    let mut gens = Vec::new();
+    for &g in gates {
+        let angles: &[f64] =
+            if g.n_params() == 1 { &[quarter, -quarter, 2.0 * quarter] } else { &[0.0] };
+        gens.extend(angles.iter().filter_map(|&a| Clifford1::of_gate(g, a)));
+    }
+    let mut seen = vec![Clifford1::IDENTITY];
+    let mut i = 0;
+    while i < seen.len() {
+        for &g in &gens {
+            let c = seen[i].then(g);
+            if !seen.contains(&c) {
+                seen.push(c);
+            }
+        }
+        i += 1;
+    }
+    seen
+}
+
+/// Fails, saying what is missing and what would work, when the layout's one-qubit gates
+/// cannot run randomized sequences: they must reach all 24 one-qubit Cliffords, with a
+/// timed pulse that turns a qubit from |0> onto the equator (the repeated sequences' first
+/// step, and every Clifford that is not diagonal).
+fn check_clifford_gates(layout: &Layout) -> Result<()> {
+    let gates: Vec<Gate> =
+        layout.gates.one_qubit.iter().copied().filter(|&g| g != Gate::Id).collect();
+    let timed: Vec<Gate> = gates.iter().copied().filter(|&g| !layout.is_virtual(g)).collect();
+    // The Cliffords that keep Z on the Z axis: everything but an equatorial turn.
+    let keeps_z = reachable(&[Gate::S, Gate::X]);
+    let equator = reachable(&timed).iter().any(|c| !keeps_z.contains(c));
+    let all = reachable(&gates).len();
+    let missing = if !equator {
+        "a timed pulse that turns a qubit from |0> onto the equator (add sx, or rx or ry, to \
+         one_qubit)"
+    } else if all < 24 {
+        "a rotation about a second axis (add a Z rotation such as rz, best declared virtual; \
+         or ry beside rx)"
+    } else {
+        return Ok(());
+    };
+    let names = if gates.is_empty() {
+        "none".to_string()
+    } else {
+        gates.iter().map(|g| g.name()).collect::<Vec<_>>().join(", ")
+    };
+    Err(Error::Usage(format!(
+        "layout '{}' cannot run Clifford sequences: its one-qubit gates ({names}) reach {all} \
+         of the 24 one-qubit Cliffords. Missing: {missing}. A set that works: one_qubit = \
+         [\"sx\", \"x\", \"rz\"] with virtual = [\"rz\"] (what `slackmap layout new` writes)",
+        crate::error::echo(&layout.name)
+    )))
+}
+
 /// Builds block sequences and circuits for one layout.
 pub(crate) struct Builder<'a> {
     layout: &'a Layout,
@@ -167,6 +225,7 @@ pub(crate) struct Builder<'a> {
 
 impl<'a> Builder<'a> {
     pub fn new(layout: &'a Layout) -> Result<Builder<'a>> {
+        check_clifford_gates(layout)?;
         let comp = Compiler1::new(layout)?;
         if !layout.couplers.is_empty() {
             clifford::check_two_qubit_gate(layout)?;

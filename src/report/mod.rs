@@ -4,12 +4,12 @@
 //! is the wire format of `audit.json` (schema [`SCHEMA`]). Each output format is one file
 //! behind [`Render`], which returns bytes; where the bytes go is decided by [`write_folder`].
 
-use std::path::{Path, PathBuf};
+use std::path::Path;
 
 use schemars::JsonSchema;
 use serde::{Deserialize, Serialize};
 
-use crate::error::{Error, Result};
+use crate::error::Result;
 
 pub mod colour;
 pub mod csv;
@@ -793,54 +793,11 @@ pub fn audit_files(report: &AuditReport) -> Vec<(String, Vec<u8>)> {
 
 /// Writes files into `dir` atomically: everything goes into a fresh sibling folder that
 /// then replaces `dir` by rename, so an existing folder is never half overwritten. Files
-/// already in `dir` that this run does not write are kept.
+/// already in `dir` that this run does not write are kept. An existing file at `dir` is
+/// refused, and a run writing `dir` at the same time is a clear error (see
+/// [`crate::files`]).
 pub fn write_folder(dir: &Path, files: &[(String, Vec<u8>)]) -> Result<()> {
-    let parent = match dir.parent() {
-        Some(p) if !p.as_os_str().is_empty() => p.to_path_buf(),
-        _ => PathBuf::from("."),
-    };
-    std::fs::create_dir_all(&parent).map_err(|e| Error::io(&parent, e))?;
-    let name = dir.file_name().map(|n| n.to_string_lossy().to_string()).unwrap_or("out".into());
-    let stage = parent.join(format!(".{name}.tmp-{}", std::process::id()));
-    let _ = std::fs::remove_dir_all(&stage);
-    std::fs::create_dir_all(&stage).map_err(|e| Error::io(&stage, e))?;
-    if dir.is_dir() {
-        for entry in std::fs::read_dir(dir).map_err(|e| Error::io(dir, e))? {
-            let entry = entry.map_err(|e| Error::io(dir, e))?;
-            let fname = entry.file_name().to_string_lossy().to_string();
-            if !files.iter().any(|(n, _)| n.split('/').next() == Some(fname.as_str())) {
-                copy_tree(&entry.path(), &stage.join(&fname))?;
-            }
-        }
-    }
-    for (fname, bytes) in files {
-        let p = stage.join(fname);
-        if let Some(d) = p.parent() {
-            std::fs::create_dir_all(d).map_err(|e| Error::io(d, e))?;
-        }
-        std::fs::write(&p, bytes).map_err(|e| Error::io(&p, e))?;
-    }
-    let old = parent.join(format!(".{name}.old-{}", std::process::id()));
-    if dir.exists() {
-        std::fs::rename(dir, &old).map_err(|e| Error::io(dir, e))?;
-    }
-    std::fs::rename(&stage, dir).map_err(|e| Error::io(dir, e))?;
-    let _ = std::fs::remove_dir_all(&old);
-    Ok(())
-}
-
-/// Copies a file or a folder tree.
-fn copy_tree(from: &Path, to: &Path) -> Result<()> {
-    if from.is_dir() {
-        std::fs::create_dir_all(to).map_err(|e| Error::io(to, e))?;
-        for entry in std::fs::read_dir(from).map_err(|e| Error::io(from, e))? {
-            let entry = entry.map_err(|e| Error::io(from, e))?;
-            copy_tree(&entry.path(), &to.join(entry.file_name()))?;
-        }
-    } else {
-        std::fs::copy(from, to).map_err(|e| Error::io(from, e))?;
-    }
-    Ok(())
+    crate::files::OutputDir::claim(dir, crate::files::FolderRule::Update)?.write_files(files)
 }
 
 /// A time as RFC 3339 UTC to the second (`2023-11-14T22:13:20Z`), from seconds since

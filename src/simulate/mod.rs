@@ -133,6 +133,19 @@ pub fn simulate_with_progress(
     cfg: &SimConfig,
     tick: &(dyn Fn() + Sync),
 ) -> Result<Counts> {
+    simulate_until(layout, circuits, noise, cfg, tick, &|| false)
+}
+
+/// As [`simulate_with_progress`], returning [`Error::Interrupted`] as soon as `stop` says
+/// so (checked before each circuit).
+pub fn simulate_until(
+    layout: &Layout,
+    circuits: &CircuitSet,
+    noise: &Noise,
+    cfg: &SimConfig,
+    tick: &(dyn Fn() + Sync),
+    stop: &(dyn Fn() -> bool + Sync),
+) -> Result<Counts> {
     if cfg.shots == 0 {
         return Err(Error::Usage("shots must be at least 1".into()));
     }
@@ -141,6 +154,9 @@ pub fn simulate_with_progress(
         .par_iter()
         .enumerate()
         .map(|(i, c)| {
+            if stop() {
+                return Err(Error::Interrupted);
+            }
             let r = simulate_circuit(layout, c, i, noise, cfg);
             tick();
             r.map(Some)

@@ -10,7 +10,7 @@ use std::path::Path;
 use serde::Deserialize;
 use toml::Spanned;
 
-use crate::error::{Error, Result};
+use crate::error::{echo, Error, Result, Warning};
 use crate::gate::Gate;
 use crate::layout::{Layout, QubitIx};
 
@@ -258,7 +258,13 @@ pub struct Noise {
     context: Vec<ContextTerm>,
     readout_crosstalk: Vec<ReadoutCrosstalk>,
     drift: Vec<Drift>,
+    /// Terms no audit could see (see [`Noise::warnings`]).
+    warnings: Vec<Warning>,
 }
+
+/// The largest noise file read: far above any real scenario (a few hundred bytes per
+/// qubit), low enough that a file that never ends fails fast.
+pub const MAX_NOISE_FILE_BYTES: u64 = 64 << 20;
 
 impl Noise {
     /// A noise-free scenario (ideal gates, perfect readout).
@@ -270,7 +276,15 @@ impl Noise {
             context: Vec::new(),
             readout_crosstalk: Vec::new(),
             drift: Vec::new(),
+            warnings: Vec::new(),
         }
+    }
+
+    /// Findings about the file that are not errors: crosstalk terms between qubits that
+    /// are not neighbours under the layout's neighbourhood, which no audit of that layout
+    /// can see.
+    pub fn warnings(&self) -> &[Warning] {
+        &self.warnings
     }
 
     /// The intrinsic error of `gate` on `qubits` (in the operation's operand order), with
@@ -323,7 +337,12 @@ impl Noise {
     /// readout crosstalk. Intrinsic errors, readout confusion and drift stay, so the result
     /// is what a perfectly crosstalk-free chip with the same gates would give.
     pub fn without_crosstalk(&self) -> Noise {
-        Noise { context: Vec::new(), readout_crosstalk: Vec::new(), ..self.clone() }
+        Noise {
+            context: Vec::new(),
+            readout_crosstalk: Vec::new(),
+            warnings: Vec::new(),
+            ..self.clone()
+        }
     }
 
     /// The scenario with one more context term, applied after the existing ones. Fails when
@@ -358,7 +377,7 @@ impl Noise {
 
     /// Reads and validates a noise file.
     pub fn read(path: &Path, layout: &Layout) -> Result<Noise> {
-        let text = std::fs::read_to_string(path).map_err(|e| Error::io(path, e))?;
+        let text = crate::files::read_text_capped(path, MAX_NOISE_FILE_BYTES, "noise file")?;
         Noise::from_toml_str(&text, path, layout)
     }
 
@@ -416,6 +435,37 @@ impl Builder<'_> {
         Err(Error::input(self.path, Some(line_of(self.text, span.start)), msg.into()))
     }
 
+    /// Warns when a crosstalk term joins two qubits that are not neighbours: the audit
+    /// scores only neighbour pairs, so such a term shows up, if at all, as intrinsic slack.
+    fn unseen(
+        &self,
+        warnings: &mut Vec<Warning>,
+        table: &str,
+        a: QubitIx,
+        b: QubitIx,
+        span: std::ops::Range<usize>,
+    ) {
+        if self.layout.are_neighbours(a, b) {
+            return;
+        }
+        let (la, lb) = (self.layout.id(a), self.layout.id(b));
+        warnings.push(Warning::new(
+            "crosstalk-between-non-neighbours",
+            format!(
+                "{} line {}: the [[{table}]] term joins {la} and {lb}, which are not neighbours \
+                 in layout '{}', so no audit of this layout can see it (it can only show up as \
+                 intrinsic slack)",
+                crate::error::echo_path(self.path),
+                line_of(self.text, span.start),
+                echo(&self.layout.name)
+            ),
+            format!(
+                "simulate crosstalk between neighbours, or widen the layout's [neighbourhood] \
+                 (radius, extra_pairs) to take in {la}-{lb}"
+            ),
+        ));
+    }
+
     fn qubit(&self, id: &Spanned<String>, what: &str) -> Result<QubitIx> {
         let span = id.span();
         let id = id.get_ref();
@@ -424,8 +474,9 @@ impl Builder<'_> {
             None => self.err(
                 span,
                 format!(
-                    "{what} names qubit '{id}', which is not in layout '{}' ({} qubits)",
-                    self.layout.name,
+                    "{what} names qubit '{}', which is not in layout '{}' ({} qubits)",
+                    echo(id),
+                    echo(&self.layout.name),
                     self.layout.n_qubits()
                 ),
             ),
@@ -446,7 +497,7 @@ impl Builder<'_> {
             Some("driven") => Ok(Role::Driven),
             Some("idle") => Ok(Role::Idle),
             Some(other) => {
-                self.err(span, format!("role '{other}' is not one of: driven, idle, both"))
+                self.err(span, format!("role '{}' is not one of: driven, idle, both", echo(other)))
             }
         }
     }
@@ -465,7 +516,7 @@ impl Builder<'_> {
                 r.span(),
                 format!(
                     "axis '{}' is not a Pauli string of {k} letter(s) from I, X, Y, Z (not all I)",
-                    w.axis
+                    echo(&w.axis)
                 ),
             ),
         }
@@ -494,8 +545,9 @@ impl Builder<'_> {
                             return self.err(
                                 p.span(),
                                 format!(
-                                    "pauli label '{label}' is not a Pauli string of {k} letter(s) \
+                                    "pauli label '{}' is not a Pauli string of {k} letter(s) \
                                      (first letter = first operand), e.g. {}",
+                                    echo(label),
                                     if k == 1 { "X" } else { "XZ" }
                                 ),
                             )
@@ -546,14 +598,17 @@ impl Builder<'_> {
                 None => {
                     return self.err(
                         span,
-                        format!("unknown gate '{name}' (known: {})", Gate::known_names()),
+                        format!("unknown gate '{}' (known: {})", echo(name), Gate::known_names()),
                     )
                 }
             };
             if layout.is_virtual(g) {
                 return self.err(
                     span,
-                    format!("gate '{name}' is virtual on this layout: it is ideal and error-free"),
+                    format!(
+                        "gate '{}' is virtual on this layout: it is ideal and error-free",
+                        echo(name)
+                    ),
                 );
             }
             Ok(g)
@@ -627,9 +682,21 @@ impl Builder<'_> {
                     .map_or(Ok(0.0), |v| self.prob(v, "p0_given_1"))?,
             };
             noise.readout = vec![d; layout.n_qubits()];
+            let mut first_line: HashMap<QubitIx, usize> = HashMap::new();
             for q in &r.qubits {
                 let s = q.get_ref();
                 let ix = self.qubit(&s.qubit, "readout.qubits")?;
+                let line = line_of(self.text, q.span().start);
+                if let Some(first) = first_line.insert(ix, line) {
+                    return self.err(
+                        q.span(),
+                        format!(
+                            "a second [[readout.qubits]] entry for {} (the first is on line \
+                             {first}); give one entry per qubit",
+                            echo(s.qubit.get_ref())
+                        ),
+                    );
+                }
                 noise.readout[ix] = Readout {
                     p1_given_0: self.prob(&s.p1_given_0, "p1_given_0")?,
                     p0_given_1: self.prob(&s.p0_given_1, "p0_given_1")?,
@@ -644,6 +711,7 @@ impl Builder<'_> {
                 return self.err(c.span(), "victim and aggressor are the same qubit");
             }
             let role = self.role(s.role.as_deref(), c.span())?;
+            self.unseen(&mut noise.warnings, "context", victim, aggressor, c.span());
             let mut e = self.error_spec((&s.depolarizing, &None, &s.rotation), &None, 1)?;
             if let Some(d) = &s.dephasing {
                 // Dephasing after depolarizing: compose the two Pauli channels exactly.
@@ -675,6 +743,7 @@ impl Builder<'_> {
             if a == b {
                 return self.err(z.span(), "a zz term joins two different qubits");
             }
+            self.unseen(&mut noise.warnings, "zz", a, b, z.span());
             let phi = *s.angle.get_ref();
             if !phi.is_finite() {
                 return self.err(s.angle.span(), format!("zz angle {phi} is not finite"));
@@ -701,6 +770,7 @@ impl Builder<'_> {
                 return self.err(r.span(), "victim and neighbour are the same qubit");
             }
             let flip = self.prob(&s.flip, "flip")?;
+            self.unseen(&mut noise.warnings, "readout_crosstalk", victim, neighbour, r.span());
             noise.readout_crosstalk.push(ReadoutCrosstalk { victim, neighbour, flip });
         }
         for d in &w.drift {
@@ -716,7 +786,10 @@ impl Builder<'_> {
             let axis = s.axis.as_deref().unwrap_or("Z");
             let pauli = match axis.chars().map(pauli_letter).collect::<Option<Vec<u8>>>() {
                 Some(p) if p.len() == 1 && p[0] != 0 => p[0],
-                _ => return self.err(d.span(), format!("drift axis '{axis}' is not X, Y or Z")),
+                _ => {
+                    return self
+                        .err(d.span(), format!("drift axis '{}' is not X, Y or Z", echo(axis)))
+                }
             };
             let role = self.role(s.role.as_deref(), d.span())?;
             noise.drift.push(Drift { qubit, sigma_rad: sigma, pauli, role });
@@ -821,6 +894,30 @@ sigma = 0.03
         // XZ on (q0, q1): X on q0 = index 1 + 4*3 = 13; seen from (q1, q0) it is ZX = 3 + 4.
         assert!((n.intrinsic(Gate::Cz, &[0, 1]).unwrap().pauli[13] - 1e-3).abs() < 1e-15);
         assert!((n.intrinsic(Gate::Cz, &[1, 0]).unwrap().pauli[7] - 1e-3).abs() < 1e-15);
+    }
+
+    #[test]
+    fn a_second_readout_entry_for_a_qubit_names_both_lines() {
+        let text = "schema = 1\n[readout]\n[[readout.qubits]]\nqubit = \"q3\"\np1_given_0 = 0.01\n\
+                    p0_given_1 = 0.02\n[[readout.qubits]]\nqubit = \"q3\"\np1_given_0 = 0.03\n\
+                    p0_given_1 = 0.04\n";
+        let e = parse(text).unwrap_err();
+        assert_eq!(line_of_err(&e), Some(7), "{e}");
+        assert!(e.to_string().contains("the first is on line 3"), "{e}");
+    }
+
+    #[test]
+    fn crosstalk_between_non_neighbours_is_warned_about() {
+        let layout = grid(3, 3);
+        let text = "schema = 1\n[[context]]\nvictim = \"q0\"\naggressor = \"q8\"\n\
+                    depolarizing = 0.01\n[[zz]]\nqubits = [\"q0\", \"q1\"]\nangle = 0.1\n\
+                    [[readout_crosstalk]]\nvictim = \"q2\"\nneighbour = \"q6\"\nflip = 0.01\n";
+        let n = Noise::from_toml_str(text, Path::new("n.toml"), &layout).unwrap();
+        let w: Vec<&str> = n.warnings().iter().map(|w| w.message.as_str()).collect();
+        assert_eq!(w.len(), 2, "{w:?}");
+        assert!(w[0].starts_with("n.toml line 2: the [[context]] term joins q0 and q8"), "{w:?}");
+        assert!(w[1].contains("[[readout_crosstalk]] term joins q2 and q6"), "{w:?}");
+        assert!(n.without_crosstalk().warnings().is_empty());
     }
 
     #[test]
