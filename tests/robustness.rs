@@ -637,3 +637,22 @@ fn the_demo_runs_from_anywhere_with_the_binary_moved() {
         assert!(text.contains(&hex), "{f}: {text:.300}");
     }
 }
+
+#[test]
+fn an_audit_file_that_is_not_utf8_is_named_with_its_line() {
+    let tmp = tempfile::tempdir().unwrap();
+    let bad = tmp.path().join("audit.json");
+    std::fs::write(&bad, b"{\n  \"schema\": 3,\n  \"layout\": \"\xff\xfe\"\n}\n").unwrap();
+    for args in [
+        vec!["report", s(&bad), "--out", s(&tmp.path().join("r"))],
+        vec!["compare", s(&bad), s(&bad), "--out", s(&tmp.path().join("c"))],
+        vec!["hints", s(&bad), "--out", s(&tmp.path().join("h"))],
+        vec!["merge", s(&bad), "--out", s(&tmp.path().join("m"))],
+    ] {
+        slackmap().args(&args).assert().code(2).stderr(
+            predicate::str::contains("line 3")
+                .and(predicate::str::contains("not UTF-8"))
+                .and(predicate::str::contains(s(&bad))),
+        );
+    }
+}

@@ -71,8 +71,12 @@ pub fn run(args: MergeArgs) -> anyhow::Result<()> {
     let mut names = Vec::new();
     for p in &args.parts {
         let path = if p.is_dir() { p.join(partial::FILE_NAME) } else { p.clone() };
-        let bytes = std::fs::read(&path).map_err(|e| slackmap::Error::io(&path, e))?;
-        let part: partial::Partial = serde_json::from_slice(&bytes).map_err(|e| {
+        let text = slackmap::files::read_text_capped(
+            &path,
+            slackmap::report::json::MAX_AUDIT_FILE_BYTES,
+            "partial file",
+        )?;
+        let part: partial::Partial = serde_json::from_str(&text).map_err(|e| {
             slackmap::Error::input(
                 &path,
                 Some(e.line()),

@@ -22,6 +22,10 @@ impl Render for AuditJson {
     }
 }
 
+/// The largest `audit.json` read back (a 1,024-qubit audit is tens of MB; anything this large is
+/// not an audit file, or a broken one).
+pub const MAX_AUDIT_FILE_BYTES: u64 = 1 << 30;
+
 /// The oldest `audit.json` schema this build reads.
 pub const OLDEST_SCHEMA: u32 = 2;
 
@@ -29,7 +33,7 @@ pub const OLDEST_SCHEMA: u32 = 2;
 /// brought up to date (reason codes from the reason words). Refuses a file that is not
 /// consistent (see [`check`]), naming the file and what is wrong.
 pub fn read(path: &Path) -> Result<AuditReport> {
-    let text = std::fs::read_to_string(path).map_err(|e| Error::io(path, e))?;
+    let text = crate::files::read_text_capped(path, MAX_AUDIT_FILE_BYTES, "audit file")?;
     let bad = |e: serde_json::Error| {
         let line = (e.line() > 0).then_some(e.line());
         Error::input(path, line, format!("not a slackmap audit file: {e}"))
