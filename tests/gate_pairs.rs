@@ -26,6 +26,14 @@ fn p(path: &Path) -> String {
     path.to_string_lossy().to_string()
 }
 
+/// Runs `design` on the 4x4 grid into `out` (2 sequences unless `args` say otherwise).
+fn design_4x4(out: &Path, args: &[&str]) {
+    let (layout, out) = (p(&grid4()), p(out));
+    let mut all = vec!["design", "--layout", &layout, "--sequences", "2", "--out", &out];
+    all.extend_from_slice(args);
+    run(&all);
+}
+
 /// One circuit of circuits.json: per layer, the gates as (name, qubit ids).
 struct Circ {
     layers: Vec<Vec<(String, Vec<String>)>>,
@@ -134,22 +142,7 @@ fn ends(block: &str) -> Option<(String, String)> {
 fn gate_pair_design_covers_every_pair_in_shared_layers_and_passes_check() {
     let tmp = tempfile::tempdir().unwrap();
     let out = tmp.path().join("d");
-    run(&[
-        "design",
-        "--layout",
-        &p(&grid4()),
-        "--gate-pairs",
-        "--depths",
-        "2,8",
-        "--sequences",
-        "2",
-        "--kinds",
-        "randomized",
-        "--seed",
-        "5",
-        "--out",
-        &p(&out),
-    ]);
+    design_4x4(&out, &["--gate-pairs", "--depths", "2,8", "--kinds", "randomized", "--seed", "5"]);
     run(&["check", "--layout", &p(&grid4()), "--circuits", &p(&out.join("circuits.json"))]);
     let layout = read_layout(&grid4()).unwrap();
     let ids: Vec<String> = (0..layout.n_qubits()).map(|q| layout.id(q).to_string()).collect();
@@ -306,20 +299,7 @@ fn noise_with(extra: &str) -> String {
 fn a_gate_context_term_changes_only_circuits_where_victim_and_aggressor_run_together() {
     let tmp = tempfile::tempdir().unwrap();
     let t = |n: &str| tmp.path().join(n);
-    run(&[
-        "design",
-        "--layout",
-        &p(&grid4()),
-        "--gate-pairs",
-        "--depths",
-        "1,4",
-        "--sequences",
-        "2",
-        "--seed",
-        "9",
-        "--out",
-        &p(&t("d")),
-    ]);
+    design_4x4(&t("d"), &["--gate-pairs", "--depths", "1,4", "--seed", "9"]);
     let circuits_path = t("d").join("circuits.json");
     let circuits = read_circuits(&circuits_path);
     let manifest = read_manifest(&t("d").join("manifest.csv"));
@@ -410,17 +390,7 @@ fn a_gate_context_term_changes_only_circuits_where_victim_and_aggressor_run_toge
 fn a_bad_gate_context_term_is_refused_with_file_and_line() {
     let tmp = tempfile::tempdir().unwrap();
     let t = |n: &str| tmp.path().join(n);
-    run(&[
-        "design",
-        "--layout",
-        &p(&grid4()),
-        "--depths",
-        "1",
-        "--sequences",
-        "1",
-        "--out",
-        &p(&t("d")),
-    ]);
+    design_4x4(&t("d"), &["--depths", "1"]);
     let term = "[[gate_context]]\nvictim = [\"q5\", \"q6\"]\naggressor = [\"q6\", \"q7\"]\n\
                 depolarizing = 0.01\n";
     std::fs::write(t("noise.toml"), noise_with(term)).unwrap();

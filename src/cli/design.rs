@@ -46,7 +46,8 @@ pub struct DesignArgs {
     /// Also write circuits for gate-on-gate crosstalk: every two nearby couplers that share
     /// no qubit run two-qubit sequences in the same layers (context gate-pair), and every
     /// coupler runs beside each nearby qubit driven by one-qubit gates (gate-qubit). The
-    /// standard circuits stay as they are.
+    /// standard circuits stay as they are. Many more patterns: a square grid gets about 360
+    /// to 380 besides its 47 standard ones.
     #[arg(long)]
     gate_pairs: bool,
     /// Output folder (must not exist, or be empty).

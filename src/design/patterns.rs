@@ -348,18 +348,17 @@ pub fn gate_pairs(layout: &Layout) -> Vec<(usize, usize)> {
     out
 }
 
-/// For every coupler, the couplers that share no qubit with it and have an end in the
-/// neighbourhood of one of its ends (sorted).
+/// For every coupler, the couplers that share no qubit with it and have an end among its
+/// [`gate_spectators`] (sorted).
 fn near_couplers(layout: &Layout) -> Vec<Vec<usize>> {
-    layout
-        .couplers
-        .iter()
-        .map(|&(a, b)| {
-            let mut near: Vec<usize> = [a, b]
-                .iter()
-                .flat_map(|&x| layout.neighbours(x).iter())
-                .flat_map(|&y| layout.coupled(y).iter().map(move |&z| (y, z)))
-                .filter(|&(y, z)| ![a, b].contains(&y) && ![a, b].contains(&z))
+    gate_spectators(layout)
+        .into_iter()
+        .zip(&layout.couplers)
+        .map(|(spectators, &(a, b))| {
+            let mut near: Vec<usize> = spectators
+                .into_iter()
+                .flat_map(|y| layout.coupled(y).iter().map(move |&z| (y, z)))
+                .filter(|&(_, z)| z != a && z != b)
                 .filter_map(|(y, z)| layout.coupler(y, z))
                 .collect();
             near.sort_unstable();
@@ -605,6 +604,39 @@ mod tests {
             }
             assert_eq!(beside, want, "{}", layout.name);
             assert!(min_gate_patterns(&layout) <= ps.len() as u64, "{}", layout.name);
+        }
+    }
+
+    #[test]
+    fn wider_neighbourhoods_add_wider_gate_pairs() {
+        // A chain q0-...-q5; couplers 0 = q0-q1, 1 = q1-q2, ..., 4 = q4-q5.
+        let chain =
+            |hood: &str| {
+                let text =
+                    format!(
+                "name = \"c6\"\nqubits = [{}]\ncouplers = [{}]\n[gates]\none_qubit = [\"sx\", \
+                 \"rz\"]\nvirtual = [\"rz\"]\ntwo_qubit = \"cz\"\n{hood}",
+                (0..6).map(|i| format!("{{ id = \"q{i}\" }}")).collect::<Vec<_>>().join(", "),
+                (0..5).map(|i| format!("[\"q{i}\", \"q{}\"]", i + 1)).collect::<Vec<_>>().join(", ")
+            );
+                crate::layout::parse_layout(&text, std::path::Path::new("c6.toml")).unwrap()
+            };
+        let near = chain("");
+        assert_eq!(gate_pairs(&near), vec![(0, 2), (1, 3), (2, 4)]);
+        // Radius 2: q1 sees q3 and q2 sees q4.
+        let wide = chain("[neighbourhood]\nradius = 2\n");
+        assert_eq!(gate_pairs(&wide), vec![(0, 2), (0, 3), (1, 3), (1, 4), (2, 4)]);
+        // An extra spectator pair q0-q5 joins the chain's two ends.
+        let extra = chain("[neighbourhood]\nextra_pairs = [[\"q0\", \"q5\"]]\n");
+        assert_eq!(gate_pairs(&extra), vec![(0, 2), (0, 4), (1, 3), (2, 4)]);
+        assert_eq!(gate_spectators(&extra)[0], vec![2, 5]);
+        for layout in [&wide, &extra] {
+            let found: usize = gate_patterns(layout)
+                .iter()
+                .filter(|p| p.context == Context::GatePair)
+                .map(|p| gate_units(layout, p).len())
+                .sum();
+            assert_eq!(found, gate_pairs(layout).len());
         }
     }
 
