@@ -405,3 +405,42 @@ fn a_bad_gate_context_term_is_refused_with_file_and_line() {
         .stderr(predicates::str::contains("shares qubit q6 with the victim q5-q6"));
     assert!(!t("counts.csv").exists() && !t("truth.json").exists());
 }
+
+#[test]
+fn the_gate_term_acts_exactly_when_its_aggressor_runs_beside_the_gate() {
+    use slackmap::circuit::{Circuit, Op};
+    use slackmap::gate::Gate;
+    use slackmap::simulate::{exact_block_distribution, Noise};
+    // grid(3, 3): q0 q1 q2 / q3 q4 q5 / q6 q7 q8. Victim q0-q1, aggressors q3-q4 and q2.
+    let layout = slackmap::layout::generate::grid(3, 3);
+    let theta: f64 = 0.3;
+    let text = format!(
+        "schema = 1\n[[gate_context]]\nvictim = [\"q0\", \"q1\"]\naggressor = [\"q3\", \"q4\"]\n\
+         rotation = {{ angle = {theta}, axis = \"XX\" }}\n[[gate_context]]\n\
+         victim = [\"q1\", \"q0\"]\naggressor = [\"q2\"]\npauli = {{ XI = 0.25 }}\n"
+    );
+    let noise = Noise::from_toml_str(&text, Path::new("n.toml"), &layout).unwrap();
+    let cz = |a, b| Op::two(Gate::Cz, a, b);
+    let p11 = |layer: Vec<Op>| {
+        let measured: Vec<usize> = (0..9).collect();
+        let c = Circuit { id: "c".into(), layers: vec![layer], measured };
+        let d = exact_block_distribution(&layout, &c, &[0, 1], &noise, &[]).unwrap();
+        (d[1], d[2], d[3])
+    };
+    // Alone: cz|00> = |00>.
+    assert_eq!(p11(vec![cz(0, 1)]), (0.0, 0.0, 0.0));
+    // Beside cz on q3-q4: exp(-i theta/2 XX)|00> = cos|00> - i sin|11>, so P(11) =
+    // sin^2(theta/2) (closed form of a Pauli rotation).
+    let (p10, p01, p11_) = p11(vec![cz(0, 1), cz(4, 3)]);
+    assert!(p10.abs() < 1e-15 && p01.abs() < 1e-15);
+    assert!((p11_ - (theta / 2.0).sin().powi(2)).abs() < 1e-12);
+    // q3, q4 driven by one-qubit gates is not the coupler running its gate.
+    let sx = |q| Op::one(Gate::Sx, q);
+    assert_eq!(p11(vec![cz(0, 1), sx(3), sx(4)]).2, 0.0);
+    // Beside a driven q2: X on the first listed victim qubit (q1) with probability 1/4;
+    // an idle or virtual q2 is no aggressor.
+    let (_, p_q1, _) = p11(vec![cz(0, 1), sx(2)]);
+    assert!((p_q1 - 0.25).abs() < 1e-12, "{p_q1}");
+    assert_eq!(p11(vec![cz(0, 1), Op::one(Gate::Id, 2)]).1, 0.0);
+    assert_eq!(p11(vec![cz(0, 1), Op::rot(Gate::Rz, 2, 0.5)]).1, 0.0);
+}
