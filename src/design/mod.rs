@@ -41,6 +41,9 @@ pub struct DesignConfig {
     pub kinds: Vec<Kind>,
     /// Size limits (depth, sequences, circuits, bytes of the files); see [`Limits`].
     pub limits: Limits,
+    /// Adds the gate-pair and gate-qubit patterns ([`patterns::gate_patterns`]) after the
+    /// standard ones; the standard circuits stay as they are without it.
+    pub gate_pairs: bool,
 }
 
 impl DesignConfig {
@@ -77,12 +80,24 @@ impl DesignConfig {
                 "give at least one kind (randomized, repeated-x, repeated-z)".into(),
             ));
         }
-        Ok(DesignConfig { depths, sequences, seed, kinds: k, limits: Limits::DEFAULT })
+        Ok(DesignConfig {
+            depths,
+            sequences,
+            seed,
+            kinds: k,
+            limits: Limits::DEFAULT,
+            gate_pairs: false,
+        })
     }
 
     /// The same configuration under other limits (checked when the design is built).
     pub fn with_limits(self, limits: Limits) -> DesignConfig {
         DesignConfig { limits, ..self }
+    }
+
+    /// The same configuration with or without the gate-pair and gate-qubit patterns.
+    pub fn with_gate_pairs(self, gate_pairs: bool) -> DesignConfig {
+        DesignConfig { gate_pairs, ..self }
     }
 
     /// Fails when a depth or the sequence count is above its limit.
@@ -147,6 +162,13 @@ pub struct Design {
     pub n_patterns: usize,
 }
 
+/// A run of patterns whose jobs are numbered together: `kind_start` holds the first job
+/// index of each kind (in `cfg.kinds` order), then the end of the group's jobs.
+struct Group {
+    patterns: std::ops::Range<usize>,
+    kind_start: Vec<usize>,
+}
+
 struct Job {
     pattern: usize,
     kind: Kind,
@@ -184,8 +206,10 @@ pub struct Blueprint<'a> {
     patterns: Vec<Pattern>,
     /// Job index of each run position (the seeded shuffle of all jobs).
     order: Vec<u32>,
-    /// First job index of each kind, in `cfg.kinds` order, then the job count.
-    kind_start: Vec<usize>,
+    /// The pattern groups: the standard patterns, then (optionally) the gate patterns. Each
+    /// group's jobs follow the previous group's, so that adding a group leaves every
+    /// standard circuit (and its generator) as it was.
+    groups: Vec<Group>,
     all_active: Option<usize>,
     width: usize,
 }
@@ -198,7 +222,11 @@ impl<'a> Blueprint<'a> {
         let builder = sequences::Builder::new(layout)?;
         let limits = cfg.limits;
         let per_pattern = cfg.per_pattern().unwrap_or(u64::MAX);
-        let at_least = patterns::min_patterns(layout).saturating_mul(per_pattern);
+        let mut least = patterns::min_patterns(layout);
+        if cfg.gate_pairs {
+            least = least.saturating_add(patterns::min_gate_patterns(layout));
+        }
+        let at_least = least.saturating_mul(per_pattern);
         if limits.enforced && at_least > Limits::CIRCUITS {
             return Err(Error::Usage(format!(
                 "layout '{}' would need at least {at_least} circuits ({per_pattern} per \
@@ -208,7 +236,11 @@ impl<'a> Blueprint<'a> {
                 Limits::CIRCUITS
             )));
         }
-        let patterns = patterns::patterns(layout);
+        let mut patterns = patterns::patterns(layout);
+        let standard = patterns.len();
+        if cfg.gate_pairs {
+            patterns.extend(patterns::gate_patterns(layout));
+        }
         let total = (patterns.len() as u64).saturating_mul(per_pattern);
         if limits.enforced && total > Limits::CIRCUITS {
             return Err(Error::Usage(format!(
@@ -227,18 +259,25 @@ impl<'a> Blueprint<'a> {
             builder,
             patterns,
             order: Vec::new(),
-            kind_start: Vec::new(),
+            groups: Vec::new(),
             all_active: None,
             width: n.saturating_sub(1).to_string().len(),
         };
         bp.all_active = bp.patterns.iter().position(|p| p.context == Context::AllActive1q);
-        let p = bp.patterns.len();
         let mut start = 0;
-        for &k in &cfg.kinds {
-            bp.kind_start.push(start);
-            start += cfg.depths.len() * cfg.sequences_of(k) * p;
+        for range in [0..standard, standard..bp.patterns.len()] {
+            if range.is_empty() {
+                continue;
+            }
+            let p = range.len();
+            let mut kind_start = Vec::new();
+            for &k in &cfg.kinds {
+                kind_start.push(start);
+                start += cfg.depths.len() * cfg.sequences_of(k) * p;
+            }
+            kind_start.push(start);
+            bp.groups.push(Group { patterns: range, kind_start });
         }
-        bp.kind_start.push(start);
         limits.check_bytes(
             "the design's files",
             bp.estimated_file_bytes(),
@@ -286,12 +325,14 @@ impl<'a> Blueprint<'a> {
     }
 
     fn job(&self, index: usize) -> Job {
-        let p = self.patterns.len();
-        let k = self.kind_start.partition_point(|&s| s <= index) - 1;
+        let g = self.groups.iter().position(|g| index < g.kind_start[g.kind_start.len() - 1]);
+        let g = &self.groups[g.unwrap_or(self.groups.len() - 1)];
+        let p = g.patterns.len();
+        let k = g.kind_start.partition_point(|&s| s <= index) - 1;
         let kind = self.cfg.kinds[k];
-        let r = index - self.kind_start[k];
+        let r = index - g.kind_start[k];
         let seqs = self.cfg.sequences_of(kind);
-        let (pattern, r) = (r % p, r / p);
+        let (pattern, r) = (g.patterns.start + r % p, r / p);
         Job { pattern, kind, depth: self.cfg.depths[r / seqs], sequence: r % seqs }
     }
 

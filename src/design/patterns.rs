@@ -3,7 +3,8 @@
 //! Two units (a reference qubit, a coupler, or a neighbour pair) share a circuit only when
 //! their closed neighbourhoods are disjoint, so no active qubit of one is a neighbour of the
 //! other and their measured spectators do not overlap (method.md section 7). The number of
-//! colours depends on the layout's degree, not its size.
+//! colours depends on the layout's degree, not its size. The gate patterns pack two-coupler
+//! and coupler-beside-qubit units the same way ([`gate_patterns`]).
 
 use rayon::prelude::*;
 
@@ -25,6 +26,13 @@ pub enum Context {
     AllActive2q,
     /// Every qubit idles for the length of a sequence.
     AllIdle,
+    /// Two nearby couplers that share no qubit run two-qubit sequences in the same layers,
+    /// every neighbour idle and measured: each coupler's gate beside the other's.
+    GatePair,
+    /// A coupler runs a two-qubit sequence and a nearby qubit a one-qubit one, every other
+    /// neighbour idle and measured: the gate beside a driven qubit and the qubit beside the
+    /// gate.
+    GateQubit,
 }
 
 impl Context {
@@ -37,6 +45,8 @@ impl Context {
             Context::AllActive1q => "all-active-1q",
             Context::AllActive2q => "all-active-2q",
             Context::AllIdle => "all-idle",
+            Context::GatePair => "gate-pair",
+            Context::GateQubit => "gate-qubit",
         }
     }
 }
@@ -327,6 +337,116 @@ pub fn patterns(layout: &Layout) -> Vec<Pattern> {
     out
 }
 
+/// The pairs of couplers (indices i < j, sorted) that share no qubit and whose ends are
+/// neighbours: joined by a coupler, or within the layout's widened neighbourhood (radius 2,
+/// extra pairs), exactly as neighbour pairs of qubits are found.
+pub fn gate_pairs(layout: &Layout) -> Vec<(usize, usize)> {
+    let mut out = Vec::new();
+    for (i, near) in near_couplers(layout).into_iter().enumerate() {
+        out.extend(near.into_iter().filter(|&j| j > i).map(|j| (i, j)));
+    }
+    out
+}
+
+/// For every coupler, the couplers that share no qubit with it and have an end among its
+/// [`gate_spectators`] (sorted).
+fn near_couplers(layout: &Layout) -> Vec<Vec<usize>> {
+    gate_spectators(layout)
+        .into_iter()
+        .zip(&layout.couplers)
+        .map(|(spectators, &(a, b))| {
+            let mut near: Vec<usize> = spectators
+                .into_iter()
+                .flat_map(|y| layout.coupled(y).iter().map(move |&z| (y, z)))
+                .filter(|&(_, z)| z != a && z != b)
+                .filter_map(|(y, z)| layout.coupler(y, z))
+                .collect();
+            near.sort_unstable();
+            near.dedup();
+            near
+        })
+        .collect()
+}
+
+/// For every coupler (by index), the qubits outside it in the neighbourhood of its ends
+/// (sorted): the spectators whose one-qubit gates can disturb its gate, and the reverse.
+pub fn gate_spectators(layout: &Layout) -> Vec<Vec<QubitIx>> {
+    layout
+        .couplers
+        .iter()
+        .map(|&(a, b)| {
+            let mut v: Vec<QubitIx> = [a, b]
+                .iter()
+                .flat_map(|&x| layout.neighbours(x).iter().copied())
+                .filter(|&r| r != a && r != b)
+                .collect();
+            v.sort_unstable();
+            v.dedup();
+            v
+        })
+        .collect()
+}
+
+/// A lower bound on the number of gate-pair and gate-qubit patterns, in time linear in the
+/// layout's size times its degree squared and memory linear in its size: every unit with a
+/// coupler end in N[r] covers r, so those units need colours of their own. A gate pair is
+/// counted at most four times that way (two couplers, two ends each), a gate-qubit unit at
+/// most twice.
+pub fn min_gate_patterns(layout: &Layout) -> u64 {
+    let pair_degree: Vec<u64> =
+        near_couplers(layout).iter().map(|near| near.len() as u64).collect();
+    let spectators: Vec<u64> = gate_spectators(layout).iter().map(|s| s.len() as u64).collect();
+    let mut most = [0u64; 2];
+    for r in 0..layout.n_qubits() {
+        let (mut pairs, mut beside) = (0u64, 0u64);
+        for q in std::iter::once(r).chain(layout.neighbours(r).iter().copied()) {
+            for &s in layout.coupled(q) {
+                if let Some(c) = layout.coupler(q, s) {
+                    pairs += pair_degree[c];
+                    beside += spectators[c];
+                }
+            }
+        }
+        most[0] = most[0].max(pairs.div_ceil(4));
+        most[1] = most[1].max(beside.div_ceil(2));
+    }
+    most[0] + most[1]
+}
+
+/// The patterns a design adds to measure gate-on-gate crosstalk, in a fixed order: gate
+/// pairs (both couplers of every [`gate_pairs`] entry run in the same layers), then a coupler
+/// beside each of its [`gate_spectators`] driven. Units are packed like the reference ones,
+/// so the number of patterns depends on the layout's degree, not its size.
+pub fn gate_patterns(layout: &Layout) -> Vec<Pattern> {
+    let two = |c: usize| {
+        let (a, b) = layout.couplers[c];
+        BlockSpec::Two(a, b)
+    };
+    let mut out = Vec::new();
+    let pairs = gate_pairs(layout);
+    let units: Vec<Vec<QubitIx>> = pairs
+        .iter()
+        .map(|&(i, j)| two(i).qubits().into_iter().chain(two(j).qubits()).collect())
+        .collect();
+    for class in pack(layout, &units) {
+        let blocks = class.iter().flat_map(|&u| [two(pairs[u].0), two(pairs[u].1)]).collect();
+        out.push(pattern(layout, Context::GatePair, blocks));
+    }
+    let beside: Vec<(usize, QubitIx)> = gate_spectators(layout)
+        .into_iter()
+        .enumerate()
+        .flat_map(|(c, qs)| qs.into_iter().map(move |r| (c, r)))
+        .collect();
+    let units: Vec<Vec<QubitIx>> =
+        beside.iter().map(|&(c, r)| two(c).qubits().into_iter().chain([r]).collect()).collect();
+    for class in pack(layout, &units) {
+        let blocks =
+            class.iter().flat_map(|&u| [two(beside[u].0), BlockSpec::One(beside[u].1)]).collect();
+        out.push(pattern(layout, Context::GateQubit, blocks));
+    }
+    out
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;
@@ -400,6 +520,124 @@ mod tests {
         assert_eq!(ps.iter().filter(packed).count(), units);
         assert!(min_patterns(&layout) <= ps.len() as u64);
         assert!(min_patterns(&layout) >= units as u64);
+    }
+
+    /// The units of a gate pattern: couplers paired with their near coupler (gate-pair) or
+    /// with the one-qubit block beside them (gate-qubit), rebuilt from the blocks alone.
+    fn gate_units(layout: &Layout, p: &Pattern) -> Vec<Vec<QubitIx>> {
+        let near = |x: &BlockSpec, y: &BlockSpec| {
+            x.qubits().iter().any(|&a| y.qubits().iter().any(|&b| layout.are_neighbours(a, b)))
+        };
+        let mut units = Vec::new();
+        for (i, x) in p.blocks.iter().enumerate() {
+            let partners: Vec<&BlockSpec> = p
+                .blocks
+                .iter()
+                .enumerate()
+                .filter(|&(j, y)| j != i && near(x, y))
+                .map(|t| t.1)
+                .collect();
+            assert_eq!(partners.len(), 1, "{:?}: {x:?} sees {partners:?}", p.context);
+            if x < partners[0] {
+                units.push(x.qubits().into_iter().chain(partners[0].qubits()).collect());
+            }
+        }
+        units
+    }
+
+    #[test]
+    fn gate_patterns_cover_every_unit_once_with_disjoint_neighbourhoods() {
+        for layout in [generate::grid(5, 6), generate::hex(2, 3), generate::ring(9)] {
+            let ps = gate_patterns(&layout);
+            let mut pairs = Vec::new();
+            let mut beside = Vec::new();
+            for p in &ps {
+                let units = gate_units(&layout, p);
+                let hoods: Vec<Vec<QubitIx>> =
+                    units.iter().map(|u| closed_neighbourhood(&layout, u)).collect();
+                for i in 0..hoods.len() {
+                    for j in i + 1..hoods.len() {
+                        assert!(hoods[i].iter().all(|q| !hoods[j].contains(q)), "{:?}", p.context);
+                    }
+                }
+                for u in units {
+                    match (p.context, u.len()) {
+                        (Context::GatePair, 4) => {
+                            let c1 = layout.coupler(u[0], u[1]).unwrap();
+                            let c2 = layout.coupler(u[2], u[3]).unwrap();
+                            pairs.push((c1.min(c2), c1.max(c2)));
+                        }
+                        // One(r) sorts before Two(a, b): the unit is [r, a, b].
+                        (Context::GateQubit, 3) => {
+                            beside.push((layout.coupler(u[1], u[2]).unwrap(), u[0]))
+                        }
+                        other => panic!("unexpected unit {other:?}"),
+                    }
+                }
+            }
+            pairs.sort_unstable();
+            beside.sort_unstable();
+            // Every two couplers that share no qubit but are joined by a coupler.
+            let mut want = Vec::new();
+            for (i, &(a, b)) in layout.couplers.iter().enumerate() {
+                for (j, &(c, d)) in layout.couplers.iter().enumerate().skip(i + 1) {
+                    let disjoint = ![a, b].contains(&c) && ![a, b].contains(&d);
+                    let joined = [a, b]
+                        .iter()
+                        .any(|&x| [c, d].iter().any(|&y| layout.coupler(x, y).is_some()));
+                    if disjoint && joined {
+                        want.push((i, j));
+                    }
+                }
+            }
+            assert_eq!(pairs, want, "{}", layout.name);
+            let mut want: Vec<(usize, QubitIx)> = Vec::new();
+            for (c, &(a, b)) in layout.couplers.iter().enumerate() {
+                for r in 0..layout.n_qubits() {
+                    if r != a
+                        && r != b
+                        && (layout.coupler(a, r).is_some() || layout.coupler(b, r).is_some())
+                    {
+                        want.push((c, r));
+                    }
+                }
+            }
+            assert_eq!(beside, want, "{}", layout.name);
+            assert!(min_gate_patterns(&layout) <= ps.len() as u64, "{}", layout.name);
+        }
+    }
+
+    #[test]
+    fn wider_neighbourhoods_add_wider_gate_pairs() {
+        // A chain q0-...-q5; couplers 0 = q0-q1, 1 = q1-q2, ..., 4 = q4-q5.
+        let chain =
+            |hood: &str| {
+                let text =
+                    format!(
+                "name = \"c6\"\nqubits = [{}]\ncouplers = [{}]\n[gates]\none_qubit = [\"sx\", \
+                 \"rz\"]\nvirtual = [\"rz\"]\ntwo_qubit = \"cz\"\n{hood}",
+                (0..6).map(|i| format!("{{ id = \"q{i}\" }}")).collect::<Vec<_>>().join(", "),
+                (0..5).map(|i| format!("[\"q{i}\", \"q{}\"]", i + 1)).collect::<Vec<_>>().join(", ")
+            );
+                crate::layout::parse_layout(&text, std::path::Path::new("c6.toml")).unwrap()
+            };
+        let near = chain("");
+        assert_eq!(gate_pairs(&near), vec![(0, 2), (1, 3), (2, 4)]);
+        // Radius 2: q1 sees q3 and q2 sees q4.
+        let wide = chain("[neighbourhood]\nradius = 2\n");
+        assert_eq!(gate_pairs(&wide), vec![(0, 2), (0, 3), (1, 3), (1, 4), (2, 4)]);
+        // An extra spectator pair q0-q5 joins the chain's two ends.
+        let extra = chain("[neighbourhood]\nextra_pairs = [[\"q0\", \"q5\"]]\n");
+        assert_eq!(gate_pairs(&extra), vec![(0, 2), (0, 4), (1, 3), (2, 4)]);
+        assert_eq!(gate_spectators(&extra)[0], vec![2, 5]);
+        for layout in [&wide, &extra] {
+            let found: usize = gate_patterns(layout)
+                .iter()
+                .filter(|p| p.context == Context::GatePair)
+                .map(|p| gate_units(layout, p).len())
+                .sum();
+            assert_eq!(found, gate_pairs(layout).len());
+        }
     }
 
     #[test]

@@ -46,6 +46,17 @@
 //! depolarizing = 0.0
 //! dephasing = 0.0                # Z flip probability
 //!
+//! # Context error on a two-qubit gate: acts on the victim coupler's block right after its
+//! # two-qubit gate, in timed layers where the aggressor runs too: a coupler (two qubits)
+//! # running its two-qubit gate, or a qubit (one) driven by a non-idle, non-virtual gate.
+//! # Pauli labels and the rotation axis are two letters, the first on the victim's first
+//! # qubit. One term per victim and aggressor; they must share no qubit.
+//! [[gate_context]]
+//! victim = ["q5", "q6"]
+//! aggressor = ["q9", "q10"]      # or one qubit: ["q7"]
+//! pauli = { ZI = 1e-3, ZZ = 2e-3 }   # or depolarizing = 3e-3 (over the 15 Paulis)
+//! rotation = { angle = 0.05, axis = "ZZ" }
+//!
 //! # Static ZZ with conditional phase `angle` (CP = diag(1, 1, 1, e^{i angle})), simulated
 //! # in its Pauli-twirled form: each end dephases at rate sin^2(angle/2)/2 per layer while
 //! # the other end is active (see `noise::zz_dephasing_rate` for the derivation).
@@ -76,8 +87,8 @@
 //! # Conventions
 //!
 //! - Per layer: ideal unitaries and intrinsic channels of every operation, idle channels
-//!   of block qubits not acted on (only in timed layers), then context terms in file order,
-//!   then drift. Virtual gates are ideal; a qubit whose only operation in a timed layer is
+//!   of block qubits not acted on (only in timed layers), then gate-context terms on a
+//!   block whose two-qubit gate runs, then context terms in file order, then drift. Virtual gates are ideal; a qubit whose only operation in a timed layer is
 //!   virtual still waits out the layer, so it gets the idle channel and counts as idle.
 //! - Leakage: a leaked qubit never returns and reads 1 (readout confusion does not apply to
 //!   it). In a two-qubit block the branch where one qubit leaked keeps its partner's reduced
@@ -102,7 +113,10 @@ pub mod noise;
 mod state;
 pub mod truth;
 
-pub use noise::{ContextTerm, Drift, ErrorSpec, Noise, Readout, ReadoutCrosstalk, Role, Rotation};
+pub use noise::{
+    Aggressor, ContextTerm, Drift, ErrorSpec, GateContextTerm, Noise, Readout, ReadoutCrosstalk,
+    Role, Rotation,
+};
 
 use state::{rotation1, BlockState};
 
@@ -354,6 +368,18 @@ pub fn exact_block_distribution(
     Ok(out)
 }
 
+/// True when the aggressor of a gate-context term is active in a layer: a coupler when the
+/// layer runs a two-qubit gate on it, a qubit when it is in `active` (sorted).
+fn aggressor_active(layer: &[Op], active: &[QubitIx], aggressor: Aggressor) -> bool {
+    match aggressor {
+        Aggressor::Coupler(a, b) => layer.iter().any(|op| {
+            let qs = op.qubits();
+            op.gate.arity() == 2 && qs.contains(&a) && qs.contains(&b)
+        }),
+        Aggressor::Qubit(q) => active.binary_search(&q).is_ok(),
+    }
+}
+
 fn block_populations(
     layout: &Layout,
     c: &Circuit,
@@ -389,6 +415,13 @@ fn block_populations(
                 .map(|(d, &a)| (Rotation { angle_rad: a, pauli: vec![d.pauli] }, d.role))
                 .collect()
         })
+        .collect();
+    // Gate-context terms on this block, with the block positions of the victim's qubits.
+    let gate_terms: Vec<(&GateContextTerm, [usize; 2])> = noise
+        .gate_context()
+        .iter()
+        .filter_map(|t| Some((t, [local(t.victim[0])?, local(t.victim[1])?])))
+        .filter(|_| k == 2)
         .collect();
     let idle: Vec<Option<ErrorSpec>> =
         block.iter().map(|&q| noise.intrinsic(Gate::Id, &[q])).collect();
@@ -443,6 +476,13 @@ fn block_populations(
             continue;
         }
         let active = c.active_qubits(layout, t);
+        if on[0].is_some_and(|op| op.gate.arity() == 2) {
+            for (term, at) in &gate_terms {
+                if aggressor_active(&c.layers[t], &active, term.aggressor) {
+                    st.apply_error(&term.error, at);
+                }
+            }
+        }
         for j in 0..k {
             let (role, own): (Role, &[QubitIx]) = match on[j] {
                 Some(op) if op.gate != Gate::Id && !layout.is_virtual(op.gate) => {

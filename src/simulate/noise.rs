@@ -32,6 +32,8 @@ struct FileWire {
     #[serde(default)]
     context: Vec<Spanned<ContextWire>>,
     #[serde(default)]
+    gate_context: Vec<Spanned<GateContextWire>>,
+    #[serde(default)]
     zz: Vec<Spanned<ZzWire>>,
     #[serde(default)]
     readout_crosstalk: Vec<Spanned<ReadoutCrosstalkWire>>,
@@ -91,6 +93,16 @@ struct ContextWire {
     role: Option<String>,
     depolarizing: Option<Num>,
     dephasing: Option<Num>,
+    rotation: Option<Spanned<RotationWire>>,
+}
+
+#[derive(Deserialize, Debug)]
+#[serde(deny_unknown_fields)]
+struct GateContextWire {
+    victim: Vec<Spanned<String>>,
+    aggressor: Vec<Spanned<String>>,
+    depolarizing: Option<Num>,
+    pauli: Option<Spanned<BTreeMap<String, f64>>>,
     rotation: Option<Spanned<RotationWire>>,
 }
 
@@ -223,6 +235,72 @@ pub struct ContextTerm {
     pub source: &'static str,
 }
 
+/// What makes a [`GateContextTerm`] act: a nearby coupler running its two-qubit gate, or a
+/// nearby qubit acted on by a non-idle, non-virtual operation, in the same timed layer.
+#[derive(Copy, Clone, Debug, PartialEq, Eq, Hash, PartialOrd, Ord)]
+pub enum Aggressor {
+    /// A coupler (a < b) that shares no qubit with the victim.
+    Coupler(QubitIx, QubitIx),
+    /// A qubit outside the victim coupler.
+    Qubit(QubitIx),
+}
+
+impl Aggressor {
+    /// The aggressor's qubits.
+    pub fn qubits(&self) -> Vec<QubitIx> {
+        match *self {
+            Aggressor::Coupler(a, b) => vec![a, b],
+            Aggressor::Qubit(q) => vec![q],
+        }
+    }
+
+    /// `coupler` or `qubit`.
+    pub fn kind_name(&self) -> &'static str {
+        match self {
+            Aggressor::Coupler(..) => "coupler",
+            Aggressor::Qubit(_) => "qubit",
+        }
+    }
+
+    /// The aggressor written with layout ids: `q9` or `q9-q10`.
+    pub fn label(&self, layout: &Layout) -> String {
+        self.qubits().iter().map(|&q| layout.id(q)).collect::<Vec<_>>().join("-")
+    }
+}
+
+/// A context error on a two-qubit gate: acts on the victim coupler's block right after its
+/// two-qubit gate (any gate on that coupler) in timed layers where the aggressor is active.
+///
+/// Invariants: `victim` is a coupler of the layout (in the noise file's order, which the
+/// error's Pauli labels and axis follow); the aggressor shares no qubit with it; `error` is a
+/// two-qubit spec without leakage.
+#[derive(Clone, Debug, PartialEq)]
+pub struct GateContextTerm {
+    /// The coupler whose gate suffers, first operand of the error first.
+    pub victim: [QubitIx; 2],
+    /// What causes it.
+    pub aggressor: Aggressor,
+    /// The two-qubit error applied to the victim block.
+    pub error: ErrorSpec,
+    /// 1-based line of the term in the noise file (0 for terms built in code).
+    pub line: usize,
+}
+
+impl GateContextTerm {
+    /// The victim coupler written with layout ids in the layout's order (`q5-q6`).
+    pub fn victim_label(&self, layout: &Layout) -> String {
+        let (a, b) = (self.victim[0].min(self.victim[1]), self.victim[0].max(self.victim[1]));
+        format!("{}-{}", layout.id(a), layout.id(b))
+    }
+
+    /// True when some qubit of the aggressor is in the neighbourhood of a victim qubit: only
+    /// then can an audit of the layout see the term.
+    pub fn is_near(&self, layout: &Layout) -> bool {
+        let aggr = self.aggressor.qubits();
+        self.victim.iter().any(|&v| aggr.iter().any(|&r| layout.are_neighbours(v, r)))
+    }
+}
+
 /// Readout crosstalk: `victim`'s reported bit flips with probability `flip` in shots where
 /// `neighbour` reads 1 (its own confused bit, before any crosstalk flip).
 #[derive(Clone, Debug, PartialEq)]
@@ -256,6 +334,7 @@ pub struct Noise {
     overrides: HashMap<(Gate, Vec<QubitIx>), ErrorSpec>,
     readout: Vec<Readout>,
     context: Vec<ContextTerm>,
+    gate_context: Vec<GateContextTerm>,
     readout_crosstalk: Vec<ReadoutCrosstalk>,
     drift: Vec<Drift>,
     /// Terms no audit could see (see [`Noise::warnings`]).
@@ -274,6 +353,7 @@ impl Noise {
             overrides: HashMap::new(),
             readout: vec![Readout { p1_given_0: 0.0, p0_given_1: 0.0 }; layout.n_qubits()],
             context: Vec::new(),
+            gate_context: Vec::new(),
             readout_crosstalk: Vec::new(),
             drift: Vec::new(),
             warnings: Vec::new(),
@@ -309,6 +389,11 @@ impl Noise {
         &self.context
     }
 
+    /// Context terms on two-qubit gates (`gate_context`), in file order.
+    pub fn gate_context(&self) -> &[GateContextTerm] {
+        &self.gate_context
+    }
+
     /// Readout crosstalk terms, in file order.
     pub fn readout_crosstalk(&self) -> &[ReadoutCrosstalk] {
         &self.readout_crosstalk
@@ -333,12 +418,13 @@ impl Noise {
         g
     }
 
-    /// The same scenario without its crosstalk: no context terms (`zz` included) and no
-    /// readout crosstalk. Intrinsic errors, readout confusion and drift stay, so the result
+    /// The same scenario without its crosstalk: no context terms (`zz` and `gate_context`
+    /// included) and no readout crosstalk. Intrinsic errors, readout confusion and drift stay, so the result
     /// is what a perfectly crosstalk-free chip with the same gates would give.
     pub fn without_crosstalk(&self) -> Noise {
         Noise {
             context: Vec::new(),
+            gate_context: Vec::new(),
             readout_crosstalk: Vec::new(),
             warnings: Vec::new(),
             ..self.clone()
@@ -449,6 +535,19 @@ impl Builder<'_> {
             return;
         }
         let (la, lb) = (self.layout.id(a), self.layout.id(b));
+        self.warn_unseen(warnings, table, la, lb, span);
+    }
+
+    /// The warning of [`Builder::unseen`] for a term that joins `la` and `lb` (qubits or
+    /// couplers).
+    fn warn_unseen(
+        &self,
+        warnings: &mut Vec<Warning>,
+        table: &str,
+        la: &str,
+        lb: &str,
+        span: std::ops::Range<usize>,
+    ) {
         warnings.push(Warning::new(
             "crosstalk-between-non-neighbours",
             format!(
@@ -481,6 +580,88 @@ impl Builder<'_> {
                 ),
             ),
         }
+    }
+
+    /// One `[[gate_context]]` entry: the victim must be a coupler, the aggressor a coupler or
+    /// a qubit that shares no qubit with it.
+    fn gate_context(&self, g: &Spanned<GateContextWire>) -> Result<GateContextTerm> {
+        let layout = self.layout;
+        let s = g.get_ref();
+        let ids = |v: &[Spanned<String>]| {
+            v.iter().map(|q| echo(q.get_ref())).collect::<Vec<_>>().join("-")
+        };
+        if s.victim.len() != 2 {
+            return self.err(
+                g.span(),
+                format!(
+                    "gate_context victim '{}' names {} qubit(s); name the two qubits of a \
+                     coupler, e.g. victim = [\"q5\", \"q6\"]",
+                    ids(&s.victim),
+                    s.victim.len()
+                ),
+            );
+        }
+        let victim = [
+            self.qubit(&s.victim[0], "gate_context victim")?,
+            self.qubit(&s.victim[1], "gate_context victim")?,
+        ];
+        if layout.coupler(victim[0], victim[1]).is_none() {
+            return self.err(
+                g.span(),
+                format!(
+                    "gate_context victim {} is not a coupler of layout '{}': the term acts on a \
+                     two-qubit gate",
+                    ids(&s.victim),
+                    echo(&layout.name)
+                ),
+            );
+        }
+        let aggr = s
+            .aggressor
+            .iter()
+            .map(|q| self.qubit(q, "gate_context aggressor"))
+            .collect::<Result<Vec<_>>>()?;
+        let aggressor = match aggr[..] {
+            [q] => Aggressor::Qubit(q),
+            [a, b] if layout.coupler(a, b).is_some() => Aggressor::Coupler(a.min(b), a.max(b)),
+            [_, _] => {
+                return self.err(
+                    g.span(),
+                    format!(
+                        "gate_context aggressor {} is not a coupler of layout '{}' (name a \
+                         coupler's two qubits, or one qubit)",
+                        ids(&s.aggressor),
+                        echo(&layout.name)
+                    ),
+                )
+            }
+            _ => {
+                return self.err(
+                    g.span(),
+                    format!(
+                        "gate_context aggressor '{}' names {} qubits; name a coupler's two \
+                         qubits or one qubit",
+                        ids(&s.aggressor),
+                        aggr.len()
+                    ),
+                )
+            }
+        };
+        if let Some(&q) = aggr.iter().find(|q| victim.contains(q)) {
+            return self.err(
+                g.span(),
+                format!(
+                    "gate_context aggressor {} shares qubit {} with the victim {}: a gate and \
+                     its own qubits never run side by side in one layer; name a coupler or \
+                     qubit outside the victim",
+                    ids(&s.aggressor),
+                    layout.id(q),
+                    ids(&s.victim)
+                ),
+            );
+        }
+        let error = self.error_spec((&s.depolarizing, &s.pauli, &s.rotation), &None, 2)?;
+        Ok(GateContextTerm { victim, aggressor, error, line: line_of(self.text, g.span().start) })
     }
 
     fn prob(&self, v: &Num, what: &str) -> Result<f64> {
@@ -762,6 +943,28 @@ impl Builder<'_> {
                 });
             }
         }
+        let mut first_line: HashMap<([QubitIx; 2], Aggressor), usize> = HashMap::new();
+        for g in &w.gate_context {
+            let term = self.gate_context(g)?;
+            let mut victim = term.victim;
+            victim.sort_unstable();
+            if let Some(first) = first_line.insert((victim, term.aggressor), term.line) {
+                return self.err(
+                    g.span(),
+                    format!(
+                        "a second [[gate_context]] term for victim {} and aggressor {} (the \
+                         first is on line {first}); give one term per victim and aggressor",
+                        term.victim_label(layout),
+                        term.aggressor.label(layout)
+                    ),
+                );
+            }
+            if !term.is_near(layout) {
+                let (v, a) = (term.victim_label(layout), term.aggressor.label(layout));
+                self.warn_unseen(&mut noise.warnings, "gate_context", &v, &a, g.span());
+            }
+            noise.gate_context.push(term);
+        }
         for r in &w.readout_crosstalk {
             let s = r.get_ref();
             let victim = self.qubit(&s.victim, "readout_crosstalk victim")?;
@@ -941,6 +1144,61 @@ sigma = 0.03
             parse("schema = 1\n[[intrinsic_override]]\ngate = \"cz\"\nqubits = [\"q0\", \"q3\"]\n")
                 .unwrap_err();
         assert!(e.to_string().contains("not a coupler"), "{e}");
+    }
+
+    #[test]
+    fn gate_context_terms_are_validated_with_their_line() {
+        // grid(3, 3): q0 q1 q2 / q3 q4 q5 / q6 q7 q8, couplers along rows and columns.
+        let layout = grid(3, 3);
+        let head = "schema = 1\n[[gate_context]]\nvictim = [\"q1\", \"q0\"]\n";
+        let with = |aggr: &str, rest: &str| format!("{head}aggressor = {aggr}\n{rest}");
+        let parse = |t: &str| Noise::from_toml_str(t, Path::new("n.toml"), &layout);
+        let n = parse(&with("[\"q4\", \"q3\"]", "pauli = { ZI = 1e-3, ZZ = 2e-3 }\n")).unwrap();
+        let t = &n.gate_context()[0];
+        assert_eq!((t.victim, t.aggressor), ([1, 0], Aggressor::Coupler(3, 4)));
+        assert_eq!((t.line, t.victim_label(&layout)), (2, "q0-q1".to_string()));
+        // ZI: Z on the first listed victim qubit (q1).
+        assert!(
+            (t.error.pauli[3] - 1e-3).abs() < 1e-15 && (t.error.pauli[15] - 2e-3).abs() < 1e-15
+        );
+        assert!(n.warnings().is_empty() && n.without_crosstalk().gate_context().is_empty());
+        let q = parse(&with("[\"q2\"]", "rotation = { angle = 0.1, axis = \"ZZ\" }\n")).unwrap();
+        assert_eq!(q.gate_context()[0].aggressor, Aggressor::Qubit(2));
+        // Far couplers are simulated, with a warning.
+        let far = parse(&with("[\"q6\", \"q7\"]", "depolarizing = 1e-3\n")).unwrap();
+        let w = &far.warnings()[0].message;
+        assert!(
+            w.starts_with("n.toml line 2: the [[gate_context]] term joins q0-q1 and q6-q7"),
+            "{w}"
+        );
+        for (aggr, rest, line, want) in [
+            ("[\"q1\", \"q2\"]", "", 2, "shares qubit q1 with the victim"),
+            ("[\"q0\"]", "", 2, "shares qubit q0"),
+            ("[\"q3\", \"q5\"]", "", 2, "aggressor q3-q5 is not a coupler"),
+            ("[\"q3\", \"q4\", \"q5\"]", "", 2, "names 3 qubits"),
+            ("[\"q9\"]", "", 4, "qubit 'q9', which is not in layout"),
+            ("[\"q4\"]", "pauli = { Z = 1e-3 }\n", 5, "2 letter"),
+            ("[\"q4\"]", "leakage = 1e-3\n", 5, "unknown field"),
+            (
+                "[\"q4\", \"q3\"]",
+                "[[gate_context]]\nvictim = [\"q0\", \"q1\"]\naggressor = [\"q3\", \"q4\"]\n",
+                5,
+                "a second [[gate_context]] term for victim q0-q1 and aggressor q3-q4 (the first is \
+                 on line 2)",
+            ),
+        ] {
+            let e = parse(&with(aggr, rest)).unwrap_err();
+            assert_eq!(line_of_err(&e), Some(line), "{e}");
+            assert!(e.to_string().contains(want), "{e}");
+        }
+        let e = parse(
+            "schema = 1\n[[gate_context]]\nvictim = [\"q0\", \"q4\"]\naggressor = [\"q2\"]\n",
+        )
+        .unwrap_err();
+        assert!(e.to_string().contains("victim q0-q4 is not a coupler"), "{e}");
+        let e = parse("schema = 1\n[[gate_context]]\nvictim = [\"q0\"]\naggressor = [\"q2\"]\n")
+            .unwrap_err();
+        assert!(e.to_string().contains("names 1 qubit(s)"), "{e}");
     }
 
     #[test]

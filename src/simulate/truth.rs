@@ -7,7 +7,11 @@
 //! The Theory of Quantum Information (2018), unitary channels). Half-diamond figures are
 //! exact for Pauli channels (1 - F_pro) and unitaries (sin of half the eigenphase gap); for a
 //! composition of both they are the triangle-inequality upper bound (sum of the parts), and
-//! `half_diamond_method` says which.
+//! `half_diamond_method` says which. Gate pairs (written only when the noise file has
+//! `gate_context` terms) give the same measures per layer in which the victim's two-qubit gate
+//! runs beside its aggressor, and the average gate infidelity 1 - F_avg, from
+//! F_avg = (d F_pro + 1)/(d + 1) with d = 4 (M. Horodecki, P. Horodecki, R. Horodecki, PRA 60,
+//! 1888 (1999); M. Nielsen, Phys. Lett. A 303, 249 (2002)).
 //!
 //! ```json
 //! {"schema": 1, "layout": "grid-4x4",
@@ -27,7 +31,12 @@
 //!  "couplers": [{"coupler": "q0-q1", "intrinsic": [{"kind": "cz@q0-q1", "leakage": 0.0,
 //!                "error": {"half_diamond": 0.01, "infidelity": 0.01,
 //!                          "half_diamond_method": "exact_pauli"}}]}],
-//!  "readout_crosstalk": [{"victim": "q15", "neighbour": "q11", "flip": 0.02}]}
+//!  "readout_crosstalk": [{"victim": "q15", "neighbour": "q11", "flip": 0.02}],
+//!  "gate_pairs": [{"victim": "q5-q6", "aggressor": "q9-q10", "aggressor_kind": "coupler",
+//!                  "neighbours": true,
+//!                  "error": {"half_diamond": 0.003, "infidelity": 0.003,
+//!                            "half_diamond_method": "exact_pauli"},
+//!                  "average_infidelity": 0.0024, "sources": ["gate_context (line 40)"]}]}
 //! ```
 
 // Index loops read like the matrix formulas they implement.
@@ -60,6 +69,40 @@ pub struct Truth {
     pub couplers: Vec<CouplerTruth>,
     /// Readout crosstalk terms.
     pub readout_crosstalk: Vec<ReadoutCrosstalkTruth>,
+    /// One entry per `gate_context` term, in file order; absent when there are none (a pair
+    /// not listed has no injected gate-context error).
+    #[serde(skip_serializing_if = "Vec::is_empty")]
+    pub gate_pairs: Vec<GatePairTruth>,
+}
+
+/// Injected context error on a coupler's two-qubit gate while a nearby coupler runs its gate
+/// (or a nearby qubit is driven) in the same layer.
+#[derive(Serialize, Debug, Clone)]
+pub struct GatePairTruth {
+    /// The victim coupler, `qa-qb` in the layout's order.
+    pub victim: String,
+    /// The aggressor: a coupler `qc-qd` (layout order) or a qubit `qe`.
+    pub aggressor: String,
+    /// `coupler` or `qubit`.
+    pub aggressor_kind: &'static str,
+    /// True when a qubit of the aggressor is in the neighbourhood of a victim qubit (the
+    /// audit only sees those).
+    pub neighbours: bool,
+    /// Per layer in which the victim's gate runs beside the active aggressor: half-diamond
+    /// distance and entanglement infidelity of the two-qubit error.
+    pub error: ErrorMeasure,
+    /// Average gate infidelity 1 - F_avg of the same error, [`average_infidelity`] with d = 4.
+    pub average_infidelity: f64,
+    /// The noise-file term behind it, e.g. `gate_context (line 40)`.
+    pub sources: Vec<String>,
+}
+
+/// Average gate infidelity 1 - F_avg from the entanglement infidelity 1 - F_pro of a channel
+/// on dimension `d`: F_avg = (d F_pro + 1)/(d + 1) (Horodecki, Horodecki, Horodecki, PRA 60,
+/// 1888 (1999); Nielsen, Phys. Lett. A 303, 249 (2002)), so 1 - F_avg = d (1 - F_pro)/(d + 1).
+pub fn average_infidelity(entanglement_infidelity: f64, d: usize) -> f64 {
+    let d = d as f64;
+    d * entanglement_infidelity / (d + 1.0)
 }
 
 /// Two measures of one channel's distance from the identity, per application (per layer).
@@ -407,6 +450,24 @@ pub fn truth(layout: &Layout, noise: &Noise) -> Truth {
             flip: t.flip,
         })
         .collect();
+    let gate_pairs = noise
+        .gate_context()
+        .iter()
+        .map(|t| {
+            // One term per victim and aggressor (the noise file refuses a second), so the
+            // measures of its spec are those of the pair.
+            let error = spec_measure(&t.error);
+            GatePairTruth {
+                victim: t.victim_label(layout),
+                aggressor: t.aggressor.label(layout),
+                aggressor_kind: t.aggressor.kind_name(),
+                neighbours: t.is_near(layout),
+                average_infidelity: average_infidelity(error.infidelity, 4),
+                error,
+                sources: vec![format!("gate_context (line {})", t.line)],
+            }
+        })
+        .collect();
     Truth {
         schema: SCHEMA,
         layout: layout.name.clone(),
@@ -414,6 +475,7 @@ pub fn truth(layout: &Layout, noise: &Noise) -> Truth {
         qubits,
         couplers,
         readout_crosstalk,
+        gate_pairs,
     }
 }
 
@@ -530,6 +592,102 @@ mod tests {
         assert!((m.infidelity - ptm).abs() < 1e-12 && m.half_diamond == m.infidelity);
         // To first order the rates add.
         assert!((m.infidelity - 7.5e-3).abs() < 1e-4);
+    }
+
+    /// A two-qubit error spec: Pauli rates by label index (sum_j p_j 4^j), optional rotation.
+    fn spec2(rates: &[(usize, f64)], rotation: Option<(f64, [u8; 2])>) -> ErrorSpec {
+        let mut e = ErrorSpec::none(2);
+        for &(i, p) in rates {
+            e.pauli[i] += p;
+            e.pauli[0] -= p;
+        }
+        e.rotation = rotation.map(|(a, p)| Rotation { angle_rad: a, pauli: p.to_vec() });
+        e
+    }
+
+    /// The 4x4 matrix of a two-qubit Pauli by label index (basis bit(q0) + 2 bit(q1)).
+    fn pauli4(idx: usize) -> [[C; 4]; 4] {
+        let (p0, p1) = (pauli_mat((idx & 3) as u8), pauli_mat((idx >> 2) as u8));
+        let mut m = [[C::new(0.0, 0.0); 4]; 4];
+        for x in 0..4 {
+            for y in 0..4 {
+                m[x][y] = p0[x & 1][y & 1] * p1[x >> 1][y >> 1];
+            }
+        }
+        m
+    }
+
+    fn mul4(a: &[[C; 4]; 4], b: &[[C; 4]; 4]) -> [[C; 4]; 4] {
+        let mut m = [[C::new(0.0, 0.0); 4]; 4];
+        for i in 0..4 {
+            for j in 0..4 {
+                for l in 0..4 {
+                    m[i][j] += a[i][l] * b[l][j];
+                }
+            }
+        }
+        m
+    }
+
+    #[test]
+    fn two_qubit_fidelities_match_the_kraus_formulas() {
+        // Kraus operators K_P = sqrt(p_P) P U. F_pro = sum |tr K|^2 / d^2 and
+        // F_avg = (sum |tr K|^2 + d) / (d (d + 1)) (Nielsen, Phys. Lett. A 303, 249 (2002);
+        // Horodecki, Horodecki, Horodecki, PRA 60, 1888 (1999)), d = 4.
+        let (zz, zi, xy) = (3 + 4 * 3, 3, 1 + 4 * 2);
+        let cases = [
+            spec2(&[], Some((0.2, [3, 3]))),
+            spec2(&[], Some((0.3, [3, 0]))),
+            spec2(&[(zz, 2e-3), (zi, 1e-3), (xy, 5e-4)], None),
+            spec2(&[(zz, 4e-3), (zi, 1e-3)], Some((0.15, [3, 3]))),
+            spec2(&[(xy, 1e-2)], Some((0.4, [0, 3]))),
+        ];
+        for e in &cases {
+            let u = match &e.rotation {
+                Some(r) => super::super::state::rotation2(r),
+                None => pauli4(0),
+            };
+            let sum_tr2: f64 = (0..16)
+                .map(|i| {
+                    let k = mul4(&pauli4(i), &u);
+                    e.pauli[i] * (0..4).map(|x| k[x][x]).sum::<C>().norm_sqr()
+                })
+                .sum();
+            let m = spec_measure(e);
+            assert!((1.0 - sum_tr2 / 16.0 - m.infidelity).abs() < 1e-12, "{e:?}");
+            let f_avg = (sum_tr2 + 4.0) / 20.0;
+            assert!((1.0 - f_avg - average_infidelity(m.infidelity, 4)).abs() < 1e-12, "{e:?}");
+        }
+    }
+
+    #[test]
+    fn two_qubit_half_diamond_of_pauli_channels_and_rotations() {
+        // A Pauli channel: its total error probability (common practice, from memory: the
+        // diamond distance of a Pauli channel from the identity is 2 (1 - p_I)).
+        let e = spec2(&[(15, 2e-3), (3, 1e-3)], None);
+        let m = spec_measure(&e);
+        assert!((m.half_diamond - 3e-3).abs() < 1e-15 && m.half_diamond_method == "exact_pauli");
+        // A rotation exp(-i theta/2 ZZ): sin(theta/2) (Watrous 2018, unitary channels). The
+        // input (|00> + |01>)/sqrt(2) attains it: its trace distance to U psi is
+        // sqrt(1 - |<psi|U|psi>|^2), a lower bound on the half-diamond distance.
+        for (theta, axis) in [(0.2, [3u8, 3u8]), (0.5, [3, 0]), (1.1, [0, 3])] {
+            let e = spec2(&[], Some((theta, axis)));
+            let u = super::super::state::rotation2(e.rotation.as_ref().unwrap());
+            let h = std::f64::consts::FRAC_1_SQRT_2;
+            // Superpose eigenvectors of opposite eigenvalue: |00> and the basis state that
+            // flips the sign of the axis.
+            let other = if axis[1] == 3 { 2 } else { 1 };
+            let mut psi = [C::new(0.0, 0.0); 4];
+            psi[0] = C::new(h, 0.0);
+            psi[other] = C::new(h, 0.0);
+            let overlap: C =
+                (0..4).map(|x| psi[x].conj() * (0..4).map(|y| u[x][y] * psi[y]).sum::<C>()).sum();
+            let attained = (1.0 - overlap.norm_sqr()).sqrt();
+            let m = spec_measure(&e);
+            assert!((m.half_diamond - (theta / 2.0).sin()).abs() < 1e-12);
+            assert!((m.half_diamond - attained).abs() < 1e-12, "{theta} {axis:?}");
+            assert_eq!(m.half_diamond_method, "exact_unitary");
+        }
     }
 
     #[test]
