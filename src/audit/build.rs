@@ -393,8 +393,7 @@ pub(crate) fn report(
         if a.requirement[i] > 0.0 {
             needing += 1;
         }
-        threshold =
-            threshold.max(crate::stats::bonferroni_threshold(m.len() - 1, cfg.alpha, a.used.len()));
+        threshold = threshold.max(a.thresholds.of_outcomes(m.len()));
     }
     dof_all -= n_ident as f64;
 

@@ -126,6 +126,8 @@ pub(crate) struct Analysis<'a> {
     pub prepared: Vec<Option<PreparedRow>>,
     pub spec: ModelSpec,
     pub alpha: f64,
+    /// Row thresholds at `alpha` over the `used` rows, per outcome count.
+    pub thresholds: crate::stats::RowThresholds,
     /// Analysis rows that have counts (global indices into `rows.rows`).
     pub used: Vec<usize>,
     pub predictions: Vec<Vec<f64>>,
@@ -272,7 +274,8 @@ pub(crate) fn analyse<'a>(
         .collect();
     let marginals: Vec<Option<&Vec<u64>>> =
         rows.rows.iter().map(|r| r.marginal.as_ref().filter(|_| r.shots > 0)).collect();
-    let (requirement, deviation) = requirements(&marginals, &predictions, cfg.alpha, used.len());
+    let thresholds = crate::stats::RowThresholds::new(cfg.alpha, used.len());
+    let (requirement, deviation) = requirements(&marginals, &predictions, &thresholds);
     Ok(Analysis {
         layout,
         circuits,
@@ -281,6 +284,7 @@ pub(crate) fn analyse<'a>(
         prepared,
         spec,
         alpha: cfg.alpha,
+        thresholds,
         used,
         predictions,
         requirement,
@@ -624,7 +628,7 @@ pub(crate) fn rescore(
     };
     let marginals: Vec<Option<&Vec<u64>>> =
         data.counts.iter().map(|m| m.as_ref().filter(|m| m.iter().sum::<u64>() > 0)).collect();
-    let (requirement, deviation) = requirements(&marginals, predictions, a.alpha, a.used.len());
+    let (requirement, deviation) = requirements(&marginals, predictions, &a.thresholds);
     let (directed, intrinsic) = scores_of(a, all, &requirement, &quiet)?;
     check_cancel(progress)?;
     let estimate = if with_estimate { Some(scores_of(a, all, &deviation, &quiet)?) } else { None };
@@ -662,18 +666,17 @@ pub(crate) struct Rescored {
 
 /// Row requirements and deviation requirements (method.md section 4 and
 /// [`crate::slack::requirement::requirement_and_deviation`]) of rows with these counts,
-/// under the Bonferroni threshold over `n_rows` rows; 0 for rows without counts.
+/// under the Bonferroni thresholds `thresholds`; 0 for rows without counts.
 fn requirements(
     marginals: &[Option<&Vec<u64>>],
     predictions: &[Vec<f64>],
-    alpha: f64,
-    n_rows: usize,
+    thresholds: &crate::stats::RowThresholds,
 ) -> (Vec<f64>, Vec<f64>) {
     (0..marginals.len())
         .into_par_iter()
         .map(|i| match marginals[i] {
             Some(m) => {
-                let t = crate::stats::bonferroni_threshold(m.len() - 1, alpha, n_rows);
+                let t = thresholds.of_outcomes(m.len());
                 crate::slack::requirement::requirement_and_deviation(&predictions[i], m, t)
             }
             None => (0.0, 0.0),
