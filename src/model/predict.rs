@@ -6,6 +6,13 @@
 //! dE/dtheta once per row. Under `depolarizing`, a one-qubit row needs only its occurrence
 //! count per kind and its ideal outcome, because a depolarizing channel commutes with every
 //! one-qubit unitary (method.md section 8).
+//!
+//! When every ideal segment maps each Pauli to a multiple of one Pauli (Clifford gates) and
+//! the family's channels are Pauli channels, a row is kept as its Pauli paths instead: each
+//! Pauli component of the initial state travels to one final Pauli, and an error channel on
+//! the way only scales it by the channel's eigenvalue there (method.md section 8). The
+//! prediction is then a sum of a few products of eigenvalue powers, and the transfer
+//! matrices are not stored at all.
 
 use std::collections::HashMap;
 use std::sync::Arc;
@@ -51,6 +58,64 @@ struct Compiled {
     occurrences: Vec<u32>,
     /// Ideal <Z> of a one-qubit row, for the counted fast path.
     z_ideal: f64,
+    /// The row as Pauli paths, when its ideal segments are Clifford; then `segs` is empty
+    /// unless the family has non-diagonal channels.
+    paths: Option<Vec<PauliPath>>,
+}
+
+/// One Pauli component of the initial state followed through a Clifford row: it ends as
+/// `coef` times Pauli `out` times the product of the eigenvalues it met on the way.
+#[derive(Debug)]
+struct PauliPath {
+    coef: f64,
+    out: usize,
+    /// (local kind, diagonal index of the kind's transfer matrix, times met), distinct keys.
+    factors: Vec<(u32, u32, u32)>,
+}
+
+/// Entries smaller than this in an ideal transfer matrix are rounding residue of an exact 0.
+const MONOMIAL_TOLERANCE: f64 = 1e-12;
+
+/// The image of Pauli `q` under an ideal transfer matrix whose column `q` has one entry:
+/// (row, value), or None when the column mixes Paulis (a non-Clifford gate).
+fn monomial_image(m: &Ptm, q: usize) -> Option<(usize, f64)> {
+    let mut found = None;
+    for r in 0..m.nrows() {
+        let v = m[(r, q)];
+        if v.abs() > MONOMIAL_TOLERANCE {
+            if found.is_some() {
+                return None;
+            }
+            found = Some((r, v));
+        }
+    }
+    found
+}
+
+/// The Pauli paths of a compiled program, or None when an ideal segment is not Clifford.
+fn pauli_paths(s0: &DVector<f64>, segs: &[Seg]) -> Option<Vec<PauliPath>> {
+    let mut out = Vec::new();
+    for (start, &v) in s0.iter().enumerate() {
+        if v.abs() <= MONOMIAL_TOLERANCE {
+            continue;
+        }
+        let (mut q, mut coef) = (start, v);
+        let mut factors: Vec<(u32, u32, u32)> = Vec::new();
+        for seg in segs {
+            let key = (seg.local as u32, diag_index(seg.place, q) as u32);
+            match factors.iter_mut().find(|f| (f.0, f.1) == key) {
+                Some(f) => f.2 += 1,
+                None => factors.push((key.0, key.1, 1)),
+            }
+            if let Some(m) = &seg.after {
+                let (r, x) = monomial_image(m, q)?;
+                q = r;
+                coef *= x;
+            }
+        }
+        out.push(PauliPath { coef, out: q, factors });
+    }
+    Some(out)
 }
 
 /// A validated, compiled row: cheap to clone, and [`PreparedRow::with_counts`] reuses the
@@ -238,15 +303,23 @@ impl PreparedRow {
             None => s0 = Some(pending.map_or_else(|| r0.clone(), |m| m * &r0)),
         }
         let z_ideal = if n == 1 { ideal[3] } else { 0.0 };
+        let s0 = s0.unwrap_or_else(|| DVector::zeros(dim));
+        let paths = pauli_paths(&s0, &segs);
+        // Pauli channels never need the transfer matrices once the paths are known.
+        let segs = match (&paths, spec.family) {
+            (Some(_), Family::Depolarizing | Family::Pauli) => Vec::new(),
+            _ => segs,
+        };
         let compiled = Compiled {
             n_slots: n,
             readout: row.readout.clone(),
             kinds,
-            s0: s0.unwrap_or_else(|| DVector::zeros(dim)),
+            s0,
             segs,
             functionals: ptm::outcome_functionals(n),
             occurrences,
             z_ideal,
+            paths,
         };
         Ok(PreparedRow { compiled: Arc::new(compiled), counts: row.counts.clone() })
     }
@@ -359,7 +432,51 @@ struct Ideal {
     grad: Vec<Vec<Ptm>>,
 }
 
+/// [`ideal_ptm`] over the Pauli paths: q_y = sum over paths of F[y, out] coef prod f^n,
+/// and dq_y / dE[a, a] of a kind from the same products with one factor differentiated.
+fn ideal_paths(c: &Compiled, paths: &[PauliPath], ch: &Channels, want_grad: bool) -> Ideal {
+    let k_out = c.functionals.nrows();
+    let mut q = vec![0.0; k_out];
+    let kdim = |local: usize| ch.get(c.kinds[local]).e.nrows();
+    let mut grad: Vec<Vec<Ptm>> = if want_grad {
+        (0..c.kinds.len()).map(|l| vec![Ptm::zeros(kdim(l), kdim(l)); k_out]).collect()
+    } else {
+        Vec::new()
+    };
+    let mut powers: Vec<f64> = Vec::new();
+    for path in paths {
+        let eig = |f: &(u32, u32, u32)| {
+            let a = f.1 as usize;
+            ch.get(c.kinds[f.0 as usize]).e[(a, a)]
+        };
+        powers.clear();
+        powers.extend(path.factors.iter().map(|f| eig(f).powi(f.2 as i32)));
+        let value = path.coef * powers.iter().product::<f64>();
+        for (y, qy) in q.iter_mut().enumerate() {
+            *qy += c.functionals[(y, path.out)] * value;
+        }
+        if !want_grad {
+            continue;
+        }
+        for (j, f) in path.factors.iter().enumerate() {
+            let others: f64 =
+                powers.iter().enumerate().filter(|&(i, _)| i != j).map(|(_, p)| p).product();
+            let d = path.coef * others * f.2 as f64 * eig(f).powi(f.2 as i32 - 1);
+            let a = f.1 as usize;
+            for (y, g) in grad[f.0 as usize].iter_mut().enumerate() {
+                g[(a, a)] += c.functionals[(y, path.out)] * d;
+            }
+        }
+    }
+    Ideal { q, grad }
+}
+
 fn ideal_ptm(c: &Compiled, ch: &Channels, want_grad: bool) -> Ideal {
+    if let Some(paths) = &c.paths {
+        if c.kinds.iter().all(|&k| ch.get(k).diagonal) {
+            return ideal_paths(c, paths, ch, want_grad);
+        }
+    }
     let dim = c.s0.len();
     let k_out = c.functionals.nrows();
     let mut s = c.s0.clone();
@@ -654,6 +771,53 @@ pub(crate) mod tests {
         }
         p.readout = vec![Readout::new(0.02, 0.05).unwrap(), Readout::new(0.03, 0.01).unwrap()];
         p
+    }
+
+    /// [`random_row`] with Clifford angles only (rz by multiples of pi/2), so that the row
+    /// compiles to Pauli paths.
+    fn random_clifford_row(n: usize, layers: usize, rng: &mut ChaCha8Rng) -> Row {
+        let mut row = random_row(n, layers, rng);
+        for step in &mut row.steps {
+            if let Step::Local(acts) = step {
+                for a in acts.iter_mut().flatten() {
+                    if a.gate == Gate::Rz {
+                        a.angle = std::f64::consts::FRAC_PI_2 * rng.random_range(-3..=3) as f64;
+                    }
+                }
+            }
+        }
+        row
+    }
+
+    #[test]
+    fn pauli_paths_equal_the_transfer_matrix_product() {
+        let mut rng = ChaCha8Rng::seed_from_u64(23);
+        for family in [Family::Depolarizing, Family::Pauli] {
+            for n in [1, 2] {
+                for _ in 0..20 {
+                    let row = random_clifford_row(n, 40, &mut rng);
+                    let fast = PreparedRow::new(&row, &spec(family)).unwrap();
+                    assert!(fast.compiled.paths.is_some() && fast.compiled.segs.is_empty());
+                    // The coherent family keeps the matrices; without paths it must use them.
+                    let mut slow = PreparedRow::new(&row, &spec(Family::PauliCoherent)).unwrap();
+                    Arc::get_mut(&mut slow.compiled).unwrap().paths = None;
+                    let params = random_params(family, &mut rng);
+                    let a = predict_path(&fast, &params, &Channels::new([&fast], &params), false);
+                    let b = predict_path(&slow, &params, &Channels::new([&slow], &params), false);
+                    for (x, y) in a.probs.iter().zip(&b.probs) {
+                        assert!((x - y).abs() < 1e-13, "{family:?} {n}: {x} vs {y}");
+                    }
+                    assert_eq!(a.columns, b.columns);
+                    assert!((&a.jacobian - &b.jacobian).amax() < 1e-12, "{family:?} {n}");
+                }
+            }
+        }
+        // A non-Clifford angle keeps the transfer matrices.
+        let mut row = random_clifford_row(2, 10, &mut rng);
+        row.steps.push(Step::Local([Some(Action::ideal(Gate::Rz, 0.3)), None]));
+        row.steps.push(Step::Local([Some(Action::occurrence(Gate::Sx, 0.0, 0)), None]));
+        let p = PreparedRow::new(&row, &spec(Family::Depolarizing)).unwrap();
+        assert!(p.compiled.paths.is_none() && !p.compiled.segs.is_empty());
     }
 
     fn check_jacobian(family: Family, n: usize, counted: bool) {
