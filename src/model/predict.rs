@@ -367,9 +367,10 @@ impl PreparedRow {
     }
 }
 
-/// Channels of the kinds a set of rows needs, built once per parameter point.
+/// Channels of the kinds a set of rows needs, built once per parameter point and indexed
+/// by kind.
 pub(crate) struct Channels {
-    by_kind: HashMap<KindIx, ChannelEval>,
+    by_kind: Vec<Option<ChannelEval>>,
 }
 
 impl Channels {
@@ -378,17 +379,19 @@ impl Channels {
         rows: impl IntoIterator<Item = &'a PreparedRow>,
         params: &Params,
     ) -> Channels {
-        let mut by_kind = HashMap::new();
+        let mut by_kind: Vec<Option<ChannelEval>> = vec![None; params.kinds.len()];
         for r in rows {
             for &k in r.kinds() {
-                by_kind.entry(k).or_insert_with(|| params.kinds[k].channel());
+                if by_kind[k].is_none() {
+                    by_kind[k] = Some(params.kinds[k].channel());
+                }
             }
         }
         Channels { by_kind }
     }
 
     fn get(&self, k: KindIx) -> &ChannelEval {
-        &self.by_kind[&k]
+        self.by_kind[k].as_ref().expect("channel built for every kind of the rows")
     }
 }
 
@@ -598,20 +601,43 @@ fn uses_counted_path(c: &Compiled, params: &Params) -> bool {
     c.n_slots == 1 && params.family == Family::Depolarizing
 }
 
-/// Applies readout to q; returns p and, if asked, dp/de for (slot, which) pairs.
+/// Applies readout to q; returns p and dp/de for (slot, which) pairs.
 fn with_readout(c: &Compiled, params: &Params, q: &[f64]) -> (Vec<f64>, Vec<[Vec<f64>; 2]>) {
+    readout_apply(c, params, q, true)
+}
+
+/// [`with_readout`], with the derivatives only when `want_d` (empty otherwise). Works on
+/// fixed-size arrays: a row has at most two slots.
+fn readout_apply(
+    c: &Compiled,
+    params: &Params,
+    q: &[f64],
+    want_d: bool,
+) -> (Vec<f64>, Vec<[Vec<f64>; 2]>) {
     let n = c.n_slots;
-    let conf: Vec<[[f64; 2]; 2]> =
-        c.readout.iter().map(|&r| confusion(params.readout[r].errors())).collect();
+    let mut conf = [[[0.0; 2]; 2]; 2];
+    for (s, &r) in c.readout.iter().enumerate() {
+        conf[s] = confusion(params.readout[r].errors());
+    }
     let k = q.len();
     let mut p = vec![0.0; k];
-    let mut dp: Vec<[Vec<f64>; 2]> = (0..n).map(|_| [vec![0.0; k], vec![0.0; k]]).collect();
+    let mut dp: Vec<[Vec<f64>; 2]> = if want_d {
+        (0..n).map(|_| [vec![0.0; k], vec![0.0; k]]).collect()
+    } else {
+        Vec::new()
+    };
     // dc/de0 and dc/de1 of one slot's confusion.
     let dconf = [[[-1.0, 0.0], [1.0, 0.0]], [[0.0, 1.0], [0.0, -1.0]]];
     for x in 0..k {
         for (y, &qy) in q.iter().enumerate() {
-            let f: Vec<f64> = (0..n).map(|s| conf[s][(x >> s) & 1][(y >> s) & 1]).collect();
-            p[x] += f.iter().product::<f64>() * qy;
+            let mut f = [0.0; 2];
+            for (s, fs) in f.iter_mut().enumerate().take(n) {
+                *fs = conf[s][(x >> s) & 1][(y >> s) & 1];
+            }
+            p[x] += f[..n].iter().product::<f64>() * qy;
+            if !want_d {
+                continue;
+            }
             for s in 0..n {
                 let rest: f64 = (0..n).filter(|&t| t != s).map(|t| f[t]).product();
                 for (w, dc) in dconf.iter().enumerate() {
@@ -631,7 +657,7 @@ pub(crate) fn probabilities_with(row: &PreparedRow, params: &Params, ch: &Channe
     } else {
         ideal_ptm(c, ch, false).q
     };
-    with_readout(c, params, &q).0
+    readout_apply(c, params, &q, false).0
 }
 
 /// The prediction of a row with its Jacobian, given prebuilt channels.
@@ -684,7 +710,7 @@ fn predict_path(row: &PreparedRow, params: &Params, ch: &Channels, counted: bool
     for y in 0..k_out {
         let mut unit = vec![0.0; k_out];
         unit[y] = 1.0;
-        let cy = with_readout(c, params, &unit).0;
+        let cy = readout_apply(c, params, &unit, false).0;
         for x in 0..k_out {
             for col in 0..n_kind_cols {
                 jac[(x, col)] += cy[x] * dq[(y, col)];
@@ -708,6 +734,16 @@ fn predict_path(row: &PreparedRow, params: &Params, ch: &Channels, counted: bool
 pub fn predict(row: &PreparedRow, params: &Params) -> Prediction {
     let ch = Channels::new(std::iter::once(row), params);
     predict_with(row, params, &ch)
+}
+
+/// Outcome distributions of rows that may be missing (empty for a missing row), in
+/// parallel, with every channel built once; same precondition as [`predict`].
+pub fn predict_rows(rows: &[Option<PreparedRow>], params: &Params) -> Vec<Vec<f64>> {
+    use rayon::prelude::*;
+    let ch = Channels::new(rows.iter().flatten(), params);
+    rows.par_iter()
+        .map(|r| r.as_ref().map(|r| probabilities_with(r, params, &ch)).unwrap_or_default())
+        .collect()
 }
 
 /// Outcome distributions of every row (reference and context rows alike); same
