@@ -22,7 +22,10 @@ fn ok(dir: &Path, args: &[&str]) {
 fn scenario(dir: &Path) {
     ok(dir, &["layout", "new", "grid", "2x3", "--out", "chip.toml"]);
     std::fs::write(dir.join("noise.toml"), common::noise_with_context("q4", "q1", 8e-3)).unwrap();
-    ok(dir, &["design", "--layout", "chip.toml", "--out", "d", "--depths", "1,6", "--sequences", "2"]);
+    ok(
+        dir,
+        &["design", "--layout", "chip.toml", "--out", "d", "--depths", "1,6", "--sequences", "2"],
+    );
     let sim = [
         "simulate",
         "--layout",
@@ -82,7 +85,10 @@ fn audits_are_identical_across_threads_and_shards() {
         ok(dir, &["merge", &tag("b"), &tag("a"), "--out", &tag("merged")]);
         let read = |s: &str| std::fs::read(dir.join(tag(s)).join("audit.json")).unwrap();
         let one = read("one");
-        assert!(one == read("two"), "{model}/{resample}: audit.json differs between 1 and 2 threads");
+        assert!(
+            one == read("two"),
+            "{model}/{resample}: audit.json differs between 1 and 2 threads"
+        );
         assert!(one == read("merged"), "{model}/{resample}: the merged shards differ from one run");
         // The scenario exercises two-qubit blocks and the bootstrap: not a vacuous comparison.
         let v: serde_json::Value = serde_json::from_slice(&one).unwrap();

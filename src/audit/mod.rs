@@ -18,11 +18,10 @@ mod build;
 mod profile;
 
 pub use crate::pipeline::problems;
-pub use crate::pipeline::{Cancel, Progress, Silent};
 pub(crate) use crate::pipeline::{
     check_cancel, intrinsic_slack, kind_occurrences, row_slacks, Analysis, Solved,
 };
-
+pub use crate::pipeline::{Cancel, Progress, Silent};
 
 /// Settings of one audit, validated by [`AuditConfig::validate`].
 #[derive(Clone, Debug)]
@@ -129,8 +128,13 @@ pub fn run_parts(
     check_cancel(progress)?;
     let report =
         build::report(&analysis, &solved, &assessed, &estimate, cfg, parametric.as_deref());
-    let replicates =
-        crate::confidence::bootstrap(&analysis, &report, &cfg.bootstrap, cfg.seed, scorer, progress)?;
+    let replicates = crate::confidence::bootstrap(
+        &analysis,
+        &report,
+        &cfg.bootstrap,
+        cfg.seed,
+        scorer,
+        progress,
+    )?;
     Ok((report, replicates))
 }
-

@@ -236,7 +236,8 @@ pub(crate) fn parametric_null(
             }
             let mut rng = replicate_rng(cfg.seed, PARAMETRIC_SALT, i);
             let data = resample::draw_from_model(a, &mut rng);
-            let out = pipeline::rescore(a, &data, false, false, scorer, progress).map(|r| r.directed);
+            let out =
+                pipeline::rescore(a, &data, false, false, scorer, progress).map(|r| r.directed);
             progress.advance(1);
             out
         })

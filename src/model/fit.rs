@@ -451,7 +451,7 @@ pub fn fit(
         warnings.push(Warning::new(
             "fit-not-converged",
             format!("the model fit stopped after {iterations} steps without converging"),
-            "raise the iteration limit, or check the rows for data the model cannot describe",
+            "check the rows for data the model cannot describe, or try a different --model",
         ));
     }
 

@@ -92,22 +92,31 @@ fn monomial_image(m: &Ptm, q: usize) -> Option<(usize, f64)> {
     found
 }
 
-/// The Pauli paths of a compiled program, or None when an ideal segment is not Clifford.
-fn pauli_paths(s0: &DVector<f64>, segs: &[Seg]) -> Option<Vec<PauliPath>> {
+/// The Pauli paths of a program, or None when an ideal layer is not Clifford: `r0` is the
+/// initial state, `segs` the error channels in time order and `layers[i]` the ideal layers
+/// before channel i (the last entry: after the last channel).
+fn pauli_paths(
+    r0: &DVector<f64>,
+    segs: &[(usize, Place)],
+    layers: &[Vec<Ptm>],
+) -> Option<Vec<PauliPath>> {
     let mut out = Vec::new();
-    for (start, &v) in s0.iter().enumerate() {
+    for (start, &v) in r0.iter().enumerate() {
         if v.abs() <= MONOMIAL_TOLERANCE {
             continue;
         }
         let (mut q, mut coef) = (start, v);
         let mut factors: Vec<(u32, u32, u32)> = Vec::new();
-        for seg in segs {
-            let key = (seg.local as u32, diag_index(seg.place, q) as u32);
-            match factors.iter_mut().find(|f| (f.0, f.1) == key) {
-                Some(f) => f.2 += 1,
-                None => factors.push((key.0, key.1, 1)),
+        for (i, ls) in layers.iter().enumerate() {
+            if i > 0 {
+                let (local, place) = segs[i - 1];
+                let key = (local as u32, diag_index(place, q) as u32);
+                match factors.iter_mut().find(|f| (f.0, f.1) == key) {
+                    Some(f) => f.2 += 1,
+                    None => factors.push((key.0, key.1, 1)),
+                }
             }
-            if let Some(m) = &seg.after {
+            for m in ls {
                 let (r, x) = monomial_image(m, q)?;
                 q = r;
                 coef *= x;
@@ -216,15 +225,15 @@ impl PreparedRow {
         let mut cache = PtmCache::new();
         let mut kinds: Vec<KindIx> = Vec::new();
         let mut occurrences: Vec<u32> = Vec::new();
-        let mut segs: Vec<Seg> = Vec::new();
-        let mut s0: Option<DVector<f64>> = None;
-        let mut pending: Option<Ptm> = None;
+        // The ideal layers before the first error channel and after each one; multiplied
+        // out only when the row cannot be kept as Pauli paths.
+        let mut segs: Vec<(usize, Place)> = Vec::new();
+        let mut layers: Vec<Vec<Ptm>> = vec![Vec::new()];
         let mut ideal = r0.clone();
         let mut push = |k: KindIx,
                         place: Place,
-                        pending: &mut Option<Ptm>,
-                        segs: &mut Vec<Seg>,
-                        s0: &mut Option<DVector<f64>>| {
+                        layers: &mut Vec<Vec<Ptm>>,
+                        segs: &mut Vec<(usize, Place)>| {
             let local = match kinds.iter().position(|&x| x == k) {
                 Some(i) => i,
                 None => {
@@ -234,12 +243,8 @@ impl PreparedRow {
                 }
             };
             occurrences[local] += 1;
-            let p = pending.take();
-            match segs.last_mut() {
-                Some(last) => last.after = p,
-                None => *s0 = Some(p.map_or_else(|| r0.clone(), |m| m * &r0)),
-            }
-            segs.push(Seg { local, place, after: None });
+            layers.push(Vec::new());
+            segs.push((local, place));
         };
         for (t, step) in row.steps.iter().enumerate() {
             match step {
@@ -271,11 +276,11 @@ impl PreparedRow {
                         ptm::kron(&per_slot[0], &per_slot[1])
                     };
                     ideal = &m * ideal;
-                    pending = times(pending, &m);
+                    layers.last_mut().expect("a layer list per segment").push(m);
                     for (slot, a) in acts.iter().enumerate().take(n) {
                         if let Some(k) = a.and_then(|a| a.kind) {
                             let place = if n == 1 { Place::Full } else { Place::Slot(slot) };
-                            push(k, place, &mut pending, &mut segs, &mut s0);
+                            push(k, place, &mut layers, &mut segs);
                         }
                     }
                 }
@@ -291,25 +296,32 @@ impl PreparedRow {
                     }
                     let m = gate_ptm(&mut cache, action, *reversed)?;
                     ideal = &m * ideal;
-                    pending = times(pending, &m);
+                    layers.last_mut().expect("a layer list per segment").push(m);
                     if let Some(k) = action.kind {
-                        push(k, Place::Full, &mut pending, &mut segs, &mut s0);
+                        push(k, Place::Full, &mut layers, &mut segs);
                     }
                 }
             }
         }
-        match segs.last_mut() {
-            Some(last) => last.after = pending,
-            None => s0 = Some(pending.map_or_else(|| r0.clone(), |m| m * &r0)),
-        }
         let z_ideal = if n == 1 { ideal[3] } else { 0.0 };
-        let s0 = s0.unwrap_or_else(|| DVector::zeros(dim));
-        let paths = pauli_paths(&s0, &segs);
+        let paths = pauli_paths(&r0, &segs, &layers);
         // Pauli channels never need the transfer matrices once the paths are known.
-        let segs = match (&paths, spec.family) {
-            (Some(_), Family::Depolarizing | Family::Pauli) => Vec::new(),
-            _ => segs,
+        let keep_matrices =
+            paths.is_none() || !matches!(spec.family, Family::Depolarizing | Family::Pauli);
+        let (s0, segs) = if keep_matrices {
+            let product = |ls: &[Ptm]| ls.iter().fold(None, |p, m| times(p, m));
+            let s0 = product(&layers[0]).map_or_else(|| r0.clone(), |m| m * &r0);
+            let segs = segs
+                .iter()
+                .zip(&layers[1..])
+                .map(|(&(local, place), ls)| Seg { local, place, after: product(ls) })
+                .collect();
+            (s0, segs)
+        } else {
+            let s0 = layers[0].iter().fold(r0.clone(), |v, m| m * v);
+            (s0, Vec::new())
         };
+        debug_assert_eq!(s0.len(), dim);
         let compiled = Compiled {
             n_slots: n,
             readout: row.readout.clone(),
@@ -621,11 +633,8 @@ fn readout_apply(
     }
     let k = q.len();
     let mut p = vec![0.0; k];
-    let mut dp: Vec<[Vec<f64>; 2]> = if want_d {
-        (0..n).map(|_| [vec![0.0; k], vec![0.0; k]]).collect()
-    } else {
-        Vec::new()
-    };
+    let mut dp: Vec<[Vec<f64>; 2]> =
+        if want_d { (0..n).map(|_| [vec![0.0; k], vec![0.0; k]]).collect() } else { Vec::new() };
     // dc/de0 and dc/de1 of one slot's confusion.
     let dconf = [[[-1.0, 0.0], [1.0, 0.0]], [[0.0, 1.0], [0.0, -1.0]]];
     for x in 0..k {

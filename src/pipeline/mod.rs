@@ -543,11 +543,8 @@ pub(crate) fn rescore(
     let (requirement, deviation) = requirements(&marginals, predictions, &a.thresholds);
     let (directed, intrinsic) = scores_of(a, all, &requirement, scorer, &quiet)?;
     check_cancel(progress)?;
-    let estimate = if with_estimate {
-        Some(scores_of(a, all, &deviation, scorer, &quiet)?)
-    } else {
-        None
-    };
+    let estimate =
+        if with_estimate { Some(scores_of(a, all, &deviation, scorer, &quiet)?) } else { None };
     Ok(Rescored { directed, intrinsic, estimate })
 }
 
