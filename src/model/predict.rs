@@ -309,7 +309,7 @@ impl PreparedRow {
         let keep_matrices =
             paths.is_none() || !matches!(spec.family, Family::Depolarizing | Family::Pauli);
         let (s0, segs) = if keep_matrices {
-            let product = |ls: &[Ptm]| ls.iter().fold(None, |p, m| times(p, m));
+            let product = |ls: &[Ptm]| ls.iter().fold(None, times);
             let s0 = product(&layers[0]).map_or_else(|| r0.clone(), |m| m * &r0);
             let segs = segs
                 .iter()

@@ -26,6 +26,9 @@ struct Measured {
 }
 
 /// Runs the slackmap binary with `args` in `dir`, waiting with wait4 to read its peak memory.
+// The child is reaped by wait4, which std's wait cannot replace: it also returns the
+// child's resource usage.
+#[allow(clippy::zombie_processes)]
 fn run(dir: &Path, args: &[String]) -> Measured {
     let start = Instant::now();
     let child = Command::new(env!("CARGO_BIN_EXE_slackmap"))
