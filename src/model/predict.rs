@@ -61,6 +61,9 @@ struct Compiled {
     /// The row as Pauli paths, when its ideal segments are Clifford; then `segs` is empty
     /// unless the family has non-diagonal channels.
     paths: Option<Vec<PauliPath>>,
+    /// False when the transfer matrices were left out (Pauli paths under a Pauli-channel
+    /// family): the row then serves only Pauli-channel families.
+    matrices: bool,
 }
 
 /// One Pauli component of the initial state followed through a Clifford row: it ends as
@@ -332,6 +335,7 @@ impl PreparedRow {
             occurrences,
             z_ideal,
             paths,
+            matrices: keep_matrices,
         };
         Ok(PreparedRow { compiled: Arc::new(compiled), counts: row.counts.clone() })
     }
@@ -376,6 +380,13 @@ impl PreparedRow {
     /// Readout qubit per slot.
     pub fn readout(&self) -> &[QubitIx] {
         &self.compiled.readout
+    }
+
+    /// Whether this row can predict under `family`: a row prepared for a Pauli-channel
+    /// family keeps only its Pauli paths, which a coherent error cannot follow; prepare it
+    /// again for that family.
+    pub fn serves(&self, family: Family) -> bool {
+        self.compiled.matrices || matches!(family, Family::Depolarizing | Family::Pauli)
     }
 }
 
@@ -491,6 +502,22 @@ fn ideal_ptm(c: &Compiled, ch: &Channels, want_grad: bool) -> Ideal {
         if c.kinds.iter().all(|&k| ch.get(k).diagonal) {
             return ideal_paths(c, paths, ch, want_grad);
         }
+    }
+    if !c.matrices {
+        // A coherent channel on a row kept as Pauli paths only ([`PreparedRow::serves`]):
+        // no number rather than a wrong one; the fit refuses such rows up front.
+        let k_out = c.functionals.nrows();
+        let grad = if want_grad {
+            (0..c.kinds.len())
+                .map(|l| {
+                    let d = ch.get(c.kinds[l]).e.nrows();
+                    vec![Ptm::from_element(d, d, f64::NAN); k_out]
+                })
+                .collect()
+        } else {
+            Vec::new()
+        };
+        return Ideal { q: vec![f64::NAN; k_out], grad };
     }
     let dim = c.s0.len();
     let k_out = c.functionals.nrows();

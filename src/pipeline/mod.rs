@@ -95,6 +95,16 @@ pub(crate) struct Analysis<'a> {
     pub coupler_rows: Vec<Vec<usize>>,
     pub fitted: Fitted,
     pub warnings: Vec<Warning>,
+    /// The covering problems of `qubit_rows` and `coupler_rows` with zero requirements:
+    /// a pass over these rows only sets requirements and fixed budgets.
+    pub templates: Templates,
+}
+
+/// Covering problems built once, aligned with [`Analysis::qubit_rows`] and
+/// [`Analysis::coupler_rows`].
+pub(crate) struct Templates {
+    pub qubit: Vec<Problem>,
+    pub coupler: Vec<Problem>,
 }
 
 /// The LP solutions of one audit.
@@ -176,6 +186,13 @@ pub(crate) fn analyse<'a>(
         }
     }
 
+    let zero = vec![0.0; rows.rows.len()];
+    let template = |list: &Vec<usize>| Problem::build(&rows.rows, list.clone(), &zero, &|_| None);
+    let templates = Templates {
+        qubit: qubit_rows.par_iter().map(template).collect(),
+        coupler: coupler_rows.par_iter().map(template).collect(),
+    };
+
     let fitted = fit_model(
         layout,
         &rows.rows,
@@ -211,6 +228,7 @@ pub(crate) fn analyse<'a>(
         coupler_rows,
         fitted,
         warnings,
+        templates,
     })
 }
 
@@ -377,7 +395,7 @@ fn prefix(w: Warning, who: &str) -> Warning {
 
 /// Solves the qubit problems, then the coupler problems with the qubit budgets fixed.
 pub(crate) fn solve_all(a: &Analysis, progress: &dyn Progress) -> Result<Solved> {
-    solve_rows(a, &a.rows.rows, &a.requirement, progress)
+    solve_rows(a, &a.rows.rows, &a.requirement, Some(&a.templates), progress)
 }
 
 /// [`solve_all`] for rows with the analysis' block structure but other programs or
@@ -386,14 +404,19 @@ fn solve_rows(
     a: &Analysis,
     all: &[rows::Row],
     requirement: &[f64],
+    templates: Option<&Templates>,
     progress: &dyn Progress,
 ) -> Result<Solved> {
     progress.stage("solving qubit budgets", a.qubit_rows.len() as u64);
     let qubit: Vec<(Problem, TwoStageSolution)> = a
         .qubit_rows
         .par_iter()
-        .map(|list| {
-            let p = Problem::build(all, list.clone(), requirement, &|_| None);
+        .enumerate()
+        .map(|(q, list)| {
+            let p = match templates {
+                Some(t) => t.qubit[q].with_requirements(requirement, &|_| None),
+                None => Problem::build(all, list.clone(), requirement, &|_| None),
+            };
             let s = p.lp.solve();
             progress.advance(1);
             s.map(|s| (p, s))
@@ -418,8 +441,12 @@ fn solve_rows(
     let coupler: Vec<(Problem, TwoStageSolution)> = a
         .coupler_rows
         .par_iter()
-        .map(|list| {
-            let p = Problem::build(all, list.clone(), requirement, &fixed);
+        .enumerate()
+        .map(|(c, list)| {
+            let p = match templates {
+                Some(t) => t.coupler[c].with_requirements(requirement, &fixed),
+                None => Problem::build(all, list.clone(), requirement, &fixed),
+            };
             let s = p.lp.solve();
             progress.advance(1);
             s.map(|s| (p, s))
@@ -557,7 +584,9 @@ fn scores_of(
     scorer: &Scorer,
     progress: &dyn Progress,
 ) -> Result<(Vec<f64>, Vec<f64>)> {
-    let solved = solve_rows(a, all, requirement, progress)?;
+    // The point pass's problems hold exactly when the rows are the analysis' own.
+    let own = std::ptr::eq(all.as_ptr(), a.rows.rows.as_ptr()) && all.len() == a.rows.rows.len();
+    let solved = solve_rows(a, all, requirement, own.then_some(&a.templates), progress)?;
     let directed = scorer(a, all, &solved);
     let intrinsic =
         (0..a.rows.kinds.len() as u32).map(|k| intrinsic_slack(a, &solved, k)).collect();
