@@ -1,7 +1,8 @@
 //! Scale benchmark: grid scenarios of 16, 144 and 1,024 qubits made with slackmap's own
 //! `design` and `simulate`, then audited; prints per command and per audit stage the wall
 //! time and the peak resident memory, and the cost of one bootstrap and one parametric-null
-//! replicate. It reports figures; it asserts nothing about them.
+//! replicate. It reports figures; it asserts nothing about them. The noise is the tests'
+//! base noise with one depolarizing context term.
 //!
 //! ```sh
 //! cargo bench --bench scale                          # 4x4, 12x12 and 32x32, point pass + replicates
@@ -13,6 +14,9 @@
 //! 10), `--full` (also run the default audit), `--threads N` (default: all cores), `--keep`
 //! (leave the scenario files under target/bench-scale). Whole-process peak memory comes from
 //! the kernel's accounting of each finished child (getrusage through wait4).
+
+#[path = "../common/mod.rs"]
+mod common;
 
 use std::path::{Path, PathBuf};
 use std::process::Command;
@@ -121,28 +125,6 @@ fn options() -> Options {
     o
 }
 
-/// A noise file for a grid of any size: intrinsic errors of the usual magnitudes (common
-/// practice) and one depolarizing context term on q1 while q0 is active (neighbours in
-/// every grid the layout generator makes).
-const NOISE: &str = r#"schema = 1
-[intrinsic.sx]
-depolarizing = 1.0e-3
-[intrinsic.x]
-depolarizing = 1.0e-3
-[intrinsic.id]
-depolarizing = 2.0e-4
-[intrinsic.cz]
-depolarizing = 1.0e-2
-[readout]
-p1_given_0 = 0.012
-p0_given_1 = 0.020
-[[context]]
-victim = "q1"
-aggressor = "q0"
-role = "both"
-depolarizing = 5.0e-3
-"#;
-
 fn s(x: &str) -> String {
     x.to_string()
 }
@@ -155,7 +137,10 @@ fn bench(size: &str, o: &Options, root: &Path) {
     let dir: PathBuf = root.join(size);
     let _ = std::fs::remove_dir_all(&dir);
     std::fs::create_dir_all(&dir).unwrap();
-    std::fs::write(dir.join("noise.toml"), NOISE).unwrap();
+    // Intrinsic errors of the usual magnitudes and one context term on q1 while q0 is
+    // active (neighbours in every grid the layout generator makes).
+    let noise = common::noise_with_context("q1", "q0", 5e-3);
+    std::fs::write(dir.join("noise.toml"), noise).unwrap();
     println!("grid {size}, {} shots", o.shots);
     let threads: Vec<String> =
         o.threads.map(|t| vec![s("--threads"), t.to_string()]).unwrap_or_default();
