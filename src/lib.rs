@@ -3,8 +3,9 @@
 //! The library holds every computation; the `slackmap` binary only parses arguments,
 //! calls in here and prints. Modules follow the data flow: layout, circuit and counts
 //! (inputs), design and simulate (making circuits and data), rows (blocks, occurrences and
-//! contexts), model (the crosstalk-free fit), slack (requirements and covering LPs),
-//! and the audit that ties them together. See DEVELOPERS.md for the architecture.
+//! contexts), model (the crosstalk-free fit), slack (requirements and covering LPs), the
+//! pipeline that chains them for the point pass and every replicate, confidence
+//! (replicates and intervals), and the audit that ties them together. See DEVELOPERS.md for the architecture.
 #![warn(missing_docs)]
 
 pub mod audit;
@@ -23,6 +24,7 @@ pub mod hints;
 pub mod layout;
 pub mod limits;
 pub mod model;
+pub mod pipeline;
 pub mod plan;
 pub mod report;
 pub mod rows;

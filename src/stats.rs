@@ -58,6 +58,39 @@ pub fn bonferroni_threshold(dof: usize, alpha: f64, n_rows: usize) -> f64 {
     chi2_quantile(dof, 1.0 - alpha / n_rows.max(1) as f64)
 }
 
+/// The Bonferroni row thresholds of one analysis, computed once per outcome count.
+///
+/// A threshold depends only on a row's outcome count (and on alpha and the row count), while
+/// a quantile costs a root search: an audit asks for one per row in every replicate, so the
+/// values for the outcome counts a block can have (2 and 4) are computed up front.
+#[derive(Clone, Debug)]
+pub struct RowThresholds {
+    alpha: f64,
+    n_rows: usize,
+    /// Threshold of a row with `i` outcomes, for every `i` up to four.
+    by_outcomes: [f64; 5],
+}
+
+impl RowThresholds {
+    /// Thresholds at family-wise level `alpha` over `n_rows` rows.
+    pub fn new(alpha: f64, n_rows: usize) -> RowThresholds {
+        let mut by_outcomes = [0.0; 5];
+        for (k, t) in by_outcomes.iter_mut().enumerate().skip(2) {
+            *t = bonferroni_threshold(k - 1, alpha, n_rows);
+        }
+        RowThresholds { alpha, n_rows, by_outcomes }
+    }
+
+    /// The threshold of a row with `outcomes` outcomes ([`bonferroni_threshold`] with
+    /// `outcomes - 1` degrees of freedom).
+    pub fn of_outcomes(&self, outcomes: usize) -> f64 {
+        match self.by_outcomes.get(outcomes) {
+            Some(&t) => t,
+            None => bonferroni_threshold(outcomes.saturating_sub(1), self.alpha, self.n_rows),
+        }
+    }
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;
@@ -101,6 +134,15 @@ mod tests {
                 let sf = ChiSquared::new(dof as f64).unwrap().sf(x);
                 assert!((sf / upper - 1.0).abs() < 1e-6, "dof {dof} upper {upper}: sf {sf}");
             }
+        }
+    }
+
+    #[test]
+    fn row_thresholds_equal_the_quantile_they_cache() {
+        let t = RowThresholds::new(0.05, 1234);
+        for k in 1..=9 {
+            let want = bonferroni_threshold(k - 1, 0.05, 1234);
+            assert_eq!(t.of_outcomes(k), want, "{k} outcomes");
         }
     }
 

@@ -65,7 +65,7 @@ fn run(
         },
     };
     let (mut rep, r) = audit::run_parts(&s.layout, &s.circuits, &counts, &cfg, &Silent).unwrap();
-    confidence::finish(&mut rep, &r, &cfg.bootstrap).unwrap();
+    audit::finish(&mut rep, &r, &cfg.bootstrap).unwrap();
     rep
 }
 

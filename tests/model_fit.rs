@@ -259,7 +259,19 @@ fn pauli_fit_recovers_rates_and_flags_what_twirling_hides() {
     // Coherent angles: a closed randomized sequence maps the final Bloch vector onto Z and
     // a small rotation anywhere moves it perpendicular, so to first order no angle changes
     // any outcome: every angle must be flagged and held at zero.
-    let fit = fit_qubit(&data, &spec(Family::PauliCoherent), None, &FitOptions::default()).unwrap();
+    // Rows prepared for a Pauli family keep only their Pauli paths: the coherent family
+    // needs them prepared again, and refuses them until then.
+    let coherent = spec(Family::PauliCoherent);
+    assert!(fit_qubit(&data, &coherent, None, &FitOptions::default()).is_err());
+    let data: Vec<PreparedRow> = rows
+        .iter()
+        .zip(&data)
+        .map(|(r, d)| {
+            PreparedRow::new(&Row { counts: d.counts().to_vec(), ..r.clone() }, &coherent)
+        })
+        .collect::<Result<_, _>>()
+        .unwrap();
+    let fit = fit_qubit(&data, &coherent, None, &FitOptions::default()).unwrap();
     for k in &fit.kinds {
         for (i, name) in k.names.iter().enumerate().filter(|(_, n)| n.starts_with("h_")) {
             assert!(!k.identified[i], "{name} of kind {} should be unidentified", k.kind);

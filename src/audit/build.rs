@@ -94,9 +94,40 @@ fn direction_verdict(d: &Directed, cfg: &AuditConfig) -> (Verdict, ReasonCode, S
         );
     }
     // Without replicates the lower value is the attribution minimum or leave-one-out;
-    // with them, crate::confidence::finish replaces it by the interval's lower end.
+    // with them, crate::audit::finish replaces it by the interval's lower end.
     let lower = d.attribution.0.min(d.loo);
     detected_verdict(d.p_value, lower, cfg.action_threshold_tvd_per_layer)
+}
+
+/// Revisits the verdicts of detected directions once the bootstrap intervals are in
+/// (`pairs`: each edge's (a<-b, b<-a) positions in `report.directed`): `recalibrate` then
+/// needs the interval's lower end above the action threshold. [`report`] used the
+/// attribution minimum or leave-one-out; the same rule as `direction_verdict` decides
+/// "detected". Orders the edges afterwards.
+pub(crate) fn revisit_verdicts(report: &mut AuditReport, pairs: &[(usize, usize)]) {
+    let threshold = report.parameters.action_threshold_tvd_per_layer;
+    let nulls = report.parameters.null_replicates;
+    for (e, &(ab, ba)) in report.edges.iter_mut().zip(pairs) {
+        let mut lead: Option<(Verdict, ReasonCode, String)> = None;
+        for j in [ab, ba] {
+            let d = &report.directed[j];
+            let detected = nulls > 0 && is_detected(d);
+            if !detected {
+                continue;
+            }
+            let low = d.confidence.as_ref().map_or(0.0, |c| c.low_tvd_per_layer);
+            let (v, code, why) = detected_verdict(d.p_value, low, threshold);
+            if lead.as_ref().is_none_or(|l| v < l.0) {
+                lead = Some((v, code, format!("{}<-{}: {}", d.victim, d.aggressor, why)));
+            }
+        }
+        if let Some((v, code, why)) = lead {
+            e.verdict = v;
+            e.reason_code = code;
+            e.reason = why;
+        }
+    }
+    order_edges(&mut report.edges);
 }
 
 /// The detection rule of method.md section 6 on a reported direction (null replicates run):
@@ -393,8 +424,7 @@ pub(crate) fn report(
         if a.requirement[i] > 0.0 {
             needing += 1;
         }
-        threshold =
-            threshold.max(crate::stats::bonferroni_threshold(m.len() - 1, cfg.alpha, a.used.len()));
+        threshold = threshold.max(a.thresholds.of_outcomes(m.len()));
     }
     dof_all -= n_ident as f64;
 

@@ -8,7 +8,7 @@ use sha2::{Digest, Sha256};
 
 use slackmap::audit::{self, AuditConfig, Cancel};
 use slackmap::confidence::partial::{self, Partial};
-use slackmap::confidence::{self, BootstrapConfig, Resample};
+use slackmap::confidence::{BootstrapConfig, Resample};
 use slackmap::counts::{read_counts_from, BitOrder, CountsFormat, CountsOptions};
 use slackmap::files::{FolderRule, OutputDir};
 use slackmap::limits::Limits;
@@ -335,7 +335,7 @@ fn run_audit(
         );
         return Ok(());
     }
-    confidence::finish(&mut rep, &replicates, &cfg.bootstrap)?;
+    audit::finish(&mut rep, &replicates, &cfg.bootstrap)?;
     write_claimed_and_print(&mut rep, out)
 }
 

@@ -5,7 +5,7 @@ use std::path::PathBuf;
 
 use anyhow::Context;
 
-use slackmap::confidence::{self, partial};
+use slackmap::confidence::partial;
 
 const HELP: &str = "Example (ten shards of 20 replicates each, then the merge):
   for i in 0 1 2 3 4 5 6 7 8 9; do
@@ -90,6 +90,6 @@ pub fn run(args: MergeArgs) -> anyhow::Result<()> {
     let rows = parts.first().map(|p| p.rows.clone()).unwrap_or_default();
     let (mut rep, scores, cfg) = partial::merge(parts, &names)?;
     rep.rows = rows;
-    confidence::finish(&mut rep, &scores, &cfg).context("could not combine the replicates")?;
+    slackmap::audit::finish(&mut rep, &scores, &cfg).context("could not combine the replicates")?;
     super::audit::write_and_print(&mut rep, &args.out)
 }

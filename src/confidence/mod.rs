@@ -12,9 +12,9 @@ use rand_chacha::ChaCha8Rng;
 use rayon::prelude::*;
 use serde::{Deserialize, Serialize};
 
-use crate::audit::{self, Analysis, AuditConfig, Progress};
 use crate::error::{Error, Result};
-use crate::report::{AuditReport, Confidence, RankConfidence, ReasonCode, Verdict};
+use crate::pipeline::{self, Analysis, Progress, Scorer};
+use crate::report::{AuditReport, Confidence, RankConfidence};
 
 pub mod intervals;
 pub mod partial;
@@ -154,14 +154,16 @@ fn replicate_rng(seed: u64, salt: u64, i: usize) -> ChaCha8Rng {
     rng
 }
 
-/// The bootstrap replicates of `cfg.bootstrap.computed()`, aligned with `report`.
+/// The bootstrap replicates of `b.computed()`, aligned with `report`: each is one call of
+/// the pipeline on resampled counts ([`pipeline::rescore`]).
 pub(crate) fn bootstrap(
     a: &Analysis,
     report: &AuditReport,
-    cfg: &AuditConfig,
+    b: &BootstrapConfig,
+    seed: u64,
+    scorer: &Scorer,
     progress: &dyn Progress,
 ) -> Result<Vec<ReplicateScores>> {
-    let b = &cfg.bootstrap;
     let range = b.computed();
     if range.is_empty() {
         return Ok(Vec::new());
@@ -179,9 +181,9 @@ pub(crate) fn bootstrap(
             if progress.cancelled() {
                 return Err(Error::Interrupted);
             }
-            let mut rng = replicate_rng(cfg.seed, BOOTSTRAP_SALT, i);
+            let mut rng = replicate_rng(seed, BOOTSTRAP_SALT, i);
             let data = plan.draw(a, b.resample == Resample::Circuits, &mut rng);
-            let r = audit::rescore(a, &data, true, true, progress)?;
+            let r = pipeline::rescore(a, &data, true, true, scorer, progress)?;
             progress.advance(1);
             let aligned = |v: &[f64]| -> Vec<f64> {
                 order.iter().map(|k| k.and_then(|k| v.get(k).copied()).unwrap_or(0.0)).collect()
@@ -198,18 +200,30 @@ pub(crate) fn bootstrap(
         .collect()
 }
 
-/// The parametric null (method.md section 5): `cfg.null_replicates` data sets drawn from
-/// the fitted crosstalk-free model's predictions, requirements recomputed against the
+/// Settings of the parametric null.
+pub(crate) struct NullConfig {
+    /// Replicates (0 = none).
+    pub replicates: usize,
+    /// Seed of every draw.
+    pub seed: u64,
+    /// Level of the detection limit.
+    pub alpha: f64,
+}
+
+/// The parametric null (method.md section 5): `cfg.replicates` data sets drawn from the
+/// fitted crosstalk-free model's predictions, requirements recomputed against the
 /// point-estimate model (no refit: the data come from that model, so the null asks only
-/// how much slack its shot noise alone forces), both stages re-solved. Returns per directed
-/// pair (detection limit, p-value), or None without null replicates.
+/// how much slack its shot noise alone forces), both stages re-solved by the same pipeline
+/// as the point pass. `point` holds the directed scores in `scorer`'s order. Returns per
+/// directed pair (detection limit, p-value), or None without null replicates.
 pub(crate) fn parametric_null(
     a: &Analysis,
-    x: &audit::Assessed,
-    cfg: &AuditConfig,
+    point: &[f64],
+    cfg: &NullConfig,
+    scorer: &Scorer,
     progress: &dyn Progress,
 ) -> Result<Option<Vec<(f64, f64)>>> {
-    let b = cfg.null_replicates;
+    let b = cfg.replicates;
     if b == 0 {
         return Ok(None);
     }
@@ -222,20 +236,21 @@ pub(crate) fn parametric_null(
             }
             let mut rng = replicate_rng(cfg.seed, PARAMETRIC_SALT, i);
             let data = resample::draw_from_model(a, &mut rng);
-            let out = audit::rescore(a, &data, false, false, progress).map(|r| r.directed);
+            let out =
+                pipeline::rescore(a, &data, false, false, scorer, progress).map(|r| r.directed);
             progress.advance(1);
             out
         })
         .collect::<Result<_>>()?;
     Ok(Some(
-        x.directed
+        point
             .iter()
             .enumerate()
-            .map(|(j, d)| {
+            .map(|(j, &score)| {
                 let null: Vec<f64> = reps.iter().map(|r| r[j]).collect();
                 (
                     crate::slack::null::detection_limit(&null, cfg.alpha),
-                    crate::slack::null::p_value(d.score, &null),
+                    crate::slack::null::p_value(score, &null),
                 )
             })
             .collect(),
@@ -262,17 +277,17 @@ fn summarise(estimate: f64, reps: &[f64], scores: &[f64], level: f64) -> Confide
     }
 }
 
-/// Fills a point-estimate report's bootstrap fields from all its replicates (in index
-/// order 0..replicates) and revisits the verdicts of detected directions: `recalibrate`
-/// then needs the interval's lower end above the action threshold. A run and the merge of
-/// its shards both end here, so they write the same bytes.
-pub fn finish(
+/// Fills a point-estimate report's bootstrap fields (intervals, medians, P(score > 0), rank
+/// statistics) from all its replicates, in index order 0..replicates, and returns each
+/// edge's (a<-b, b<-a) positions in `report.directed`. Verdicts are the audit's to revisit
+/// ([`crate::audit::finish`]).
+pub fn fill(
     report: &mut AuditReport,
     reps: &[ReplicateScores],
     cfg: &BootstrapConfig,
-) -> Result<()> {
+) -> Result<Vec<(usize, usize)>> {
     if reps.is_empty() {
-        return Ok(());
+        return Ok(Vec::new());
     }
     let (nd, ni) = (report.directed.len(), report.intrinsic.len());
     for (i, r) in reps.iter().enumerate() {
@@ -334,9 +349,7 @@ pub fn finish(
         })
         .collect();
     let edge_ranks: Vec<Vec<usize>> = edge_reps.iter().map(|s| ranks(s)).collect();
-    let threshold = report.parameters.action_threshold_tvd_per_layer;
-    let nulls = report.parameters.null_replicates;
-    for (e, (&(ab, ba), col)) in report.edges.iter_mut().zip(pairs.iter().zip(0..)) {
+    for (e, col) in report.edges.iter_mut().zip(0..) {
         let v: Vec<f64> = edge_estimates.iter().map(|r| r[col]).collect();
         let s: Vec<f64> = edge_reps.iter().map(|r| r[col]).collect();
         e.confidence = Some(summarise(e.estimate_tvd_per_layer, &v, &s, level));
@@ -355,29 +368,8 @@ pub fn finish(
             top_k: cfg.top_k,
             p_top_k: top as f64 / reps.len() as f64,
         });
-        // Revisit the verdict with the interval's lower end (build.rs used the attribution
-        // minimum or leave-one-out); the same rule as direction_verdict decides "detected".
-        let mut lead: Option<(Verdict, ReasonCode, String)> = None;
-        for j in [ab, ba] {
-            let d = &report.directed[j];
-            let detected = nulls > 0 && audit::is_detected(d);
-            if !detected {
-                continue;
-            }
-            let low = d.confidence.as_ref().map_or(0.0, |c| c.low_tvd_per_layer);
-            let (v, code, why) = audit::detected_verdict(d.p_value, low, threshold);
-            if lead.as_ref().is_none_or(|l| v < l.0) {
-                lead = Some((v, code, format!("{}<-{}: {}", d.victim, d.aggressor, why)));
-            }
-        }
-        if let Some((v, code, why)) = lead {
-            e.verdict = v;
-            e.reason_code = code;
-            e.reason = why;
-        }
     }
-    audit::order_edges(&mut report.edges);
-    Ok(())
+    Ok(pairs)
 }
 
 #[cfg(test)]

@@ -10,7 +10,7 @@ use rand::RngExt;
 use rand_chacha::ChaCha8Rng;
 use rand_distr::{Binomial, Distribution};
 
-use crate::audit::{Analysis, Resampled};
+use crate::pipeline::{Analysis, Resampled};
 
 /// Counts of `n` shots over outcomes of probabilities `p`, by sequential conditional
 /// binomials (each outcome's count given those before it is binomial).

@@ -8,8 +8,6 @@
 //! Identifiability is judged from the eigen-decomposition of F in natural coordinates at
 //! the isotropic, incoherent projection of the start point (see [`FitOptions`]).
 
-use std::collections::HashMap;
-
 use nalgebra::{DMatrix, DVector, SymmetricEigen};
 
 use super::channel::{KindIx, ModelSpec, Params};
@@ -182,7 +180,11 @@ struct Coords {
     /// False for coherent angles; true for logistic and softmax coordinates, which are
     /// kept within +-[`RAW_LIMIT`] so that d natural / d raw stays invertible.
     bounded: Vec<bool>,
-    index: HashMap<ParamRef, usize>,
+    /// Position in `refs` of each kind's first raw coordinate (indexed by kind), and of
+    /// each qubit's first readout coordinate (indexed by qubit): an evaluation looks a
+    /// row's columns up here once per row.
+    kind_start: Vec<Option<usize>>,
+    readout_start: Vec<Option<usize>>,
     kinds: Vec<KindIx>,
     qubits: Vec<QubitIx>,
 }
@@ -215,7 +217,15 @@ impl Coords {
         for &qubit in &qubits {
             refs.extend((0..2).map(|index| ParamRef::Readout { qubit, index }));
         }
-        let index = refs.iter().enumerate().map(|(i, r)| (*r, i)).collect();
+        let mut kind_start = vec![None; params.kinds.len()];
+        let mut readout_start = vec![None; params.readout.len()];
+        for (i, r) in refs.iter().enumerate() {
+            match *r {
+                ParamRef::Kind { kind, index: 0 } => kind_start[kind] = Some(i),
+                ParamRef::Readout { qubit, index: 0 } => readout_start[qubit] = Some(i),
+                _ => {}
+            }
+        }
         let bounded = refs
             .iter()
             .map(|r| match *r {
@@ -225,7 +235,19 @@ impl Coords {
                 ParamRef::Readout { .. } => true,
             })
             .collect();
-        Coords { refs, bounded, index, kinds, qubits }
+        Coords { refs, bounded, kind_start, readout_start, kinds, qubits }
+    }
+
+    /// Position of a raw coordinate among the free ones, if it is free.
+    fn position(&self, r: &ParamRef) -> Option<usize> {
+        match *r {
+            ParamRef::Kind { kind, index } => {
+                self.kind_start.get(kind).copied().flatten().map(|s| s + index)
+            }
+            ParamRef::Readout { qubit, index } => {
+                self.readout_start.get(qubit).copied().flatten().map(|s| s + index)
+            }
+        }
     }
 
     fn get(&self, p: &Params) -> DVector<f64> {
@@ -299,7 +321,7 @@ fn evaluate(rows: &[PreparedRow], params: &Params, coords: &Coords, want_derivs:
             .columns
             .iter()
             .enumerate()
-            .filter_map(|(c, r)| coords.index.get(r).map(|&g| (c, g)))
+            .filter_map(|(c, r)| coords.position(r).map(|g| (c, g)))
             .collect();
         for (x, &c) in counts.iter().enumerate() {
             let p = pred.probs[x].max(1e-15);
@@ -351,6 +373,12 @@ pub fn fit(
         return Err(Error::Analysis(
             "model parameters do not match the problem's kind table".into(),
         ));
+    }
+    if let Some(r) = rows.iter().position(|r| !r.serves(spec.family)) {
+        return Err(Error::Analysis(format!(
+            "row {r} was prepared for a Pauli-channel family and cannot predict under {}: prepare the rows for it",
+            spec.family.name()
+        )));
     }
     let coords = Coords::new(rows, base, free);
     let n = coords.refs.len();
@@ -451,7 +479,7 @@ pub fn fit(
         warnings.push(Warning::new(
             "fit-not-converged",
             format!("the model fit stopped after {iterations} steps without converging"),
-            "raise the iteration limit, or check the rows for data the model cannot describe",
+            "check the rows for data the model cannot describe, or try a different --model",
         ));
     }
 

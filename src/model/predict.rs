@@ -6,6 +6,13 @@
 //! dE/dtheta once per row. Under `depolarizing`, a one-qubit row needs only its occurrence
 //! count per kind and its ideal outcome, because a depolarizing channel commutes with every
 //! one-qubit unitary (method.md section 8).
+//!
+//! When every ideal segment maps each Pauli to a multiple of one Pauli (Clifford gates) and
+//! the family's channels are Pauli channels, a row is kept as its Pauli paths instead: each
+//! Pauli component of the initial state travels to one final Pauli, and an error channel on
+//! the way only scales it by the channel's eigenvalue there (method.md section 8). The
+//! prediction is then a sum of a few products of eigenvalue powers, and the transfer
+//! matrices are not stored at all.
 
 use std::collections::HashMap;
 use std::sync::Arc;
@@ -51,6 +58,76 @@ struct Compiled {
     occurrences: Vec<u32>,
     /// Ideal <Z> of a one-qubit row, for the counted fast path.
     z_ideal: f64,
+    /// The row as Pauli paths, when its ideal segments are Clifford; then `segs` is empty
+    /// unless the family has non-diagonal channels.
+    paths: Option<Vec<PauliPath>>,
+    /// False when the transfer matrices were left out (Pauli paths under a Pauli-channel
+    /// family): the row then serves only Pauli-channel families.
+    matrices: bool,
+}
+
+/// One Pauli component of the initial state followed through a Clifford row: it ends as
+/// `coef` times Pauli `out` times the product of the eigenvalues it met on the way.
+#[derive(Debug)]
+struct PauliPath {
+    coef: f64,
+    out: usize,
+    /// (local kind, diagonal index of the kind's transfer matrix, times met), distinct keys.
+    factors: Vec<(u32, u32, u32)>,
+}
+
+/// Entries smaller than this in an ideal transfer matrix are rounding residue of an exact 0.
+const MONOMIAL_TOLERANCE: f64 = 1e-12;
+
+/// The image of Pauli `q` under an ideal transfer matrix whose column `q` has one entry:
+/// (row, value), or None when the column mixes Paulis (a non-Clifford gate).
+fn monomial_image(m: &Ptm, q: usize) -> Option<(usize, f64)> {
+    let mut found = None;
+    for r in 0..m.nrows() {
+        let v = m[(r, q)];
+        if v.abs() > MONOMIAL_TOLERANCE {
+            if found.is_some() {
+                return None;
+            }
+            found = Some((r, v));
+        }
+    }
+    found
+}
+
+/// The Pauli paths of a program, or None when an ideal layer is not Clifford: `r0` is the
+/// initial state, `segs` the error channels in time order and `layers[i]` the ideal layers
+/// before channel i (the last entry: after the last channel).
+fn pauli_paths(
+    r0: &DVector<f64>,
+    segs: &[(usize, Place)],
+    layers: &[Vec<Ptm>],
+) -> Option<Vec<PauliPath>> {
+    let mut out = Vec::new();
+    for (start, &v) in r0.iter().enumerate() {
+        if v.abs() <= MONOMIAL_TOLERANCE {
+            continue;
+        }
+        let (mut q, mut coef) = (start, v);
+        let mut factors: Vec<(u32, u32, u32)> = Vec::new();
+        for (i, ls) in layers.iter().enumerate() {
+            if i > 0 {
+                let (local, place) = segs[i - 1];
+                let key = (local as u32, diag_index(place, q) as u32);
+                match factors.iter_mut().find(|f| (f.0, f.1) == key) {
+                    Some(f) => f.2 += 1,
+                    None => factors.push((key.0, key.1, 1)),
+                }
+            }
+            for m in ls {
+                let (r, x) = monomial_image(m, q)?;
+                q = r;
+                coef *= x;
+            }
+        }
+        out.push(PauliPath { coef, out: q, factors });
+    }
+    Some(out)
 }
 
 /// A validated, compiled row: cheap to clone, and [`PreparedRow::with_counts`] reuses the
@@ -151,15 +228,15 @@ impl PreparedRow {
         let mut cache = PtmCache::new();
         let mut kinds: Vec<KindIx> = Vec::new();
         let mut occurrences: Vec<u32> = Vec::new();
-        let mut segs: Vec<Seg> = Vec::new();
-        let mut s0: Option<DVector<f64>> = None;
-        let mut pending: Option<Ptm> = None;
+        // The ideal layers before the first error channel and after each one; multiplied
+        // out only when the row cannot be kept as Pauli paths.
+        let mut segs: Vec<(usize, Place)> = Vec::new();
+        let mut layers: Vec<Vec<Ptm>> = vec![Vec::new()];
         let mut ideal = r0.clone();
         let mut push = |k: KindIx,
                         place: Place,
-                        pending: &mut Option<Ptm>,
-                        segs: &mut Vec<Seg>,
-                        s0: &mut Option<DVector<f64>>| {
+                        layers: &mut Vec<Vec<Ptm>>,
+                        segs: &mut Vec<(usize, Place)>| {
             let local = match kinds.iter().position(|&x| x == k) {
                 Some(i) => i,
                 None => {
@@ -169,12 +246,8 @@ impl PreparedRow {
                 }
             };
             occurrences[local] += 1;
-            let p = pending.take();
-            match segs.last_mut() {
-                Some(last) => last.after = p,
-                None => *s0 = Some(p.map_or_else(|| r0.clone(), |m| m * &r0)),
-            }
-            segs.push(Seg { local, place, after: None });
+            layers.push(Vec::new());
+            segs.push((local, place));
         };
         for (t, step) in row.steps.iter().enumerate() {
             match step {
@@ -206,11 +279,11 @@ impl PreparedRow {
                         ptm::kron(&per_slot[0], &per_slot[1])
                     };
                     ideal = &m * ideal;
-                    pending = times(pending, &m);
+                    layers.last_mut().expect("a layer list per segment").push(m);
                     for (slot, a) in acts.iter().enumerate().take(n) {
                         if let Some(k) = a.and_then(|a| a.kind) {
                             let place = if n == 1 { Place::Full } else { Place::Slot(slot) };
-                            push(k, place, &mut pending, &mut segs, &mut s0);
+                            push(k, place, &mut layers, &mut segs);
                         }
                     }
                 }
@@ -226,27 +299,43 @@ impl PreparedRow {
                     }
                     let m = gate_ptm(&mut cache, action, *reversed)?;
                     ideal = &m * ideal;
-                    pending = times(pending, &m);
+                    layers.last_mut().expect("a layer list per segment").push(m);
                     if let Some(k) = action.kind {
-                        push(k, Place::Full, &mut pending, &mut segs, &mut s0);
+                        push(k, Place::Full, &mut layers, &mut segs);
                     }
                 }
             }
         }
-        match segs.last_mut() {
-            Some(last) => last.after = pending,
-            None => s0 = Some(pending.map_or_else(|| r0.clone(), |m| m * &r0)),
-        }
         let z_ideal = if n == 1 { ideal[3] } else { 0.0 };
+        let paths = pauli_paths(&r0, &segs, &layers);
+        // Pauli channels never need the transfer matrices once the paths are known.
+        let keep_matrices =
+            paths.is_none() || !matches!(spec.family, Family::Depolarizing | Family::Pauli);
+        let (s0, segs) = if keep_matrices {
+            let product = |ls: &[Ptm]| ls.iter().fold(None, times);
+            let s0 = product(&layers[0]).map_or_else(|| r0.clone(), |m| m * &r0);
+            let segs = segs
+                .iter()
+                .zip(&layers[1..])
+                .map(|(&(local, place), ls)| Seg { local, place, after: product(ls) })
+                .collect();
+            (s0, segs)
+        } else {
+            let s0 = layers[0].iter().fold(r0.clone(), |v, m| m * v);
+            (s0, Vec::new())
+        };
+        debug_assert_eq!(s0.len(), dim);
         let compiled = Compiled {
             n_slots: n,
             readout: row.readout.clone(),
             kinds,
-            s0: s0.unwrap_or_else(|| DVector::zeros(dim)),
+            s0,
             segs,
             functionals: ptm::outcome_functionals(n),
             occurrences,
             z_ideal,
+            paths,
+            matrices: keep_matrices,
         };
         Ok(PreparedRow { compiled: Arc::new(compiled), counts: row.counts.clone() })
     }
@@ -292,11 +381,19 @@ impl PreparedRow {
     pub fn readout(&self) -> &[QubitIx] {
         &self.compiled.readout
     }
+
+    /// Whether this row can predict under `family`: a row prepared for a Pauli-channel
+    /// family keeps only its Pauli paths, which a coherent error cannot follow; prepare it
+    /// again for that family.
+    pub fn serves(&self, family: Family) -> bool {
+        self.compiled.matrices || matches!(family, Family::Depolarizing | Family::Pauli)
+    }
 }
 
-/// Channels of the kinds a set of rows needs, built once per parameter point.
+/// Channels of the kinds a set of rows needs, built once per parameter point and indexed
+/// by kind.
 pub(crate) struct Channels {
-    by_kind: HashMap<KindIx, ChannelEval>,
+    by_kind: Vec<Option<ChannelEval>>,
 }
 
 impl Channels {
@@ -305,17 +402,19 @@ impl Channels {
         rows: impl IntoIterator<Item = &'a PreparedRow>,
         params: &Params,
     ) -> Channels {
-        let mut by_kind = HashMap::new();
+        let mut by_kind: Vec<Option<ChannelEval>> = vec![None; params.kinds.len()];
         for r in rows {
             for &k in r.kinds() {
-                by_kind.entry(k).or_insert_with(|| params.kinds[k].channel());
+                if by_kind[k].is_none() {
+                    by_kind[k] = Some(params.kinds[k].channel());
+                }
             }
         }
         Channels { by_kind }
     }
 
     fn get(&self, k: KindIx) -> &ChannelEval {
-        &self.by_kind[&k]
+        self.by_kind[k].as_ref().expect("channel built for every kind of the rows")
     }
 }
 
@@ -359,7 +458,67 @@ struct Ideal {
     grad: Vec<Vec<Ptm>>,
 }
 
+/// [`ideal_ptm`] over the Pauli paths: q_y = sum over paths of F[y, out] coef prod f^n,
+/// and dq_y / dE[a, a] of a kind from the same products with one factor differentiated.
+fn ideal_paths(c: &Compiled, paths: &[PauliPath], ch: &Channels, want_grad: bool) -> Ideal {
+    let k_out = c.functionals.nrows();
+    let mut q = vec![0.0; k_out];
+    let kdim = |local: usize| ch.get(c.kinds[local]).e.nrows();
+    let mut grad: Vec<Vec<Ptm>> = if want_grad {
+        (0..c.kinds.len()).map(|l| vec![Ptm::zeros(kdim(l), kdim(l)); k_out]).collect()
+    } else {
+        Vec::new()
+    };
+    let mut powers: Vec<f64> = Vec::new();
+    for path in paths {
+        let eig = |f: &(u32, u32, u32)| {
+            let a = f.1 as usize;
+            ch.get(c.kinds[f.0 as usize]).e[(a, a)]
+        };
+        powers.clear();
+        powers.extend(path.factors.iter().map(|f| eig(f).powi(f.2 as i32)));
+        let value = path.coef * powers.iter().product::<f64>();
+        for (y, qy) in q.iter_mut().enumerate() {
+            *qy += c.functionals[(y, path.out)] * value;
+        }
+        if !want_grad {
+            continue;
+        }
+        for (j, f) in path.factors.iter().enumerate() {
+            let others: f64 =
+                powers.iter().enumerate().filter(|&(i, _)| i != j).map(|(_, p)| p).product();
+            let d = path.coef * others * f.2 as f64 * eig(f).powi(f.2 as i32 - 1);
+            let a = f.1 as usize;
+            for (y, g) in grad[f.0 as usize].iter_mut().enumerate() {
+                g[(a, a)] += c.functionals[(y, path.out)] * d;
+            }
+        }
+    }
+    Ideal { q, grad }
+}
+
 fn ideal_ptm(c: &Compiled, ch: &Channels, want_grad: bool) -> Ideal {
+    if let Some(paths) = &c.paths {
+        if c.kinds.iter().all(|&k| ch.get(k).diagonal) {
+            return ideal_paths(c, paths, ch, want_grad);
+        }
+    }
+    if !c.matrices {
+        // A coherent channel on a row kept as Pauli paths only ([`PreparedRow::serves`]):
+        // no number rather than a wrong one; the fit refuses such rows up front.
+        let k_out = c.functionals.nrows();
+        let grad = if want_grad {
+            (0..c.kinds.len())
+                .map(|l| {
+                    let d = ch.get(c.kinds[l]).e.nrows();
+                    vec![Ptm::from_element(d, d, f64::NAN); k_out]
+                })
+                .collect()
+        } else {
+            Vec::new()
+        };
+        return Ideal { q: vec![f64::NAN; k_out], grad };
+    }
     let dim = c.s0.len();
     let k_out = c.functionals.nrows();
     let mut s = c.s0.clone();
@@ -481,20 +640,40 @@ fn uses_counted_path(c: &Compiled, params: &Params) -> bool {
     c.n_slots == 1 && params.family == Family::Depolarizing
 }
 
-/// Applies readout to q; returns p and, if asked, dp/de for (slot, which) pairs.
+/// Applies readout to q; returns p and dp/de for (slot, which) pairs.
 fn with_readout(c: &Compiled, params: &Params, q: &[f64]) -> (Vec<f64>, Vec<[Vec<f64>; 2]>) {
+    readout_apply(c, params, q, true)
+}
+
+/// [`with_readout`], with the derivatives only when `want_d` (empty otherwise). Works on
+/// fixed-size arrays: a row has at most two slots.
+fn readout_apply(
+    c: &Compiled,
+    params: &Params,
+    q: &[f64],
+    want_d: bool,
+) -> (Vec<f64>, Vec<[Vec<f64>; 2]>) {
     let n = c.n_slots;
-    let conf: Vec<[[f64; 2]; 2]> =
-        c.readout.iter().map(|&r| confusion(params.readout[r].errors())).collect();
+    let mut conf = [[[0.0; 2]; 2]; 2];
+    for (s, &r) in c.readout.iter().enumerate() {
+        conf[s] = confusion(params.readout[r].errors());
+    }
     let k = q.len();
     let mut p = vec![0.0; k];
-    let mut dp: Vec<[Vec<f64>; 2]> = (0..n).map(|_| [vec![0.0; k], vec![0.0; k]]).collect();
+    let mut dp: Vec<[Vec<f64>; 2]> =
+        if want_d { (0..n).map(|_| [vec![0.0; k], vec![0.0; k]]).collect() } else { Vec::new() };
     // dc/de0 and dc/de1 of one slot's confusion.
     let dconf = [[[-1.0, 0.0], [1.0, 0.0]], [[0.0, 1.0], [0.0, -1.0]]];
     for x in 0..k {
         for (y, &qy) in q.iter().enumerate() {
-            let f: Vec<f64> = (0..n).map(|s| conf[s][(x >> s) & 1][(y >> s) & 1]).collect();
-            p[x] += f.iter().product::<f64>() * qy;
+            let mut f = [0.0; 2];
+            for (s, fs) in f.iter_mut().enumerate().take(n) {
+                *fs = conf[s][(x >> s) & 1][(y >> s) & 1];
+            }
+            p[x] += f[..n].iter().product::<f64>() * qy;
+            if !want_d {
+                continue;
+            }
             for s in 0..n {
                 let rest: f64 = (0..n).filter(|&t| t != s).map(|t| f[t]).product();
                 for (w, dc) in dconf.iter().enumerate() {
@@ -514,7 +693,7 @@ pub(crate) fn probabilities_with(row: &PreparedRow, params: &Params, ch: &Channe
     } else {
         ideal_ptm(c, ch, false).q
     };
-    with_readout(c, params, &q).0
+    readout_apply(c, params, &q, false).0
 }
 
 /// The prediction of a row with its Jacobian, given prebuilt channels.
@@ -567,7 +746,7 @@ fn predict_path(row: &PreparedRow, params: &Params, ch: &Channels, counted: bool
     for y in 0..k_out {
         let mut unit = vec![0.0; k_out];
         unit[y] = 1.0;
-        let cy = with_readout(c, params, &unit).0;
+        let cy = readout_apply(c, params, &unit, false).0;
         for x in 0..k_out {
             for col in 0..n_kind_cols {
                 jac[(x, col)] += cy[x] * dq[(y, col)];
@@ -591,6 +770,16 @@ fn predict_path(row: &PreparedRow, params: &Params, ch: &Channels, counted: bool
 pub fn predict(row: &PreparedRow, params: &Params) -> Prediction {
     let ch = Channels::new(std::iter::once(row), params);
     predict_with(row, params, &ch)
+}
+
+/// Outcome distributions of rows that may be missing (empty for a missing row), in
+/// parallel, with every channel built once; same precondition as [`predict`].
+pub fn predict_rows(rows: &[Option<PreparedRow>], params: &Params) -> Vec<Vec<f64>> {
+    use rayon::prelude::*;
+    let ch = Channels::new(rows.iter().flatten(), params);
+    rows.par_iter()
+        .map(|r| r.as_ref().map(|r| probabilities_with(r, params, &ch)).unwrap_or_default())
+        .collect()
 }
 
 /// Outcome distributions of every row (reference and context rows alike); same
@@ -654,6 +843,53 @@ pub(crate) mod tests {
         }
         p.readout = vec![Readout::new(0.02, 0.05).unwrap(), Readout::new(0.03, 0.01).unwrap()];
         p
+    }
+
+    /// [`random_row`] with Clifford angles only (rz by multiples of pi/2), so that the row
+    /// compiles to Pauli paths.
+    fn random_clifford_row(n: usize, layers: usize, rng: &mut ChaCha8Rng) -> Row {
+        let mut row = random_row(n, layers, rng);
+        for step in &mut row.steps {
+            if let Step::Local(acts) = step {
+                for a in acts.iter_mut().flatten() {
+                    if a.gate == Gate::Rz {
+                        a.angle = std::f64::consts::FRAC_PI_2 * rng.random_range(-3..=3) as f64;
+                    }
+                }
+            }
+        }
+        row
+    }
+
+    #[test]
+    fn pauli_paths_equal_the_transfer_matrix_product() {
+        let mut rng = ChaCha8Rng::seed_from_u64(23);
+        for family in [Family::Depolarizing, Family::Pauli] {
+            for n in [1, 2] {
+                for _ in 0..20 {
+                    let row = random_clifford_row(n, 40, &mut rng);
+                    let fast = PreparedRow::new(&row, &spec(family)).unwrap();
+                    assert!(fast.compiled.paths.is_some() && fast.compiled.segs.is_empty());
+                    // The coherent family keeps the matrices; without paths it must use them.
+                    let mut slow = PreparedRow::new(&row, &spec(Family::PauliCoherent)).unwrap();
+                    Arc::get_mut(&mut slow.compiled).unwrap().paths = None;
+                    let params = random_params(family, &mut rng);
+                    let a = predict_path(&fast, &params, &Channels::new([&fast], &params), false);
+                    let b = predict_path(&slow, &params, &Channels::new([&slow], &params), false);
+                    for (x, y) in a.probs.iter().zip(&b.probs) {
+                        assert!((x - y).abs() < 1e-13, "{family:?} {n}: {x} vs {y}");
+                    }
+                    assert_eq!(a.columns, b.columns);
+                    assert!((&a.jacobian - &b.jacobian).amax() < 1e-12, "{family:?} {n}");
+                }
+            }
+        }
+        // A non-Clifford angle keeps the transfer matrices.
+        let mut row = random_clifford_row(2, 10, &mut rng);
+        row.steps.push(Step::Local([Some(Action::ideal(Gate::Rz, 0.3)), None]));
+        row.steps.push(Step::Local([Some(Action::occurrence(Gate::Sx, 0.0, 0)), None]));
+        let p = PreparedRow::new(&row, &spec(Family::Depolarizing)).unwrap();
+        assert!(p.compiled.paths.is_none() && !p.compiled.segs.is_empty());
     }
 
     fn check_jacobian(family: Family, n: usize, counted: bool) {

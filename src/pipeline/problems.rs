@@ -92,6 +92,24 @@ impl Problem {
         }
     }
 
+    /// The same problem with other requirements (`requirement[global index]`) and fixed
+    /// budgets from `fixed`: what [`Problem::build`] gives on the same rows, without
+    /// building the variables and terms again (a replicate changes only these).
+    pub fn with_requirements(
+        &self,
+        requirement: &[f64],
+        fixed: &dyn Fn(Budget) -> Option<f64>,
+    ) -> Problem {
+        let mut p = self.clone();
+        for (row, &i) in p.lp.rows.iter_mut().zip(&p.rows) {
+            row.requirement = requirement[i];
+        }
+        let fixed_values: Vec<Option<f64>> = p.vars.iter().map(|&b| fixed(b)).collect();
+        p.lp.fixed =
+            if fixed_values.iter().any(Option::is_some) { fixed_values } else { Vec::new() };
+        p
+    }
+
     /// The same problem without the rows of one circuit (for leave-one-out).
     pub fn without_circuit(&self, all: &[Row], circuit: u32) -> Problem {
         let keep: Vec<usize> =

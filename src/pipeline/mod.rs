@@ -1,0 +1,650 @@
+//! The pipeline of one pass: counts and prepared rows in, point result out.
+//!
+//! One pure computation serves the point pass and every replicate (bootstrap and parametric
+//! null): rows -> crosstalk-free fit on reference rows -> predictions -> row requirements ->
+//! two-stage covering LPs per qubit, then per coupler (method.md sections 2-4). A replicate
+//! is the same computation on other counts, started from the point fit, with the row
+//! programs, the thresholds and the LP structure of the point pass reused. `audit` and
+//! `confidence` sit above this module and never call each other for it.
+
+use std::collections::HashMap;
+use std::sync::atomic::{AtomicBool, Ordering};
+
+use rayon::prelude::*;
+
+use crate::circuit::CircuitSet;
+use crate::counts::Counts;
+use crate::error::{Error, Result, Warning};
+use crate::layout::{Layout, QubitIx};
+use crate::model::{self, Family, FitOptions, FitResult, ModelSpec, Params, PreparedRow};
+use crate::rows::{self, Rows};
+use crate::slack::lp::TwoStageSolution;
+
+pub mod problems;
+
+use problems::{Budget, Problem};
+
+/// Progress of long work, reported by the library and drawn by the caller.
+pub trait Progress: Sync {
+    /// A new stage with `total` units of work.
+    fn stage(&self, _name: &str, _total: u64) {}
+    /// `n` units of the current stage done.
+    fn advance(&self, _n: u64) {}
+    /// True when the user asked to stop; the library then returns [`Error::Interrupted`].
+    fn cancelled(&self) -> bool {
+        false
+    }
+}
+
+/// Progress that shows nothing.
+pub struct Silent;
+impl Progress for Silent {}
+
+/// A flag-based cancellation wrapper (for Ctrl-C handlers).
+pub struct Cancel<'a, P: Progress> {
+    /// The inner progress display.
+    pub inner: &'a P,
+    /// Set to true to stop.
+    pub flag: &'a AtomicBool,
+}
+
+impl<P: Progress> Progress for Cancel<'_, P> {
+    fn stage(&self, name: &str, total: u64) {
+        self.inner.stage(name, total)
+    }
+    fn advance(&self, n: u64) {
+        self.inner.advance(n)
+    }
+    fn cancelled(&self) -> bool {
+        self.flag.load(Ordering::Relaxed)
+    }
+}
+
+/// The fitted crosstalk-free model and its diagnostics.
+pub(crate) struct Fitted {
+    pub params: Params,
+    pub qubit_fits: Vec<Option<FitResult>>,
+    pub coupler_fits: Vec<Option<FitResult>>,
+    /// Qubits and couplers fitted on all their rows for want of reference rows.
+    pub fitted_on_all_rows_qubits: Vec<bool>,
+    pub fitted_on_all_rows_couplers: Vec<bool>,
+}
+
+/// Everything the assessment needs about the data and the model.
+pub(crate) struct Analysis<'a> {
+    pub layout: &'a Layout,
+    pub circuits: &'a CircuitSet,
+    pub counts: &'a Counts,
+    pub rows: Rows,
+    /// Compiled model rows, aligned with `rows.rows` (None without counts); replicates
+    /// reuse the programs with other counts.
+    pub prepared: Vec<Option<PreparedRow>>,
+    pub spec: ModelSpec,
+    pub alpha: f64,
+    /// Row thresholds at `alpha` over the `used` rows, per outcome count.
+    pub thresholds: crate::stats::RowThresholds,
+    /// Analysis rows that have counts (global indices into `rows.rows`).
+    pub used: Vec<usize>,
+    pub predictions: Vec<Vec<f64>>,
+    pub requirement: Vec<f64>,
+    /// Deviation requirements of the unlimited-shot estimate, aligned with `requirement`
+    /// (see [`crate::slack::requirement::requirement_and_deviation`]).
+    pub deviation: Vec<f64>,
+    /// 1q rows per qubit and 2q rows per coupler (global indices).
+    pub qubit_rows: Vec<Vec<usize>>,
+    pub coupler_rows: Vec<Vec<usize>>,
+    pub fitted: Fitted,
+    pub warnings: Vec<Warning>,
+    /// The covering problems of `qubit_rows` and `coupler_rows` with zero requirements:
+    /// a pass over these rows only sets requirements and fixed budgets.
+    pub templates: Templates,
+}
+
+/// Covering problems built once, aligned with [`Analysis::qubit_rows`] and
+/// [`Analysis::coupler_rows`].
+pub(crate) struct Templates {
+    pub qubit: Vec<Problem>,
+    pub coupler: Vec<Problem>,
+}
+
+/// The LP solutions of one audit.
+pub(crate) struct Solved {
+    pub qubit: Vec<(Problem, TwoStageSolution)>,
+    pub coupler: Vec<(Problem, TwoStageSolution)>,
+}
+
+/// Directed scores of a solved pass, in the audit's pair order: supplied by the audit, so
+/// that the pipeline knows nothing of how pairs are chosen and weighted.
+pub(crate) type Scorer = dyn Fn(&Analysis, &[rows::Row], &Solved) -> Vec<f64> + Sync;
+
+pub(crate) fn check_cancel(p: &dyn Progress) -> Result<()> {
+    if p.cancelled() {
+        Err(Error::Interrupted)
+    } else {
+        Ok(())
+    }
+}
+
+/// The point pass up to the requirements: rows, fit, predictions and requirements under
+/// error family `family` at family-wise level `alpha`.
+pub(crate) fn analyse<'a>(
+    layout: &'a Layout,
+    circuits: &'a CircuitSet,
+    counts: &'a Counts,
+    family: Family,
+    alpha: f64,
+    progress: &dyn Progress,
+) -> Result<Analysis<'a>> {
+    let rows = rows::build(layout, circuits, Some(counts))?;
+    let mut warnings = Vec::new();
+    let used: Vec<usize> = (0..rows.rows.len())
+        .filter(|&i| rows.rows[i].marginal.is_some() && rows.rows[i].shots > 0)
+        .collect();
+    if used.is_empty() {
+        return Err(Error::Analysis(
+            "no circuit has counts: nothing to analyse (check the circuit ids in the counts file)"
+                .into(),
+        ));
+    }
+    let spec = ModelSpec {
+        family,
+        kind_arity: rows.kinds.kinds().iter().map(|k| k.gate.arity()).collect(),
+        n_qubits: layout.n_qubits(),
+    };
+    progress.stage("preparing rows", used.len() as u64);
+    let prepared: Vec<Option<PreparedRow>> = (0..rows.rows.len())
+        .into_par_iter()
+        .map(|i| {
+            let r = &rows.rows[i];
+            match &r.marginal {
+                Some(m) if r.shots > 0 => {
+                    let pr = PreparedRow::new(&model_row(r, m.clone()), &spec).map(Some);
+                    progress.advance(1);
+                    pr
+                }
+                _ => Ok(None),
+            }
+        })
+        .collect::<Result<_>>()?;
+
+    let mut qubit_rows = vec![Vec::new(); layout.n_qubits()];
+    let mut coupler_rows = vec![Vec::new(); layout.couplers.len()];
+    for &i in &used {
+        let b = &rows.rows[i].block;
+        match b.len() {
+            1 => qubit_rows[b[0]].push(i),
+            _ => {
+                let c = layout.coupler(b[0], b[1]).ok_or_else(|| {
+                    Error::Analysis(format!(
+                        "block {}-{} is not a coupler",
+                        layout.id(b[0]),
+                        layout.id(b[1])
+                    ))
+                })?;
+                coupler_rows[c].push(i)
+            }
+        }
+    }
+
+    let zero = vec![0.0; rows.rows.len()];
+    let template = |list: &Vec<usize>| Problem::build(&rows.rows, list.clone(), &zero, &|_| None);
+    let templates = Templates {
+        qubit: qubit_rows.par_iter().map(template).collect(),
+        coupler: coupler_rows.par_iter().map(template).collect(),
+    };
+
+    let fitted = fit_model(
+        layout,
+        &rows.rows,
+        &prepared,
+        &qubit_rows,
+        &coupler_rows,
+        &spec,
+        progress,
+        &mut warnings,
+        None,
+    )?;
+    check_cancel(progress)?;
+
+    let predictions = model::predict::predict_rows(&prepared, &fitted.params);
+    let marginals: Vec<Option<&Vec<u64>>> =
+        rows.rows.iter().map(|r| r.marginal.as_ref().filter(|_| r.shots > 0)).collect();
+    let thresholds = crate::stats::RowThresholds::new(alpha, used.len());
+    let (requirement, deviation) = requirements(&marginals, &predictions, &thresholds);
+    Ok(Analysis {
+        layout,
+        circuits,
+        counts,
+        rows,
+        prepared,
+        spec,
+        alpha,
+        thresholds,
+        used,
+        predictions,
+        requirement,
+        deviation,
+        qubit_rows,
+        coupler_rows,
+        fitted,
+        warnings,
+        templates,
+    })
+}
+
+/// The model's program for one analysis row.
+fn model_row(r: &rows::Row, marginal: Vec<u64>) -> model::Row {
+    use model::{Action, Step};
+    let mut steps: Vec<Step> = Vec::new();
+    let mut current: Option<(u32, [Option<Action>; 2])> = None;
+    for s in &r.steps {
+        let action = Action { gate: s.gate, angle: s.angle, kind: s.kind.map(|k| k as usize) };
+        if s.gate.arity() == 2 {
+            if let Some((_, local)) = current.take() {
+                steps.push(Step::Local(local));
+            }
+            steps.push(Step::Joint { action, reversed: s.operands[0] == 1 });
+            continue;
+        }
+        let slot = s.operands[0] as usize;
+        match &mut current {
+            Some((layer, local)) if *layer == s.layer && local[slot].is_none() => {
+                local[slot] = Some(action)
+            }
+            _ => {
+                if let Some((_, local)) = current.take() {
+                    steps.push(Step::Local(local));
+                }
+                let mut local = [None, None];
+                local[slot] = Some(action);
+                current = Some((s.layer, local));
+            }
+        }
+    }
+    if let Some((_, local)) = current {
+        steps.push(Step::Local(local));
+    }
+    model::Row { steps, readout: r.block.clone(), counts: marginal }
+}
+
+#[allow(clippy::too_many_arguments)]
+fn fit_model(
+    layout: &Layout,
+    rows: &[rows::Row],
+    prepared: &[Option<PreparedRow>],
+    qubit_rows: &[Vec<usize>],
+    coupler_rows: &[Vec<usize>],
+    spec: &ModelSpec,
+    progress: &dyn Progress,
+    warnings: &mut Vec<Warning>,
+    start: Option<&Params>,
+) -> Result<Fitted> {
+    let options = FitOptions::default();
+    let select = |list: &[usize]| -> (Vec<PreparedRow>, bool) {
+        let reference: Vec<PreparedRow> = list
+            .iter()
+            .filter(|&&i| rows[i].is_reference)
+            .filter_map(|&i| prepared[i].clone())
+            .collect();
+        if reference.is_empty() {
+            (list.iter().filter_map(|&i| prepared[i].clone()).collect(), true)
+        } else {
+            (reference, false)
+        }
+    };
+    progress.stage("fitting qubits", qubit_rows.len() as u64);
+    let qubit_fits = fit_each(
+        qubit_rows,
+        &select,
+        &|sel| model::fit_qubit(sel, spec, start, &options),
+        progress,
+    )?;
+    let mut params = match start {
+        Some(p) => p.clone(),
+        None => Params::initial(spec)?,
+    };
+    for (q, (fit, all)) in qubit_fits.iter().enumerate() {
+        let Some(fit) = fit else { continue };
+        params.readout[q] = fit.params.readout[q];
+        let who = format!("qubit {}", layout.id(q));
+        let hint = "add circuits where this qubit runs while every neighbour idles";
+        absorb(&mut params, fit, *all, &who, "its model", hint, warnings);
+    }
+    check_cancel(progress)?;
+    progress.stage("fitting couplers", coupler_rows.len() as u64);
+    let coupler_fits = fit_each(
+        coupler_rows,
+        &select,
+        &|sel| model::fit_coupler(sel, spec, &params, start, &options),
+        progress,
+    )?;
+    for (c, (fit, all)) in coupler_fits.iter().enumerate() {
+        let Some(fit) = fit else { continue };
+        let (a, b) = layout.couplers[c];
+        let who = format!("coupler {}-{}", layout.id(a), layout.id(b));
+        let hint = "add circuits where this coupler runs while its neighbours idle";
+        absorb(&mut params, fit, *all, &who, "its two-qubit gate", hint, warnings);
+    }
+    let fitted_on_all_rows_qubits = qubit_fits.iter().map(|f| f.1).collect();
+    let fitted_on_all_rows_couplers = coupler_fits.iter().map(|f| f.1).collect();
+    Ok(Fitted {
+        params,
+        qubit_fits: qubit_fits.into_iter().map(|x| x.0).collect(),
+        coupler_fits: coupler_fits.into_iter().map(|x| x.0).collect(),
+        fitted_on_all_rows_qubits,
+        fitted_on_all_rows_couplers,
+    })
+}
+
+/// Picks the rows to fit from a row list, and says whether they are all its rows for want of
+/// reference rows.
+type Select<'a> = dyn Fn(&[usize]) -> (Vec<PreparedRow>, bool) + Sync + 'a;
+
+/// One fit per row list (a qubit's or a coupler's), in parallel.
+fn fit_each(
+    lists: &[Vec<usize>],
+    select: &Select,
+    fit: &(dyn Fn(&[PreparedRow]) -> Result<FitResult> + Sync),
+    progress: &dyn Progress,
+) -> Result<Vec<(Option<FitResult>, bool)>> {
+    lists
+        .par_iter()
+        .map(|list| {
+            let out = if list.is_empty() {
+                Ok((None, false))
+            } else {
+                let (sel, all) = select(list);
+                fit(&sel).map(|f| (Some(f), all))
+            };
+            progress.advance(1);
+            out
+        })
+        .collect()
+}
+
+/// Takes a qubit's or a coupler's fitted kinds into the model and records its warnings,
+/// loudly when it had to be fitted on all its rows (method.md section 3).
+fn absorb(
+    params: &mut Params,
+    fit: &FitResult,
+    all_rows: bool,
+    who: &str,
+    what: &str,
+    hint: &str,
+    warnings: &mut Vec<Warning>,
+) {
+    for kf in &fit.kinds {
+        params.kinds[kf.kind] = fit.params.kinds[kf.kind].clone();
+    }
+    if all_rows {
+        warnings.push(Warning::new(
+            "no-reference-rows",
+            format!(
+                "{who} has no reference rows: {what} was fitted on all its rows, so its context slack is only a lower bound"
+            ),
+            hint,
+        ));
+    }
+    let name = who.split_once(' ').map_or(who, |x| x.1);
+    warnings.extend(fit.warnings.iter().cloned().map(|w| prefix(w, name)));
+}
+
+fn prefix(w: Warning, who: &str) -> Warning {
+    Warning { message: format!("{who}: {}", w.message), ..w }
+}
+
+/// Solves the qubit problems, then the coupler problems with the qubit budgets fixed.
+pub(crate) fn solve_all(a: &Analysis, progress: &dyn Progress) -> Result<Solved> {
+    solve_rows(a, &a.rows.rows, &a.requirement, Some(&a.templates), progress)
+}
+
+/// [`solve_all`] for rows with the analysis' block structure but other programs or
+/// requirements (a bootstrap replicate).
+fn solve_rows(
+    a: &Analysis,
+    all: &[rows::Row],
+    requirement: &[f64],
+    templates: Option<&Templates>,
+    progress: &dyn Progress,
+) -> Result<Solved> {
+    progress.stage("solving qubit budgets", a.qubit_rows.len() as u64);
+    let qubit: Vec<(Problem, TwoStageSolution)> = a
+        .qubit_rows
+        .par_iter()
+        .enumerate()
+        .map(|(q, list)| {
+            let p = match templates {
+                Some(t) => t.qubit[q].with_requirements(requirement, &|_| None),
+                None => Problem::build(all, list.clone(), requirement, &|_| None),
+            };
+            let s = p.lp.solve();
+            progress.advance(1);
+            s.map(|s| (p, s))
+        })
+        .collect::<Result<_>>()?;
+    let kinds = &a.rows.kinds;
+    let owner = |b: Budget| -> Option<QubitIx> {
+        match b {
+            Budget::Readout(q) => Some(q),
+            Budget::Intrinsic(k) | Budget::Context(k, _) => {
+                let kind = kinds.get(k);
+                (kind.gate.arity() == 1).then_some(kind.qubits[0])
+            }
+        }
+    };
+    let fixed = |b: Budget| -> Option<f64> {
+        let q = owner(b)?;
+        let (p, s) = &qubit[q];
+        p.index.get(&b).map(|&v| s.values[v])
+    };
+    progress.stage("solving coupler budgets", a.coupler_rows.len() as u64);
+    let coupler: Vec<(Problem, TwoStageSolution)> = a
+        .coupler_rows
+        .par_iter()
+        .enumerate()
+        .map(|(c, list)| {
+            let p = match templates {
+                Some(t) => t.coupler[c].with_requirements(requirement, &fixed),
+                None => Problem::build(all, list.clone(), requirement, &fixed),
+            };
+            let s = p.lp.solve();
+            progress.advance(1);
+            s.map(|s| (p, s))
+        })
+        .collect::<Result<_>>()?;
+    Ok(Solved { qubit, coupler })
+}
+
+/// Row slack of every analysis row under the solved budgets (0 for rows without counts).
+pub(crate) fn row_slacks(a: &Analysis, s: &Solved) -> Vec<f64> {
+    let mut out = vec![0.0; a.rows.rows.len()];
+    for (p, sol) in s.qubit.iter().chain(&s.coupler) {
+        for (j, &i) in p.rows.iter().enumerate() {
+            out[i] = crate::slack::lp::row_slack(&p.lp.rows[j], &sol.values);
+        }
+    }
+    out
+}
+
+/// Frequencies of each kind over all rows (for weighting scores).
+pub(crate) fn kind_occurrences(a: &Analysis) -> HashMap<rows::KindIx, (u64, u64)> {
+    let mut m: HashMap<rows::KindIx, (u64, u64)> = HashMap::new();
+    for &i in &a.used {
+        let r = &a.rows.rows[i];
+        for &(k, c) in &r.kind_counts {
+            let e = m.entry(k).or_default();
+            e.0 += c as u64;
+            if r.is_reference {
+                e.1 += c as u64;
+            }
+        }
+    }
+    m
+}
+
+/// Progress for work nested inside a replicate: shows nothing, but still honours Ctrl-C.
+struct Nested<'a>(&'a dyn Progress);
+impl Progress for Nested<'_> {
+    fn cancelled(&self) -> bool {
+        self.0.cancelled()
+    }
+}
+
+/// One resampled data set, aligned with the analysis rows.
+pub(crate) struct Resampled {
+    /// Row i takes the program of analysis row `source[i]` (same block, another circuit of
+    /// the same group); `None` keeps every row's own program.
+    pub source: Option<Vec<usize>>,
+    /// New marginal counts of each analysis row (None where the row has no counts).
+    pub counts: Vec<Option<Vec<u64>>>,
+}
+
+/// Directed scores (in `scorer`'s pair order) and intrinsic slack per kind (indexed by
+/// kind) of a resampled data set: refit from the point estimate when `refit` (a few
+/// Newton steps; PreparedRow programs are reused), recompute requirements, solve both
+/// stages.
+pub(crate) fn rescore(
+    a: &Analysis,
+    data: &Resampled,
+    refit: bool,
+    with_estimate: bool,
+    scorer: &Scorer,
+    progress: &dyn Progress,
+) -> Result<Rescored> {
+    let quiet = Nested(progress);
+    let n = a.rows.rows.len();
+    let src = |i: usize| data.source.as_ref().map_or(i, |s| s[i]);
+    let owned: Option<Vec<rows::Row>> = data.source.as_ref().map(|s| {
+        s.iter()
+            .enumerate()
+            .map(|(i, &j)| {
+                let mut r = a.rows.rows[j].clone();
+                r.circuit = a.rows.rows[i].circuit;
+                r.marginal = data.counts[i].clone();
+                r
+            })
+            .collect()
+    });
+    let all: &[rows::Row] = owned.as_deref().unwrap_or(&a.rows.rows);
+    // Without a refit on the original rows the model's predictions are already known, so
+    // the rows need no recompiling (the parametric null's case).
+    let needs_model = refit || data.source.is_some();
+    let prepared: Vec<Option<PreparedRow>> = if needs_model {
+        (0..n)
+            .into_par_iter()
+            .map(|i| match (&data.counts[i], &a.prepared[src(i)]) {
+                (Some(c), Some(p)) => p.with_counts(c.clone()).map(Some),
+                _ => Ok(None),
+            })
+            .collect::<Result<_>>()?
+    } else {
+        Vec::new()
+    };
+    let params = if refit {
+        let mut ignored = Vec::new();
+        fit_model(
+            a.layout,
+            all,
+            &prepared,
+            &a.qubit_rows,
+            &a.coupler_rows,
+            &a.spec,
+            &quiet,
+            &mut ignored,
+            Some(&a.fitted.params),
+        )?
+        .params
+    } else {
+        a.fitted.params.clone()
+    };
+    check_cancel(progress)?;
+    let computed: Vec<Vec<f64>>;
+    let predictions: &[Vec<f64>] = if !needs_model {
+        &a.predictions
+    } else {
+        computed = model::predict::predict_rows(&prepared, &params);
+        &computed
+    };
+    let marginals: Vec<Option<&Vec<u64>>> =
+        data.counts.iter().map(|m| m.as_ref().filter(|m| m.iter().sum::<u64>() > 0)).collect();
+    let (requirement, deviation) = requirements(&marginals, predictions, &a.thresholds);
+    let (directed, intrinsic) = scores_of(a, all, &requirement, scorer, &quiet)?;
+    check_cancel(progress)?;
+    let estimate =
+        if with_estimate { Some(scores_of(a, all, &deviation, scorer, &quiet)?) } else { None };
+    Ok(Rescored { directed, intrinsic, estimate })
+}
+
+/// Directed scores (in `scorer`'s pair order) and intrinsic slack per kind of both stages
+/// solved on `all` under `requirement`.
+fn scores_of(
+    a: &Analysis,
+    all: &[rows::Row],
+    requirement: &[f64],
+    scorer: &Scorer,
+    progress: &dyn Progress,
+) -> Result<(Vec<f64>, Vec<f64>)> {
+    // The point pass's problems hold exactly when the rows are the analysis' own.
+    let own = std::ptr::eq(all.as_ptr(), a.rows.rows.as_ptr()) && all.len() == a.rows.rows.len();
+    let solved = solve_rows(a, all, requirement, own.then_some(&a.templates), progress)?;
+    let directed = scorer(a, all, &solved);
+    let intrinsic =
+        (0..a.rows.kinds.len() as u32).map(|k| intrinsic_slack(a, &solved, k)).collect();
+    Ok((directed, intrinsic))
+}
+
+/// The unlimited-shot estimate of the point pass: directed scores and intrinsic slack
+/// under the deviation requirements.
+pub(crate) fn estimate(
+    a: &Analysis,
+    scorer: &Scorer,
+    progress: &dyn Progress,
+) -> Result<(Vec<f64>, Vec<f64>)> {
+    scores_of(a, &a.rows.rows, &a.deviation, scorer, &Nested(progress))
+}
+
+/// Scores of one rescoring: directed scores in `scorer`'s pair order and intrinsic slack
+/// per kind, and the same for the unlimited-shot estimate when asked for.
+pub(crate) struct Rescored {
+    pub directed: Vec<f64>,
+    pub intrinsic: Vec<f64>,
+    pub estimate: Option<(Vec<f64>, Vec<f64>)>,
+}
+
+/// Row requirements and deviation requirements (method.md section 4 and
+/// [`crate::slack::requirement::requirement_and_deviation`]) of rows with these counts,
+/// under the Bonferroni thresholds `thresholds`; 0 for rows without counts.
+fn requirements(
+    marginals: &[Option<&Vec<u64>>],
+    predictions: &[Vec<f64>],
+    thresholds: &crate::stats::RowThresholds,
+) -> (Vec<f64>, Vec<f64>) {
+    (0..marginals.len())
+        .into_par_iter()
+        .map(|i| match marginals[i] {
+            Some(m) => {
+                let t = thresholds.of_outcomes(m.len());
+                crate::slack::requirement::requirement_and_deviation(&predictions[i], m, t)
+            }
+            None => (0.0, 0.0),
+        })
+        .unzip()
+}
+
+/// Intrinsic slack omega_k of kind `k` in a solution (0 when the kind has no problem).
+pub(crate) fn intrinsic_slack(a: &Analysis, s: &Solved, k: rows::KindIx) -> f64 {
+    let kind = a.rows.kinds.get(k);
+    let b = Budget::Intrinsic(k);
+    if kind.gate.arity() == 1 {
+        let (p, sol) = &s.qubit[kind.qubits[0]];
+        p.value(sol, b)
+    } else {
+        a.layout
+            .coupler(kind.qubits[0], kind.qubits[1])
+            .map(|c| {
+                let (p, sol) = &s.coupler[c];
+                p.value(sol, b)
+            })
+            .unwrap_or(0.0)
+    }
+}
