@@ -28,7 +28,8 @@ mod profile;
 use problems::{Budget, Problem};
 
 pub(crate) use assess::Assessed;
-pub(crate) use build::{detected_verdict, is_detected, order_edges};
+pub(crate) use assess::{detected_verdict, is_detected};
+pub(crate) use build::order_edges;
 
 /// Settings of one audit, validated by [`AuditConfig::validate`].
 #[derive(Clone, Debug)]

@@ -61,6 +61,7 @@ pub fn verdict_colour(v: Verdict) -> Option<(Color, bool)> {
         Verdict::Recalibrate => Some((Color::Red, true)),
         Verdict::Watch => Some((Color::Yellow, false)),
         Verdict::Confounded => Some((Color::Magenta, false)),
+        Verdict::NotTested => Some((Color::Blue, false)),
         Verdict::Clean => None,
     }
 }
@@ -293,14 +294,24 @@ pub fn summary_words(r: &AuditReport) -> String {
     let count = |v: Verdict| r.edges.iter().filter(|e| e.verdict == v).count();
     let (rec, watch, conf) =
         (count(Verdict::Recalibrate), count(Verdict::Watch), count(Verdict::Confounded));
+    let untested = count(Verdict::NotTested);
     let mut s = String::new();
-    let _ = write!(
-        s,
-        "{} of {} neighbour pairs show crosstalk that the data cannot explain otherwise",
-        rec + watch,
-        r.edges.len()
-    );
-    if rec + watch == 0 {
+    if r.parameters.null_replicates == 0 {
+        let _ = write!(
+            s,
+            "Not tested: no null replicates were run (--null-replicates 0), so no pair can be called detected or clean on evidence; {untested} of {} neighbour pairs need context slack (not-tested). Rerun with null replicates before acting.",
+            r.edges.len()
+        );
+    } else {
+        let _ = write!(
+            s,
+            "{} of {} neighbour pairs show crosstalk that the data cannot explain otherwise",
+            rec + watch,
+            r.edges.len()
+        );
+    }
+    if r.parameters.null_replicates == 0 {
+    } else if rec + watch == 0 {
         s.push('.');
     } else {
         let _ = write!(
