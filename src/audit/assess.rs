@@ -639,3 +639,96 @@ fn pair_seed(seed: u64, q: QubitIx, r: QubitIx) -> u64 {
     z = (z ^ (z >> 27)).wrapping_mul(0x94D0_49BB_1331_11EB);
     z ^ (z >> 31)
 }
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    fn cfg(nulls: usize) -> AuditConfig {
+        AuditConfig {
+            family: crate::model::Family::Depolarizing,
+            alpha: 0.05,
+            action_threshold_tvd_per_layer: 1e-3,
+            null_replicates: nulls,
+            seed: 0,
+            bit_order: "as-measured".into(),
+            inputs: Vec::new(),
+            bootstrap: Default::default(),
+        }
+    }
+
+    /// A tested direction with score s, every minimal budget and the isolated rows needing
+    /// it, 39 null replicates at zero.
+    fn direction(s: f64) -> Directed {
+        Directed {
+            tested: true,
+            score: s,
+            attribution: (s, s),
+            isolated: s,
+            isolated_sensitivity: 1e-4,
+            null: vec![0.0; 39],
+            limit: 0.0,
+            p_value: crate::slack::null::p_value(s, &[0.0; 39]),
+            detected: true,
+            loo: s,
+            ..Default::default()
+        }
+    }
+
+    #[test]
+    fn no_null_is_not_tested_never_clean() {
+        let mut d = direction(5e-3);
+        d.null.clear();
+        d.detected = false;
+        let (v, code, why) = direction_verdict(&d, &cfg(0));
+        assert_eq!((v, code), (Verdict::NotTested, ReasonCode::NoNull), "{why}");
+        // A direction that needs no slack is clean with or without a null.
+        let (v, code, _) = direction_verdict(&direction(0.0), &cfg(0));
+        assert_eq!((v, code), (Verdict::Clean, ReasonCode::NoSlack));
+    }
+
+    #[test]
+    fn own_circuits_with_power_clear_a_shared_score() {
+        let mut d = direction(4e-3);
+        d.attribution = (0.0, 4e-3);
+        d.isolated = 0.0;
+        // The pair's own circuits see down to 1e-4: they would have shown 4e-3.
+        let (v, code, why) = direction_verdict(&d, &cfg(39));
+        assert_eq!((v, code), (Verdict::Clean, ReasonCode::NoneAlone), "{why}");
+        // Without that power the design cannot tell: confounded.
+        d.isolated_sensitivity = 3e-3;
+        let (v, code, why) = direction_verdict(&d, &cfg(39));
+        assert_eq!((v, code), (Verdict::Confounded, ReasonCode::Shared), "{why}");
+    }
+
+    #[test]
+    fn a_tie_with_the_limit_is_split_not_rejected() {
+        // 37 replicates below, 2 tied with the score: mid-p 1.5 / 40 = 0.0375.
+        let mut d = direction(2e-3);
+        d.null = vec![0.0; 37];
+        d.null.extend([2e-3; 2]);
+        d.limit = 2e-3;
+        d.p_value = crate::slack::null::p_value(d.score, &d.null);
+        let (v, _, why) = direction_verdict(&d, &cfg(39));
+        assert_eq!(v, Verdict::Recalibrate, "{why}");
+        // Four ties: 2.5 / 40 > 0.05, within the null.
+        d.null = vec![0.0; 35];
+        d.null.extend([2e-3; 4]);
+        let (v, code, _) = direction_verdict(&d, &cfg(39));
+        assert_eq!((v, code), (Verdict::Clean, ReasonCode::InNull));
+    }
+
+    #[test]
+    fn one_circuit_unless_corroborated() {
+        let mut d = direction(3e-3);
+        d.loo = 0.0;
+        d.detected = false;
+        d.corroboration_p = Some(0.4);
+        let (v, code, _) = direction_verdict(&d, &cfg(39));
+        assert_eq!((v, code), (Verdict::Clean, ReasonCode::OneCircuit));
+        d.detected = true;
+        d.corroboration_p = Some(0.01);
+        let (v, _, _) = direction_verdict(&d, &cfg(39));
+        assert!(matches!(v, Verdict::Watch | Verdict::Recalibrate));
+    }
+}

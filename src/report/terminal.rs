@@ -299,7 +299,7 @@ pub fn summary_words(r: &AuditReport) -> String {
     if r.parameters.null_replicates == 0 {
         let _ = write!(
             s,
-            "Not tested: no null replicates were run (--null-replicates 0), so no pair can be called detected or clean on evidence; {untested} of {} neighbour pairs need context slack (not-tested). Rerun with null replicates before acting.",
+            "Not tested: no null replicates were run (--null-replicates 0), so no pair that needs context slack can be called detected or clean: {untested} of {} neighbour pairs need it (not-tested). Rerun with null replicates before acting on them.",
             r.edges.len()
         );
     } else {
@@ -310,10 +310,10 @@ pub fn summary_words(r: &AuditReport) -> String {
             r.edges.len()
         );
     }
-    if r.parameters.null_replicates == 0 {
-    } else if rec + watch == 0 {
+    let tested = r.parameters.null_replicates > 0;
+    if tested && rec + watch == 0 {
         s.push('.');
-    } else {
+    } else if tested {
         let _ = write!(
             s,
             ": {rec} above the action threshold of {} x1e-3 per layer (recalibrate), {watch} below it (watch).",
