@@ -237,7 +237,7 @@ fn assess_pair(
         return Ok(d);
     }
     d.tested = true;
-    d.sensitivity = sensitivity(a, p, r);
+    d.sensitivity = sensitivity(a, p, r, &|_| true);
     d.score = score(sol, &w);
     d.driven = score(sol, &w_driven);
     d.idle = score(sol, &w_idle);
@@ -303,7 +303,19 @@ fn assess_pair(
         let reduced = p.restricted(&keep);
         let rs = reduced.lp.solve()?;
         d.isolated = score(&rs, &remap(&w, p, &reduced));
-        d.isolated_sensitivity = sensitivity(a, &reduced, r);
+        // Power on the operations that carry the unexplained slack (a driven-only error is
+        // invisible to rows where the victim idles beside r).
+        let carrying: Vec<KindIx> = p
+            .vars
+            .iter()
+            .enumerate()
+            .filter_map(|(v, b)| match *b {
+                Budget::Context(k, _) if sol.values[v] > ZERO_SCORE => Some(k),
+                _ => None,
+            })
+            .collect();
+        d.isolated_sensitivity =
+            sensitivity(a, &reduced, r, &|k| carrying.is_empty() || carrying.contains(&k));
     } else {
         d.isolated_sensitivity = f64::INFINITY;
     }
@@ -586,7 +598,8 @@ fn polarization(p: &[f64]) -> (f64, f64) {
 /// shift s_row, so the sensitivity is min over rows of s_row pi_max / (c pi_row).
 /// Coherent errors under twirling and errors that are not depolarizing move other outcomes
 /// first: this is a yardstick for planning and for reading a zero score, not a guarantee.
-fn sensitivity(a: &Analysis, p: &Problem, r: QubitIx) -> f64 {
+/// Only occurrences of kinds that `kind` admits count.
+fn sensitivity(a: &Analysis, p: &Problem, r: QubitIx, kind: &dyn Fn(KindIx) -> bool) -> f64 {
     let n_rows = a.used.len();
     let pi_max = p.rows.iter().map(|&i| polarization(&a.predictions[i]).0).fold(0.0, f64::max);
     // The threshold depends on the outcome count alone; a quantile costs a root search.
@@ -594,7 +607,8 @@ fn sensitivity(a: &Analysis, p: &Problem, r: QubitIx) -> f64 {
     let mut best = f64::INFINITY;
     for &i in &p.rows {
         let row = &a.rows.rows[i];
-        let c: u32 = row.context_counts.iter().filter(|e| e.0 .1 == r).map(|e| e.1).sum();
+        let c: u32 =
+            row.context_counts.iter().filter(|e| e.0 .1 == r && kind(e.0 .0)).map(|e| e.1).sum();
         let pred = &a.predictions[i];
         if c == 0 || pred.len() < 2 {
             continue;
