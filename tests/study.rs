@@ -75,7 +75,7 @@ impl ErrorKind {
             ErrorKind::Depolarizing => format!("depolarizing = {strength:e}"),
             ErrorKind::Dephasing => format!("dephasing = {strength:e}"),
             ErrorKind::Coherent => {
-                let axis = if index % 2 == 0 { "X" } else { "Z" };
+                let axis = if index.is_multiple_of(2) { "X" } else { "Z" };
                 format!("rotation = {{ angle = {strength:e}, axis = \"{axis}\" }}")
             }
         }
@@ -149,6 +149,9 @@ fn noise(layout: &Layout, inj: &[Injection], drift_on: Option<usize>) -> Noise {
     Noise::from_toml_str(&text, std::path::Path::new("noise.toml"), layout).unwrap()
 }
 
+/// A block's measured positions and its sampled outcomes as cumulative (end, outcome) runs.
+type BlockRuns = (Vec<usize>, Vec<(u64, usize)>);
+
 /// Counts of `shots` shots per circuit whose block marginals are drawn exactly as the
 /// simulator draws them (each block independently from its exact distribution; valid for
 /// noise without readout crosstalk or drift), joined across blocks by sorted order, so that a
@@ -169,7 +172,7 @@ fn block_counts(
             let mut rng = simulate::circuit_rng(seed, i);
             let pos = |q: usize| c.measured.iter().position(|&m| m == q).unwrap();
             // Per block: measured positions and cumulative (end, outcome) runs.
-            let blocks: Vec<(Vec<usize>, Vec<(u64, usize)>)> = c
+            let blocks: Vec<BlockRuns> = c
                 .blocks()
                 .into_iter()
                 .map(|b| {
@@ -438,11 +441,15 @@ fn median(mut v: Vec<f64>) -> f64 {
     }
 }
 
+/// One kind's figures: (kind, edges, covered, median width, median ratio estimate / 100x,
+/// recall at 3x the detection level as (flagged, edges)).
+type KindFigures = (ErrorKind, usize, usize, f64, f64, (usize, usize));
+
 /// The study's figures.
 #[derive(Debug, Default)]
 struct Figures {
-    /// Per kind: (edges, covered, median width, median ratio, recall at 3x (hits, n)).
-    per_kind: Vec<(ErrorKind, usize, usize, f64, f64, (usize, usize))>,
+    /// Per kind: see [`KindFigures`].
+    per_kind: Vec<KindFigures>,
     /// Recalibrate where the reference is >= 1.5x the threshold: (hits, n).
     recalibrate_above: (usize, usize),
     /// Recalibrate where the reference is <= 0.5x the threshold: (hits, n).
