@@ -128,10 +128,9 @@ fn detection_limit_rate(s: &Scenario, shots: u64) -> f64 {
 
 /// Power and coverage at three times the detection limit (method.md section 5).
 ///
-/// Measured (release, 20 seeds, 100 replicates): at 1000 shots the 50%-detection rate is
-/// 2.83e-3 and at three times it the edge is detected in 20/20 seeds; the basic interval
-/// holds the 100x-shot score in 18/20 (percentile 7/20, bias-corrected 12/20). At 300 shots:
-/// 5.66e-3, 20/20, and 18/20 (15/20, 15/20). Run with `--nocapture` to see the figures.
+/// The reference is the 100x-shot run's estimate (the quantity the interval is around); the
+/// 100x-shot score, which grows with shots, is printed beside it. Run with `--nocapture` to
+/// see the figures; tests/study.rs measures the same over many chips and error kinds.
 fn power_and_coverage(shots: u64) -> (usize, [usize; 3], [usize; 3], f64) {
     let s = scenario(1);
     let limit = detection_limit_rate(&s, shots);
@@ -177,7 +176,7 @@ fn chosen(c: [usize; 3]) -> usize {
 
 #[test]
 fn injected_edge_at_three_limits_is_found_and_covered() {
-    let (found, covered, _, _) = power_and_coverage(SHOTS);
+    let (found, _, covered, _) = power_and_coverage(SHOTS);
     assert!(found as f64 >= 0.9 * SEEDS as f64, "detected in {found}/{SEEDS} seeds");
     let c = chosen(covered);
     assert!(c as f64 >= 0.85 * SEEDS as f64, "coverage {c}/{SEEDS}");
@@ -186,7 +185,7 @@ fn injected_edge_at_three_limits_is_found_and_covered() {
 /// The same study at 300 shots, where the threshold's allowance is larger.
 #[test]
 fn injected_edge_at_three_limits_300_shots() {
-    let (found, covered, _, _) = power_and_coverage(300);
+    let (found, _, covered, _) = power_and_coverage(300);
     assert!(found as f64 >= 0.9 * SEEDS as f64, "detected in {found}/{SEEDS} seeds");
     let c = chosen(covered);
     assert!(c as f64 >= 0.85 * SEEDS as f64, "coverage {c}/{SEEDS}");

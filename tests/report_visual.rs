@@ -113,6 +113,7 @@ fn grid_audit(rows: usize, cols: usize, flags: &[Flag]) -> AuditReport {
             Verdict::Confounded => {
                 format!("attribution minimum is zero; {} could carry it", id(partner.unwrap_or(a)))
             }
+            Verdict::NotTested => "no null replicates were run".to_string(),
             Verdict::Clean if score > 0.0 => "below the detection limit".to_string(),
             Verdict::Clean => "no context slack".to_string(),
         };
@@ -154,6 +155,7 @@ fn grid_audit(rows: usize, cols: usize, flags: &[Flag]) -> AuditReport {
                 Verdict::Recalibrate => ReasonCode::AboveThreshold,
                 Verdict::Watch => ReasonCode::BelowThreshold,
                 Verdict::Confounded => ReasonCode::Shared,
+                Verdict::NotTested => ReasonCode::NoNull,
                 Verdict::Clean if score > 0.0 => ReasonCode::InNull,
                 Verdict::Clean => ReasonCode::NoSlack,
             },
@@ -176,6 +178,8 @@ fn grid_audit(rows: usize, cols: usize, flags: &[Flag]) -> AuditReport {
                 attribution_max_tvd_per_layer: s * 1.1,
                 detection_limit_tvd_per_layer: limit,
                 p_value: if flagged { 0.002 } else { 0.3 },
+                detected: flagged,
+                corroboration_p_value: None,
                 supporting_rows: (s > 0.0) as usize * 5,
                 supporting_circuits: (s > 0.0) as usize * 3,
                 isolated_tvd_per_layer: 0.0,
@@ -437,7 +441,7 @@ fn adjacency_shows_every_flagged_edge_legend_and_zero_cells() {
         assert!((4..=6).contains(&ticks), "{name}: {ticks} ticks");
         assert!(legend.descendants().any(|n| n.text() == Some("x1e-3 TVD per layer")));
         assert!(legend.descendants().any(|n| has_class(&n, "zero-key")));
-        assert_eq!(legend.descendants().filter(|n| has_class(n, "legend-mark")).count(), 3);
+        assert_eq!(legend.descendants().filter(|n| has_class(n, "legend-mark")).count(), 4);
     }
 }
 

@@ -1,6 +1,12 @@
 //! Directed scores, attribution ranges, the context-permutation null, leave-one-out and
 //! verdicts (method.md sections 4-6).
 //!
+//! The verdict rule, in the order its steps are tried (each gives a reason code):
+//! untested -> no slack -> attribution (another aggressor could carry it, unless the pair's
+//! own circuits have the power to see it and need none) -> not tested against a null ->
+//! mid-p significance -> robustness (leave one circuit out, or corroboration by the other
+//! circuits at their own level) -> the interval's lower end against the action threshold.
+//!
 //! A directed score X(q <- r) is the context slack per layer that victim q's one-qubit
 //! operations need while r is active: sum_k c_(k,r) kappa_(k,r) / sum_k c_(k,r), with
 //! c_(k,r) the number of occurrences of k during which r was active. It is computed on the
@@ -15,6 +21,7 @@ use super::{check_cancel, Analysis, AuditConfig, Progress, Solved};
 use crate::error::Result;
 use crate::gate::Gate;
 use crate::layout::QubitIx;
+use crate::report::{DirectedReport, ReasonCode, Verdict};
 use crate::rows::KindIx;
 use crate::slack::lp::TwoStageSolution;
 
@@ -27,6 +34,12 @@ const SUPPORT_TOLERANCE: f64 = 1e-9;
 
 /// Candidate circuits tried for leave-one-out, most loaded first.
 const LEAVE_ONE_OUT_CANDIDATES: usize = 8;
+
+/// The pair's own circuits (reference rows and rows where the aggressor is the victim's only
+/// active neighbour) have the power to see a context slack s when their sensitivity is at
+/// most s / POWER_MARGIN. The sensitivity is first order (see [`sensitivity`]), hence the
+/// margin.
+const POWER_MARGIN: f64 = 2.0;
 
 /// The assessment of one directed pair.
 #[derive(Clone, Debug, Default)]
@@ -44,7 +57,18 @@ pub(crate) struct Directed {
     pub attribution: (f64, f64),
     pub null: Vec<f64>,
     pub limit: f64,
+    /// Mid-p value of the score against the permutation null (1 without one).
     pub p_value: f64,
+    /// Significant (mid-p at most alpha) and robust: it survives leaving out its most
+    /// influential circuit, or the other circuits corroborate it.
+    pub detected: bool,
+    /// When leaving out the most influential circuit drops the score to the null: the mid-p
+    /// value of the other circuits' evidence, each row judged at its own (unadjusted)
+    /// threshold, against the same permutation null. None when not needed.
+    pub corroboration_p: Option<f64>,
+    /// Sensitivity of the pair's own circuits (reference rows and rows where r is the
+    /// victim's only active neighbour); infinite when there are none.
+    pub isolated_sensitivity: f64,
     pub supporting_rows: usize,
     pub supporting_circuits: usize,
     pub loo: f64,
@@ -213,7 +237,7 @@ fn assess_pair(
         return Ok(d);
     }
     d.tested = true;
-    d.sensitivity = sensitivity(a, p, r);
+    d.sensitivity = sensitivity(a, p, r, &|_| true);
     d.score = score(sol, &w);
     d.driven = score(sol, &w_driven);
     d.idle = score(sol, &w_idle);
@@ -259,6 +283,7 @@ fn assess_pair(
     } else {
         d.p_value = 1.0;
     }
+    let strata = || -> Vec<u64> { p.rows.iter().map(|&i| stratum(a, i, q, r)).collect() };
 
     // Isolated evidence: the same problem restricted to rows where no other neighbour of q
     // was active. A score that only multi-aggressor rows carry cannot be told apart from
@@ -278,6 +303,21 @@ fn assess_pair(
         let reduced = p.restricted(&keep);
         let rs = reduced.lp.solve()?;
         d.isolated = score(&rs, &remap(&w, p, &reduced));
+        // Power on the operations that carry the unexplained slack (a driven-only error is
+        // invisible to rows where the victim idles beside r).
+        let carrying: Vec<KindIx> = p
+            .vars
+            .iter()
+            .enumerate()
+            .filter_map(|(v, b)| match *b {
+                Budget::Context(k, _) if sol.values[v] > ZERO_SCORE => Some(k),
+                _ => None,
+            })
+            .collect();
+        d.isolated_sensitivity =
+            sensitivity(a, &reduced, r, &|k| carrying.is_empty() || carrying.contains(&k));
+    } else {
+        d.isolated_sensitivity = f64::INFINITY;
     }
 
     // Supporting rows: rows with r active whose requirement the intrinsic budgets alone do
@@ -316,7 +356,227 @@ fn assess_pair(
             }
         }
     }
+
+    let significant = crate::slack::null::significant(d.score, &d.null, cfg.alpha);
+    if significant && !d.null.is_empty() {
+        let robust = crate::slack::null::significant(d.loo, &d.null, cfg.alpha);
+        if !robust {
+            if let Some(c) = d.most_influential {
+                let seed = pair_seed(cfg.seed ^ CORROBORATION_SALT, q, r);
+                d.corroboration_p = Some(corroboration(a, p, &w, &strata(), c, cfg, seed)?);
+            }
+        }
+        d.detected = robust || d.corroboration_p.is_some_and(|pv| pv <= cfg.alpha);
+    }
     Ok(d)
+}
+
+/// Salt that keeps the corroboration null's stream apart from the detection null's.
+const CORROBORATION_SALT: u64 = 0x636f_7272_6f62_6f72;
+
+/// Whether the victim's other circuits corroborate a score that rests on circuit `c`: the
+/// mid-p value of X(q <- r) on the problem without `c`, each row's requirement recomputed at
+/// its own unadjusted threshold (the chi-squared (1 - alpha) quantile, not the Bonferroni
+/// one), against the permutation null of that same problem.
+///
+/// The Bonferroni threshold is there to find a deviation among all rows; once one circuit
+/// has pointed at the pair, the question is whether the rest lean the same way, and each of
+/// them can show the error only at its own level. A coherent error shows strongly in a few
+/// repeated-gate circuits and weakly in the rest, so leaving out its strongest circuit loses
+/// every row above the Bonferroni threshold while the rows below it still lean with r's
+/// label; a chance outlier leaves rows whose unadjusted excesses are independent of r's
+/// label, and the null then finds them no more often than alpha.
+fn corroboration(
+    a: &Analysis,
+    p: &Problem,
+    w: &Weights,
+    strata: &[u64],
+    c: u32,
+    cfg: &AuditConfig,
+    seed: u64,
+) -> Result<f64> {
+    let keep: Vec<usize> =
+        (0..p.rows.len()).filter(|&j| a.rows.rows[p.rows[j]].circuit != c).collect();
+    let mut reduced = p.restricted(&keep);
+    let mut thresholds: Vec<(usize, f64)> = Vec::new();
+    for (row, &i) in reduced.lp.rows.iter_mut().zip(&reduced.rows) {
+        let pred = &a.predictions[i];
+        let Some(m) = &a.rows.rows[i].marginal else { continue };
+        if pred.len() < 2 {
+            continue;
+        }
+        let dof = pred.len() - 1;
+        let t = match thresholds.iter().find(|e| e.0 == dof) {
+            Some(e) => e.1,
+            None => {
+                let t = crate::stats::chi2_quantile(dof, 1.0 - cfg.alpha);
+                thresholds.push((dof, t));
+                t
+            }
+        };
+        row.requirement = crate::slack::requirement::requirement(pred, m, t);
+    }
+    let w2 = remap(w, p, &reduced);
+    let r_vars: Vec<usize> = w2.iter().map(|e| e.0).collect();
+    let sub_strata: Vec<u64> = keep.iter().map(|&j| strata[j]).collect();
+    let observed = score(&reduced.lp.solve()?, &w2);
+    if observed <= 0.0 {
+        return Ok(1.0);
+    }
+    let null = crate::slack::null::permutation_null(
+        &reduced.lp,
+        &r_vars,
+        &sub_strata,
+        &w2,
+        cfg.null_replicates,
+        seed,
+    )?;
+    let null: Vec<f64> = null.into_iter().map(clip).collect();
+    Ok(crate::slack::null::p_value(observed, &null))
+}
+
+/// A direction's verdict and the reason (method.md section 6), before edge-level
+/// combination; the steps are those of the module header.
+///
+/// A positive score that another aggressor could carry is `confounded` only when the share
+/// it might carry exceeds the action threshold (tiny shares are noise, and calling them
+/// confounded would send users to redesign circuits for nothing), and only when the pair's
+/// own circuits cannot settle it: when they have the power to see that share and need no
+/// slack, the slack belongs to the other aggressor and the pair is clean (`none-alone`).
+pub(crate) fn direction_verdict(d: &Directed, cfg: &AuditConfig) -> (Verdict, ReasonCode, String) {
+    let pm = |x: f64| crate::report::terminal::per_mille(x);
+    if !d.tested {
+        return (
+            Verdict::Clean,
+            ReasonCode::Untested,
+            "never tested: no circuit ran the victim with this aggressor active".into(),
+        );
+    }
+    if d.score <= 0.0 {
+        return (Verdict::Clean, ReasonCode::NoSlack, "no context slack needed".into());
+    }
+    if d.attribution.0 <= ZERO_SCORE || d.isolated <= ZERO_SCORE {
+        let share = d.attribution.1.max(d.score);
+        if d.isolated <= ZERO_SCORE && POWER_MARGIN * d.isolated_sensitivity <= share {
+            return (
+                Verdict::Clean,
+                ReasonCode::NoneAlone,
+                format!(
+                    "circuits where this aggressor is the only active neighbour could see {} per layer (they see down to {}) and need none: the slack belongs to another aggressor active at the same time",
+                    pm(share),
+                    pm(d.isolated_sensitivity)
+                ),
+            );
+        }
+        let (code, why) = if d.attribution.0 <= ZERO_SCORE {
+            (ReasonCode::Shared, "another aggressor active at the same time could carry this slack")
+        } else {
+            (ReasonCode::NotAlone, "only circuits where other neighbours were active too need it")
+        };
+        // Whether it is significant cannot be asked of the conditional null: permuting r among
+        // rows where its partner is always active changes nothing. Size is what matters.
+        return if d.attribution.1 > cfg.action_threshold_tvd_per_layer {
+            (
+                Verdict::Confounded,
+                code,
+                format!(
+                    "{why}: up to {} per layer could be this pair's, which would be above the action threshold, and the circuits where it is the only active neighbour cannot tell (they see down to {}); run circuits where they are active apart",
+                    pm(d.attribution.1),
+                    pm(d.isolated_sensitivity)
+                ),
+            )
+        } else {
+            (
+                Verdict::Clean,
+                code,
+                format!(
+                    "{why}, and at most {} per layer: below the action threshold",
+                    pm(d.attribution.1)
+                ),
+            )
+        };
+    }
+    if cfg.null_replicates == 0 {
+        return (
+            Verdict::NotTested,
+            ReasonCode::NoNull,
+            format!(
+                "needs {} per layer of context slack, but no null replicates were run (--null-replicates 0), so it was not tested",
+                pm(d.score)
+            ),
+        );
+    }
+    if !crate::slack::null::significant(d.score, &d.null, cfg.alpha) {
+        return (
+            Verdict::Clean,
+            ReasonCode::InNull,
+            format!(
+                "score {} is within the permutation null (limit {}, mid-p {:.3})",
+                pm(d.score),
+                pm(d.limit),
+                d.p_value
+            ),
+        );
+    }
+    if !d.detected {
+        return (
+            Verdict::Clean,
+            ReasonCode::OneCircuit,
+            format!(
+                "rests on one circuit: without it the score falls to {} (limit {}), and the other circuits, each judged at its own level, do not lean with this aggressor (mid-p {:.3})",
+                pm(d.loo),
+                pm(d.limit),
+                d.corroboration_p.unwrap_or(1.0)
+            ),
+        );
+    }
+    // Without replicates the lower value is the attribution minimum or leave-one-out;
+    // with them, crate::confidence::finish replaces it by the interval's lower end.
+    let lower = d.attribution.0.min(d.loo);
+    detected_verdict(d.p_value, lower, cfg.action_threshold_tvd_per_layer)
+}
+
+/// The detection rule of method.md section 6 on a reported direction (null replicates run):
+/// every minimal budget needs it, rows where it is the only active neighbour need it, and it
+/// is significant and robust ([`Directed::detected`]). [`direction_verdict`] applies the
+/// same rule, in steps that give reasons.
+pub(crate) fn is_detected(d: &DirectedReport) -> bool {
+    d.score_tvd_per_layer > 0.0
+        && d.attribution_min_tvd_per_layer > ZERO_SCORE
+        && d.isolated_tvd_per_layer > ZERO_SCORE
+        && d.detected
+}
+
+/// The verdict of a detected direction whose lower bound is `lower` (TVD per layer).
+pub(crate) fn detected_verdict(
+    p_value: f64,
+    lower: f64,
+    threshold: f64,
+) -> (Verdict, ReasonCode, String) {
+    let pm = |x: f64| crate::report::terminal::per_mille(x);
+    if lower > threshold {
+        (
+            Verdict::Recalibrate,
+            ReasonCode::AboveThreshold,
+            format!(
+                "detected (p = {:.3}); even its lower bound {} exceeds the action threshold {}",
+                p_value,
+                pm(lower),
+                pm(threshold)
+            ),
+        )
+    } else {
+        (
+            Verdict::Watch,
+            ReasonCode::BelowThreshold,
+            format!(
+                "detected (p = {:.3}) but its lower bound {} is not above the action threshold {}",
+                p_value,
+                pm(lower),
+                pm(threshold)
+            ),
+        )
+    }
 }
 
 /// Polarization of a prediction: how far its most likely outcome stands above uniform, as a
@@ -338,7 +598,8 @@ fn polarization(p: &[f64]) -> (f64, f64) {
 /// shift s_row, so the sensitivity is min over rows of s_row pi_max / (c pi_row).
 /// Coherent errors under twirling and errors that are not depolarizing move other outcomes
 /// first: this is a yardstick for planning and for reading a zero score, not a guarantee.
-fn sensitivity(a: &Analysis, p: &Problem, r: QubitIx) -> f64 {
+/// Only occurrences of kinds that `kind` admits count.
+fn sensitivity(a: &Analysis, p: &Problem, r: QubitIx, kind: &dyn Fn(KindIx) -> bool) -> f64 {
     let n_rows = a.used.len();
     let pi_max = p.rows.iter().map(|&i| polarization(&a.predictions[i]).0).fold(0.0, f64::max);
     // The threshold depends on the outcome count alone; a quantile costs a root search.
@@ -346,7 +607,8 @@ fn sensitivity(a: &Analysis, p: &Problem, r: QubitIx) -> f64 {
     let mut best = f64::INFINITY;
     for &i in &p.rows {
         let row = &a.rows.rows[i];
-        let c: u32 = row.context_counts.iter().filter(|e| e.0 .1 == r).map(|e| e.1).sum();
+        let c: u32 =
+            row.context_counts.iter().filter(|e| e.0 .1 == r && kind(e.0 .0)).map(|e| e.1).sum();
         let pred = &a.predictions[i];
         if c == 0 || pred.len() < 2 {
             continue;
@@ -390,4 +652,97 @@ fn pair_seed(seed: u64, q: QubitIx, r: QubitIx) -> u64 {
     z = (z ^ (z >> 30)).wrapping_mul(0xBF58_476D_1CE4_E5B9);
     z = (z ^ (z >> 27)).wrapping_mul(0x94D0_49BB_1331_11EB);
     z ^ (z >> 31)
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    fn cfg(nulls: usize) -> AuditConfig {
+        AuditConfig {
+            family: crate::model::Family::Depolarizing,
+            alpha: 0.05,
+            action_threshold_tvd_per_layer: 1e-3,
+            null_replicates: nulls,
+            seed: 0,
+            bit_order: "as-measured".into(),
+            inputs: Vec::new(),
+            bootstrap: Default::default(),
+        }
+    }
+
+    /// A tested direction with score s, every minimal budget and the isolated rows needing
+    /// it, 39 null replicates at zero.
+    fn direction(s: f64) -> Directed {
+        Directed {
+            tested: true,
+            score: s,
+            attribution: (s, s),
+            isolated: s,
+            isolated_sensitivity: 1e-4,
+            null: vec![0.0; 39],
+            limit: 0.0,
+            p_value: crate::slack::null::p_value(s, &[0.0; 39]),
+            detected: true,
+            loo: s,
+            ..Default::default()
+        }
+    }
+
+    #[test]
+    fn no_null_is_not_tested_never_clean() {
+        let mut d = direction(5e-3);
+        d.null.clear();
+        d.detected = false;
+        let (v, code, why) = direction_verdict(&d, &cfg(0));
+        assert_eq!((v, code), (Verdict::NotTested, ReasonCode::NoNull), "{why}");
+        // A direction that needs no slack is clean with or without a null.
+        let (v, code, _) = direction_verdict(&direction(0.0), &cfg(0));
+        assert_eq!((v, code), (Verdict::Clean, ReasonCode::NoSlack));
+    }
+
+    #[test]
+    fn own_circuits_with_power_clear_a_shared_score() {
+        let mut d = direction(4e-3);
+        d.attribution = (0.0, 4e-3);
+        d.isolated = 0.0;
+        // The pair's own circuits see down to 1e-4: they would have shown 4e-3.
+        let (v, code, why) = direction_verdict(&d, &cfg(39));
+        assert_eq!((v, code), (Verdict::Clean, ReasonCode::NoneAlone), "{why}");
+        // Without that power the design cannot tell: confounded.
+        d.isolated_sensitivity = 3e-3;
+        let (v, code, why) = direction_verdict(&d, &cfg(39));
+        assert_eq!((v, code), (Verdict::Confounded, ReasonCode::Shared), "{why}");
+    }
+
+    #[test]
+    fn a_tie_with_the_limit_is_split_not_rejected() {
+        // 37 replicates below, 2 tied with the score: mid-p 1.5 / 40 = 0.0375.
+        let mut d = direction(2e-3);
+        d.null = vec![0.0; 37];
+        d.null.extend([2e-3; 2]);
+        d.limit = 2e-3;
+        d.p_value = crate::slack::null::p_value(d.score, &d.null);
+        let (v, _, why) = direction_verdict(&d, &cfg(39));
+        assert_eq!(v, Verdict::Recalibrate, "{why}");
+        // Four ties: 2.5 / 40 > 0.05, within the null.
+        d.null = vec![0.0; 35];
+        d.null.extend([2e-3; 4]);
+        let (v, code, _) = direction_verdict(&d, &cfg(39));
+        assert_eq!((v, code), (Verdict::Clean, ReasonCode::InNull));
+    }
+
+    #[test]
+    fn one_circuit_unless_corroborated() {
+        let mut d = direction(3e-3);
+        d.loo = 0.0;
+        d.detected = false;
+        d.corroboration_p = Some(0.4);
+        let (v, code, _) = direction_verdict(&d, &cfg(39));
+        assert_eq!((v, code), (Verdict::Clean, ReasonCode::OneCircuit));
+        d.detected = true;
+        d.corroboration_p = Some(0.01);
+        let (v, _, _) = direction_verdict(&d, &cfg(39));
+        assert!(matches!(v, Verdict::Watch | Verdict::Recalibrate));
+    }
 }

@@ -1,7 +1,7 @@
 //! Assembles the [`AuditReport`] from the analysis, the LP solutions and the assessment,
 //! and decides verdicts (method.md section 6).
 
-use super::assess::{Assessed, Directed, ZERO_SCORE};
+use super::assess::{detected_verdict, direction_verdict, is_detected, Assessed, ZERO_SCORE};
 use super::problems::Budget;
 use super::{kind_occurrences, row_slacks, Analysis, AuditConfig, Solved};
 use crate::report::*;
@@ -21,82 +21,6 @@ fn median(v: &mut [u64]) -> u64 {
     }
     v.sort_unstable();
     v[(v.len() - 1) / 2]
-}
-
-/// A direction's verdict and the reason, before edge-level combination.
-///
-/// A positive score that another aggressor could carry is `confounded` only when the share
-/// it might carry exceeds the action threshold: tiny shares are noise, and calling them
-/// confounded would send users to redesign circuits for nothing.
-fn direction_verdict(d: &Directed, cfg: &AuditConfig) -> (Verdict, ReasonCode, String) {
-    let pm = |x: f64| crate::report::terminal::per_mille(x);
-    if !d.tested {
-        return (
-            Verdict::Clean,
-            ReasonCode::Untested,
-            "never tested: no circuit ran the victim with this aggressor active".into(),
-        );
-    }
-    if d.score <= 0.0 {
-        return (Verdict::Clean, ReasonCode::NoSlack, "no context slack needed".into());
-    }
-    if d.attribution.0 <= ZERO_SCORE || d.isolated <= ZERO_SCORE {
-        let (code, why) = if d.attribution.0 <= ZERO_SCORE {
-            (ReasonCode::Shared, "another aggressor active at the same time could carry this slack")
-        } else {
-            (ReasonCode::NotAlone, "only circuits where other neighbours were active too need it")
-        };
-        // Whether it is significant cannot be asked of the conditional null: permuting r among
-        // rows where its partner is always active changes nothing. Size is what matters.
-        return if d.attribution.1 > cfg.action_threshold_tvd_per_layer {
-            (
-                Verdict::Confounded,
-                code,
-                format!(
-                    "{why}: up to {} per layer could be this pair's, which would be above the action threshold; run circuits where they are active apart",
-                    pm(d.attribution.1)
-                ),
-            )
-        } else {
-            (
-                Verdict::Clean,
-                code,
-                format!(
-                    "{why}, and at most {} per layer: below the action threshold",
-                    pm(d.attribution.1)
-                ),
-            )
-        };
-    }
-    if cfg.null_replicates == 0 {
-        return (
-            Verdict::Clean,
-            ReasonCode::NoNull,
-            "no null replicates were run, so nothing can be called detected".into(),
-        );
-    }
-    if d.score <= d.limit {
-        return (
-            Verdict::Clean,
-            ReasonCode::InNull,
-            format!("score {} is within the permutation-null limit {}", pm(d.score), pm(d.limit)),
-        );
-    }
-    if d.loo <= d.limit {
-        return (
-            Verdict::Clean,
-            ReasonCode::OneCircuit,
-            format!(
-                "rests on one circuit: without it the score falls to {}, below the limit {}",
-                pm(d.loo),
-                pm(d.limit)
-            ),
-        );
-    }
-    // Without replicates the lower value is the attribution minimum or leave-one-out;
-    // with them, crate::audit::finish replaces it by the interval's lower end.
-    let lower = d.attribution.0.min(d.loo);
-    detected_verdict(d.p_value, lower, cfg.action_threshold_tvd_per_layer)
 }
 
 /// Revisits the verdicts of detected directions once the bootstrap intervals are in
@@ -128,50 +52,6 @@ pub(crate) fn revisit_verdicts(report: &mut AuditReport, pairs: &[(usize, usize)
         }
     }
     order_edges(&mut report.edges);
-}
-
-/// The detection rule of method.md section 6 on a reported direction (null replicates run):
-/// every minimal budget needs it, rows where it is the only active neighbour need it, it is
-/// above the permutation-null limit, and it stays there without its most influential
-/// circuit. [`direction_verdict`] applies the same rule, in steps that give reasons.
-pub(crate) fn is_detected(d: &DirectedReport) -> bool {
-    d.score_tvd_per_layer > 0.0
-        && d.attribution_min_tvd_per_layer > ZERO_SCORE
-        && d.isolated_tvd_per_layer > ZERO_SCORE
-        && d.score_tvd_per_layer > d.detection_limit_tvd_per_layer
-        && d.leave_one_out_tvd_per_layer > d.detection_limit_tvd_per_layer
-}
-
-/// The verdict of a detected direction whose lower bound is `lower` (TVD per layer).
-pub(crate) fn detected_verdict(
-    p_value: f64,
-    lower: f64,
-    threshold: f64,
-) -> (Verdict, ReasonCode, String) {
-    let pm = |x: f64| crate::report::terminal::per_mille(x);
-    if lower > threshold {
-        (
-            Verdict::Recalibrate,
-            ReasonCode::AboveThreshold,
-            format!(
-                "detected (p = {:.3}); even its lower bound {} exceeds the action threshold {}",
-                p_value,
-                pm(lower),
-                pm(threshold)
-            ),
-        )
-    } else {
-        (
-            Verdict::Watch,
-            ReasonCode::BelowThreshold,
-            format!(
-                "detected (p = {:.3}) but its lower bound {} is not above the action threshold {}",
-                p_value,
-                pm(lower),
-                pm(threshold)
-            ),
-        )
-    }
 }
 
 /// Detected edges first, by score, then the rest; ranks for positive scores only.
@@ -228,6 +108,8 @@ pub(crate) fn report(
             attribution_max_tvd_per_layer: d.attribution.1,
             detection_limit_tvd_per_layer: d.limit,
             p_value: d.p_value,
+            detected: d.detected,
+            corroboration_p_value: d.corroboration_p,
             supporting_rows: d.supporting_rows,
             supporting_circuits: d.supporting_circuits,
             isolated_tvd_per_layer: d.isolated,

@@ -55,8 +55,9 @@ pub struct AnalysisArgs {
     /// (0.001, 1e-3) or in the tables' unit of 1e-3 with suffix m (1m = 0.001); at most 0.5.
     #[arg(long, default_value = "1e-3", value_name = "TVD", value_parser = super::units::tvd_per_layer)]
     pub action_threshold: f64,
-    /// Replicates of the context-permutation null per directed pair (0 turns detection off;
-    /// at most 100,000 unless --no-limits).
+    /// Replicates of the context-permutation null per directed pair, and as many of the
+    /// parametric null (at most 100,000 unless --no-limits). 0 turns detection off: a pair
+    /// that needs context slack is then `not-tested`, never `clean`.
     #[arg(long, default_value_t = 200)]
     pub null_replicates: usize,
     /// Seed of every random draw; the same seed gives the same numbers on any thread count.

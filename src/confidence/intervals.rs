@@ -5,6 +5,21 @@
 
 use statrs::distribution::{ContinuousCDF, Normal};
 
+/// The interval every output reports and `recalibrate` rests on: the percentile interval
+/// of the replicate estimates.
+///
+/// The estimate is a boundary-constrained quantity: slack cannot be negative, so near zero
+/// the sampling distribution piles up at the bound and the estimate runs low (rows whose
+/// deviation only just passes the threshold are shrunk to zero in one data set and not in
+/// another, and the estimate's minimum over budgets keeps the smaller). The basic interval
+/// (2t - q) and the bias correction both assume the replicates sit as far from t as t sits
+/// from the truth, in the same direction; here the replicates scatter on both sides and the
+/// truth lies above t, so both reflect the interval the wrong way and miss high. Measured in
+/// tests/study.rs (200 injected edges, 4x4 and 12x12 grids, 1000 shots, 30 replicates): the
+/// 95% percentile interval held the 100x-shot estimate for 62/67 depolarizing, 56/66
+/// coherent and 49/67 dephasing edges (median widths 1.7e-3, 1.4e-3, 2.0e-3 per layer).
+pub const REPORTED: Method = Method::Percentile;
+
 /// How an interval is formed from the replicates.
 #[derive(Clone, Copy, Debug, PartialEq, Eq)]
 pub enum Method {

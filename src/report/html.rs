@@ -67,6 +67,7 @@ details.drill { border: 1px solid #d0d0d0; border-left: 6px solid #888888; paddi
 details.drill.verdict-recalibrate { border-left-color: #c0392b; }
 details.drill.verdict-watch { border-left-color: #d4a017; }
 details.drill.verdict-confounded { border-left-color: #8e44ad; }
+details.drill.verdict-not-tested { border-left-color: #2c6fbb; }
 details.drill summary { cursor: pointer; font-weight: bold; }
 .drill .dirs { display: flex; flex-wrap: wrap; gap: 1.2rem; }
 .drill .dir { flex: 1 1 26rem; min-width: 0; }

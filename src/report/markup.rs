@@ -119,6 +119,20 @@ fn mark(v: Verdict, x: f64, y: f64, h: f64, open: bool) -> String {
                 px(y - d)
             )
         }
+        Verdict::NotTested => {
+            let d = h * 0.7;
+            format!(
+                "<path d=\"M{} {}L{} {}L{} {}L{} {}Z\"",
+                px(x - d),
+                px(y - d),
+                px(x + d),
+                px(y - d),
+                px(x + d),
+                px(y + d),
+                px(x - d),
+                px(y + d)
+            )
+        }
         Verdict::Clean => return String::new(),
     };
     let fill = if v == Verdict::Recalibrate && !open { "#000000" } else { "none" };

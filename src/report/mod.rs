@@ -238,8 +238,12 @@ pub enum Verdict {
     Recalibrate,
     /// Detected but not above the action threshold.
     Watch,
-    /// Positive score that another aggressor could carry instead.
+    /// Positive score that another aggressor could carry instead, and the design cannot
+    /// tell which.
     Confounded,
+    /// Needs context slack, but no permutation null was run (`--null-replicates 0`), so it
+    /// was not tested: neither detected nor clean.
+    NotTested,
     /// Nothing found.
     Clean,
 }
@@ -251,6 +255,7 @@ impl Verdict {
             Verdict::Recalibrate => "recalibrate",
             Verdict::Watch => "watch",
             Verdict::Confounded => "confounded",
+            Verdict::NotTested => "not-tested",
             Verdict::Clean => "clean",
         }
     }
@@ -356,6 +361,9 @@ pub enum ReasonCode {
     /// Only circuits where other neighbours were active too need it (the isolated score is
     /// zero).
     NotAlone,
+    /// The circuits where this aggressor is the victim's only active neighbour have the
+    /// power to see the slack and need none: it belongs to another aggressor.
+    NoneAlone,
     /// No permutation-null replicates were run, so nothing can be called detected.
     NoNull,
     /// The score is within the permutation-null detection limit.
@@ -370,11 +378,12 @@ pub enum ReasonCode {
 
 impl ReasonCode {
     /// Every code, in the order of the verdict rule.
-    pub const ALL: [ReasonCode; 9] = [
+    pub const ALL: [ReasonCode; 10] = [
         ReasonCode::Untested,
         ReasonCode::NoSlack,
         ReasonCode::Shared,
         ReasonCode::NotAlone,
+        ReasonCode::NoneAlone,
         ReasonCode::NoNull,
         ReasonCode::InNull,
         ReasonCode::OneCircuit,
@@ -389,6 +398,7 @@ impl ReasonCode {
             ReasonCode::NoSlack => "no-slack",
             ReasonCode::Shared => "shared",
             ReasonCode::NotAlone => "not-alone",
+            ReasonCode::NoneAlone => "none-alone",
             ReasonCode::NoNull => "no-null",
             ReasonCode::InNull => "in-null",
             ReasonCode::OneCircuit => "one-circuit",
@@ -406,9 +416,14 @@ impl ReasonCode {
                 "another aggressor, active at the same time, could carry the slack"
             }
             ReasonCode::NotAlone => "only circuits with other neighbours active too need it",
-            ReasonCode::NoNull => "no null replicates were run: nothing can be called detected",
-            ReasonCode::InNull => "score within the permutation-null detection limit",
-            ReasonCode::OneCircuit => "rests on one circuit: without it, within the null limit",
+            ReasonCode::NoneAlone => {
+                "its own circuits could see the slack and need none: another aggressor's"
+            }
+            ReasonCode::NoNull => "no null replicates were run: not tested (--null-replicates)",
+            ReasonCode::InNull => "score within the permutation null (mid-p above alpha)",
+            ReasonCode::OneCircuit => {
+                "rests on one circuit: without it within the null, and the others do not lean"
+            }
             ReasonCode::AboveThreshold => {
                 "detected; the interval's lower end is above the action threshold"
             }
@@ -427,6 +442,7 @@ impl ReasonCode {
             ("only circuits where other neighbours", ReasonCode::NotAlone),
             ("no null replicates", ReasonCode::NoNull),
             ("within the permutation-null limit", ReasonCode::InNull),
+            ("within the permutation null", ReasonCode::InNull),
             ("rests on one circuit", ReasonCode::OneCircuit),
             ("exceeds the action threshold", ReasonCode::AboveThreshold),
             ("not above the action threshold", ReasonCode::BelowThreshold),
@@ -596,10 +612,21 @@ pub struct DirectedReport {
     #[serde(with = "special::number")]
     #[schemars(with = "special::Number")]
     pub detection_limit_tvd_per_layer: f64,
-    /// Permutation p-value, (1 + #{null >= estimate}) / (1 + replicates).
+    /// Permutation mid-p value of the score, (#{null > score} + (1 + #{null = score}) / 2) /
+    /// (1 + replicates); 1 for a zero score or without null replicates.
     #[serde(with = "special::number")]
     #[schemars(with = "special::Number")]
     pub p_value: f64,
+    /// Significant (p-value at most alpha) and robust: it survives leaving out its most
+    /// influential circuit, or the other circuits corroborate it
+    /// (`corroboration_p_value`). False without null replicates.
+    #[serde(default)]
+    pub detected: bool,
+    /// When the score falls into the null without its most influential circuit: the mid-p
+    /// value of the other circuits' evidence, each row judged at its own unadjusted
+    /// threshold, against the same permutation null; absent otherwise.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub corroboration_p_value: Option<f64>,
     /// Binding rows with positive coefficient on this pair's variables.
     pub supporting_rows: usize,
     /// Distinct circuits among them.

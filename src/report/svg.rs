@@ -234,6 +234,7 @@ fn mark_legend(x: f64, mut y: f64) -> (String, f64) {
         (Verdict::Recalibrate, "recalibrate (detected, above threshold)"),
         (Verdict::Watch, "watch (detected, below threshold)"),
         (Verdict::Confounded, "confounded (another aggressor could carry it)"),
+        (Verdict::NotTested, "not-tested (needs slack; no null was run)"),
     ] {
         s.push_str(&format!("<g class=\"legend-mark\" data-verdict=\"{}\">", v.word()));
         s.push_str(&verdict_mark(v, x + 8.0, y - 4.0, 6.0));
@@ -646,7 +647,7 @@ pub fn layout(r: &AuditReport, doc: Doc) -> String {
     let flagged = |e: &EdgeReport| e.verdict != Verdict::Clean;
     let note = if only_flagged {
         format!(
-            "{} qubits: only the {} flagged pairs (recalibrate, watch, confounded) are drawn, of {}; all pairs are in edges.csv.",
+            "{} qubits: only the {} flagged pairs (recalibrate, watch, confounded, not-tested) are drawn, of {}; all pairs are in edges.csv.",
             n,
             pairs.iter().filter(|(e, _, _)| flagged(e)).count(),
             pairs.len()

@@ -61,6 +61,7 @@ pub fn verdict_colour(v: Verdict) -> Option<(Color, bool)> {
         Verdict::Recalibrate => Some((Color::Red, true)),
         Verdict::Watch => Some((Color::Yellow, false)),
         Verdict::Confounded => Some((Color::Magenta, false)),
+        Verdict::NotTested => Some((Color::Blue, false)),
         Verdict::Clean => None,
     }
 }
@@ -293,16 +294,26 @@ pub fn summary_words(r: &AuditReport) -> String {
     let count = |v: Verdict| r.edges.iter().filter(|e| e.verdict == v).count();
     let (rec, watch, conf) =
         (count(Verdict::Recalibrate), count(Verdict::Watch), count(Verdict::Confounded));
+    let untested = count(Verdict::NotTested);
     let mut s = String::new();
-    let _ = write!(
-        s,
-        "{} of {} neighbour pairs show crosstalk that the data cannot explain otherwise",
-        rec + watch,
-        r.edges.len()
-    );
-    if rec + watch == 0 {
-        s.push('.');
+    if r.parameters.null_replicates == 0 {
+        let _ = write!(
+            s,
+            "Not tested: no null replicates were run (--null-replicates 0), so no pair that needs context slack can be called detected or clean: {untested} of {} neighbour pairs need it (not-tested). Rerun with null replicates before acting on them.",
+            r.edges.len()
+        );
     } else {
+        let _ = write!(
+            s,
+            "{} of {} neighbour pairs show crosstalk that the data cannot explain otherwise",
+            rec + watch,
+            r.edges.len()
+        );
+    }
+    let tested = r.parameters.null_replicates > 0;
+    if tested && rec + watch == 0 {
+        s.push('.');
+    } else if tested {
         let _ = write!(
             s,
             ": {rec} above the action threshold of {} x1e-3 per layer (recalibrate), {watch} below it (watch).",
