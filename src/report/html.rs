@@ -564,7 +564,7 @@ fn edge_section(o: &mut String, r: &AuditReport) {
     o.push_str("</ul>\n");
     let _ = writeln!(
         o,
-        "<p class=\"hint\">a&lt;-b is the crosstalk onto a from b. {} Sensitivity is about the smallest estimate these circuits could tell from zero (first order, depolarizing-like error): a clean edge can still hide crosstalk below it. Attribution is the range of the score over near-optimal budgets; leave-one-out drops the most influential circuit. An estimate marked * lies outside its interval (its replicates ran above it): act on the interval.</p></section>",
+        "<p class=\"hint\">a&lt;-b is the crosstalk onto a from b. {} Sensitivity is about the smallest estimate these circuits could tell from zero (first order, depolarizing-like error): a clean edge can still hide crosstalk below it. Attribution is the range of the score over near-optimal budgets; leave-one-out drops the most influential circuit. An estimate marked * lies outside its interval (its replicates ran to one side of it): act on the interval.</p></section>",
         escape(&quantity_words(r))
     );
 }

@@ -473,10 +473,9 @@ pub struct Confidence {
     #[serde(with = "special::number")]
     #[schemars(with = "special::Number")]
     pub upper_bound_tvd_per_layer: f64,
-    /// Median of the replicate estimates, TVD per layer. The replicates of a maximum over
-    /// noisy rows run above the estimate, and the basic interval (2 x estimate - quantiles)
-    /// shifts down by as much, so the estimate can sit above its own interval: the interval
-    /// is the statement to act on.
+    /// Median of the replicate estimates, TVD per layer. The reported interval is the
+    /// percentile interval of the same replicates, so the estimate can sit outside it when
+    /// the replicates run to one side of it: the interval is the statement to act on.
     #[serde(with = "special::number")]
     #[schemars(with = "special::Number")]
     pub median_tvd_per_layer: f64,

@@ -385,7 +385,7 @@ pub fn fit_words(r: &AuditReport) -> String {
     )
 }
 
-/// True when an estimate lies outside its own interval (the replicates ran above it).
+/// True when an estimate lies outside its own interval (the replicates ran to one side of it).
 pub fn outside_interval(estimate: f64, c: Option<&Confidence>) -> bool {
     c.is_some_and(|c| estimate < c.low_tvd_per_layer || estimate > c.high_tvd_per_layer)
 }
@@ -511,7 +511,7 @@ pub fn render(r: &AuditReport, opt: &TerminalOptions) -> String {
         if shown.iter().any(|e| outside_interval(e.estimate_tvd_per_layer, e.confidence.as_ref())) {
             prose(
                 &mut out,
-                "* the estimate lies outside its interval: its replicates ran above it (a maximum over noisy rows is biased up, and the basic interval corrects that); act on the interval.",
+                "* the estimate lies outside its interval: its bootstrap replicates ran to one side of it (the estimate is bounded at zero and noisy near it); act on the interval.",
             );
         }
     }
