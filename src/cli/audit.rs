@@ -252,7 +252,14 @@ fn built_in_demo() -> anyhow::Result<Inputs> {
         digest("circuits", "circuits.json", DEMO_CIRCUITS),
         digest("counts", "counts.csv", DEMO_COUNTS),
     ];
-    Ok(Inputs { layout, circuits, counts: Some(counts), warnings, files })
+    Ok(Inputs {
+        layout,
+        circuits,
+        counts: Some(counts),
+        counts_path: Some(name("counts.csv")),
+        warnings,
+        files,
+    })
 }
 
 /// Checks the analysis settings against the limits, before any input is read.
@@ -292,6 +299,7 @@ fn run_audit(
 ) -> anyhow::Result<()> {
     start_threads(a.threads)?;
     let counts = loaded.counts.as_ref().context("counts were not read")?;
+    loaded.require_agreement()?;
     let cfg = AuditConfig {
         family: a.model.family(),
         alpha: a.alpha,

@@ -52,6 +52,12 @@ fn print(layout: &Layout, s: &CheckSummary) {
     t.add_row(vec!["layers (min / median / max)".to_string(), spread(&s.layers)]);
     t.add_row(vec!["blocks (1q / 2q)".to_string(), format!("{} / {}", s.blocks_1q, s.blocks_2q)]);
     t.add_row(vec!["shots per circuit (min / median / max)".to_string(), spread(&s.shots)]);
+    if let Some(a) = &s.agreement {
+        t.add_row(vec![
+            "agreement with ideal outcomes (1 = ideal, 0 = chance)".to_string(),
+            format!("{:.3} as read ({:.3} with reversed outcome strings)", a.as_read, a.reversed),
+        ]);
+    }
     t.add_row(vec![
         "qubits with reference rows".to_string(),
         format!("{} of {}", s.qubits_with_reference.len(), layout.n_qubits()),

@@ -8,7 +8,7 @@ use sha2::{Digest, Sha256};
 use slackmap::circuit::qasm::QubitMap;
 use slackmap::circuit::validate::{read_circuits, ReadOptions};
 use slackmap::circuit::CircuitSet;
-use slackmap::counts::{read_counts, BitOrder, Counts, CountsOptions};
+use slackmap::counts::{agreement, read_counts, BitOrder, Counts, CountsOptions};
 use slackmap::layout::{read_layout, Layout};
 use slackmap::report::InputFile;
 use slackmap::Warning;
@@ -60,6 +60,8 @@ pub struct Inputs {
     pub layout: Layout,
     pub circuits: CircuitSet,
     pub counts: Option<Counts>,
+    /// Where the counts came from (for messages).
+    pub counts_path: Option<PathBuf>,
     pub warnings: Vec<Warning>,
     pub files: Vec<InputFile>,
 }
@@ -73,7 +75,7 @@ impl InputArgs {
         let circuits = read_circuits(&self.circuits, &layout, &opts)?;
         let mut files = vec![digest("layout", &self.layout)?, digest("circuits", &self.circuits)?];
         let mut warnings = Vec::new();
-        let counts = match counts {
+        let counts_read = match counts {
             Some(p) => {
                 let bit_order = match self.bit_order {
                     BitOrderArg::AsMeasured => BitOrder::AsMeasured,
@@ -86,7 +88,25 @@ impl InputArgs {
             }
             None => None,
         };
-        Ok(Inputs { layout, circuits, counts, warnings, files })
+        Ok(Inputs {
+            layout,
+            circuits,
+            counts: counts_read,
+            counts_path: counts.map(Path::to_path_buf),
+            warnings,
+            files,
+        })
+    }
+}
+
+impl Inputs {
+    /// Fails (exit 2) when the counts do not follow the circuits' ideal outcomes: read in
+    /// the other bit order, or made from other circuits.
+    pub fn require_agreement(&self) -> anyhow::Result<()> {
+        if let (Some(counts), Some(path)) = (&self.counts, &self.counts_path) {
+            agreement::agreement(&self.layout, &self.circuits, counts).require(path)?;
+        }
+        Ok(())
     }
 }
 

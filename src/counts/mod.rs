@@ -14,7 +14,9 @@ use std::path::Path;
 use serde::de::{self, DeserializeSeed, MapAccess, Visitor};
 
 use crate::circuit::CircuitSet;
-use crate::error::{Error, Result, Warning};
+use crate::error::{echo, Error, Result, Warning};
+
+pub mod agreement;
 
 /// One outcome bitstring, packed: bit i is `words[i / 64] >> (i % 64) & 1`.
 #[derive(Clone, Debug, PartialEq, Eq, Hash, PartialOrd, Ord)]
@@ -250,12 +252,30 @@ impl<'a> Accumulator<'a> {
     /// The index of a circuit id, marking it as having counts.
     fn circuit(&mut self, line: Option<usize>, id: &str) -> Result<usize> {
         let Some(ci) = self.circuits.position(id) else {
+            let theirs = crate::design::design_of_id(id);
+            let ours =
+                self.circuits.circuits.first().and_then(|c| crate::design::design_of_id(&c.id));
+            if let (Some(theirs), Some(ours)) = (theirs, ours) {
+                if theirs != ours {
+                    return Err(self.err(
+                        line,
+                        format!(
+                            "these counts come from another design: circuit id '{}' belongs to \
+                             design {theirs}, but the circuit file is design {ours} (another \
+                             seed, layout or settings); use the counts made by running this \
+                             circuit file",
+                            echo(id)
+                        ),
+                    ));
+                }
+            }
             let some: Vec<&str> =
                 self.circuits.circuits.iter().take(3).map(|c| c.id.as_str()).collect();
             return Err(self.err(
                 line,
                 format!(
-                    "unknown circuit id '{id}'; the circuit file has {} circuit(s){}",
+                    "unknown circuit id '{}'; the circuit file has {} circuit(s){}",
+                    echo(id),
                     self.circuits.len(),
                     if some.is_empty() {
                         String::new()
