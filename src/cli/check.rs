@@ -31,6 +31,9 @@ pub fn run(args: CheckArgs) -> anyhow::Result<()> {
     Ok(())
 }
 
+/// Physical qubits listed by name in the placement row.
+const PLACEMENT_SHOWN: usize = 16;
+
 fn spread<T: std::fmt::Display>(s: &Option<Spread<T>>) -> String {
     match s {
         Some(s) => format!("{} / {} / {}", s.min, s.median, s.max),
@@ -47,6 +50,10 @@ fn print(layout: &Layout, s: &CheckSummary) {
     t.add_row(vec![
         "layout".to_string(),
         format!("{} ({} qubits)", layout.name, layout.n_qubits()),
+    ]);
+    t.add_row(vec![
+        "placement of OpenQASM $k (k-th qubit of the layout file)".to_string(),
+        layout.placement(PLACEMENT_SHOWN),
     ]);
     t.add_row(vec!["circuits".to_string(), s.n_circuits.to_string()]);
     t.add_row(vec!["layers (min / median / max)".to_string(), spread(&s.layers)]);

@@ -75,6 +75,10 @@ impl InputArgs {
         let circuits = read_circuits(&self.circuits, &layout, &opts)?;
         let mut files = vec![digest("layout", &self.layout)?, digest("circuits", &self.circuits)?];
         let mut warnings = Vec::new();
+        let is_json = self.circuits.extension().is_some_and(|e| e.eq_ignore_ascii_case("json"));
+        if !is_json {
+            warnings.extend(layout.placement_warning());
+        }
         let counts_read = match counts {
             Some(p) => {
                 let bit_order = match self.bit_order {
