@@ -218,6 +218,7 @@ pub fn demo(args: DemoArgs) -> anyhow::Result<()> {
                 layout: d.join("layout.toml"),
                 circuits: d.join("circuits.json"),
                 bit_order: super::inputs::BitOrderArg::AsMeasured,
+                shots: None,
                 allow_non_native: false,
                 qubit_map: None,
             };
@@ -239,7 +240,7 @@ fn built_in_demo() -> anyhow::Result<Inputs> {
     let wire = serde_json::from_slice(DEMO_CIRCUITS).context("the built-in demo circuits")?;
     let circuits = slackmap::circuit::json::from_wire(wire, &name("circuits.json"), &layout)?;
     slackmap::circuit::validate::validate(&circuits, &layout, false)?;
-    let opts = CountsOptions { bit_order: BitOrder::AsMeasured };
+    let opts = CountsOptions { bit_order: BitOrder::AsMeasured, shots: None };
     let (counts, warnings) =
         read_counts_from(DEMO_COUNTS, CountsFormat::Csv, &name("counts.csv"), &circuits, &opts)?;
     let digest = |role: &str, file: &str, bytes: &[u8]| InputFile {

@@ -10,6 +10,7 @@ use slackmap::circuit::validate::{read_circuits, ReadOptions};
 use slackmap::circuit::CircuitSet;
 use slackmap::counts::{agreement, read_counts, BitOrder, Counts, CountsOptions};
 use slackmap::layout::{read_layout, Layout};
+use slackmap::limits::Limits;
 use slackmap::report::InputFile;
 use slackmap::Warning;
 
@@ -46,6 +47,11 @@ pub struct InputArgs {
     /// character i is the i-th measured qubit of the circuit.
     #[arg(long, value_enum, default_value = "as-measured")]
     pub bit_order: BitOrderArg,
+    /// The shots each circuit ran, for a counts file that holds probabilities (or
+    /// quasi-probabilities) instead of counts: each becomes round(p x N) shots after
+    /// negative entries are set to 0 and the rest rescaled to sum 1.
+    #[arg(long, value_name = "N")]
+    pub shots: Option<u64>,
     /// Accept gates that are not native on the layout.
     #[arg(long)]
     pub allow_non_native: bool,
@@ -81,11 +87,21 @@ impl InputArgs {
         }
         let counts_read = match counts {
             Some(p) => {
+                if let Some(n) = self.shots {
+                    super::limits().check("--shots", n, Limits::SHOTS, "shots per circuit")?;
+                    if n == 0 {
+                        return Err(slackmap::Error::Usage(
+                            "--shots 0: give the shots each circuit ran (at least 1)".into(),
+                        )
+                        .into());
+                    }
+                }
                 let bit_order = match self.bit_order {
                     BitOrderArg::AsMeasured => BitOrder::AsMeasured,
                     BitOrderArg::Reversed => BitOrder::Reversed,
                 };
-                let (c, w) = read_counts(p, &circuits, &CountsOptions { bit_order })?;
+                let (c, w) =
+                    read_counts(p, &circuits, &CountsOptions { bit_order, shots: self.shots })?;
                 warnings.extend(w);
                 files.push(digest("counts", p)?);
                 Some(c)
