@@ -52,10 +52,10 @@ fn phase_gates_read_as_rz_with_their_angle() {
 fn gphase_pragmas_and_annotations_change_nothing() {
     let l = layout();
     let plain = format!("{HEAD}sx $0;\nbarrier;\nrz(pi/2) $0;\nc[0] = measure $0;\n");
-    let busy = format!(
+    let busy = String::from(
         "#pragma compiler-version 7\nOPENQASM 3.0;\ninclude \"stdgates.inc\";\nbit[1] c;\n\
          gphase(pi/8);\n@slot fast\nsx $0;\nbarrier;\ngphase(-0.2);\nrz(pi/2) $0;\n\
-         #pragma end-of-block\nc[0] = measure $0;\n"
+         #pragma end-of-block\nc[0] = measure $0;\n",
     );
     let a = import(&plain, Path::new("a.qasm"), "a", &l, None).unwrap();
     let b = import(&busy, Path::new("b.qasm"), "a", &l, None).unwrap();
