@@ -122,30 +122,14 @@ fn counts_of_another_design_are_named_and_renamed_ones_do_not_belong() {
     assert_eq!(code, 2, "{text}");
     assert!(text.contains("these counts come from another design"), "{text}");
     // The same counts with their ids renamed to this design's: the ids match, the data do not.
-    let ours = std::fs::read_to_string(demo("counts.csv")).unwrap();
-    let our_digest = ours
-        .lines()
-        .nth(1)
-        .unwrap()
-        .split(',')
-        .next()
-        .unwrap()
-        .rsplit('-')
-        .next()
-        .unwrap()
-        .to_string();
+    // The digest ending the circuit id of a counts file's first row.
+    let digest_of = |text: &str| {
+        let id = text.lines().nth(1).unwrap().split(',').next().unwrap();
+        id.rsplit('-').next().unwrap().to_string()
+    };
     let theirs = std::fs::read_to_string(&counts).unwrap();
-    let their_digest = theirs
-        .lines()
-        .nth(1)
-        .unwrap()
-        .split(',')
-        .next()
-        .unwrap()
-        .rsplit('-')
-        .next()
-        .unwrap()
-        .to_string();
+    let our_digest = digest_of(&std::fs::read_to_string(demo("counts.csv")).unwrap());
+    let their_digest = digest_of(&theirs);
     assert_ne!(our_digest, their_digest);
     let renamed = dir.path().join("renamed.csv");
     std::fs::write(
