@@ -8,6 +8,7 @@
 use std::collections::BTreeSet;
 
 use crate::circuit::CircuitSet;
+use crate::counts::agreement::{self, Agreement};
 use crate::counts::Counts;
 use crate::error::{Result, Warning};
 use crate::layout::{Layout, QubitIx};
@@ -63,6 +64,8 @@ pub struct CheckSummary {
     pub directed_pairs: usize,
     /// Directed pairs (victim, aggressor) that never appear as a context.
     pub pairs_never_context: Vec<(QubitIx, QubitIx)>,
+    /// Agreement of the counts with the circuits' ideal outcomes; `None` without counts.
+    pub agreement: Option<Agreement>,
     /// Every problem found, each once.
     pub warnings: Vec<Warning>,
 }
@@ -160,6 +163,8 @@ pub fn summarise_rows(
             ));
         }
     }
+    let agreement = counts.map(|c| agreement::agreement(layout, set, c));
+    warnings.extend(agreement.as_ref().and_then(Agreement::warning));
     let mut circuits_without_counts = Vec::new();
     let mut shots = Vec::new();
     if let Some(counts) = counts {
@@ -200,6 +205,7 @@ pub fn summarise_rows(
         couplers_without_reference,
         directed_pairs,
         pairs_never_context,
+        agreement,
         warnings: warnings.into_iter().collect(),
     }
 }

@@ -207,3 +207,34 @@ fn skipped(what: &str) {
     );
     println!("SKIPPED: {what}");
 }
+
+/// `check` shows where `$k` lands, and warns when a layout of `q<k>` ids lists them out of
+/// order (then `$0` is not `q0`).
+#[test]
+fn placement_is_shown_and_out_of_order_ids_warned() {
+    let text = std::fs::read_to_string(LAYOUT).unwrap();
+    let swapped = text.replace(
+        "{ id = \"q0\", position = [0.0, 0.0] },\n  { id = \"q1\", position = [1.0, 0.0] },",
+        "{ id = \"q1\", position = [1.0, 0.0] },\n  { id = \"q0\", position = [0.0, 0.0] },",
+    );
+    assert_ne!(swapped, text, "the fixture layout changed; update this test");
+    let dir = tempfile::tempdir().unwrap();
+    let layout = dir.path().join("layout.toml");
+    std::fs::write(&layout, swapped).unwrap();
+    let qasm = "tests/fixtures/qasm/ref-q0.qasm";
+    let run = |layout: &Path| {
+        let out = Command::cargo_bin("slackmap")
+            .unwrap()
+            .args(["check", "--layout", layout.to_str().unwrap(), "--circuits", qasm])
+            .output()
+            .unwrap();
+        assert_eq!(out.status.code(), Some(0));
+        String::from_utf8_lossy(&out.stdout).into_owned()
+    };
+    let out = run(&layout);
+    assert!(out.contains("$0=q1, $1=q0, $2=q2"), "{out}");
+    assert!(out.contains("lists its qubits out of order: $0"), "{out}");
+    let out = run(Path::new(LAYOUT));
+    assert!(out.contains("$0=q0, $1=q1"), "{out}");
+    assert!(!out.contains("out of order"), "{out}");
+}

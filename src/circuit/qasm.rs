@@ -15,8 +15,10 @@
 //!            | gate [ "(" expr ")" ] operand { "," operand } ";"
 //!            | bitref "=" "measure" operand ";"
 //!            | "measure" operand "->" bitref ";" ;
+//!            | "gphase" [ "(" expr ")" ] ";"          (ignored: no outcome sees it)
 //! gate       = "id" | "x" | "y" | "z" | "h" | "s" | "sdg" | "sx"
-//!            | "rx" | "ry" | "rz" | "cz" | "cx" ;
+//!            | "rx" | "ry" | "rz" | "cz" | "cx"
+//!            | "p" | "phase" | "u1" | "t" | "tdg" ;   (read as rz, equal up to a phase)
 //! operand    = "$" int | ident "[" int "]" | ident ;   (ident alone: a one-qubit register)
 //! bitref     = ident "[" int "]" | ident ;
 //! expr       = term { ("+" | "-") term } ;
@@ -24,7 +26,8 @@
 //! unary      = ("-" | "+") unary | primary ;
 //! primary    = number | "pi" | "π" | "tau" | "τ" | "(" expr ")" ;
 //! ```
-//! Comments `//` and `/* */` are skipped. Layers: with any `barrier` in the program, the
+//! Comments `//` and `/* */`, `#pragma` lines and annotation lines (`@name ...`) are skipped;
+//! `OPENQASM 2` programs are refused with how to convert them. Layers: with any `barrier` in the program, the
 //! operations between two barriers form one layer (a partial `barrier q...;` separates
 //! layers just the same; empty layers are dropped); with no barrier at all, operations are
 //! layered as soon as possible. All measurements come after the last gate; the measured
@@ -202,6 +205,11 @@ fn tokenize(text: &str) -> std::result::Result<Vec<Token>, (usize, String)> {
             i += 1;
         } else if c.is_whitespace() {
             i += 1;
+        } else if c == '#' && chars[i..].starts_with(&['#', 'p', 'r', 'a', 'g', 'm', 'a']) {
+            // `#pragma` lines speak to other tools; they change nothing here.
+            while i < chars.len() && chars[i] != '\n' {
+                i += 1;
+            }
         } else if c == '/' && next == Some('/') {
             while i < chars.len() && chars[i] != '\n' {
                 i += 1;
@@ -306,7 +314,6 @@ fn unsupported(word: &str) -> Option<&'static str> {
         "if" | "else" | "switch" | "case" => "classical control flow",
         "for" | "while" | "break" | "continue" => "loops",
         "reset" => "reset operations",
-        "gphase" => "global phase statements",
         "ctrl" | "negctrl" | "inv" | "pow" => "gate modifiers such as 'ctrl @'",
         "int" | "uint" | "float" | "angle" | "bool" | "complex" | "duration" | "stretch"
         | "const" | "input" | "output" | "let" | "array" => {
@@ -317,10 +324,29 @@ fn unsupported(word: &str) -> Option<&'static str> {
             "timing, calibration and subroutine constructs"
         }
         "U" | "CX" => "built-in gates 'U' and 'CX' (use the stdgates.inc names)",
-        "pragma" => "pragmas",
         _ => return None,
     })
 }
+
+/// Standard-library gates that equal `rz` up to a global phase (OpenQASM 3 specification,
+/// stdgates.inc: `p(λ)`, its alias `phase(λ)` and `u1(λ)` are diag(1, e^{iλ}); `t` is
+/// `p(π/4)` and `tdg` is `p(-π/4)`): `Some(None)` when the angle is written, `Some(Some(a))`
+/// for a fixed angle.
+fn phase_gate(word: &str) -> Option<Option<f64>> {
+    use std::f64::consts::FRAC_PI_4;
+    match word {
+        "p" | "phase" | "u1" => Some(None),
+        "t" => Some(Some(FRAC_PI_4)),
+        "tdg" => Some(Some(-FRAC_PI_4)),
+        _ => None,
+    }
+}
+
+/// Why an OpenQASM 2 program is refused, and how to convert it.
+const OPENQASM2: &str = "OpenQASM 2 programs are not read; convert to OpenQASM 3: write \
+     'OPENQASM 3.0;' and 'include \"stdgates.inc\";' (for \"qelib1.inc\"), 'qubit[n] q;' for \
+     'qreg q[n];', 'bit[n] c;' for 'creg c[n];'; 'measure q[i] -> c[i];' and the gate lines \
+     stay as they are";
 
 /// Deepest parenthesis nesting accepted in an angle, so hostile input cannot overflow
 /// the stack.
@@ -443,7 +469,12 @@ impl<'a> Parser<'a> {
         let word = match self.peek() {
             Some(Tok::Ident(s)) => s.clone(),
             Some(Tok::Punct("@")) => {
-                return Err(self.err(line, "annotations ('@...') are not supported"))
+                // An annotation (`@name ...`) runs to the end of its line and only informs
+                // other tools; the statement it annotates follows on the next line.
+                while self.toks.get(self.pos).is_some_and(|t| t.line == line) {
+                    self.pos += 1;
+                }
+                return Ok(());
             }
             _ => {
                 return Err(self.err(
@@ -460,6 +491,9 @@ impl<'a> Parser<'a> {
                 }
                 match self.bump().map(|t| t.tok) {
                     Some(Tok::Num(v)) if v == "3" || v.starts_with("3.") => {}
+                    Some(Tok::Num(v)) if v == "2" || v.starts_with("2.") => {
+                        return Err(self.err(line, OPENQASM2));
+                    }
                     other => {
                         let shown = other
                             .map_or("nothing".into(), |t| describe(Some(&Token { tok: t, line })));
@@ -557,9 +591,20 @@ impl<'a> Parser<'a> {
     }
 
     fn gate_call(&mut self, word: &str, line: usize) -> Result<()> {
-        let gate = match Gate::from_name(word) {
-            Some(g) => g,
-            None => {
+        if word == "gphase" {
+            // A global phase changes no outcome probability.
+            self.pos += 1;
+            if self.is_punct("(") {
+                self.pos += 1;
+                self.expr(0)?;
+                self.expect_punct(")", "after the phase")?;
+            }
+            return self.expect_punct(";", "after gphase");
+        }
+        let (gate, fixed_angle) = match (Gate::from_name(word), phase_gate(word)) {
+            (Some(g), _) => (g, None),
+            (None, Some(angle)) => (Gate::Rz, angle),
+            (None, None) => {
                 let msg = match unsupported(word) {
                     Some(what) => format!("'{word}': {what} are not supported by this importer"),
                     None => format!(
@@ -574,7 +619,10 @@ impl<'a> Parser<'a> {
         if self.is_punct("@") {
             return Err(self.err(line, "gate modifiers ('@') are not supported"));
         }
-        let mut angle = None;
+        let mut angle = fixed_angle;
+        if fixed_angle.is_some() && self.is_punct("(") {
+            return Err(self.err(line, format!("gate {word} takes no angle")));
+        }
         if self.is_punct("(") {
             self.pos += 1;
             let v = self.expr(0)?;
@@ -1022,7 +1070,7 @@ mod tests {
             ("bit c;\nfor i in [0:2] { x $0; }\n", "line 2", "loops"),
             ("bit c;\nreset $0;\n", "line 2", "'reset': reset operations"),
             ("int i;\n", "line 1", "classical declarations"),
-            ("gphase(pi);\n", "line 1", "gphase"),
+            ("gphase(pi;\n", "line 1", "after the phase"),
             ("bit c;\nctrl @ x $0, $1;\n", "line 2", "modifiers"),
             ("bit c;\nu3(1,2,3) $0;\n", "line 2", "unknown gate"),
             ("/* a\ncomment */ bit c;\nrz $0;\n", "line 3", "needs an angle"),
@@ -1032,7 +1080,7 @@ mod tests {
             ("bit c;\nrz(pi/0) $0;\n", "line 2", "finite"),
             ("bit c;\nrz(foo) $0;\n", "line 2", "'foo'"),
             ("bit c;\nx $0\nx $1;\n", "line 3", "expected ';'"),
-            ("OPENQASM 2.0;\n", "line 1", "version"),
+            ("OPENQASM 2.0;\n", "line 1", "convert to OpenQASM 3"),
             ("include \"qelib1.inc\";\n", "line 1", "qelib1.inc"),
             ("bit[2] c;\nc[0] = measure $0;\n", "line 2", "c[1] is declared but never measured"),
             ("bit[2] c;\nc[0] = measure $0;\nc[0] = measure $1;\n", "line 3", "measured twice"),

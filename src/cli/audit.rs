@@ -219,6 +219,7 @@ pub fn demo(args: DemoArgs) -> anyhow::Result<()> {
                 layout: d.join("layout.toml"),
                 circuits: d.join("circuits.json"),
                 bit_order: super::inputs::BitOrderArg::AsMeasured,
+                shots: None,
                 allow_non_native: false,
                 qubit_map: None,
             };
@@ -240,7 +241,7 @@ fn built_in_demo() -> anyhow::Result<Inputs> {
     let wire = serde_json::from_slice(DEMO_CIRCUITS).context("the built-in demo circuits")?;
     let circuits = slackmap::circuit::json::from_wire(wire, &name("circuits.json"), &layout)?;
     slackmap::circuit::validate::validate(&circuits, &layout, false)?;
-    let opts = CountsOptions { bit_order: BitOrder::AsMeasured };
+    let opts = CountsOptions { bit_order: BitOrder::AsMeasured, shots: None };
     let (counts, warnings) =
         read_counts_from(DEMO_COUNTS, CountsFormat::Csv, &name("counts.csv"), &circuits, &opts)?;
     let digest = |role: &str, file: &str, bytes: &[u8]| InputFile {
@@ -253,7 +254,14 @@ fn built_in_demo() -> anyhow::Result<Inputs> {
         digest("circuits", "circuits.json", DEMO_CIRCUITS),
         digest("counts", "counts.csv", DEMO_COUNTS),
     ];
-    Ok(Inputs { layout, circuits, counts: Some(counts), warnings, files })
+    Ok(Inputs {
+        layout,
+        circuits,
+        counts: Some(counts),
+        counts_path: Some(name("counts.csv")),
+        warnings,
+        files,
+    })
 }
 
 /// Checks the analysis settings against the limits, before any input is read.
@@ -293,6 +301,7 @@ fn run_audit(
 ) -> anyhow::Result<()> {
     start_threads(a.threads)?;
     let counts = loaded.counts.as_ref().context("counts were not read")?;
+    loaded.require_agreement()?;
     let cfg = AuditConfig {
         family: a.model.family(),
         alpha: a.alpha,

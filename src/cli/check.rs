@@ -31,6 +31,9 @@ pub fn run(args: CheckArgs) -> anyhow::Result<()> {
     Ok(())
 }
 
+/// Physical qubits listed by name in the placement row.
+const PLACEMENT_SHOWN: usize = 16;
+
 fn spread<T: std::fmt::Display>(s: &Option<Spread<T>>) -> String {
     match s {
         Some(s) => format!("{} / {} / {}", s.min, s.median, s.max),
@@ -48,10 +51,20 @@ fn print(layout: &Layout, s: &CheckSummary) {
         "layout".to_string(),
         format!("{} ({} qubits)", layout.name, layout.n_qubits()),
     ]);
+    t.add_row(vec![
+        "placement of OpenQASM $k (k-th qubit of the layout file)".to_string(),
+        layout.placement(PLACEMENT_SHOWN),
+    ]);
     t.add_row(vec!["circuits".to_string(), s.n_circuits.to_string()]);
     t.add_row(vec!["layers (min / median / max)".to_string(), spread(&s.layers)]);
     t.add_row(vec!["blocks (1q / 2q)".to_string(), format!("{} / {}", s.blocks_1q, s.blocks_2q)]);
     t.add_row(vec!["shots per circuit (min / median / max)".to_string(), spread(&s.shots)]);
+    if let Some(a) = &s.agreement {
+        t.add_row(vec![
+            "agreement with ideal outcomes (1 = ideal, 0 = chance)".to_string(),
+            format!("{:.3} as read ({:.3} with reversed outcome strings)", a.as_read, a.reversed),
+        ]);
+    }
     t.add_row(vec![
         "qubits with reference rows".to_string(),
         format!("{} of {}", s.qubits_with_reference.len(), layout.n_qubits()),

@@ -8,8 +8,9 @@ use sha2::{Digest, Sha256};
 use slackmap::circuit::qasm::QubitMap;
 use slackmap::circuit::validate::{read_circuits, ReadOptions};
 use slackmap::circuit::CircuitSet;
-use slackmap::counts::{read_counts, BitOrder, Counts, CountsOptions};
+use slackmap::counts::{agreement, read_counts, BitOrder, Counts, CountsOptions};
 use slackmap::layout::{read_layout, Layout};
+use slackmap::limits::Limits;
 use slackmap::report::InputFile;
 use slackmap::Warning;
 
@@ -46,6 +47,11 @@ pub struct InputArgs {
     /// character i is the i-th measured qubit of the circuit.
     #[arg(long, value_enum, default_value = "as-measured")]
     pub bit_order: BitOrderArg,
+    /// The shots each circuit ran, for a counts file that holds probabilities (or
+    /// quasi-probabilities) instead of counts: each becomes round(p x N) shots after
+    /// negative entries are set to 0 and the rest rescaled to sum 1.
+    #[arg(long, value_name = "N")]
+    pub shots: Option<u64>,
     /// Accept gates that are not native on the layout.
     #[arg(long)]
     pub allow_non_native: bool,
@@ -60,6 +66,8 @@ pub struct Inputs {
     pub layout: Layout,
     pub circuits: CircuitSet,
     pub counts: Option<Counts>,
+    /// Where the counts came from (for messages).
+    pub counts_path: Option<PathBuf>,
     pub warnings: Vec<Warning>,
     pub files: Vec<InputFile>,
 }
@@ -73,20 +81,52 @@ impl InputArgs {
         let circuits = read_circuits(&self.circuits, &layout, &opts)?;
         let mut files = vec![digest("layout", &self.layout)?, digest("circuits", &self.circuits)?];
         let mut warnings = Vec::new();
-        let counts = match counts {
+        let is_json = self.circuits.extension().is_some_and(|e| e.eq_ignore_ascii_case("json"));
+        if !is_json {
+            warnings.extend(layout.placement_warning());
+        }
+        let counts_read = match counts {
             Some(p) => {
+                if let Some(n) = self.shots {
+                    super::limits().check("--shots", n, Limits::SHOTS, "shots per circuit")?;
+                    if n == 0 {
+                        return Err(slackmap::Error::Usage(
+                            "--shots 0: give the shots each circuit ran (at least 1)".into(),
+                        )
+                        .into());
+                    }
+                }
                 let bit_order = match self.bit_order {
                     BitOrderArg::AsMeasured => BitOrder::AsMeasured,
                     BitOrderArg::Reversed => BitOrder::Reversed,
                 };
-                let (c, w) = read_counts(p, &circuits, &CountsOptions { bit_order })?;
+                let (c, w) =
+                    read_counts(p, &circuits, &CountsOptions { bit_order, shots: self.shots })?;
                 warnings.extend(w);
                 files.push(digest("counts", p)?);
                 Some(c)
             }
             None => None,
         };
-        Ok(Inputs { layout, circuits, counts, warnings, files })
+        Ok(Inputs {
+            layout,
+            circuits,
+            counts: counts_read,
+            counts_path: counts.map(Path::to_path_buf),
+            warnings,
+            files,
+        })
+    }
+}
+
+impl Inputs {
+    /// Fails (exit 2) when the counts do not follow the circuits' ideal outcomes: read in
+    /// the other bit order, or made from other circuits.
+    pub fn require_agreement(&self) -> anyhow::Result<()> {
+        if let (Some(counts), Some(path)) = (&self.counts, &self.counts_path) {
+            agreement::agreement(&self.layout, &self.circuits, counts).require(path)?;
+        }
+        Ok(())
     }
 }
 

@@ -212,6 +212,7 @@ pub struct Blueprint<'a> {
     groups: Vec<Group>,
     all_active: Option<usize>,
     width: usize,
+    digest: String,
 }
 
 impl<'a> Blueprint<'a> {
@@ -262,6 +263,7 @@ impl<'a> Blueprint<'a> {
             groups: Vec::new(),
             all_active: None,
             width: n.saturating_sub(1).to_string().len(),
+            digest: design_digest(layout, cfg),
         };
         bp.all_active = bp.patterns.iter().position(|p| p.context == Context::AllActive1q);
         let mut start = 0;
@@ -336,9 +338,16 @@ impl<'a> Blueprint<'a> {
         Job { pattern, kind, depth: self.cfg.depths[r / seqs], sequence: r % seqs }
     }
 
-    /// A circuit's id, from its index before the shuffle.
+    /// A circuit's id, from its index before the shuffle, and the design's digest: counts
+    /// of another design then name circuits this design does not have, and the reader can
+    /// say that they come from another design (see [`design_of_id`]).
     fn id(&self, index: usize) -> String {
-        format!("c{index:0width$}", width = self.width)
+        format!("c{index:0width$}-{}", self.digest, width = self.width)
+    }
+
+    /// The short digest of the design that every circuit id ends in.
+    pub fn digest(&self) -> &str {
+        &self.digest
     }
 
     /// Rough operation count of a job's circuit (see the size model above): operations per
@@ -456,6 +465,39 @@ impl<'a> Blueprint<'a> {
     }
 }
 
+/// Hex characters of the design digest in circuit ids.
+const DIGEST_CHARS: usize = 6;
+
+/// A short SHA-256 digest of everything that decides a design's circuits: the layout's
+/// qubits, couplers, gates and neighbourhoods, and the depths, sequences, kinds and seed.
+fn design_digest(layout: &Layout, cfg: &DesignConfig) -> String {
+    use sha2::{Digest, Sha256};
+    let mut h = Sha256::new();
+    let ids: Vec<&str> = layout.qubits.iter().map(|q| q.id.as_str()).collect();
+    h.update(format!(
+        "qubits {ids:?}\ncouplers {:?}\ngates {:?}\nneighbourhood {:?}\n",
+        layout.couplers, layout.gates, layout.neighbourhood
+    ));
+    h.update(format!(
+        "depths {:?}\nsequences {}\nkinds {:?}\nseed {}\n",
+        cfg.depths, cfg.sequences, cfg.kinds, cfg.seed
+    ));
+    h.finalize().iter().take(DIGEST_CHARS / 2).map(|b| format!("{b:02x}")).collect()
+}
+
+/// The design digest at the end of a designed circuit id (`c0042-1a2b3c` gives `1a2b3c`);
+/// `None` for ids of another shape.
+pub fn design_of_id(id: &str) -> Option<&str> {
+    let (head, digest) = id.rsplit_once('-')?;
+    let number = head.strip_prefix('c')?;
+    let hex = |c: u8| c.is_ascii_digit() || (b'a'..=b'f').contains(&c);
+    (!number.is_empty()
+        && number.bytes().all(|c| c.is_ascii_digit())
+        && digest.len() == DIGEST_CHARS
+        && digest.bytes().all(hex))
+    .then_some(digest)
+}
+
 /// Builds the whole design in memory. Fails when the native gates cannot express Clifford
 /// sequences, or when the design is above the configuration's limits or would not fit in
 /// memory.
@@ -494,6 +536,21 @@ fn row_for(job: &Job, p: &Pattern, c: &Circuit, ideal: impl Fn(usize) -> Ideal) 
 
 #[cfg(test)]
 mod tests {
+    #[test]
+    fn ids_carry_the_design_digest() {
+        assert_eq!(design_of_id("c0042-1a2b3c"), Some("1a2b3c"));
+        for other in ["c0042", "c42-1A2B3C", "x42-1a2b3c", "c-1a2b3c", "c1-1a2b3"] {
+            assert_eq!(design_of_id(other), None, "{other}");
+        }
+        let l = crate::layout::generate::chain(3);
+        let cfg = |seed| DesignConfig::new(vec![1, 4], 2, seed, vec![Kind::Randomized]).unwrap();
+        let (a, b) = (Blueprint::new(&l, &cfg(1)).unwrap(), Blueprint::new(&l, &cfg(2)).unwrap());
+        assert_ne!(a.digest(), b.digest());
+        assert_eq!(a.digest(), Blueprint::new(&l, &cfg(1)).unwrap().digest());
+        let (c, _) = &a.circuits(0..1).unwrap()[0];
+        assert_eq!(design_of_id(&c.id), Some(a.digest()));
+    }
+
     use super::*;
     use crate::layout::generate;
 

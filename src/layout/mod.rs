@@ -12,6 +12,7 @@ pub mod toml;
 
 pub use self::toml::{parse_layout, read_layout, to_toml};
 
+use crate::error::{echo, Warning};
 use crate::gate::Gate;
 
 /// Index of a qubit in its layout's `qubits` list. Valid only for the layout it came from.
@@ -76,6 +77,48 @@ pub struct Layout {
 }
 
 impl Layout {
+    /// How OpenQASM physical qubits `$k` are placed: `$k` is the k-th qubit of the layout
+    /// file (the standard's meaning), shown as `$0=q0, $1=q1, ...` with at most `shown`
+    /// entries and a count of the rest.
+    pub fn placement(&self, shown: usize) -> String {
+        let mut s: Vec<String> = self
+            .qubits
+            .iter()
+            .take(shown)
+            .enumerate()
+            .map(|(k, q)| format!("${k}={}", q.id))
+            .collect();
+        if self.qubits.len() > shown {
+            s.push(format!("... ({} more)", self.qubits.len() - shown));
+        }
+        s.join(", ")
+    }
+
+    /// A warning when qubit ids look like `q<k>` but stand in another order in the file:
+    /// `$k` then is not `qk`, and every gate of an OpenQASM program on physical qubits lands
+    /// elsewhere than its author may think.
+    pub fn placement_warning(&self) -> Option<Warning> {
+        let numbered: Vec<Option<usize>> = self
+            .qubits
+            .iter()
+            .map(|q| q.id.strip_prefix('q').and_then(|n| n.parse::<usize>().ok()))
+            .collect();
+        if numbered.iter().any(Option::is_none) {
+            return None;
+        }
+        let (k, q) = numbered.iter().enumerate().find(|&(k, n)| *n != Some(k))?;
+        Some(Warning::new(
+            "placement-order",
+            format!(
+                "layout '{}' lists its qubits out of order: ${k} (qubit {k} of the file, counting \
+                 from 0) is q{}, not q{k}",
+                echo(&self.name),
+                q.unwrap_or_default()
+            ),
+            "OpenQASM $k means the k-th qubit of the layout file; reorder the layout's qubits \
+             as q0, q1, ... if the programs mean qubit qk",
+        ))
+    }
     /// Builds and validates a layout. Errors name the offending id or gate; the caller adds
     /// the file location.
     pub fn new(

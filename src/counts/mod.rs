@@ -14,7 +14,9 @@ use std::path::Path;
 use serde::de::{self, DeserializeSeed, MapAccess, Visitor};
 
 use crate::circuit::CircuitSet;
-use crate::error::{Error, Result, Warning};
+use crate::error::{echo, Error, Result, Warning};
+
+pub mod agreement;
 
 /// One outcome bitstring, packed: bit i is `words[i / 64] >> (i % 64) & 1`.
 #[derive(Clone, Debug, PartialEq, Eq, Hash, PartialOrd, Ord)]
@@ -95,6 +97,9 @@ pub enum BitOrder {
 pub struct CountsOptions {
     /// Outcome bit order in the file.
     pub bit_order: BitOrder,
+    /// Shots each circuit ran, for files that hold probabilities (or quasi-probabilities)
+    /// rather than counts; `None` reads whole-number counts.
+    pub shots: Option<u64>,
 }
 
 /// The counts file formats, chosen by extension.
@@ -202,6 +207,45 @@ impl OutcomeRows {
         }
     }
 
+    /// Adds one to an outcome's count.
+    fn increment(&mut self, bits: impl Iterator<Item = bool>, n: usize) {
+        match self {
+            OutcomeRows::Packed(m) => {
+                let word = bits.enumerate().fold(0u64, |w, (i, b)| w | ((b as u64) << i));
+                *m.entry(word).or_default() += 1;
+            }
+            OutcomeRows::Wide(m) => {
+                let mut v = Vec::with_capacity(n);
+                v.extend(bits);
+                *m.entry(Outcome::from_bits(&v)).or_default() += 1;
+            }
+        }
+    }
+
+    /// Turns stored probabilities (as `f64` bits) into counts of `shots`: negative entries
+    /// of a quasi-distribution are set to 0, the rest rescaled to sum 1 and rounded.
+    /// `None` when nothing positive is left.
+    fn probabilities_to_counts(self, shots: u64) -> Option<OutcomeRows> {
+        fn convert<K: std::hash::Hash + Eq>(
+            m: HashMap<K, u64>,
+            shots: u64,
+        ) -> Option<HashMap<K, u64>> {
+            let clipped: Vec<(K, f64)> =
+                m.into_iter().map(|(k, v)| (k, f64::from_bits(v).max(0.0))).collect();
+            let total: f64 = clipped.iter().map(|(_, p)| p).sum();
+            (total > 0.0).then(|| {
+                clipped
+                    .into_iter()
+                    .map(|(k, p)| (k, (p / total * shots as f64).round() as u64))
+                    .collect()
+            })
+        }
+        Some(match self {
+            OutcomeRows::Packed(m) => OutcomeRows::Packed(convert(m, shots)?),
+            OutcomeRows::Wide(m) => OutcomeRows::Wide(convert(m, shots)?),
+        })
+    }
+
     /// The rows with a positive count, sorted by outcome.
     fn into_outcomes(self) -> Vec<(Outcome, u64)> {
         let mut v: Vec<(Outcome, u64)> = match self {
@@ -223,6 +267,9 @@ struct Accumulator<'a> {
     path: &'a Path,
     circuits: &'a CircuitSet,
     reversed: bool,
+    /// With `Some(n)` the values are probabilities, stored as `f64::to_bits` in the maps
+    /// until [`Accumulator::finish`] turns them into counts of `n` shots.
+    shots: Option<u64>,
     maps: Vec<Option<OutcomeRows>>,
     totals: Vec<u64>,
     first_line: Vec<Option<usize>>,
@@ -236,6 +283,7 @@ impl<'a> Accumulator<'a> {
             path,
             circuits,
             reversed: opts.bit_order == BitOrder::Reversed,
+            shots: opts.shots,
             maps: (0..n).map(|_| None).collect(),
             totals: vec![0; n],
             first_line: vec![None; n],
@@ -250,12 +298,30 @@ impl<'a> Accumulator<'a> {
     /// The index of a circuit id, marking it as having counts.
     fn circuit(&mut self, line: Option<usize>, id: &str) -> Result<usize> {
         let Some(ci) = self.circuits.position(id) else {
+            let theirs = crate::design::design_of_id(id);
+            let ours =
+                self.circuits.circuits.first().and_then(|c| crate::design::design_of_id(&c.id));
+            if let (Some(theirs), Some(ours)) = (theirs, ours) {
+                if theirs != ours {
+                    return Err(self.err(
+                        line,
+                        format!(
+                            "these counts come from another design: circuit id '{}' belongs to \
+                             design {theirs}, but the circuit file is design {ours} (another \
+                             seed, layout or settings); use the counts made by running this \
+                             circuit file",
+                            echo(id)
+                        ),
+                    ));
+                }
+            }
             let some: Vec<&str> =
                 self.circuits.circuits.iter().take(3).map(|c| c.id.as_str()).collect();
             return Err(self.err(
                 line,
                 format!(
-                    "unknown circuit id '{id}'; the circuit file has {} circuit(s){}",
+                    "unknown circuit id '{}'; the circuit file has {} circuit(s){}",
+                    echo(id),
                     self.circuits.len(),
                     if some.is_empty() {
                         String::new()
@@ -273,8 +339,29 @@ impl<'a> Accumulator<'a> {
     }
 
     fn add(&mut self, line: Option<usize>, ci: usize, outcome: &str, count: u64) -> Result<()> {
+        self.add_value(line, ci, outcome, count, false)
+    }
+
+    /// Adds one shot of `outcome` (a per-shot list): repeats add up.
+    fn add_shot(&mut self, line: Option<usize>, ci: usize, outcome: &str) -> Result<()> {
+        self.add_value(line, ci, outcome, 1, true)
+    }
+
+    fn add_value(
+        &mut self,
+        line: Option<usize>,
+        ci: usize,
+        outcome: &str,
+        count: u64,
+        accumulate: bool,
+    ) -> Result<()> {
         let c = &self.circuits.circuits[ci];
         let n = c.measured.len();
+        let written = outcome;
+        let expanded = expand_outcome(outcome, n).map_err(|m| {
+            self.err(line, format!("outcome '{}' of circuit {}: {m}", echo(written), c.id))
+        })?;
+        let outcome = expanded.as_deref().unwrap_or(outcome);
         let bytes = outcome.as_bytes();
         let bad = bytes.iter().position(|&b| b != b'0' && b != b'1');
         let len = if bad.is_some() { outcome.chars().count() } else { bytes.len() };
@@ -306,7 +393,9 @@ impl<'a> Accumulator<'a> {
         let reversed = self.reversed;
         let bit = |i: usize| bytes[if reversed { n - 1 - i } else { i }] == b'1';
         let rows = self.maps[ci].get_or_insert_with(|| OutcomeRows::new(n));
-        if !rows.insert((0..n).map(bit), n, count) {
+        if accumulate {
+            rows.increment((0..n).map(bit), n);
+        } else if !rows.insert((0..n).map(bit), n, count) {
             return Err(Error::input(
                 self.path,
                 line,
@@ -316,6 +405,10 @@ impl<'a> Accumulator<'a> {
                     c.id
                 ),
             ));
+        }
+        if self.shots.is_some() {
+            self.rows += 1;
+            return Ok(());
         }
         self.totals[ci] = self.totals[ci].checked_add(count).ok_or_else(|| {
             Error::input(
@@ -341,7 +434,20 @@ impl<'a> Accumulator<'a> {
                 per_circuit.push(None);
                 continue;
             };
-            if self.totals[ci] == 0 {
+            let map = match self.shots {
+                None => map,
+                Some(shots) => match map.probabilities_to_counts(shots) {
+                    Some(m) => m,
+                    None => {
+                        return Err(Error::input(
+                            self.path,
+                            self.first_line[ci],
+                            format!("circuit {id}: no outcome has a positive probability"),
+                        ))
+                    }
+                },
+            };
+            if self.shots.is_none() && self.totals[ci] == 0 {
                 return Err(Error::input(
                     self.path,
                     self.first_line[ci],
@@ -373,33 +479,118 @@ impl<'a> Accumulator<'a> {
     }
 }
 
-/// Parses a count as written in a CSV field.
-fn parse_count(text: &str) -> std::result::Result<u64, String> {
+/// Rewrites an outcome written in another accepted shape as the tool's own '0'/'1' string
+/// (character i = i-th measured qubit, before `--bit-order`); `None` when it already is one.
+/// - `0x` hex: bit i of the number (least significant first) is character i; the number
+///   must be below 2^n for the circuit's n measured qubits.
+/// - Space-separated groups (one per bit register): the spaces are dropped and the
+///   characters read in the order written.
+fn expand_outcome(outcome: &str, n: usize) -> std::result::Result<Option<String>, String> {
+    if let Some(hex) = outcome.strip_prefix("0x").or_else(|| outcome.strip_prefix("0X")) {
+        if hex.is_empty() || !hex.bytes().all(|b| b.is_ascii_hexdigit()) {
+            return Err("a 0x outcome needs hexadecimal digits after 0x".into());
+        }
+        let mut bits = vec![b'0'; n];
+        for (j, ch) in hex.bytes().rev().enumerate() {
+            let d = (ch as char).to_digit(16).unwrap_or(0);
+            for k in 0..4 {
+                if d >> k & 1 == 1 {
+                    let i = 4 * j + k;
+                    if i >= n {
+                        return Err(format!(
+                            "the number is too large for the {n} measured qubit(s) (at most {n} bits)"
+                        ));
+                    }
+                    bits[i] = b'1';
+                }
+            }
+        }
+        return Ok(Some(String::from_utf8(bits).unwrap_or_default()));
+    }
+    if outcome.contains(' ') {
+        return Ok(Some(outcome.chars().filter(|&c| c != ' ').collect()));
+    }
+    Ok(None)
+}
+
+/// A number as written in a counts file, before the reader decides what it means.
+#[derive(Copy, Clone, Debug)]
+enum Value {
+    /// Digits only.
+    Whole(u64),
+    /// Anything else that reads as a number (`490.0`, `0.25`, `1e3`, `-2`).
+    Real(f64),
+}
+
+/// Parses a value as written in a CSV field.
+fn parse_value(text: &str) -> std::result::Result<Value, String> {
     if text.is_empty() {
         return Err("count is empty".into());
-    }
-    if let Some(rest) = text.strip_prefix('-') {
-        if rest.parse::<f64>().is_ok() {
-            return Err(format!("count '{text}' is negative; counts are whole numbers of shots"));
-        }
     }
     if text.bytes().all(|b| b.is_ascii_digit()) {
         return text
             .parse::<u64>()
-            .map_err(|_| format!("count '{text}' is too large (at most {})", u64::MAX));
+            .map(Value::Whole)
+            .map_err(|_| format!("count '{}' is too large (at most {})", echo(text), u64::MAX));
     }
     match text.parse::<f64>() {
-        Ok(v) if v.fract() != 0.0 => {
-            Err(format!("count '{text}' is fractional; counts are whole numbers of shots"))
+        Ok(v) if v.is_finite() => Ok(Value::Real(v)),
+        _ => Err(format!("count '{}' is not a number", echo(text))),
+    }
+}
+
+/// Largest whole number a float holds exactly (2^53).
+const EXACT_FLOAT: f64 = 9_007_199_254_740_992.0;
+
+impl Accumulator<'_> {
+    /// What a value means here: a count of shots, or (with `--shots`) a probability kept as
+    /// `f64` bits until [`Accumulator::finish`].
+    fn stored(&self, v: Value) -> std::result::Result<u64, String> {
+        let shown = |v: Value| match v {
+            Value::Whole(n) => n.to_string(),
+            Value::Real(x) => x.to_string(),
+        };
+        match (self.shots, v) {
+            (None, Value::Whole(n)) => Ok(n),
+            (None, Value::Real(x)) if x < 0.0 => {
+                Err(format!("count {x} is negative; counts are whole numbers of shots"))
+            }
+            (None, Value::Real(x)) if x.fract() == 0.0 && x <= EXACT_FLOAT => Ok(x as u64),
+            (None, Value::Real(x)) if x.fract() == 0.0 => {
+                Err(format!("count {x} is too large to be exact as written; write it as digits"))
+            }
+            (None, Value::Real(x)) => Err(format!(
+                "count {x} is fractional; counts are whole numbers of shots (if the file holds \
+                 probabilities, pass --shots N with the shots each circuit ran)"
+            )),
+            (Some(_), v) => {
+                let p = match v {
+                    Value::Whole(n) => n as f64,
+                    Value::Real(x) => x,
+                };
+                if (-1.0..=1.0 + 1e-9).contains(&p) {
+                    Ok(p.to_bits())
+                } else {
+                    Err(format!(
+                        "value {} is not a probability; with --shots the values are \
+                         probabilities (quasi-probabilities from -1 to 1); drop --shots to read \
+                         counts",
+                        shown(v)
+                    ))
+                }
+            }
         }
-        Ok(_) => {
-            Err(format!("count '{text}' must be written as a plain whole number (digits only)"))
-        }
-        Err(_) => Err(format!("count '{text}' is not a number")),
     }
 }
 
 const HEADER: [&str; 3] = ["circuit", "outcome", "count"];
+
+/// A counts file row is one outcome with its count; a per-shot file row is one shot.
+#[derive(Copy, Clone, PartialEq, Eq)]
+enum CsvShape {
+    Counts,
+    Shots,
+}
 
 fn read_csv<R: Read>(reader: R, acc: &mut Accumulator<'_>) -> Result<()> {
     let path = acc.path;
@@ -414,6 +605,7 @@ fn read_csv<R: Read>(reader: R, acc: &mut Accumulator<'_>) -> Result<()> {
     };
     let mut rec = csv::StringRecord::new();
     let mut header_seen = false;
+    let mut shape = CsvShape::Counts;
     while rdr.read_record(&mut rec).map_err(csv_err)? {
         let line = rec.position().map(|p| p.line() as usize);
         // A line of only separators or spaces is as blank as an empty one.
@@ -421,14 +613,37 @@ fn read_csv<R: Read>(reader: R, acc: &mut Accumulator<'_>) -> Result<()> {
             continue;
         }
         if !header_seen {
-            if rec.len() != 3 || rec.iter().zip(HEADER).any(|(f, h)| f.trim() != h) {
-                let got = rec.iter().map(str::trim).collect::<Vec<_>>().join(",");
+            let named = |n: usize| rec.iter().zip(&HEADER[..n]).all(|(f, h)| f.trim() == *h);
+            shape = match rec.len() {
+                3 if named(3) => CsvShape::Counts,
+                2 if named(2) => CsvShape::Shots,
+                _ => {
+                    let got = rec.iter().map(str::trim).collect::<Vec<_>>().join(",");
+                    return Err(acc.err(
+                        line,
+                        format!(
+                            "the header is '{}'; expected 'circuit,outcome,count' (one row per \
+                             outcome) or 'circuit,outcome' (one row per shot)",
+                            echo(&got)
+                        ),
+                    ));
+                }
+            };
+            header_seen = true;
+            continue;
+        }
+        if shape == CsvShape::Shots {
+            if rec.len() != 2 {
                 return Err(acc.err(
                     line,
-                    format!("the header is '{got}'; expected 'circuit,outcome,count'"),
+                    format!(
+                        "expected 2 fields (circuit,outcome: one row per shot), found {}",
+                        rec.len()
+                    ),
                 ));
             }
-            header_seen = true;
+            let ci = acc.circuit(line, rec[0].trim())?;
+            acc.add_shot(line, ci, rec[1].trim())?;
             continue;
         }
         if rec.len() != 3 {
@@ -438,7 +653,8 @@ fn read_csv<R: Read>(reader: R, acc: &mut Accumulator<'_>) -> Result<()> {
             ));
         }
         // Trimming here rather than in the csv reader avoids a copy of every record.
-        let count = parse_count(rec[2].trim()).map_err(|m| acc.err(line, m))?;
+        let count =
+            parse_value(rec[2].trim()).and_then(|v| acc.stored(v)).map_err(|m| acc.err(line, m))?;
         let ci = acc.circuit(line, rec[0].trim())?;
         acc.add(line, ci, rec[1].trim(), count)?;
     }
@@ -543,7 +759,7 @@ struct CircuitSeed<'s, 'a> {
 impl<'de> DeserializeSeed<'de> for CircuitSeed<'_, '_> {
     type Value = ();
     fn deserialize<D: de::Deserializer<'de>>(self, d: D) -> std::result::Result<(), D::Error> {
-        d.deserialize_map(self)
+        d.deserialize_any(self)
     }
 }
 
@@ -551,16 +767,24 @@ impl<'de> Visitor<'de> for CircuitSeed<'_, '_> {
     type Value = ();
 
     fn expecting(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
-        write!(f, "an object of outcome: count pairs for circuit {}", self.id)
+        write!(
+            f,
+            "an object of outcome: count pairs, or a list of per-shot outcomes, for circuit {}",
+            self.id
+        )
     }
 
     fn visit_map<A: MapAccess<'de>>(self, mut map: A) -> std::result::Result<(), A::Error> {
         while let Some(outcome) = map.next_key::<String>()? {
-            let count = map
-                .next_value_seed(CountSeed)?
-                .map_err(|why| format!("circuit {} outcome '{outcome}': {why}", self.id));
-            let added = count
-                .map_err(|m| self.acc.err(None, m))
+            let value = map.next_value_seed(CountSeed)?;
+            let added = value
+                .and_then(|v| self.acc.stored(v))
+                .map_err(|why| {
+                    self.acc.err(
+                        None,
+                        format!("circuit {} outcome '{}': {why}", self.id, echo(&outcome)),
+                    )
+                })
                 .and_then(|n| self.acc.add(None, self.ci, &outcome, n));
             if let Err(e) = added {
                 *self.failure = Some(e);
@@ -569,14 +793,35 @@ impl<'de> Visitor<'de> for CircuitSeed<'_, '_> {
         }
         Ok(())
     }
+
+    fn visit_seq<A: de::SeqAccess<'de>>(self, mut seq: A) -> std::result::Result<(), A::Error> {
+        if self.acc.shots.is_some() {
+            *self.failure = Some(self.acc.err(
+                None,
+                format!(
+                    "circuit {} holds a per-shot list of outcomes; --shots is only for files of \
+                     probabilities: drop it",
+                    self.id
+                ),
+            ));
+            return Err(de::Error::custom("shots with a list"));
+        }
+        while let Some(outcome) = seq.next_element::<String>()? {
+            if let Err(e) = self.acc.add_shot(None, self.ci, &outcome) {
+                *self.failure = Some(e);
+                return Err(de::Error::custom("bad shot"));
+            }
+        }
+        Ok(())
+    }
 }
 
-/// A JSON count: a non-negative integer. Other numbers and strings are reported with the
-/// circuit and outcome by the caller, so they come back as `Err(reason)`.
+/// A JSON count as a [`Value`]; strings and other non-numbers come back as `Err(reason)`,
+/// which the caller reports with the circuit and outcome.
 struct CountSeed;
 
 impl<'de> DeserializeSeed<'de> for CountSeed {
-    type Value = std::result::Result<u64, String>;
+    type Value = std::result::Result<Value, String>;
     fn deserialize<D: de::Deserializer<'de>>(
         self,
         d: D,
@@ -586,36 +831,31 @@ impl<'de> DeserializeSeed<'de> for CountSeed {
 }
 
 impl<'de> Visitor<'de> for CountSeed {
-    type Value = std::result::Result<u64, String>;
+    type Value = std::result::Result<Value, String>;
 
     fn expecting(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
         f.write_str("a count (a whole number of shots)")
     }
 
     fn visit_u64<E: de::Error>(self, v: u64) -> std::result::Result<Self::Value, E> {
-        Ok(Ok(v))
+        Ok(Ok(Value::Whole(v)))
     }
 
     fn visit_i64<E: de::Error>(self, v: i64) -> std::result::Result<Self::Value, E> {
-        Ok(u64::try_from(v)
-            .map_err(|_| format!("count {v} is negative; counts are whole numbers of shots")))
+        Ok(Ok(Value::Real(v as f64)))
     }
 
     fn visit_f64<E: de::Error>(self, v: f64) -> std::result::Result<Self::Value, E> {
         // serde_json hands integers beyond u64 over as floats.
-        Ok(Err(if v.fract() != 0.0 {
-            format!("count {v} is fractional; counts are whole numbers of shots")
-        } else if v >= u64::MAX as f64 {
-            format!("count {v} is too large (at most {})", u64::MAX)
-        } else if v < 0.0 {
-            format!("count {v} is negative; counts are whole numbers of shots")
+        Ok(if v >= u64::MAX as f64 {
+            Err(format!("count {v} is too large (at most {})", u64::MAX))
         } else {
-            format!("count {v} must be written as a plain whole number")
-        }))
+            Ok(Value::Real(v))
+        })
     }
 
     fn visit_str<E: de::Error>(self, v: &str) -> std::result::Result<Self::Value, E> {
-        Ok(Err(format!("count \"{v}\" is a string; write the number without quotes")))
+        Ok(Err(format!("count \"{}\" is a string; write the number without quotes", echo(v))))
     }
 
     fn visit_bool<E: de::Error>(self, v: bool) -> std::result::Result<Self::Value, E> {
@@ -624,6 +864,20 @@ impl<'de> Visitor<'de> for CountSeed {
 
     fn visit_unit<E: de::Error>(self) -> std::result::Result<Self::Value, E> {
         Ok(Err("count null is not a number".into()))
+    }
+
+    fn visit_map<A: MapAccess<'de>>(self, _: A) -> std::result::Result<Self::Value, A::Error> {
+        Err(de::Error::custom(
+            "a nested object where a count belongs; expected {circuit id: {outcome: count}} \
+             with numbers as counts",
+        ))
+    }
+
+    fn visit_seq<A: de::SeqAccess<'de>>(self, _: A) -> std::result::Result<Self::Value, A::Error> {
+        Err(de::Error::custom(
+            "a list where a count belongs; expected {circuit id: {outcome: count}}, or \
+             {circuit id: [outcome, ...]} with one outcome per shot",
+        ))
     }
 }
 
@@ -728,7 +982,7 @@ mod tests {
 
     #[test]
     fn reversed_bit_order_flips_each_outcome() {
-        let opts = CountsOptions { bit_order: BitOrder::Reversed };
+        let opts = CountsOptions { bit_order: BitOrder::Reversed, shots: None };
         let text = std::fs::read_to_string(fixtures().join("good/counts.csv")).unwrap();
         let (c, _) = read_text(&text, CountsFormat::Csv, &opts).unwrap();
         let ref_q0 = c.per_circuit[0].as_ref().unwrap();
@@ -748,6 +1002,78 @@ mod tests {
         let json = "\u{feff}{\r\n\"ref-q0\": {\"000\": 3}\r\n}\r\n\r\n";
         let (c, _) = read_text(json, CountsFormat::Json, &CountsOptions::default()).unwrap();
         assert_eq!(c.per_circuit[0].as_ref().unwrap().shots(), 3);
+    }
+
+    /// Every lab shape of the same counts reads as the plain form: hex keys (bit i of the
+    /// number = character i), floats that are whole numbers, space-separated groups,
+    /// per-shot lists (CSV and JSON), and probabilities with --shots.
+    #[test]
+    fn lab_shapes_read_as_the_plain_form() {
+        let plain = "circuit,outcome,count\nref-q0,000,480\nref-q0,100,500\nref-q0,010,20\n";
+        let opts = CountsOptions::default();
+        let (want, _) = read_text(plain, CountsFormat::Csv, &opts).unwrap();
+        let want = &want.per_circuit[0];
+        let same = |text: &str, f: CountsFormat, opts: &CountsOptions| {
+            let (got, _) = read_text(text, f, opts).unwrap_or_else(|e| panic!("{text}: {e}"));
+            assert_eq!(&got.per_circuit[0], want, "{text}");
+        };
+        same(
+            "circuit,outcome,count\nref-q0,0x0,480\nref-q0,0x1,500\nref-q0,0X2,20\n",
+            CountsFormat::Csv,
+            &opts,
+        );
+        same(
+            "circuit,outcome,count\nref-q0,000,480.0\nref-q0,100,5e2\nref-q0,010,20\n",
+            CountsFormat::Csv,
+            &opts,
+        );
+        same(
+            "circuit,outcome,count\nref-q0,0 00,480\nref-q0,1 00,500\nref-q0,01 0,20\n",
+            CountsFormat::Csv,
+            &opts,
+        );
+        same(r#"{"ref-q0": {"0x0": 480.0, "0x1": 500, "0 1 0": 20}}"#, CountsFormat::Json, &opts);
+        let mut shots = String::from("circuit,outcome\n");
+        let mut list = Vec::new();
+        for (o, n) in [("000", 480), ("100", 500), ("010", 20)] {
+            for _ in 0..n {
+                shots.push_str(&format!("ref-q0,{o}\n"));
+                list.push(format!("\"{o}\""));
+            }
+        }
+        same(&shots, CountsFormat::Csv, &opts);
+        same(&format!("{{\"ref-q0\": [{}]}}", list.join(",")), CountsFormat::Json, &opts);
+        let with_shots = CountsOptions { shots: Some(1000), ..Default::default() };
+        same(
+            "circuit,outcome,count\nref-q0,000,0.48\nref-q0,100,0.5\nref-q0,010,0.02\n",
+            CountsFormat::Csv,
+            &with_shots,
+        );
+        // A quasi-distribution: the negative entry goes, the rest is rescaled.
+        same(
+            r#"{"ref-q0": {"000": 0.4704, "100": 0.49, "010": 0.0196, "001": -0.02}}"#,
+            CountsFormat::Json,
+            &with_shots,
+        );
+        // Without --shots, probabilities are refused with the fix; with it, counts are.
+        let m = read_text("circuit,outcome,count\nref-q0,000,0.48\n", CountsFormat::Csv, &opts)
+            .unwrap_err()
+            .to_string();
+        assert!(m.contains("fractional") && m.contains("pass --shots N"), "{m}");
+        let m = read_text(plain, CountsFormat::Csv, &with_shots).unwrap_err().to_string();
+        assert!(m.contains("value 480 is not a probability") && m.contains("drop --shots"), "{m}");
+        let m = read_text("circuit,outcome,count\nref-q0,0x8,1\n", CountsFormat::Csv, &opts)
+            .unwrap_err()
+            .to_string();
+        assert!(m.contains("too large for the 3 measured qubit(s)"), "{m}");
+        let m = read_text(r#"{"ref-q0": {"000": {"count": 3}}}"#, CountsFormat::Json, &opts)
+            .unwrap_err()
+            .to_string();
+        assert!(m.contains("a nested object where a count belongs"), "{m}");
+        let m = read_text("circuit,bits\nref-q0,000\n", CountsFormat::Csv, &opts)
+            .unwrap_err()
+            .to_string();
+        assert!(m.contains("or 'circuit,outcome' (one row per shot)"), "{m}");
     }
 
     #[test]
@@ -816,7 +1142,7 @@ mod tests {
         first.replace_range(65..66, "1");
         let text = format!("circuit,outcome,count\nw,{first},5\nw,{},7\nn,011,2\n", "1".repeat(70));
         for (order, bit) in [(BitOrder::AsMeasured, 65), (BitOrder::Reversed, 4)] {
-            let opts = CountsOptions { bit_order: order };
+            let opts = CountsOptions { bit_order: order, shots: None };
             let (c, w) = read_counts_from(
                 text.as_bytes(),
                 CountsFormat::Csv,
