@@ -78,7 +78,7 @@ fn good_inputs_pass_and_summarise() {
         let stdout = String::from_utf8_lossy(&out.stdout);
         assert_eq!(out.status.code(), Some(0), "{}", String::from_utf8_lossy(&out.stderr));
         // 4 circuits; 1000 shots each (fixture counts sum to 1000 per circuit).
-        assert!(stdout.contains("| 4 "), "{stdout}");
+        assert!(stdout.contains("┆ 4 "), "{stdout}");
         assert!(stdout.contains("1000 / 1000 / 1000"), "{stdout}");
         assert!(stdout.contains("q1 <- q4"), "pair never a context is listed: {stdout}");
     }
@@ -91,7 +91,7 @@ fn good_inputs_pass_and_summarise() {
         "reversed",
     ]);
     assert_eq!(out.status.code(), Some(0), "{}", String::from_utf8_lossy(&out.stderr));
-    assert!(String::from_utf8_lossy(&out.stdout).contains("| 3 "));
+    assert!(String::from_utf8_lossy(&out.stdout).contains("┆ 3 "));
 }
 
 #[test]

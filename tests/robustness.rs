@@ -656,3 +656,38 @@ fn an_audit_file_that_is_not_utf8_is_named_with_its_line() {
         );
     }
 }
+
+#[test]
+fn qasm_with_bad_bytes_and_an_empty_qubit_map_are_named() {
+    let tmp = tempfile::tempdir().unwrap();
+    let bad = tmp.path().join("c.qasm");
+    std::fs::write(&bad, b"OPENQASM 3.0;\nqubit[2] q;\n\xff\xfe sx q[0];\n").unwrap();
+    slackmap()
+        .args(["check", "--layout", s(&grid4()), "--circuits", s(&bad)])
+        .assert()
+        .code(2)
+        .stderr(predicate::str::contains("line 3").and(predicate::str::contains("not UTF-8")));
+    slackmap()
+        .args(["check", "--layout", s(&demo("layout.toml")), "--circuits"])
+        .args([s(&demo("circuits.json")), "--qubit-map", ""])
+        .assert()
+        .code(2)
+        .stderr(
+            predicate::str::contains("--qubit-map is empty").and(predicate::str::contains("q[0]=")),
+        );
+}
+
+#[test]
+fn check_draws_its_table_like_every_other_command() {
+    let out = slackmap()
+        .env("COLUMNS", "100")
+        .args(["check", "--layout", s(&demo("layout.toml")), "--circuits"])
+        .args([s(&demo("circuits.json")), "--counts", s(&demo("counts.csv"))])
+        .output()
+        .unwrap();
+    assert!(out.status.success());
+    let text = String::from_utf8(out.stdout).unwrap();
+    assert!(text.contains('┌') && text.contains('│'), "{text}");
+    assert!(!text.contains("+---"), "{text}");
+    assert!(text.lines().all(|l| l.chars().count() <= 100), "{text}");
+}

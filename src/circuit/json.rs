@@ -133,7 +133,7 @@ pub fn from_wire(wire: FileWire, path: &Path, layout: &Layout) -> Result<Circuit
         layout.qubit(id).ok_or_else(|| {
             Error::input(
                 path,
-                None,
+                line_of_circuit(path, cid, 0),
                 format!("circuit {cid}: qubit '{id}' is not in layout '{}'", layout.name),
             )
         })
@@ -150,7 +150,7 @@ pub fn from_wire(wire: FileWire, path: &Path, layout: &Layout) -> Result<Circuit
                 let gate = Gate::from_name(&ow.gate).ok_or_else(|| {
                     Error::input(
                         path,
-                        None,
+                        line_of_circuit(path, &cw.id, 0),
                         format!(
                             "{here}: unknown gate '{}' (known: {})",
                             ow.gate,
@@ -161,7 +161,7 @@ pub fn from_wire(wire: FileWire, path: &Path, layout: &Layout) -> Result<Circuit
                 if ow.qubits.len() != gate.arity() {
                     return Err(Error::input(
                         path,
-                        None,
+                        line_of_circuit(path, &cw.id, 0),
                         format!(
                             "{here}: gate {gate} takes {} qubit(s), got {}",
                             gate.arity(),
@@ -172,7 +172,7 @@ pub fn from_wire(wire: FileWire, path: &Path, layout: &Layout) -> Result<Circuit
                 if ow.params.len() != gate.n_params() || !ow.params.iter().all(|p| p.is_finite()) {
                     return Err(Error::input(
                         path,
-                        None,
+                        line_of_circuit(path, &cw.id, 0),
                         format!(
                             "{here}: gate {gate} takes {} finite angle(s), got {:?}",
                             gate.n_params(),
@@ -189,5 +189,36 @@ pub fn from_wire(wire: FileWire, path: &Path, layout: &Layout) -> Result<Circuit
         }
         circuits.push(Circuit { id: cw.id, layers, measured });
     }
-    CircuitSet::new(circuits).map_err(|m| Error::input(path, None, m))
+    CircuitSet::new(circuits).map_err(|m| {
+        // The second circuit with the id is the one at fault.
+        let line = super::duplicate_id(&m).and_then(|id| line_of_circuit(path, id, 1));
+        Error::input(path, line, m)
+    })
+}
+
+/// The line on which the `nth` (from 0) circuit with id `id` starts in a circuit file, for
+/// messages about that circuit: the file is read again, on the error path only. Circuit
+/// files hold one circuit per line as this tool writes them; a hand-written file gets the
+/// line of the circuit's `"id"`.
+pub fn line_of_circuit(path: &Path, id: &str, nth: usize) -> Option<usize> {
+    use std::io::BufRead;
+    let quoted = format!("\"{id}\"");
+    let file = std::fs::File::open(path).ok()?;
+    let mut seen = 0;
+    for (i, line) in std::io::BufReader::new(file).split(b'\n').enumerate() {
+        let line = line.ok()?;
+        let text = String::from_utf8_lossy(&line);
+        let mut rest: &str = &text;
+        while let Some(at) = rest.find("\"id\"") {
+            rest = &rest[at + 4..];
+            let value = rest.trim_start().strip_prefix(':').map(str::trim_start);
+            if value.is_some_and(|v| v.starts_with(&quoted)) {
+                if seen == nth {
+                    return Some(i + 1);
+                }
+                seen += 1;
+            }
+        }
+    }
+    None
 }

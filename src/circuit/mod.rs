@@ -72,6 +72,13 @@ impl Circuit {
     }
 }
 
+const DUPLICATE_ID: &str = "duplicate circuit id ";
+
+/// The id named by [`CircuitSet::new`]'s duplicate-id message.
+pub(crate) fn duplicate_id(message: &str) -> Option<&str> {
+    message.strip_prefix(DUPLICATE_ID)?.strip_prefix('\'')?.strip_suffix('\'')
+}
+
 /// A set of circuits with unique ids, in file order.
 #[derive(Clone, Debug, Default)]
 pub struct CircuitSet {
@@ -86,7 +93,7 @@ impl CircuitSet {
         let mut index = HashMap::with_capacity(circuits.len());
         for (i, c) in circuits.iter().enumerate() {
             if index.insert(c.id.clone(), i).is_some() {
-                return Err(format!("duplicate circuit id '{}'", c.id));
+                return Err(format!("{DUPLICATE_ID}'{}'", c.id));
             }
         }
         Ok(CircuitSet { circuits, index })

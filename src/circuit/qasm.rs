@@ -45,6 +45,12 @@ use crate::error::{Error, Result};
 use crate::gate::Gate;
 use crate::layout::{Layout, QubitIx};
 
+/// The largest OpenQASM file read (one circuit; anything this large is not one).
+pub const MAX_QASM_FILE_BYTES: u64 = 64 << 20;
+
+/// The largest qubit-map file read.
+pub const MAX_QUBIT_MAP_BYTES: u64 = 16 << 20;
+
 /// Writes one circuit as an OpenQASM 3 program on physical qubits.
 pub fn export(c: &Circuit, layout: &Layout) -> String {
     let mut s = String::new();
@@ -151,8 +157,13 @@ impl QubitMap {
             return QubitMap::parse(arg)
                 .map_err(|(_, m)| Error::Usage(format!("--qubit-map: {m}")));
         }
+        if arg.trim().is_empty() {
+            return Err(Error::Usage(
+                "--qubit-map is empty: give a map file, or entries like 'q[0]=q5,q[1]=q6'".into(),
+            ));
+        }
         let path = Path::new(arg);
-        let text = std::fs::read_to_string(path).map_err(|e| Error::io(path, e))?;
+        let text = crate::files::read_text_capped(path, MAX_QUBIT_MAP_BYTES, "qubit map")?;
         QubitMap::parse(&text).map_err(|(line, m)| Error::input(path, Some(line), m))
     }
 

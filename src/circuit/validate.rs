@@ -140,7 +140,7 @@ fn at_file(path: &Path, e: Error) -> Error {
 /// file, id = file stem, sorted by file name). Validation errors name the file.
 pub fn read_circuits(path: &Path, layout: &Layout, opts: &ReadOptions) -> Result<CircuitSet> {
     let read_qasm = |p: &Path| -> Result<super::Circuit> {
-        let text = std::fs::read_to_string(p).map_err(|e| Error::io(p, e))?;
+        let text = crate::files::read_text_capped(p, qasm::MAX_QASM_FILE_BYTES, "OpenQASM file")?;
         let id = p.file_stem().map(|s| s.to_string_lossy().into_owned()).unwrap_or_default();
         let c = qasm::import(&text, p, &id, layout, opts.qubit_map.as_ref())?;
         validate_circuit(&c, layout, opts.allow_non_native).map_err(|e| at_file(p, e))?;
@@ -169,7 +169,14 @@ pub fn read_circuits(path: &Path, layout: &Layout, opts: &ReadOptions) -> Result
     match ext.as_deref() {
         Some("json") => {
             let set = super::json::read_json(path, layout)?;
-            validate(&set, layout, opts.allow_non_native).map_err(|e| at_file(path, e))?;
+            validate(&set, layout, opts.allow_non_native).map_err(|e| match e {
+                Error::Circuit { circuit, message } => Error::input(
+                    path,
+                    super::json::line_of_circuit(path, &circuit, 0),
+                    format!("circuit {circuit}: {message}"),
+                ),
+                other => other,
+            })?;
             Ok(set)
         }
         Some("qasm") => {

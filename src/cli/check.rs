@@ -3,10 +3,9 @@
 
 use std::path::PathBuf;
 
-use comfy_table::{ContentArrangement, Table};
-
 use slackmap::check::{self, CheckSummary, Spread};
 use slackmap::layout::Layout;
+use slackmap::report::terminal::{self, Style};
 
 use super::inputs::InputArgs;
 
@@ -24,11 +23,20 @@ pub struct CheckArgs {
 pub fn run(args: CheckArgs) -> anyhow::Result<()> {
     let loaded = args.inputs.load(args.counts.as_deref())?;
     let summary = check::summarise(&loaded.layout, &loaded.circuits, loaded.counts.as_ref())?;
-    print(&loaded.layout, &summary);
+    print(&loaded.layout, &summary, super::style::stdout_style());
     for w in &loaded.warnings {
         println!("warning: {w}");
     }
     Ok(())
+}
+
+/// The two columns of the summary table, drawn like every other command's tables.
+struct Rows(Vec<terminal::Column>);
+
+impl Rows {
+    fn add_row(&mut self, [what, value]: [String; 2]) {
+        terminal::push_row(&mut self.0, [terminal::text(what), terminal::text(value)]);
+    }
 }
 
 /// Physical qubits listed by name in the placement row.
@@ -41,55 +49,51 @@ fn spread<T: std::fmt::Display>(s: &Option<Spread<T>>) -> String {
     }
 }
 
-fn print(layout: &Layout, s: &CheckSummary) {
+fn print(layout: &Layout, s: &CheckSummary, style: Style) {
     let id = |q: usize| layout.id(q).to_string();
     let pair = |&(a, b): &(usize, usize), sep: &str| format!("{}{sep}{}", id(a), id(b));
     let list = |v: Vec<String>| if v.is_empty() { "none".to_string() } else { v.join(", ") };
-    let mut t = Table::new();
-    t.set_content_arrangement(ContentArrangement::Dynamic).set_header(vec!["", "value"]);
-    t.add_row(vec![
-        "layout".to_string(),
-        format!("{} ({} qubits)", layout.name, layout.n_qubits()),
-    ]);
-    t.add_row(vec![
+    let mut t = Rows(terminal::columns(&[("", 0), ("value", 0)]));
+    t.add_row(["layout".to_string(), format!("{} ({} qubits)", layout.name, layout.n_qubits())]);
+    t.add_row([
         "placement of OpenQASM $k (k-th qubit of the layout file)".to_string(),
         layout.placement(PLACEMENT_SHOWN),
     ]);
-    t.add_row(vec!["circuits".to_string(), s.n_circuits.to_string()]);
-    t.add_row(vec!["layers (min / median / max)".to_string(), spread(&s.layers)]);
-    t.add_row(vec!["blocks (1q / 2q)".to_string(), format!("{} / {}", s.blocks_1q, s.blocks_2q)]);
-    t.add_row(vec!["shots per circuit (min / median / max)".to_string(), spread(&s.shots)]);
+    t.add_row(["circuits".to_string(), s.n_circuits.to_string()]);
+    t.add_row(["layers (min / median / max)".to_string(), spread(&s.layers)]);
+    t.add_row(["blocks (1q / 2q)".to_string(), format!("{} / {}", s.blocks_1q, s.blocks_2q)]);
+    t.add_row(["shots per circuit (min / median / max)".to_string(), spread(&s.shots)]);
     if let Some(a) = &s.agreement {
-        t.add_row(vec![
+        t.add_row([
             "agreement with ideal outcomes (1 = ideal, 0 = chance)".to_string(),
             format!("{:.3} as read ({:.3} with reversed outcome strings)", a.as_read, a.reversed),
         ]);
     }
-    t.add_row(vec![
+    t.add_row([
         "qubits with reference rows".to_string(),
         format!("{} of {}", s.qubits_with_reference.len(), layout.n_qubits()),
     ]);
-    t.add_row(vec![
+    t.add_row([
         "qubits WITHOUT reference rows".to_string(),
         list(s.qubits_without_reference.iter().map(|&q| id(q)).collect()),
     ]);
-    t.add_row(vec![
+    t.add_row([
         "couplers with reference rows".to_string(),
         format!("{} of {}", s.couplers_with_reference.len(), layout.couplers.len()),
     ]);
-    t.add_row(vec![
+    t.add_row([
         "couplers WITHOUT reference rows".to_string(),
         list(s.couplers_without_reference.iter().map(|p| pair(p, "-")).collect()),
     ]);
-    t.add_row(vec![
+    t.add_row([
         "directed neighbour pairs seen as context".to_string(),
         format!("{} of {}", s.directed_pairs - s.pairs_never_context.len(), s.directed_pairs),
     ]);
-    t.add_row(vec![
+    t.add_row([
         "pairs never a context (victim <- aggressor)".to_string(),
         list(s.pairs_never_context.iter().map(|p| pair(p, " <- ")).collect()),
     ]);
-    println!("{t}");
+    println!("{}", terminal::draw(&t.0, style));
     if s.warnings.is_empty() {
         println!("no problems found");
     } else {
