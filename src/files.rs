@@ -121,6 +121,53 @@ pub fn read_text_capped(path: &Path, max_bytes: u64, what: &str) -> Result<Strin
     })
 }
 
+/// A reader that fails, instead of growing a buffer without end, once one line runs longer
+/// than `max_line` bytes: streaming readers (counts) hold a whole line at a time, so an
+/// endless line (a device, a file without line breaks) would otherwise take all memory.
+pub struct LineCapped<R> {
+    inner: R,
+    max_line: u64,
+    what: &'static str,
+    /// Bytes of the current line so far.
+    run: u64,
+    /// Lines completed so far.
+    lines: usize,
+}
+
+impl<R: Read> LineCapped<R> {
+    /// Caps the lines of `inner` at `max_line` bytes; `what` names the file in messages.
+    pub fn new(inner: R, max_line: u64, what: &'static str) -> LineCapped<R> {
+        LineCapped { inner, max_line, what, run: 0, lines: 0 }
+    }
+}
+
+impl<R: Read> Read for LineCapped<R> {
+    fn read(&mut self, buf: &mut [u8]) -> std::io::Result<usize> {
+        let n = self.inner.read(buf)?;
+        for &b in &buf[..n] {
+            if b == b'\n' {
+                self.lines += 1;
+                self.run = 0;
+            } else {
+                self.run += 1;
+            }
+        }
+        if self.run > self.max_line {
+            return Err(std::io::Error::new(
+                std::io::ErrorKind::InvalidData,
+                format!(
+                    "line {} is longer than {}, the most a line of a {} may be; is this the \
+                     right file?",
+                    self.lines + 1,
+                    size_text(self.max_line),
+                    self.what
+                ),
+            ));
+        }
+        Ok(n)
+    }
+}
+
 /// A byte count for messages: `64 MiB`, `16 GiB`, `512 bytes`.
 pub fn size_text(bytes: u64) -> String {
     const UNITS: [(&str, u64); 3] = [("GiB", 1 << 30), ("MiB", 1 << 20), ("KiB", 1 << 10)];

@@ -691,3 +691,18 @@ fn check_draws_its_table_like_every_other_command() {
     assert!(!text.contains("+---"), "{text}");
     assert!(text.lines().all(|l| l.chars().count() <= 100), "{text}");
 }
+
+#[test]
+fn a_counts_line_that_never_ends_is_cut_off() {
+    let tmp = tempfile::tempdir().unwrap();
+    let bad = tmp.path().join("counts.csv");
+    let mut text = b"circuit,outcome,count\n".to_vec();
+    text.extend(std::iter::repeat_n(b'0', 3 << 20));
+    std::fs::write(&bad, text).unwrap();
+    slackmap()
+        .args(["check", "--layout", s(&demo("layout.toml")), "--circuits"])
+        .args([s(&demo("circuits.json")), "--counts", s(&bad)])
+        .assert()
+        .code(2)
+        .stderr(predicate::str::contains("line 2 is longer than 1 MiB"));
+}

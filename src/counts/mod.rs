@@ -141,6 +141,9 @@ pub fn read_counts(
     read_counts_from(file, format, path, circuits, opts)
 }
 
+/// The longest line of a CSV counts file.
+pub const MAX_CSV_LINE_BYTES: u64 = 1 << 20;
+
 /// Reads counts from any reader; `path` is used only in messages. Streams: memory grows
 /// with the number of distinct outcomes, not with the file size.
 pub fn read_counts_from<R: Read>(
@@ -150,6 +153,13 @@ pub fn read_counts_from<R: Read>(
     circuits: &CircuitSet,
     opts: &CountsOptions,
 ) -> Result<(Counts, Vec<Warning>)> {
+    let max_line = match format {
+        // One row per line: an outcome string of a thousand qubits is a kilobyte.
+        CountsFormat::Csv => MAX_CSV_LINE_BYTES,
+        // A JSON counts file may legitimately be one line.
+        CountsFormat::Json => u64::MAX,
+    };
+    let reader = crate::files::LineCapped::new(reader, max_line, "counts file");
     let mut reader = BufReader::with_capacity(1 << 16, reader);
     // A byte-order mark carries no newline, so dropping it keeps every line number.
     let buf = reader.fill_buf().map_err(|e| Error::io(path, e))?;
