@@ -81,7 +81,7 @@ impl Agreement {
             Verdict::BitReversed => Some((
                 "counts-bit-reversed",
                 "these counts look bit-reversed",
-                "rerun with --bit-order reversed",
+                "rerun with --bit-order reversed (or without it, if it was given)",
             )),
             Verdict::Unrelated => Some((
                 "counts-unrelated",
