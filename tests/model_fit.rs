@@ -402,9 +402,10 @@ fn rate_with_outward_gradient_is_held_at_zero_and_kkt_conditions_hold() {
         .iter()
         .map(|r| {
             let pr = PreparedRow::new(r, &s).unwrap();
-            let interleaved = r.steps.iter().any(|st| {
-                matches!(st, Step::Local([Some(a), None]) if a.gate == Gate::Id)
-            });
+            let interleaved = r
+                .steps
+                .iter()
+                .any(|st| matches!(st, Step::Local([Some(a), None]) if a.gate == Gate::Id));
             let probs = predict(&pr, if interleaved { &better } else { &plain }).probs;
             let c0 = (probs[0] * shots as f64).round() as u64;
             pr.with_counts(vec![c0, shots - c0]).unwrap()
@@ -468,12 +469,8 @@ fn demo_fits_converge_and_no_qubit_fit_gets_worse() {
     let audit: serde_json::Value =
         serde_json::from_str(&std::fs::read_to_string(out.join("audit.json")).unwrap()).unwrap();
     assert_eq!(audit["fit"]["not_converged"], serde_json::json!([]));
-    let codes: Vec<&str> = audit["warnings"]
-        .as_array()
-        .unwrap()
-        .iter()
-        .filter_map(|w| w["code"].as_str())
-        .collect();
+    let codes: Vec<&str> =
+        audit["warnings"].as_array().unwrap().iter().filter_map(|w| w["code"].as_str()).collect();
     assert!(!codes.contains(&"fit-not-converged"), "{codes:?}");
 
     // Sum of reference-row LLR (2 sum n ln(f/p)) per qubit block; a lower LLR is a higher

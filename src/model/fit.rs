@@ -151,10 +151,8 @@ fn free_directions(basis: &DMatrix<f64>, active: &[usize]) -> DMatrix<f64> {
     }
     let c = DMatrix::from_fn(active.len(), rank, |r, j| basis[(active[r], j)]);
     // Projector onto the null space of c, then its eigenvectors with eigenvalue 1.
-    let pinv = c
-        .clone()
-        .pseudo_inverse(1e-12)
-        .unwrap_or_else(|_| DMatrix::zeros(rank, active.len()));
+    let pinv =
+        c.clone().pseudo_inverse(1e-12).unwrap_or_else(|_| DMatrix::zeros(rank, active.len()));
     let proj = DMatrix::identity(rank, rank) - pinv * c;
     let proj = (&proj + proj.transpose()) * 0.5;
     let (vals, vecs) = sorted_eigen(&proj);
@@ -495,9 +493,8 @@ pub fn fit(
         // "Projected Newton methods for optimization problems with simple constraints",
         // SIAM J. Control Optim. 20 (1982) 221-246), and convergence is the KKT test:
         // outward gradient on the active rates, small Newton decrement elsewhere.
-        let active: Vec<usize> = (0..n)
-            .filter(|&i| coords.bounded[i] && x[i] <= AT_BOUND && g[i] <= 0.0)
-            .collect();
+        let active: Vec<usize> =
+            (0..n).filter(|&i| coords.bounded[i] && x[i] <= AT_BOUND && g[i] <= 0.0).collect();
         let z = free_directions(&basis, &active);
         let a = z.transpose() * basis.transpose() * &f * &basis * &z;
         let b = z.transpose() * basis.transpose() * &g;
