@@ -452,6 +452,40 @@ fn rate_with_outward_gradient_is_held_at_zero_and_kkt_conditions_hold() {
     }
 }
 
+/// Every shot on the ideal outcome: every rate and readout error has its optimum at zero,
+/// so the whole active set is held and the fit must still end converged and without error.
+#[test]
+fn error_free_rows_put_every_rate_on_its_bound() {
+    let mut rng = ChaCha8Rng::seed_from_u64(11);
+    let rows = rb_rows(&mut rng);
+    let s = spec(Family::Depolarizing);
+    let ideal = {
+        let mut t = Params::initial(&s).unwrap();
+        for k in [SX, ID] {
+            t.kinds[k] = KindParams::depolarizing(1, 0.0).unwrap();
+        }
+        t.readout[0] = Readout::new(0.0, 0.0).unwrap();
+        t
+    };
+    let data: Vec<PreparedRow> = rows
+        .iter()
+        .map(|r| {
+            let pr = PreparedRow::new(r, &s).unwrap();
+            let p0 = predict(&pr, &ideal).probs[0];
+            let c0 = if p0 > 0.5 { 1000 } else { 0 };
+            pr.with_counts(vec![c0, 1000 - c0]).unwrap()
+        })
+        .collect();
+    let fit = fit_qubit(&data, &s, None, &FitOptions::default()).unwrap();
+    assert!(fit.converged, "{:?}", fit.warnings);
+    for k in &fit.kinds {
+        assert!(k.values[0] < 1e-10, "kind {}: rate {}", k.kind, k.values[0]);
+    }
+    for e in fit.readout[0].errors {
+        assert!(e < 1e-10, "readout error {e}");
+    }
+}
+
 /// The demo's point fits converge without a warning, and each qubit's fit reaches a
 /// log-likelihood at least as high as the earlier optimiser did on the same rows.
 #[test]

@@ -7,6 +7,9 @@
 //! the data identify, then mapped to raw coordinates, so every channel stays CPTP.
 //! Identifiability is judged from the eigen-decomposition of F in natural coordinates at
 //! the isotropic, incoherent projection of the start point (see [`FitOptions`]).
+//! Rates on their lower bound with an outward gradient form an active set that the step
+//! leaves fixed (projected Newton), trial points are assembled from natural values with
+//! rates below zero put on the bound, and convergence is the KKT test.
 
 use nalgebra::{DMatrix, DVector, SymmetricEigen};
 
@@ -421,6 +424,10 @@ fn to_natural(
 
 /// Eigen-decomposition sorted by eigenvalue, largest first.
 fn sorted_eigen(m: &DMatrix<f64>) -> (Vec<f64>, DMatrix<f64>) {
+    if m.is_empty() {
+        // Every direction held (all rates on their bounds): nothing to decompose.
+        return (Vec::new(), DMatrix::zeros(m.nrows(), 0));
+    }
     let e = SymmetricEigen::new(m.clone());
     let mut order: Vec<usize> = (0..e.eigenvalues.len()).collect();
     order.sort_by(|&a, &b| e.eigenvalues[b].total_cmp(&e.eigenvalues[a]));
