@@ -7,10 +7,13 @@
 //! the data identify, then mapped to raw coordinates, so every channel stays CPTP.
 //! Identifiability is judged from the eigen-decomposition of F in natural coordinates at
 //! the isotropic, incoherent projection of the start point (see [`FitOptions`]).
+//! Rates on their lower bound with an outward gradient form an active set that the step
+//! leaves fixed (projected Newton), trial points are assembled from natural values with
+//! rates below zero put on the bound, and convergence is the KKT test.
 
 use nalgebra::{DMatrix, DVector, SymmetricEigen};
 
-use super::channel::{KindIx, ModelSpec, Params};
+use super::channel::{Family, KindIx, KindParams, ModelSpec, Params, Readout};
 use super::predict::{predict_with, Channels, ParamRef, PreparedRow};
 use crate::layout::QubitIx;
 use crate::{Error, Result, Warning};
@@ -137,6 +140,28 @@ const RAW_LIMIT: f64 = 27.0;
 /// Probabilities are floored here only inside logarithms, so that an impossible outcome
 /// gives a huge but finite penalty instead of NaN.
 const PROB_FLOOR: f64 = 1e-300;
+
+/// A bounded raw coordinate at or below this sits on its lower bound (a rate of about
+/// 1e-11 or less) and may join the active set.
+const AT_BOUND: f64 = -RAW_LIMIT + 1.0;
+
+/// Orthonormal basis of the reduced directions (columns of `basis` combinations) that keep
+/// every coordinate in `active` fixed: the null space of those rows of `basis`.
+fn free_directions(basis: &DMatrix<f64>, active: &[usize]) -> DMatrix<f64> {
+    let rank = basis.ncols();
+    if active.is_empty() {
+        return DMatrix::identity(rank, rank);
+    }
+    let c = DMatrix::from_fn(active.len(), rank, |r, j| basis[(active[r], j)]);
+    // Projector onto the null space of c, then its eigenvectors with eigenvalue 1.
+    let pinv =
+        c.clone().pseudo_inverse(1e-12).unwrap_or_else(|_| DMatrix::zeros(rank, active.len()));
+    let proj = DMatrix::identity(rank, rank) - pinv * c;
+    let proj = (&proj + proj.transpose()) * 0.5;
+    let (vals, vecs) = sorted_eigen(&proj);
+    let keep = vals.iter().filter(|&&l| l > 0.5).count();
+    vecs.columns(0, keep).into_owned()
+}
 
 /// Fits one qubit's one-qubit kinds and readout to its one-qubit rows.
 pub fn fit_qubit(
@@ -269,6 +294,53 @@ impl Coords {
         }
     }
 
+    /// Natural values of the free coordinates, aligned with `refs`.
+    fn natural(&self, p: &Params) -> DVector<f64> {
+        let mut v = Vec::with_capacity(self.refs.len());
+        for &k in &self.kinds {
+            v.extend(p.kinds[k].natural());
+        }
+        for &q in &self.qubits {
+            v.extend(p.readout[q].errors());
+        }
+        DVector::from_vec(v)
+    }
+
+    /// `base` with the free coordinates set from natural values `v`; rates below zero are
+    /// put on their lower bound. `None` when `v` leaves a channel's range otherwise (rates
+    /// summing to 1 or more, a readout error of 0.5 or more).
+    fn with_natural(&self, base: &Params, v: &DVector<f64>) -> Option<Params> {
+        let mut p = base.clone();
+        let mut at = 0;
+        for &k in &self.kinds {
+            let kp = &base.kinds[k];
+            let m = kp.raw().len();
+            let vals: Vec<f64> = v.rows(at, m).iter().copied().collect();
+            let rates = |r: &[f64]| r.iter().map(|&x| x.max(0.0)).collect::<Vec<f64>>();
+            p.kinds[k] = match kp.family() {
+                Family::Depolarizing => KindParams::depolarizing(kp.arity(), vals[0].max(0.0)),
+                Family::Pauli => KindParams::pauli(kp.arity(), &rates(&vals)),
+                Family::PauliCoherent => {
+                    KindParams::pauli_coherent(kp.arity(), &rates(&vals[..m / 2]), &vals[m / 2..])
+                }
+            }
+            .ok()?;
+            at += m;
+        }
+        for &q in &self.qubits {
+            p.readout[q] = Readout::new(v[at].max(0.0), v[at + 1].max(0.0)).ok()?;
+            at += 2;
+        }
+        let mut x = self.get(&p);
+        for (xi, &b) in x.iter_mut().zip(&self.bounded) {
+            if b {
+                *xi = xi.clamp(-RAW_LIMIT, RAW_LIMIT);
+            }
+        }
+        self.set(&mut p, &x);
+        Some(p)
+    }
+
     /// d natural / d raw: block diagonal over kinds and readout coordinates.
     fn natural_jacobian(&self, p: &Params) -> DMatrix<f64> {
         let n = self.refs.len();
@@ -352,6 +424,10 @@ fn to_natural(
 
 /// Eigen-decomposition sorted by eigenvalue, largest first.
 fn sorted_eigen(m: &DMatrix<f64>) -> (Vec<f64>, DMatrix<f64>) {
+    if m.is_empty() {
+        // Every direction held (all rates on their bounds): nothing to decompose.
+        return (Vec::new(), DMatrix::zeros(m.nrows(), 0));
+    }
     let e = SymmetricEigen::new(m.clone());
     let mut order: Vec<usize> = (0..e.eigenvalues.len()).collect();
     order.sort_by(|&a, &b| e.eigenvalues[b].total_cmp(&e.eigenvalues[a]));
@@ -411,7 +487,7 @@ pub fn fit(
     let mut last_info: Option<DMatrix<f64>> = None;
     while !converged && iterations < options.max_iterations {
         let s = coords.natural_jacobian(&params);
-        let Some((f, g, t)) = to_natural(&cur.fisher, &cur.grad, &s) else {
+        let Some((f, g, _)) = to_natural(&cur.fisher, &cur.grad, &s) else {
             warnings.push(Warning::new(
                 "fit-boundary",
                 "a channel parameter reached its boundary",
@@ -419,39 +495,50 @@ pub fn fit(
             ));
             break;
         };
-        let a = basis.transpose() * &f * &basis;
-        let b = basis.transpose() * &g;
+        // Active set: rates held at their lower bound whose gradient points outward. The
+        // step is a Newton step on the other directions (projected Newton, D. P. Bertsekas,
+        // "Projected Newton methods for optimization problems with simple constraints",
+        // SIAM J. Control Optim. 20 (1982) 221-246), and convergence is the KKT test:
+        // outward gradient on the active rates, small Newton decrement elsewhere.
+        let active: Vec<usize> =
+            (0..n).filter(|&i| coords.bounded[i] && x[i] <= AT_BOUND && g[i] <= 0.0).collect();
+        let z = free_directions(&basis, &active);
+        let a = z.transpose() * basis.transpose() * &f * &basis * &z;
+        let b = z.transpose() * basis.transpose() * &g;
         let (av, avec) = sorted_eigen(&a);
         let amax = av.first().copied().unwrap_or(0.0).max(f64::MIN_POSITIVE);
         let decrement: f64 = (0..av.len())
             .filter(|&i| av[i] > 1e-14 * amax)
             .map(|i| avec.column(i).dot(&b).powi(2) / av[i])
             .sum();
-        last_info = Some(a.clone());
+        last_info = Some(basis.transpose() * &f * &basis);
         if 0.5 * decrement < options.tolerance {
             converged = true;
             break;
         }
+        let natural = coords.natural(&params);
         let mut accepted = false;
         while iterations < options.max_iterations {
             iterations += 1;
             let mut damped = a.clone();
-            for i in 0..rank {
+            for i in 0..a.nrows() {
                 damped[(i, i)] += mu * a[(i, i)].max(1e-12 * amax);
             }
             let Some(step_red) = damped.cholesky().map(|c| c.solve(&b)) else {
                 mu *= 10.0;
                 continue;
             };
-            let step = &t * (&basis * step_red);
-            let mut trial_x = &x + &step;
-            for (v, &b) in trial_x.iter_mut().zip(&coords.bounded) {
-                if b {
-                    *v = v.clamp(-RAW_LIMIT, RAW_LIMIT);
+            // The trial point is built in natural coordinates: a linearised raw step
+            // near a bound would change a rate only by a constant factor per step.
+            let step_nat = &basis * (&z * step_red);
+            let Some(trial) = coords.with_natural(&params, &(&natural + step_nat)) else {
+                mu *= 10.0;
+                if mu > 1e12 {
+                    break;
                 }
-            }
-            let mut trial = params.clone();
-            coords.set(&mut trial, &trial_x);
+                continue;
+            };
+            let trial_x = coords.get(&trial);
             let probe_eval = evaluate(rows, &trial, &coords, false);
             if probe_eval.ll.is_finite() && probe_eval.ll >= cur.ll {
                 let gain = probe_eval.ll - cur.ll;
@@ -479,7 +566,7 @@ pub fn fit(
         warnings.push(Warning::new(
             "fit-not-converged",
             format!("the model fit stopped after {iterations} steps without converging"),
-            "check the rows for data the model cannot describe, or try a different --model",
+            "the fitted values may not be the best the rows allow; try --model depolarizing (fewer parameters) or add circuits that separate the error parameters",
         ));
     }
 
