@@ -27,12 +27,12 @@
 //! primary    = number | "pi" | "π" | "tau" | "τ" | "(" expr ")" ;
 //! ```
 //! Comments `//` and `/* */`, `#pragma` lines and annotation lines (`@name ...`) are skipped;
-//! `OPENQASM 2` programs are refused with how to convert them. Layers: with any `barrier` in the program, the
-//! operations between two barriers form one layer (a partial `barrier q...;` separates
-//! layers just the same; empty layers are dropped); with no barrier at all, operations are
-//! layered as soon as possible. All measurements come after the last gate; the measured
-//! list is ordered by bit (registers in declaration order, then index), and every
-//! declared bit must be measured exactly once. Explicit `id` operations are kept: they
+//! `OPENQASM 2` programs are refused with how to convert them. Layers: the operations
+//! between two barriers (the whole program when it has none) form one segment, laid out
+//! by `segment_layers` (a partial `barrier q...;` separates segments just the same).
+//! All measurements come after the last gate; the measured list is ordered by bit
+//! (registers in declaration order, then index), and every declared bit must be
+//! measured exactly once. Explicit `id` operations are kept: they
 //! are idles, which the analysis treats exactly like implicit ones, so an export-import
 //! round trip gives the same circuit up to `id` operations on measured qubits.
 
@@ -374,13 +374,12 @@ struct Parser<'a> {
     bregs: HashMap<String, (usize, usize)>,
     breg_order: Vec<(String, usize)>,
     items: Vec<Item>,
-    saw_barrier: bool,
     measures: Vec<((usize, usize), QubitIx, usize)>,
     n_statements: usize,
 }
 
 enum Item {
-    Op(Op, usize),
+    Op(Op),
     Barrier,
 }
 
@@ -560,7 +559,6 @@ impl<'a> Parser<'a> {
                     }
                 }
                 self.expect_punct(";", "after the barrier")?;
-                self.saw_barrier = true;
                 self.items.push(Item::Barrier);
                 Ok(())
             }
@@ -675,7 +673,7 @@ impl<'a> Parser<'a> {
             2 => Op::two(gate, qs[0], qs[1]),
             _ => Op::rot(gate, qs[0], angle.unwrap_or(0.0)),
         };
-        self.items.push(Item::Op(op, line));
+        self.items.push(Item::Op(op));
         Ok(())
     }
 
@@ -853,7 +851,7 @@ impl<'a> Parser<'a> {
     }
 
     fn finish(self) -> Result<Circuit> {
-        let layers = if self.saw_barrier { self.barrier_layers()? } else { self.asap_layers() };
+        let layers = self.barrier_layers();
         let mut measures = self.measures.clone();
         measures.sort_by_key(|&(bit, _, line)| (bit, line));
         for w in measures.windows(2) {
@@ -891,61 +889,106 @@ impl<'a> Parser<'a> {
         })
     }
 
-    fn barrier_layers(&self) -> Result<Vec<Layer>> {
-        let mut layers = Vec::new();
-        let mut current: Vec<(Op, usize)> = Vec::new();
-        let mut close = |current: &mut Vec<(Op, usize)>| -> Result<()> {
-            let mut used: HashMap<QubitIx, usize> = HashMap::new();
-            for (op, line) in current.iter() {
-                for &q in op.qubits() {
-                    if let Some(prev) = used.insert(q, *line) {
-                        return Err(self.err(
-                            *line,
-                            format!(
-                                "qubit {} is acted on twice in one layer (lines {prev} and {line}); separate layers with 'barrier;'",
-                                self.layout.id(q)
-                            ),
-                        ));
+    /// The layers: each stretch between barriers (the whole program when it has none)
+    /// laid out by [`segment_layers`].
+    fn barrier_layers(&self) -> Vec<Layer> {
+        self.items
+            .split(|item| matches!(item, Item::Barrier))
+            .flat_map(|seg| {
+                let ops: Vec<Op> = seg
+                    .iter()
+                    .filter_map(|item| match item {
+                        Item::Op(op) => Some(*op),
+                        Item::Barrier => None,
+                    })
+                    .collect();
+                segment_layers(&ops, self.layout)
+            })
+            .collect()
+    }
+}
+
+/// True when an operation is a frame change for segment layering: `rz`, or a one-qubit
+/// gate the layout lists as virtual.
+fn is_frame_change(op: &Op, layout: &Layout) -> bool {
+    op.gate.arity() == 1 && (op.gate == Gate::Rz || layout.is_virtual(op.gate))
+}
+
+/// Lays out the operations between two barriers (in program order). Timed operations go
+/// as soon as possible into consecutive timed layers (a qubit's k-th timed gate in the
+/// segment lands in layer k or later). Frame changes take no time: each goes just before
+/// the next timed layer of its qubit (or after the last one), into that timed layer when
+/// its qubit is free there, else into the timed layer before it when free, else into a
+/// layer of frame changes only; consecutive `rz` on one qubit are summed. Program order on
+/// every qubit is kept.
+fn segment_layers(ops: &[Op], layout: &Layout) -> Vec<Layer> {
+    // Operations carry their program position so each layer lists them in program order.
+    type Placed = Vec<(usize, Op)>;
+    // timed[k]: timed layer k; frames[k]: frame layers before timed layer k
+    // (frames[timed.len()] after the last one).
+    let mut timed: Vec<Placed> = Vec::new();
+    let mut frames: Vec<Vec<Placed>> = vec![Vec::new()];
+    let mut next: HashMap<QubitIx, usize> = HashMap::new();
+    for (i, op) in ops.iter().enumerate() {
+        if is_frame_change(op, layout) {
+            let q = op.operands[0];
+            let slot = &mut frames[next.get(&q).copied().unwrap_or(0)];
+            let last_on_q =
+                slot.iter_mut().rev().find_map(|l| l.iter_mut().find(|(_, o)| o.operands[0] == q));
+            match last_on_q {
+                Some((_, prev)) if prev.gate == Gate::Rz && op.gate == Gate::Rz => {
+                    prev.angle += op.angle;
+                }
+                Some(_) => slot.push(vec![(i, *op)]),
+                None => match slot.first_mut() {
+                    Some(l) => l.push((i, *op)),
+                    None => slot.push(vec![(i, *op)]),
+                },
+            }
+            continue;
+        }
+        let k = op.qubits().iter().map(|q| next.get(q).copied().unwrap_or(0)).max().unwrap_or(0);
+        while timed.len() <= k {
+            timed.push(Vec::new());
+            frames.push(Vec::new());
+        }
+        timed[k].push((i, *op));
+        for &q in op.qubits() {
+            next.insert(q, k + 1);
+        }
+    }
+    // A frame layer joins a neighbouring timed layer (the one it precedes first, else the
+    // one it follows) when they share no qubit, which keeps every qubit's order.
+    let disjoint = |a: &Placed, b: &Placed| {
+        let qa: Vec<QubitIx> = a.iter().flat_map(|(_, o)| o.qubits().to_vec()).collect();
+        b.iter().all(|(_, o)| o.qubits().iter().all(|q| !qa.contains(q)))
+    };
+    let mut out: Vec<Placed> = Vec::new();
+    let mut timed = timed.into_iter();
+    for (k, mut slot) in frames.into_iter().enumerate() {
+        let mut here = timed.next();
+        if slot.len() == 1 {
+            let after_prev = k > 0 && out.last().is_some_and(|l| disjoint(l, &slot[0]));
+            match here.as_mut() {
+                Some(t) if disjoint(t, &slot[0]) => t.append(&mut slot[0]),
+                _ if after_prev => {
+                    if let Some(last) = out.last_mut() {
+                        last.append(&mut slot[0]);
                     }
                 }
-            }
-            if !current.is_empty() {
-                layers.push(current.drain(..).map(|(op, _)| op).collect());
-            }
-            Ok(())
-        };
-        for item in &self.items {
-            match item {
-                Item::Op(op, line) => current.push((*op, *line)),
-                Item::Barrier => close(&mut current)?,
+                _ => {}
             }
         }
-        close(&mut current)?;
-        Ok(layers)
+        out.extend(slot);
+        out.extend(here);
     }
-
-    fn asap_layers(&self) -> Vec<Layer> {
-        let mut layers: Vec<Layer> = Vec::new();
-        let mut next: HashMap<QubitIx, usize> = HashMap::new();
-        for item in &self.items {
-            if let Item::Op(op, _) = item {
-                let t = op
-                    .qubits()
-                    .iter()
-                    .map(|q| next.get(q).copied().unwrap_or(0))
-                    .max()
-                    .unwrap_or(0);
-                if t == layers.len() {
-                    layers.push(Vec::new());
-                }
-                layers[t].push(*op);
-                for &q in op.qubits() {
-                    next.insert(q, t + 1);
-                }
-            }
-        }
-        layers
-    }
+    out.into_iter()
+        .filter(|l| !l.is_empty())
+        .map(|mut l| {
+            l.sort_by_key(|&(i, _)| i);
+            l.into_iter().map(|(_, op)| op).collect()
+        })
+        .collect()
 }
 
 /// Imports one OpenQASM 3 program (the subset in the module doc) as circuit `id`.
@@ -972,7 +1015,6 @@ pub fn import(
         bregs: HashMap::new(),
         breg_order: Vec::new(),
         items: Vec::new(),
-        saw_barrier: false,
         measures: Vec::new(),
         n_statements: 0,
     };
@@ -1043,6 +1085,33 @@ mod tests {
     }
 
     #[test]
+    fn segment_gates_on_one_qubit_become_consecutive_layers_with_frames_between() {
+        // rz before, between and after timed gates; two rz in a row are summed.
+        let c = imp("bit[2] c;\nbarrier;\nrz(0.1) $0;\nrz(0.2) $0;\nsx $0;\nrz(0.3) $0;\nsx $0;\nx $1;\ncz $0, $1;\nrz(0.4) $1;\nbarrier;\nc[0] = measure $0;\nc[1] = measure $1;\n").unwrap();
+        let layout = grid(2, 3);
+        let shown: Vec<Vec<(Gate, Vec<usize>)>> = c
+            .layers
+            .iter()
+            .map(|l| l.iter().map(|o| (o.gate, o.qubits().to_vec())).collect())
+            .collect();
+        assert_eq!(
+            shown,
+            vec![
+                vec![(Gate::Rz, vec![0])],
+                vec![(Gate::Sx, vec![0]), (Gate::X, vec![1])],
+                vec![(Gate::Rz, vec![0])],
+                vec![(Gate::Sx, vec![0])],
+                vec![(Gate::Cz, vec![0, 1])],
+                vec![(Gate::Rz, vec![1])],
+            ]
+        );
+        assert!((c.layers[0][0].angle - 0.3).abs() < 1e-15, "rz(0.1) rz(0.2) compose");
+        let timed: Vec<bool> = (0..c.layers.len()).map(|t| c.is_timed(&layout, t)).collect();
+        assert_eq!(timed, vec![false, true, false, true, true, false]);
+        super::super::validate::validate_circuit(&c, &layout, true).unwrap();
+    }
+
+    #[test]
     fn both_measurement_syntaxes_order_by_bit() {
         let c = imp("bit[3] c;\nc[2] = measure $0;\nmeasure $4 -> c[0];\nc[1] = measure $5;\n")
             .unwrap();
@@ -1097,7 +1166,6 @@ mod tests {
             ("bit[2] c;\nc[0] = measure $0;\nc[0] = measure $1;\n", "line 3", "measured twice"),
             ("bit[2] c;\nc[0] = measure $0;\nc[1] = measure $0;\n", "line 3", "measured twice"),
             ("bit c;\nc = measure $0;\nx $0;\n", "line 3", "after a measurement"),
-            ("bit c;\nx $0;\nsx $0;\nbarrier;\n", "line 3", "twice in one layer"),
             ("bit c;\nc[3] = measure $0;\n", "line 2", "out of range"),
             ("bit c;\n/* never closed\n", "line 2", "never closed"),
             ("bit c; x $0; # no\n", "line 1", "unexpected character"),
