@@ -19,6 +19,7 @@ use crate::error::{Error, Result};
 use crate::layout::{Layout, QubitIx};
 use crate::report::{AuditReport, Verdict};
 use crate::simulate::{self, ContextTerm, ErrorSpec, Noise, Role, Rotation, SimConfig};
+use crate::stats::median;
 
 /// Version of the `plan.json` format written by this build (3: an untested sensitivity is the
 /// word "unbounded", no longer null).
@@ -480,19 +481,6 @@ impl Progress for Prefixed<'_> {
     }
 }
 
-fn median(mut v: Vec<f64>) -> f64 {
-    if v.is_empty() {
-        return 0.0;
-    }
-    v.sort_by(f64::total_cmp);
-    let n = v.len();
-    if n % 2 == 1 {
-        v[n / 2]
-    } else {
-        (v[n / 2 - 1] + v[n / 2]) / 2.0
-    }
-}
-
 /// The median and the worst directed pair by baseline sensitivity, among pairs the design
 /// tests and whose edge the baseline did not flag. Ties are broken by layout order
 /// (victim, then aggressor).
@@ -741,13 +729,15 @@ fn plan_shots(
         shots,
         edge_sensitivity_median_tvd_per_layer: median(
             edges.iter().filter_map(|e| finite(e.sensitivity_tvd_per_layer)).collect(),
-        ),
+        )
+        .unwrap_or(0.0),
         edge_sensitivity_worst_tvd_per_layer: worst.map_or(0.0, |w| w.0),
         worst_edge: worst.map_or(String::new(), |w| format!("{}-{}", w.1.a, w.1.b)),
         untested_edges: edges.iter().filter(|e| !e.sensitivity_tvd_per_layer.is_finite()).count(),
         edge_limit_median_tvd_per_layer: median(
             edges.iter().map(|e| e.detection_limit_tvd_per_layer).collect(),
-        ),
+        )
+        .unwrap_or(0.0),
         edge_limit_worst_tvd_per_layer: edges
             .iter()
             .map(|e| e.detection_limit_tvd_per_layer)

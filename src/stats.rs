@@ -91,6 +91,17 @@ impl RowThresholds {
     }
 }
 
+/// The median of `values` (the mean of the two middle values for an even count), or `None`
+/// when there are none.
+pub fn median(mut values: Vec<f64>) -> Option<f64> {
+    if values.is_empty() {
+        return None;
+    }
+    values.sort_by(f64::total_cmp);
+    let n = values.len();
+    Some(if n % 2 == 1 { values[n / 2] } else { (values[n / 2 - 1] + values[n / 2]) / 2.0 })
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;

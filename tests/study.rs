@@ -33,6 +33,7 @@ use slackmap::layout::{generate, Layout};
 use slackmap::model::Family;
 use slackmap::report::{AuditReport, EdgeReport, ReasonCode, Verdict};
 use slackmap::simulate::{self, Noise, SimConfig};
+use slackmap::stats::median;
 
 /// Action threshold of every audit, TVD per layer (the default).
 const ACTION_THRESHOLD: f64 = 1e-3;
@@ -428,19 +429,6 @@ fn detection_level(kind: ErrorKind, s: &Settings, layout: &Layout, circuits: &Ci
     panic!("{}: nothing on the ladder is detected on half the edges", kind.name());
 }
 
-fn median(mut v: Vec<f64>) -> f64 {
-    if v.is_empty() {
-        return f64::NAN;
-    }
-    v.sort_by(f64::total_cmp);
-    let n = v.len();
-    if n % 2 == 1 {
-        v[n / 2]
-    } else {
-        (v[n / 2 - 1] + v[n / 2]) / 2.0
-    }
-}
-
 /// One kind's figures: (kind, edges, covered, median width, median ratio estimate / 100x,
 /// recall at 3x the detection level as (flagged, edges)).
 type KindFigures = (ErrorKind, usize, usize, f64, f64, (usize, usize));
@@ -466,10 +454,11 @@ fn figures(records: &[Record]) -> Figures {
     for kind in KINDS {
         let rs: Vec<&Record> = records.iter().filter(|r| r.kind == kind).collect();
         let covered = rs.iter().filter(|r| r.low <= r.reference && r.reference <= r.high).count();
-        let width = median(rs.iter().map(|r| r.high - r.low).collect());
+        let width = median(rs.iter().map(|r| r.high - r.low).collect()).unwrap_or(f64::NAN);
         let ratio = median(
             rs.iter().filter(|r| r.reference > 0.0).map(|r| r.estimate / r.reference).collect(),
-        );
+        )
+        .unwrap_or(f64::NAN);
         let at3: Vec<&&Record> = rs.iter().filter(|r| r.multiple == 3.0).collect();
         let recall = (at3.iter().filter(|r| flagged(r.verdict)).count(), at3.len());
         f.per_kind.push((kind, rs.len(), covered, width, ratio, recall));
