@@ -408,20 +408,15 @@ fn solve_rows(
     progress: &dyn Progress,
 ) -> Result<Solved> {
     progress.stage("solving qubit budgets", a.qubit_rows.len() as u64);
-    let qubit: Vec<(Problem, TwoStageSolution)> = a
-        .qubit_rows
-        .par_iter()
-        .enumerate()
-        .map(|(q, list)| {
-            let p = match templates {
-                Some(t) => t.qubit[q].with_requirements(requirement, &|_| None),
-                None => Problem::build(all, list.clone(), requirement, &|_| None),
-            };
-            let s = p.lp.solve();
-            progress.advance(1);
-            s.map(|s| (p, s))
-        })
-        .collect::<Result<_>>()?;
+    let none = |_: Budget| None;
+    let qubit = solve_each(
+        &a.qubit_rows,
+        templates.map(|t| &t.qubit[..]),
+        all,
+        requirement,
+        &none,
+        progress,
+    )?;
     let kinds = &a.rows.kinds;
     let owner = |b: Budget| -> Option<QubitIx> {
         match b {
@@ -438,21 +433,41 @@ fn solve_rows(
         p.index.get(&b).map(|&v| s.values[v])
     };
     progress.stage("solving coupler budgets", a.coupler_rows.len() as u64);
-    let coupler: Vec<(Problem, TwoStageSolution)> = a
-        .coupler_rows
+    let coupler = solve_each(
+        &a.coupler_rows,
+        templates.map(|t| &t.coupler[..]),
+        all,
+        requirement,
+        &fixed,
+        progress,
+    )?;
+    Ok(Solved { qubit, coupler })
+}
+
+/// One covering problem per row list, solved in parallel: from its template when there is one
+/// (a replicate changes only the requirements), else built afresh. `fixed` gives the budgets
+/// already solved in an earlier stage.
+fn solve_each(
+    lists: &[Vec<usize>],
+    templates: Option<&[Problem]>,
+    all: &[rows::Row],
+    requirement: &[f64],
+    fixed: &(dyn Fn(Budget) -> Option<f64> + Sync),
+    progress: &dyn Progress,
+) -> Result<Vec<(Problem, TwoStageSolution)>> {
+    lists
         .par_iter()
         .enumerate()
-        .map(|(c, list)| {
+        .map(|(i, list)| {
             let p = match templates {
-                Some(t) => t.coupler[c].with_requirements(requirement, &fixed),
-                None => Problem::build(all, list.clone(), requirement, &fixed),
+                Some(t) => t[i].with_requirements(requirement, fixed),
+                None => Problem::build(all, list.clone(), requirement, fixed),
             };
             let s = p.lp.solve();
             progress.advance(1);
             s.map(|s| (p, s))
         })
-        .collect::<Result<_>>()?;
-    Ok(Solved { qubit, coupler })
+        .collect()
 }
 
 /// Row slack of every analysis row under the solved budgets (0 for rows without counts).
