@@ -898,7 +898,8 @@ pub trait Render {
 }
 
 /// Every file an audit writes, in order (`rows.csv` only when the report carries rows: an
-/// audit and a merge do, a re-render from `audit.json` does not).
+/// audit and a merge do, a re-render from `audit.json` does not; `gate_pairs.csv` only when
+/// the audit measured gate pairs).
 pub fn audit_files(report: &AuditReport) -> Vec<(String, Vec<u8>)> {
     let renderers: [&dyn Render; 8] = [
         &json::AuditJson,
@@ -914,6 +915,10 @@ pub fn audit_files(report: &AuditReport) -> Vec<(String, Vec<u8>)> {
         renderers.iter().map(|r| (r.file_name().to_string(), r.render(report))).collect();
     if !report.rows.is_empty() {
         files.push((csv::RowsCsv.file_name().to_string(), csv::RowsCsv.render(report)));
+    }
+    if !report.gates.is_empty() {
+        let g = csv::GatePairsCsv;
+        files.push((g.file_name().to_string(), g.render(report)));
     }
     files
 }
