@@ -11,11 +11,11 @@
 //! The view is solved beside the victim's problem, never instead of it: every figure of the
 //! point pass stays what it was, and the gate view adds the gate directions.
 //!
-//! A direction is listed when some row measured it apart from other neighbours (the
-//! aggressor, or the aggressor gate's qubits, the only active neighbours): the gate-pair and
-//! gate-qubit circuits of `design --gate-pairs`, and, in the standard design, a coupler at the
-//! end of a chain beside the next gate of its class. Other gate contexts (all-active circuits,
-//! 4-8 gates at once) cannot be told apart and are not listed.
+//! A pair of units is listed when rows measured both its directions apart from other
+//! neighbours (the aggressor, or the aggressor gate's qubits, the only active neighbours): the
+//! gate-pair and gate-qubit circuits of `design --gate-pairs` do. Other gate contexts
+//! (all-active circuits, 4-8 gates at once) cannot be told apart and are not listed, so a
+//! standard design lists none.
 
 use std::collections::{BTreeMap, BTreeSet, HashMap};
 
