@@ -606,7 +606,7 @@ pub fn flagged_gate_pairs(
                 continue;
             };
             let leads = *vid == e.victim && *aid == e.aggressor;
-            if (leads && score > 0.0) || (score > 0.0 && score > limit) {
+            if score > 0.0 && (leads || score > limit) {
                 out.push(FlaggedGatePair {
                     victim: unit_operation(layout, vid, path)?,
                     aggressor: unit_operation(layout, aid, path)?,

@@ -34,6 +34,9 @@ impl Budget {
     }
 }
 
+/// The coefficient terms of a row given its global index.
+pub type RowTerms<'a> = dyn Fn(usize, &Row) -> Vec<(Budget, f64)> + 'a;
+
 /// One covering problem with its variables named.
 #[derive(Clone, Debug)]
 pub struct Problem {
@@ -98,7 +101,7 @@ impl Problem {
         rows: Vec<usize>,
         requirement: &[f64],
         fixed: &dyn Fn(Budget) -> Option<f64>,
-        terms: &dyn Fn(usize, &Row) -> Vec<(Budget, f64)>,
+        terms: &RowTerms,
     ) -> Problem {
         let mut vars = Vec::new();
         let mut index = HashMap::new();
