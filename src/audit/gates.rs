@@ -14,8 +14,9 @@
 //! A pair of units is listed when rows measured both its directions apart from other
 //! neighbours (the aggressor, or the aggressor gate's qubits, the only active neighbours): the
 //! gate-pair and gate-qubit circuits of `design --gate-pairs` do. Other gate contexts
-//! (all-active circuits, 4-8 gates at once) cannot be told apart and are not listed, so a
-//! standard design lists none.
+//! (all-active circuits, 4-8 gates at once) cannot be told apart and are not listed; a
+//! standard design lists a pair only where an all-active circuit happens to run two gates
+//! apart from every other neighbour (the two end couplers of a 4-qubit chain).
 
 use std::collections::{BTreeMap, BTreeSet, HashMap};
 

@@ -277,7 +277,7 @@ pub fn fill(
     }
     // Replicates hold the qubit directions, then the gate directions.
     let nq = report.directed.len();
-    let (nd, ni) = (nq + report.gates.directed.len(), report.intrinsic.len());
+    let (nd, ni) = (report.scored_directions(), report.intrinsic.len());
     for (i, r) in reps.iter().enumerate() {
         if r.index != i
             || r.directed_tvd_per_layer.len() != nd

@@ -737,6 +737,12 @@ pub struct IntrinsicReport {
 }
 
 impl AuditReport {
+    /// The number of directed scores a bootstrap replicate holds: the qubit directions
+    /// (`directed`), then the gate directions (`gates.directed`).
+    pub fn scored_directions(&self) -> usize {
+        self.directed.len() + self.gates.directed.len()
+    }
+
     /// The intrinsic kinds in layout order: by the layout index of their qubits (so `q2`
     /// comes before `q10`), one-qubit kinds before two-qubit kinds on the same first qubit,
     /// then by label.
