@@ -33,20 +33,8 @@ pub(crate) fn revisit_verdicts(report: &mut AuditReport, pairs: &[(usize, usize)
     let threshold = report.parameters.action_threshold_tvd_per_layer;
     let nulls = report.parameters.null_replicates;
     for (e, &(ab, ba)) in report.edges.iter_mut().zip(pairs) {
-        let mut lead: Option<(Verdict, ReasonCode, String)> = None;
-        for j in [ab, ba] {
-            let d = &report.directed[j];
-            let detected = nulls > 0 && is_detected(d);
-            if !detected {
-                continue;
-            }
-            let low = d.confidence.as_ref().map_or(0.0, |c| c.low_tvd_per_layer);
-            let (v, code, why) = detected_verdict(d.p_value, low, threshold);
-            if lead.as_ref().is_none_or(|l| v < l.0) {
-                lead = Some((v, code, format!("{}<-{}: {}", d.victim, d.aggressor, why)));
-            }
-        }
-        if let Some((v, code, why)) = lead {
+        let both = [&report.directed[ab], &report.directed[ba]];
+        if let Some((v, code, why)) = detected_lead(both.into_iter(), threshold, nulls) {
             e.verdict = v;
             e.reason_code = code;
             e.reason = why;
@@ -56,24 +44,61 @@ pub(crate) fn revisit_verdicts(report: &mut AuditReport, pairs: &[(usize, usize)
     revisit_gate_verdicts(report);
 }
 
-/// Detected edges first, by score, then the rest; ranks for positive scores only.
-pub(crate) fn order_edges(edges: &mut [EdgeReport]) {
-    edges.sort_by(|p, q| {
-        let key = |e: &EdgeReport| e.verdict <= Verdict::Watch;
-        key(q)
-            .cmp(&key(p))
-            .then(q.score_tvd_per_layer.total_cmp(&p.score_tvd_per_layer))
-            .then(p.a.cmp(&q.a))
-            .then(p.b.cmp(&q.b))
-    });
-    let mut k = 0;
-    for e in edges.iter_mut() {
-        e.rank = None;
-        if e.score_tvd_per_layer > 0.0 {
-            k += 1;
-            e.rank = Some(k);
+/// The verdict of the strongest detected direction among `directions` once intervals are
+/// in, naming it, or None when none is detected (the point verdict then stands).
+fn detected_lead<'d>(
+    directions: impl Iterator<Item = &'d DirectedReport>,
+    threshold: f64,
+    nulls: usize,
+) -> Option<(Verdict, ReasonCode, String)> {
+    let mut lead: Option<(Verdict, ReasonCode, String)> = None;
+    for d in directions {
+        if !(nulls > 0 && is_detected(d)) {
+            continue;
+        }
+        let low = d.confidence.as_ref().map_or(0.0, |c| c.low_tvd_per_layer);
+        let (v, code, why) = detected_verdict(d.p_value, low, threshold);
+        if lead.as_ref().is_none_or(|l| v < l.0) {
+            lead = Some((v, code, format!("{}<-{}: {}", d.victim, d.aggressor, why)));
         }
     }
+    lead
+}
+
+/// Detected entries first, by score, then the rest (ties by the two names); ranks for
+/// positive scores only. `key` gives (verdict, score, a, b), `rank` sets the rank.
+fn order_ranked<T>(
+    items: &mut [T],
+    key: impl Fn(&T) -> (Verdict, f64, &str, &str),
+    rank: impl Fn(&mut T, Option<usize>),
+) {
+    items.sort_by(|p, q| {
+        let (kp, kq) = (key(p), key(q));
+        let detected = |k: &(Verdict, f64, &str, &str)| k.0 <= Verdict::Watch;
+        detected(&kq)
+            .cmp(&detected(&kp))
+            .then(kq.1.total_cmp(&kp.1))
+            .then(kp.2.cmp(kq.2))
+            .then(kp.3.cmp(kq.3))
+    });
+    let mut k = 0;
+    for e in items.iter_mut() {
+        let positive = key(e).1 > 0.0;
+        rank(e, None);
+        if positive {
+            k += 1;
+            rank(e, Some(k));
+        }
+    }
+}
+
+/// Detected edges first, by score, then the rest; ranks for positive scores only.
+pub(crate) fn order_edges(edges: &mut [EdgeReport]) {
+    order_ranked(
+        edges,
+        |e| (e.verdict, e.score_tvd_per_layer, e.a.as_str(), e.b.as_str()),
+        |e, r| e.rank = r,
+    );
 }
 
 /// The point-estimate report; `parametric[i]` is directed pair i's parametric-null
@@ -545,22 +570,11 @@ fn gate_report(
 
 /// Detected gate pairs first, by score, then the rest; ranks for positive scores only.
 pub(crate) fn order_gate_pairs(pairs: &mut [GatePairReport]) {
-    pairs.sort_by(|p, q| {
-        let key = |e: &GatePairReport| e.verdict <= Verdict::Watch;
-        key(q)
-            .cmp(&key(p))
-            .then(q.score_tvd_per_layer.total_cmp(&p.score_tvd_per_layer))
-            .then(p.a.cmp(&q.a))
-            .then(p.b.cmp(&q.b))
-    });
-    let mut k = 0;
-    for e in pairs.iter_mut() {
-        e.rank = None;
-        if e.score_tvd_per_layer > 0.0 {
-            k += 1;
-            e.rank = Some(k);
-        }
-    }
+    order_ranked(
+        pairs,
+        |e| (e.verdict, e.score_tvd_per_layer, e.a.as_str(), e.b.as_str()),
+        |e, r| e.rank = r,
+    );
 }
 
 /// [`revisit_verdicts`] for the gate pairs: a detected direction's verdict then rests on its
@@ -576,20 +590,9 @@ fn revisit_gate_verdicts(report: &mut AuditReport) {
         .map(|(j, d)| ((d.victim.as_str(), d.aggressor.as_str()), j))
         .collect();
     for e in gates.pairs.iter_mut() {
-        let mut lead: Option<(Verdict, ReasonCode, String)> = None;
-        for key in [(e.a.as_str(), e.b.as_str()), (e.b.as_str(), e.a.as_str())] {
-            let Some(&j) = index.get(&key) else { continue };
-            let d = &gates.directed[j];
-            if !(nulls > 0 && is_detected(d)) {
-                continue;
-            }
-            let low = d.confidence.as_ref().map_or(0.0, |c| c.low_tvd_per_layer);
-            let (v, code, why) = detected_verdict(d.p_value, low, threshold);
-            if lead.as_ref().is_none_or(|l| v < l.0) {
-                lead = Some((v, code, format!("{}<-{}: {}", d.victim, d.aggressor, why)));
-            }
-        }
-        if let Some((v, code, why)) = lead {
+        let both = [(e.a.as_str(), e.b.as_str()), (e.b.as_str(), e.a.as_str())];
+        let directions = both.iter().filter_map(|k| index.get(k)).map(|&j| &gates.directed[j]);
+        if let Some((v, code, why)) = detected_lead(directions, threshold, nulls) {
             e.verdict = v;
             e.reason_code = code;
             e.reason = why;
