@@ -545,6 +545,80 @@ pub fn flagged_pairs(
     Ok(out)
 }
 
+/// A flagged gate direction: `aggressor` (a coupler's gate or a driven qubit) disturbs
+/// `victim` (a coupler's gate or a qubit) when both run in one layer.
+#[derive(Clone, Debug, PartialEq)]
+pub struct FlaggedGatePair {
+    /// The disturbed operation.
+    pub victim: Operation,
+    /// The operation that disturbs it.
+    pub aggressor: Operation,
+    /// The gate pair's verdict.
+    pub verdict: Verdict,
+    /// The directed score, TVD per layer.
+    pub score_tvd_per_layer: f64,
+}
+
+/// The operation an audit's gate unit names: a coupler `a-b` for its two-qubit gate, a qubit
+/// id for its one-qubit gates.
+fn unit_operation(layout: &Layout, unit: &str, path: &Path) -> Result<Operation> {
+    if let Some(q) = layout.qubit(unit) {
+        return Ok(Operation::OneQubit(q));
+    }
+    unit.split_once('-')
+        .and_then(|(a, b)| layout.coupler(layout.qubit(a)?, layout.qubit(b)?))
+        .map(Operation::TwoQubit)
+        .ok_or_else(|| {
+            Error::input(
+                path,
+                None,
+                format!(
+                    "gate pair names '{unit}', which is neither a qubit nor a coupler of the audit's layout"
+                ),
+            )
+        })
+}
+
+/// The flagged gate directions of an audit at a level, by the rule of [`flagged_pairs`]: a
+/// pair at or above the level flags its leading direction and any other direction whose
+/// score is positive and above its own detection limit.
+pub fn flagged_gate_pairs(
+    report: &AuditReport,
+    layout: &Layout,
+    level: FlagLevel,
+    path: &Path,
+) -> Result<Vec<FlaggedGatePair>> {
+    let directed: BTreeMap<(&str, &str), (f64, f64)> = report
+        .gates
+        .directed
+        .iter()
+        .map(|d| {
+            (
+                (d.victim.as_str(), d.aggressor.as_str()),
+                (d.score_tvd_per_layer, d.detection_limit_tvd_per_layer),
+            )
+        })
+        .collect();
+    let mut out = Vec::new();
+    for e in report.gates.pairs.iter().filter(|e| level.admits(e.verdict)) {
+        for (vid, aid) in [(&e.a, &e.b), (&e.b, &e.a)] {
+            let Some(&(score, limit)) = directed.get(&(vid.as_str(), aid.as_str())) else {
+                continue;
+            };
+            let leads = *vid == e.victim && *aid == e.aggressor;
+            if score > 0.0 && (leads || score > limit) {
+                out.push(FlaggedGatePair {
+                    victim: unit_operation(layout, vid, path)?,
+                    aggressor: unit_operation(layout, aid, path)?,
+                    verdict: e.verdict,
+                    score_tvd_per_layer: score,
+                });
+            }
+        }
+    }
+    Ok(out)
+}
+
 /// An operation a scheduler places in a layer.
 #[derive(Clone, Copy, Debug, PartialEq, Eq, PartialOrd, Ord, Hash)]
 pub enum Operation {
@@ -561,8 +635,10 @@ pub struct Conflict {
     pub a: Operation,
     /// The other operation.
     pub b: Operation,
-    /// The (victim, aggressor) pairs behind the conflict.
+    /// The (victim, aggressor) qubit pairs behind the conflict.
     pub because: Vec<(QubitIx, QubitIx)>,
+    /// The flagged gate pairs behind it, as (victim, aggressor) operations.
+    pub because_gates: Vec<(Operation, Operation)>,
 }
 
 /// The crosstalk conflict graph of a layout: every operation and the conflicts between
@@ -634,9 +710,53 @@ impl ConflictGraph {
         for ((a, b), mut because) in found {
             because.sort_unstable();
             graph.add_edge(NodeIndex::new(node(a)), NodeIndex::new(node(b)), because.clone());
-            conflicts.push(Conflict { a, b, because });
+            conflicts.push(Conflict { a, b, because, because_gates: Vec::new() });
         }
         ConflictGraph { operations, conflicts, graph }
+    }
+
+    /// Adds the conflicts of flagged gate pairs: the victim operation and the aggressor
+    /// operation themselves must not share a layer (a gate beside a gate, a gate beside a
+    /// driven qubit, a qubit beside a gate). Unlike a qubit edge, which forbids every
+    /// operation on the aggressor beside every operation on the victim, a gate pair was
+    /// measured for exactly these two operations. Pairs outside the layout are ignored.
+    pub fn add_gate_pairs(&mut self, layout: &Layout, flagged: &[(Operation, Operation)]) {
+        let n = layout.n_qubits();
+        let valid = |op: Operation| match op {
+            Operation::OneQubit(q) => q < n,
+            Operation::TwoQubit(c) => c < layout.couplers.len(),
+        };
+        let node = |op: Operation| match op {
+            Operation::OneQubit(q) => q,
+            Operation::TwoQubit(c) => n + c,
+        };
+        for &(v, r) in flagged.iter().filter(|&&(v, r)| valid(v) && valid(r)) {
+            let (qv, qr) = (qubits_of(layout, v), qubits_of(layout, r));
+            if qv.iter().any(|q| qr.contains(q)) {
+                continue;
+            }
+            let (a, b) = (v.min(r), v.max(r));
+            match self.conflicts.binary_search_by(|c| (c.a, c.b).cmp(&(a, b))) {
+                Ok(i) => {
+                    let c = &mut self.conflicts[i];
+                    if !c.because_gates.contains(&(v, r)) {
+                        c.because_gates.push((v, r));
+                        c.because_gates.sort_unstable();
+                    }
+                }
+                Err(i) => {
+                    self.graph.add_edge(
+                        NodeIndex::new(node(a)),
+                        NodeIndex::new(node(b)),
+                        Vec::new(),
+                    );
+                    self.conflicts.insert(
+                        i,
+                        Conflict { a, b, because: Vec::new(), because_gates: vec![(v, r)] },
+                    );
+                }
+            }
+        }
     }
 
     /// The coupler graph a scheduler must colour: couplers joined when they share a qubit
@@ -726,6 +846,10 @@ pub struct HintsReport {
     pub flagged_level: String,
     /// The flagged directions behind the conflicts.
     pub flagged: Vec<FlaggedEntry>,
+    /// The flagged gate directions behind the conflicts, each with the rule it sets
+    /// (absent when the audit flagged no gate pair).
+    #[serde(default, skip_serializing_if = "Vec::is_empty")]
+    pub flagged_gate_pairs: Vec<FlaggedGateEntry>,
     /// Every operation: one-qubit gates by qubit id (`q3`), two-qubit gates by coupler
     /// (`q3-q4`).
     pub operations: Vec<OperationEntry>,
@@ -757,6 +881,21 @@ pub struct FlaggedEntry {
     pub score_tvd_per_layer: f64,
 }
 
+/// One flagged gate direction.
+#[derive(Clone, Debug, Serialize, Deserialize, PartialEq, JsonSchema)]
+pub struct FlaggedGateEntry {
+    /// Victim operation id: a coupler `a-b` (its two-qubit gate) or a qubit id.
+    pub victim: String,
+    /// Aggressor operation id.
+    pub aggressor: String,
+    /// The gate pair's verdict.
+    pub verdict: Verdict,
+    /// Directed score, TVD per layer.
+    pub score_tvd_per_layer: f64,
+    /// The scheduling rule in words, e.g. `cz q5-q6 and cz q9-q10 must not share a layer`.
+    pub rule: String,
+}
+
 /// One operation.
 #[derive(Clone, Debug, Serialize, Deserialize, PartialEq, JsonSchema)]
 pub struct OperationEntry {
@@ -775,7 +914,8 @@ pub struct ConflictEntry {
     pub a: String,
     /// Second operation id.
     pub b: String,
-    /// The flagged directions behind it, as `victim<-aggressor`.
+    /// The flagged directions behind it, as `victim<-aggressor` (qubits for an edge,
+    /// operations for a gate pair).
     pub because: Vec<String>,
 }
 
@@ -797,6 +937,10 @@ pub struct Hints {
     pub layout: Layout,
     /// The flagged directions.
     pub flagged: Vec<FlaggedPair>,
+    /// The flagged gate directions.
+    pub flagged_gates: Vec<FlaggedGatePair>,
+    /// The name of the layout's two-qubit gate, as the audit wrote it (`cz`).
+    pub two_qubit_gate: String,
     /// The conflict graph.
     pub conflicts: ConflictGraph,
     /// Figures and groups with the flagged conflicts.
@@ -809,11 +953,29 @@ pub struct Hints {
 pub fn hints(report: &AuditReport, path: &Path, level: FlagLevel, budget: u64) -> Result<Hints> {
     let layout = layout_of(report, path)?;
     let flagged = flagged_pairs(report, &layout, level, path)?;
+    let flagged_gates = flagged_gate_pairs(report, &layout, level, path)?;
     let pairs: Vec<(QubitIx, QubitIx)> = flagged.iter().map(|f| (f.victim, f.aggressor)).collect();
-    let conflicts = ConflictGraph::new(&layout, &pairs);
+    let mut conflicts = ConflictGraph::new(&layout, &pairs);
+    let gate_pairs: Vec<(Operation, Operation)> =
+        flagged_gates.iter().map(|f| (f.victim, f.aggressor)).collect();
+    conflicts.add_gate_pairs(&layout, &gate_pairs);
     let with_conflicts = parallelism(&layout, &conflicts, true, budget);
     let without_conflicts = parallelism(&layout, &conflicts, false, budget);
-    Ok(Hints { layout, flagged, conflicts, with_conflicts, without_conflicts })
+    let two_qubit_gate = report
+        .gates
+        .pairs
+        .iter()
+        .find_map(|e| e.a_gate.clone())
+        .unwrap_or_else(|| layout.gates.two_qubit.to_string());
+    Ok(Hints {
+        layout,
+        flagged,
+        flagged_gates,
+        two_qubit_gate,
+        conflicts,
+        with_conflicts,
+        without_conflicts,
+    })
 }
 
 fn op_id(layout: &Layout, op: Operation) -> String {
@@ -824,6 +986,27 @@ fn op_id(layout: &Layout, op: Operation) -> String {
             format!("{}-{}", layout.id(a), layout.id(b))
         }
     }
+}
+
+/// An operation in a rule: `cz q5-q6` for a coupler's gate, `q7` for a qubit.
+fn op_words(layout: &Layout, gate: &str, op: Operation) -> String {
+    match op {
+        Operation::OneQubit(_) => op_id(layout, op),
+        Operation::TwoQubit(_) => format!("{gate} {}", op_id(layout, op)),
+    }
+}
+
+/// The causes of a conflict as `victim<-aggressor`: qubit edges, then gate pairs.
+fn because_words(layout: &Layout, c: &Conflict) -> Vec<String> {
+    c.because
+        .iter()
+        .map(|&(v, r)| format!("{}<-{}", layout.id(v), layout.id(r)))
+        .chain(
+            c.because_gates
+                .iter()
+                .map(|&(v, r)| format!("{}<-{}", op_id(layout, v), op_id(layout, r))),
+        )
+        .collect()
 }
 
 fn figures(p: &Parallelism) -> Figures {
@@ -855,6 +1038,21 @@ impl Hints {
                     score_tvd_per_layer: f.score_tvd_per_layer,
                 })
                 .collect(),
+            flagged_gate_pairs: self
+                .flagged_gates
+                .iter()
+                .map(|f| FlaggedGateEntry {
+                    victim: op_id(l, f.victim),
+                    aggressor: op_id(l, f.aggressor),
+                    verdict: f.verdict,
+                    score_tvd_per_layer: f.score_tvd_per_layer,
+                    rule: format!(
+                        "{} and {} must not share a layer",
+                        op_words(l, &self.two_qubit_gate, f.victim),
+                        op_words(l, &self.two_qubit_gate, f.aggressor)
+                    ),
+                })
+                .collect(),
             operations: self
                 .conflicts
                 .operations
@@ -875,11 +1073,7 @@ impl Hints {
                 .map(|c| ConflictEntry {
                     a: op_id(l, c.a),
                     b: op_id(l, c.b),
-                    because: c
-                        .because
-                        .iter()
-                        .map(|&(v, r)| format!("{}<-{}", l.id(v), l.id(r)))
-                        .collect(),
+                    because: because_words(l, c),
                 })
                 .collect(),
             coupler_groups: self
@@ -934,8 +1128,7 @@ impl Hints {
             let _ = writeln!(s, "  \"{id}\" [shape={shape}{place}];");
         }
         for c in &self.conflicts.conflicts {
-            let because: Vec<String> =
-                c.because.iter().map(|&(v, r)| format!("{}<-{}", l.id(v), l.id(r))).collect();
+            let because = because_words(l, c);
             let _ = writeln!(
                 s,
                 "  \"{}\" -- \"{}\" [color=red, label=\"{}\"];",
@@ -997,6 +1190,23 @@ pub fn terminal(h: &HintsReport, style: Style) -> String {
         style,
     );
     terminal::fitted_table(cols, style, "hints.json", &mut out);
+    if !h.flagged_gate_pairs.is_empty() {
+        let _ = writeln!(out, "{}", terminal::bold("Flagged gate pairs", style));
+        for f in &h.flagged_gate_pairs {
+            out.push_str(&terminal::wrap(
+                &format!(
+                    "- {} ({} <- {}, {}, {} x1e-3 per layer)",
+                    f.rule,
+                    f.victim,
+                    f.aggressor,
+                    f.verdict.word(),
+                    terminal::per_mille(f.score_tvd_per_layer)
+                ),
+                style.width,
+                "  ",
+            ));
+        }
+    }
     out
 }
 

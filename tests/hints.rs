@@ -247,3 +247,165 @@ fn a_broken_audit_is_refused() {
     let o = run_slackmap(&["hints", "--out", "x"]);
     assert_eq!(o.status.code(), Some(2));
 }
+
+/// The least number of colours of a graph on `n` vertices by trying every assignment with
+/// k = 1, 2, ... colours (exhaustive search; only for a handful of vertices), and the size of
+/// its largest independent set by trying every subset.
+fn brute_force(n: usize, edges: &[(usize, usize)]) -> (usize, usize) {
+    let proper = |colour: &[usize]| edges.iter().all(|&(a, b)| colour[a] != colour[b]);
+    let mut chromatic = n;
+    'k: for k in 1..=n {
+        let mut colour = vec![0usize; n];
+        loop {
+            if proper(&colour) {
+                chromatic = k;
+                break 'k;
+            }
+            // Next assignment in base k.
+            let mut i = 0;
+            while i < n && colour[i] == k - 1 {
+                colour[i] = 0;
+                i += 1;
+            }
+            if i == n {
+                break;
+            }
+            colour[i] += 1;
+        }
+    }
+    let independent = (0u32..1 << n)
+        .filter(|&set| edges.iter().all(|&(a, b)| set >> a & 1 == 0 || set >> b & 1 == 0))
+        .map(|set| set.count_ones() as usize)
+        .max()
+        .unwrap_or(0);
+    (chromatic, independent)
+}
+
+/// An audit of `layout` with no flagged edge and one flagged gate pair victim <- aggressor
+/// (units as the audit names them: `q2-q3` for a coupler's gate, `q5` for a qubit).
+fn audit_with_gate_pair(
+    layout: &slackmap::layout::Layout,
+    victim: &str,
+    aggressor: &str,
+) -> slackmap::report::AuditReport {
+    use slackmap::report::{GatePairReport, ReasonCode};
+    let mut r = AuditBuilder::new(layout).build();
+    let mut d = r.directed[0].clone();
+    d.victim = victim.into();
+    d.aggressor = aggressor.into();
+    d.score_tvd_per_layer = 6e-3;
+    d.detection_limit_tvd_per_layer = 1e-3;
+    let mut reverse = d.clone();
+    reverse.victim = aggressor.into();
+    reverse.aggressor = victim.into();
+    reverse.score_tvd_per_layer = 0.0;
+    r.gates.directed = vec![d, reverse];
+    let gate = |u: &str| u.contains('-').then(|| "cz".to_string());
+    r.gates.pairs = vec![GatePairReport {
+        a: victim.into(),
+        a_gate: gate(victim),
+        b: aggressor.into(),
+        b_gate: gate(aggressor),
+        score_tvd_per_layer: 6e-3,
+        a_from_b_tvd_per_layer: Some(6e-3),
+        b_from_a_tvd_per_layer: Some(0.0),
+        rank: Some(1),
+        estimate_tvd_per_layer: 6e-3,
+        detection_limit_tvd_per_layer: 1e-3,
+        p_value: 0.01,
+        victim: victim.into(),
+        aggressor: aggressor.into(),
+        confounded_with: Vec::new(),
+        confidence: None,
+        verdict: Verdict::Recalibrate,
+        reason_code: ReasonCode::AboveThreshold,
+        reason: format!("{victim}<-{aggressor}: detected"),
+    }];
+    r
+}
+
+#[test]
+fn one_flagged_gate_pair_gives_exact_layer_counts_by_brute_force() {
+    use slackmap::layout::generate::chain;
+    // Small layouts and one flagged pair of couplers that share no qubit.
+    let cases = [
+        (chain(5), "q2-q3", "q0-q1"),
+        (chain(6), "q2-q3", "q4-q5"),
+        (grid(2, 3), "q0-q1", "q4-q5"),
+        (ring(6), "q1-q2", "q4-q5"),
+        (grid(2, 4), "q1-q2", "q5-q6"),
+    ];
+    for (layout, victim, aggressor) in cases {
+        let report = audit_with_gate_pair(&layout, victim, aggressor);
+        let h = hints::hints(&report, Path::new("audit.json"), FlagLevel::Watch, 100_000).unwrap();
+        let wire = h.report("audit.json", FlagLevel::Watch);
+        // Exactly one conflict, between the two gates themselves, with its rule in words.
+        assert!(wire.flagged.is_empty());
+        assert_eq!(wire.conflicts.len(), 1, "{:?}", wire.conflicts);
+        let c = &wire.conflicts[0];
+        let mut ends = [c.a.as_str(), c.b.as_str()];
+        ends.sort();
+        let mut want = [victim, aggressor];
+        want.sort();
+        assert_eq!(ends, want);
+        assert_eq!(c.because, [format!("{victim}<-{aggressor}")]);
+        assert_eq!(wire.flagged_gate_pairs.len(), 1);
+        assert_eq!(
+            wire.flagged_gate_pairs[0].rule,
+            format!("cz {victim} and cz {aggressor} must not share a layer")
+        );
+        // The coupler graph by hand: couplers sharing a qubit, plus the flagged pair.
+        let m = layout.couplers.len();
+        let index = |u: &str| {
+            let (a, b) = u.split_once('-').unwrap();
+            layout.coupler(layout.qubit(a).unwrap(), layout.qubit(b).unwrap()).unwrap()
+        };
+        let mut edges: Vec<(usize, usize)> = Vec::new();
+        for i in 0..m {
+            for j in i + 1..m {
+                let (a, b) = layout.couplers[i];
+                let (c, d) = layout.couplers[j];
+                if a == c || a == d || b == c || b == d {
+                    edges.push((i, j));
+                }
+            }
+        }
+        let (bare_layers, bare_set) = brute_force(m, &edges);
+        edges.push((index(victim), index(aggressor)));
+        let (layers, set) = brute_force(m, &edges);
+        let name = &layout.name;
+        let figures = |f: &slackmap::hints::Figures| {
+            assert!(f.layers_for_all_couplers.exact && f.largest_coupler_set.exact, "{name}");
+            (f.layers_for_all_couplers.value, f.largest_coupler_set.value)
+        };
+        assert_eq!(figures(&wire.without_conflicts), (bare_layers, bare_set), "{name} bare");
+        assert_eq!(figures(&wire.with_conflicts), (layers, set), "{name} with the gate pair");
+        // The groups are a schedule: every coupler once, no group holds the flagged pair.
+        let together = wire
+            .coupler_groups
+            .iter()
+            .any(|g| g.iter().any(|x| x == victim) && g.iter().any(|x| x == aggressor));
+        assert!(!together, "{name}: {:?}", wire.coupler_groups);
+        assert_eq!(wire.coupler_groups.iter().map(Vec::len).sum::<usize>(), m);
+        // One-qubit layers are untouched by a gate-on-gate conflict.
+        assert_eq!(wire.with_conflicts.layers_for_all_qubits.value, 1);
+    }
+}
+
+#[test]
+fn a_gate_beside_a_driven_qubit_conflicts_with_that_qubit_only() {
+    let layout = grid(2, 3);
+    let report = audit_with_gate_pair(&layout, "q0-q1", "q2");
+    let h = hints::hints(&report, Path::new("audit.json"), FlagLevel::Watch, 100_000).unwrap();
+    let wire = h.report("audit.json", FlagLevel::Watch);
+    assert_eq!(wire.conflicts.len(), 1);
+    assert_eq!((wire.conflicts[0].a.as_str(), wire.conflicts[0].b.as_str()), ("q2", "q0-q1"));
+    assert_eq!(wire.flagged_gate_pairs[0].rule, "cz q0-q1 and q2 must not share a layer");
+    // A mixed conflict changes neither the coupler layers nor the one-qubit layers.
+    assert_eq!(
+        wire.with_conflicts.layers_for_all_couplers.value,
+        wire.without_conflicts.layers_for_all_couplers.value
+    );
+    let dot = h.dot();
+    assert!(dot.contains("\"q2\" -- \"q0-q1\" [color=red, label=\"q0-q1<-q2\"]"), "{dot}");
+}

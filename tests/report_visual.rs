@@ -319,6 +319,7 @@ fn grid_audit(rows: usize, cols: usize, flags: &[Flag]) -> AuditReport {
             message: "q0-q1 has fewer than 10 reference rows".into(),
             hint: "add reference circuits on q0-q1".into(),
         }],
+        gates: Default::default(),
         rows: Vec::new(),
     }
 }

@@ -91,7 +91,7 @@ pub(crate) struct Assessed {
 
 /// Score weights of (victim q, aggressor r) on q's problem: (variable, weight), plus the
 /// driven-only and idle-only weights.
-type Weights = Vec<(usize, f64)>;
+pub(crate) type Weights = Vec<(usize, f64)>;
 
 fn weights(a: &Analysis, p: &Problem, r: QubitIx) -> (Weights, Weights, Weights) {
     weights_in(a, &a.rows.rows, p, r)
@@ -162,7 +162,7 @@ fn stratum(a: &Analysis, row: usize, q: QubitIx, r: QubitIx) -> u64 {
 /// sequences, 1000 shots, 20 seeds) power at a depolarizing context rate of 4e-3 rose from
 /// 4/20 to 20/20, with no false detection on null data either way (tests/calibration.rs).
 /// Whole-octave bins gave 18/20; half octaves keep rows of similar depth together.
-fn depth_class(timed_layers: u32) -> i32 {
+pub(crate) fn depth_class(timed_layers: u32) -> i32 {
     (2.0 * f64::from(timed_layers.max(1)).log2()).round() as i32
 }
 
@@ -229,28 +229,46 @@ fn assess_pair(
     ranges: &HashMap<QubitIx, (f64, f64)>,
 ) -> Result<Directed> {
     let (p, sol) = &s.qubit[q];
-    let (w, w_driven, w_idle) = weights(a, p, r);
-    let mut d = Directed { victim: q, aggressor: r, ..Default::default() };
-    if w.is_empty() {
-        d.p_value = 1.0;
-        d.sensitivity = f64::INFINITY;
-        return Ok(d);
+    let w = weights(a, p, r);
+    if w.0.is_empty() {
+        return Ok(Directed {
+            victim: q,
+            aggressor: r,
+            p_value: 1.0,
+            sensitivity: f64::INFINITY,
+            ..Default::default()
+        });
     }
-    d.tested = true;
-    d.sensitivity = sensitivity(a, p, r, &|_| true);
-    d.score = score(sol, &w);
-    d.driven = score(sol, &w_driven);
-    d.idle = score(sol, &w_idle);
-    let (lo, hi) = ranges.get(&r).copied().unwrap_or((d.score, d.score));
-    d.attribution = (clip(lo), clip(hi));
-    d.per_kind = w
-        .iter()
-        .map(|&(v, _)| match p.vars[v] {
-            Budget::Context(k, _) => (k, sol.values[v]),
-            _ => unreachable!("score weights are on context budgets only"),
+    let count = |p: &Problem, j: usize, kind: &dyn Fn(KindIx) -> bool| -> u32 {
+        let row = &a.rows.rows[p.rows[j]];
+        row.context_counts.iter().filter(|e| e.0 .1 == r && kind(e.0 .0)).map(|e| e.1).sum()
+    };
+    // Rows where no other neighbour of q was active: the isolated evidence.
+    let isolated: Vec<usize> = (0..p.rows.len())
+        .filter(|&j| {
+            let row = &a.rows.rows[p.rows[j]];
+            row.is_reference
+                || row
+                    .victims
+                    .iter()
+                    .filter(|v| v.qubit == q)
+                    .all(|v| v.active_neighbours.iter().all(|&n| n == r))
         })
         .collect();
-    let r_vars: Vec<usize> = w.iter().map(|e| e.0).collect();
+    let subject = Subject {
+        p,
+        sol,
+        weights: w,
+        range: ranges.get(&r).copied(),
+        strata: p.rows.iter().map(|&i| stratum(a, i, q, r)).collect(),
+        isolated,
+        count: &count,
+        seed: pair_seed(cfg.seed, q, r),
+        corroboration_seed: pair_seed(cfg.seed ^ CORROBORATION_SALT, q, r),
+    };
+    let mut d = assess_direction(a, cfg, &subject)?;
+    d.victim = q;
+    d.aggressor = r;
     let mut co: BTreeSet<QubitIx> = BTreeSet::new();
     for &i in &p.rows {
         let row = &a.rows.rows[i];
@@ -262,18 +280,72 @@ fn assess_pair(
         }
     }
     d.co_active = co.into_iter().collect();
+    Ok(d)
+}
+
+/// Occurrences, in problem row `j` of a (possibly reduced) victim problem, of the victim's
+/// operations with the aggressor active, counting only kinds the filter admits.
+pub(crate) type OccurrenceCount<'a> = dyn Fn(&Problem, usize, &dyn Fn(KindIx) -> bool) -> u32 + 'a;
+
+/// One direction (victim <- aggressor) on the victim's solved problem: what
+/// [`assess_direction`] needs, whatever the victim and the aggressor are (a qubit's one-qubit
+/// operations beside a qubit, or a gate beside a gate or a qubit).
+pub(crate) struct Subject<'s> {
+    /// The victim's problem and its solution.
+    pub p: &'s Problem,
+    pub sol: &'s TwoStageSolution,
+    /// Score weights on the aggressor's context budgets: all, driven kinds, idle kinds.
+    pub weights: (Weights, Weights, Weights),
+    /// The attribution range of the score, when computed.
+    pub range: Option<(f64, f64)>,
+    /// Permutation stratum of each problem row.
+    pub strata: Vec<u64>,
+    /// Problem rows (positions) where the aggressor is the victim's only active neighbour,
+    /// and reference rows.
+    pub isolated: Vec<usize>,
+    pub count: &'s OccurrenceCount<'s>,
+    /// Seeds of the detection null and the corroboration null.
+    pub seed: u64,
+    pub corroboration_seed: u64,
+}
+
+/// Scores, attribution, permutation null, isolated evidence, supporting rows and
+/// leave-one-out of one direction (method.md sections 4-6); `victim`, `aggressor` and
+/// `co_active` are the caller's to fill.
+pub(crate) fn assess_direction(a: &Analysis, cfg: &AuditConfig, x: &Subject) -> Result<Directed> {
+    let (p, sol) = (x.p, x.sol);
+    let (w, w_driven, w_idle) = &x.weights;
+    let mut d = Directed::default();
+    if w.is_empty() {
+        d.p_value = 1.0;
+        d.sensitivity = f64::INFINITY;
+        return Ok(d);
+    }
+    d.tested = true;
+    d.sensitivity = sensitivity_with(a, p, x.count, &|_| true);
+    d.score = score(sol, w);
+    d.driven = score(sol, w_driven);
+    d.idle = score(sol, w_idle);
+    let (lo, hi) = x.range.unwrap_or((d.score, d.score));
+    d.attribution = (clip(lo), clip(hi));
+    d.per_kind = w
+        .iter()
+        .map(|&(v, _)| match p.vars[v] {
+            Budget::Context(k, _) | Budget::GateContext(k, _) => (k, sol.values[v]),
+            _ => unreachable!("score weights are on context budgets only"),
+        })
+        .collect();
+    let r_vars: Vec<usize> = w.iter().map(|e| e.0).collect();
 
     // Context-permutation null on the victim's problem.
     if cfg.null_replicates > 0 {
-        let strata: Vec<u64> = p.rows.iter().map(|&i| stratum(a, i, q, r)).collect();
-        let seed = pair_seed(cfg.seed, q, r);
         d.null = crate::slack::null::permutation_null(
             &p.lp,
             &r_vars,
-            &strata,
-            &w,
+            &x.strata,
+            w,
             cfg.null_replicates,
-            seed,
+            x.seed,
         )?
         .into_iter()
         .map(clip)
@@ -283,45 +355,37 @@ fn assess_pair(
     } else {
         d.p_value = 1.0;
     }
-    let strata = || -> Vec<u64> { p.rows.iter().map(|&i| stratum(a, i, q, r)).collect() };
 
-    // Isolated evidence: the same problem restricted to rows where no other neighbour of q
-    // was active. A score that only multi-aggressor rows carry cannot be told apart from
-    // the other aggressors' (method.md section 4, "Attribution range").
+    // Isolated evidence: the same problem restricted to rows where no other neighbour of the
+    // victim was active. A score that only multi-aggressor rows carry cannot be told apart
+    // from the other aggressors' (method.md section 4, "Attribution range").
     if d.score > 0.0 {
-        let keep: Vec<usize> = (0..p.rows.len())
-            .filter(|&j| {
-                let row = &a.rows.rows[p.rows[j]];
-                row.is_reference
-                    || row
-                        .victims
-                        .iter()
-                        .filter(|v| v.qubit == q)
-                        .all(|v| v.active_neighbours.iter().all(|&n| n == r))
-            })
-            .collect();
-        let reduced = p.restricted(&keep);
+        let reduced = p.restricted(&x.isolated);
         let rs = reduced.lp.solve()?;
-        d.isolated = score(&rs, &remap(&w, p, &reduced));
+        d.isolated = score(&rs, &remap(w, p, &reduced));
         // Power on the operations that carry the unexplained slack (a driven-only error is
-        // invisible to rows where the victim idles beside r).
+        // invisible to rows where the victim idles beside the aggressor).
         let carrying: Vec<KindIx> = p
             .vars
             .iter()
             .enumerate()
             .filter_map(|(v, b)| match *b {
-                Budget::Context(k, _) if sol.values[v] > ZERO_SCORE => Some(k),
+                Budget::Context(k, _) | Budget::GateContext(k, _) if sol.values[v] > ZERO_SCORE => {
+                    Some(k)
+                }
                 _ => None,
             })
             .collect();
-        d.isolated_sensitivity =
-            sensitivity(a, &reduced, r, &|k| carrying.is_empty() || carrying.contains(&k));
+        d.isolated_sensitivity = sensitivity_with(a, &reduced, x.count, &|k| {
+            carrying.is_empty() || carrying.contains(&k)
+        });
     } else {
         d.isolated_sensitivity = f64::INFINITY;
     }
 
-    // Supporting rows: rows with r active whose requirement the intrinsic budgets alone do
-    // not meet, so that they need context slack; leave-one-out drops their circuits.
+    // Supporting rows: rows with the aggressor active whose requirement the intrinsic
+    // budgets alone do not meet, so that they need context slack; leave-one-out drops their
+    // circuits.
     let mut load: HashMap<u32, f64> = HashMap::new();
     for (j, row) in p.lp.rows.iter().enumerate() {
         if !row.terms.iter().any(|&(v, c)| c > 0.0 && r_vars.contains(&v)) {
@@ -330,7 +394,7 @@ fn assess_pair(
         let intrinsic: f64 = row
             .terms
             .iter()
-            .filter(|&&(v, _)| !matches!(p.vars[v], Budget::Context(..)))
+            .filter(|&&(v, _)| !matches!(p.vars[v], Budget::Context(..) | Budget::GateContext(..)))
             .map(|&(v, c)| c * sol.values[v])
             .sum();
         let need = row.requirement - intrinsic;
@@ -349,7 +413,7 @@ fn assess_pair(
         for (c, _) in cands {
             let reduced = p.without_circuit(&a.rows.rows, c);
             let rs = reduced.lp.solve()?;
-            let v = score(&rs, &remap(&w, p, &reduced));
+            let v = score(&rs, &remap(w, p, &reduced));
             if v < d.loo {
                 d.loo = v;
                 d.most_influential = Some(c);
@@ -362,8 +426,8 @@ fn assess_pair(
         let robust = crate::slack::null::significant(d.loo, &d.null, cfg.alpha);
         if !robust {
             if let Some(c) = d.most_influential {
-                let seed = pair_seed(cfg.seed ^ CORROBORATION_SALT, q, r);
-                d.corroboration_p = Some(corroboration(a, p, &w, &strata(), c, cfg, seed)?);
+                let seed = x.corroboration_seed;
+                d.corroboration_p = Some(corroboration(a, p, w, &x.strata, c, cfg, seed)?);
             }
         }
         d.detected = robust || d.corroboration_p.is_some_and(|pv| pv <= cfg.alpha);
@@ -372,7 +436,7 @@ fn assess_pair(
 }
 
 /// Salt that keeps the corroboration null's stream apart from the detection null's.
-const CORROBORATION_SALT: u64 = 0x636f_7272_6f62_6f72;
+pub(crate) const CORROBORATION_SALT: u64 = 0x636f_7272_6f62_6f72;
 
 /// Whether the victim's other circuits corroborate a score that rests on circuit `c`: the
 /// mid-p value of X(q <- r) on the problem without `c`, each row's requirement recomputed at
@@ -587,8 +651,9 @@ fn polarization(p: &[f64]) -> (f64, f64) {
     (((top - 1.0 / k) / (1.0 - 1.0 / k)).max(0.0), top)
 }
 
-/// The sensitivity of victim q's problem `p` to aggressor r: the least unlimited-shot
-/// estimate of X(q <- r) at which some row would need slack, to first order.
+/// The sensitivity of a victim's problem `p` to an aggressor r: the least unlimited-shot
+/// estimate of X(q <- r) at which some row would need slack, to first order; `count` gives
+/// each row's occurrences c with r active.
 ///
 /// A depolarizing error of strength e on each of a row's c occurrences with r active moves
 /// e (1 - 1/K) pi_row c of probability off the most likely outcome (depolarizing channels
@@ -599,16 +664,20 @@ fn polarization(p: &[f64]) -> (f64, f64) {
 /// Coherent errors under twirling and errors that are not depolarizing move other outcomes
 /// first: this is a yardstick for planning and for reading a zero score, not a guarantee.
 /// Only occurrences of kinds that `kind` admits count.
-fn sensitivity(a: &Analysis, p: &Problem, r: QubitIx, kind: &dyn Fn(KindIx) -> bool) -> f64 {
+fn sensitivity_with(
+    a: &Analysis,
+    p: &Problem,
+    count: &OccurrenceCount,
+    kind: &dyn Fn(KindIx) -> bool,
+) -> f64 {
     let n_rows = a.used.len();
     let pi_max = p.rows.iter().map(|&i| polarization(&a.predictions[i]).0).fold(0.0, f64::max);
     // The threshold depends on the outcome count alone; a quantile costs a root search.
     let mut thresholds: Vec<(usize, f64)> = Vec::new();
     let mut best = f64::INFINITY;
-    for &i in &p.rows {
+    for (j, &i) in p.rows.iter().enumerate() {
         let row = &a.rows.rows[i];
-        let c: u32 =
-            row.context_counts.iter().filter(|e| e.0 .1 == r && kind(e.0 .0)).map(|e| e.1).sum();
+        let c: u32 = count(p, j, kind);
         let pred = &a.predictions[i];
         if c == 0 || pred.len() < 2 {
             continue;
@@ -646,7 +715,7 @@ fn clip(x: f64) -> f64 {
 }
 
 /// The seed of one directed pair's null: a function of (seed, victim, aggressor) only.
-fn pair_seed(seed: u64, q: QubitIx, r: QubitIx) -> u64 {
+pub(crate) fn pair_seed(seed: u64, q: QubitIx, r: QubitIx) -> u64 {
     // SplitMix64 finaliser over the packed indices (Steele, Lea, Flood, OOPSLA 2014).
     let mut z = seed ^ ((q as u64) << 32 | r as u64).wrapping_mul(0x9E37_79B9_7F4A_7C15);
     z = (z ^ (z >> 30)).wrapping_mul(0xBF58_476D_1CE4_E5B9);

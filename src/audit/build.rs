@@ -2,6 +2,7 @@
 //! and decides verdicts (method.md section 6).
 
 use super::assess::{detected_verdict, direction_verdict, is_detected, Assessed, ZERO_SCORE};
+use super::gates::{GateDirected, Unit};
 use super::problems::Budget;
 use super::{kind_occurrences, row_slacks, Analysis, AuditConfig, Solved};
 use crate::report::*;
@@ -32,46 +33,72 @@ pub(crate) fn revisit_verdicts(report: &mut AuditReport, pairs: &[(usize, usize)
     let threshold = report.parameters.action_threshold_tvd_per_layer;
     let nulls = report.parameters.null_replicates;
     for (e, &(ab, ba)) in report.edges.iter_mut().zip(pairs) {
-        let mut lead: Option<(Verdict, ReasonCode, String)> = None;
-        for j in [ab, ba] {
-            let d = &report.directed[j];
-            let detected = nulls > 0 && is_detected(d);
-            if !detected {
-                continue;
-            }
-            let low = d.confidence.as_ref().map_or(0.0, |c| c.low_tvd_per_layer);
-            let (v, code, why) = detected_verdict(d.p_value, low, threshold);
-            if lead.as_ref().is_none_or(|l| v < l.0) {
-                lead = Some((v, code, format!("{}<-{}: {}", d.victim, d.aggressor, why)));
-            }
-        }
-        if let Some((v, code, why)) = lead {
+        let both = [&report.directed[ab], &report.directed[ba]];
+        if let Some((v, code, why)) = detected_lead(both.into_iter(), threshold, nulls) {
             e.verdict = v;
             e.reason_code = code;
             e.reason = why;
         }
     }
     order_edges(&mut report.edges);
+    revisit_gate_verdicts(report);
+}
+
+/// The verdict of the strongest detected direction among `directions` once intervals are
+/// in, naming it, or None when none is detected (the point verdict then stands).
+fn detected_lead<'d>(
+    directions: impl Iterator<Item = &'d DirectedReport>,
+    threshold: f64,
+    nulls: usize,
+) -> Option<(Verdict, ReasonCode, String)> {
+    let mut lead: Option<(Verdict, ReasonCode, String)> = None;
+    for d in directions {
+        if !(nulls > 0 && is_detected(d)) {
+            continue;
+        }
+        let low = d.confidence.as_ref().map_or(0.0, |c| c.low_tvd_per_layer);
+        let (v, code, why) = detected_verdict(d.p_value, low, threshold);
+        if lead.as_ref().is_none_or(|l| v < l.0) {
+            lead = Some((v, code, format!("{}<-{}: {}", d.victim, d.aggressor, why)));
+        }
+    }
+    lead
+}
+
+/// Detected entries first, by score, then the rest (ties by the two names); ranks for
+/// positive scores only. `key` gives (verdict, score, a, b), `rank` sets the rank.
+fn order_ranked<T>(
+    items: &mut [T],
+    key: impl Fn(&T) -> (Verdict, f64, &str, &str),
+    rank: impl Fn(&mut T, Option<usize>),
+) {
+    items.sort_by(|p, q| {
+        let (kp, kq) = (key(p), key(q));
+        let detected = |k: &(Verdict, f64, &str, &str)| k.0 <= Verdict::Watch;
+        detected(&kq)
+            .cmp(&detected(&kp))
+            .then(kq.1.total_cmp(&kp.1))
+            .then(kp.2.cmp(kq.2))
+            .then(kp.3.cmp(kq.3))
+    });
+    let mut k = 0;
+    for e in items.iter_mut() {
+        let positive = key(e).1 > 0.0;
+        rank(e, None);
+        if positive {
+            k += 1;
+            rank(e, Some(k));
+        }
+    }
 }
 
 /// Detected edges first, by score, then the rest; ranks for positive scores only.
 pub(crate) fn order_edges(edges: &mut [EdgeReport]) {
-    edges.sort_by(|p, q| {
-        let key = |e: &EdgeReport| e.verdict <= Verdict::Watch;
-        key(q)
-            .cmp(&key(p))
-            .then(q.score_tvd_per_layer.total_cmp(&p.score_tvd_per_layer))
-            .then(p.a.cmp(&q.a))
-            .then(p.b.cmp(&q.b))
-    });
-    let mut k = 0;
-    for e in edges.iter_mut() {
-        e.rank = None;
-        if e.score_tvd_per_layer > 0.0 {
-            k += 1;
-            e.rank = Some(k);
-        }
-    }
+    order_ranked(
+        edges,
+        |e| (e.verdict, e.score_tvd_per_layer, e.a.as_str(), e.b.as_str()),
+        |e, r| e.rank = r,
+    );
 }
 
 /// The point-estimate report; `parametric[i]` is directed pair i's parametric-null
@@ -80,6 +107,7 @@ pub(crate) fn report(
     a: &Analysis,
     s: &Solved,
     x: &Assessed,
+    gates: &[GateDirected],
     estimate: &(Vec<f64>, Vec<f64>),
     cfg: &AuditConfig,
     parametric: Option<&[(f64, f64)]>,
@@ -96,47 +124,14 @@ pub(crate) fn report(
         .directed
         .iter()
         .enumerate()
-        .map(|(i, d)| DirectedReport {
-            victim: id(d.victim),
-            aggressor: id(d.aggressor),
-            score_tvd_per_layer: d.score,
-            estimate_tvd_per_layer: est_directed[i],
-            sensitivity_tvd_per_layer: d.sensitivity,
-            driven_tvd_per_layer: d.driven,
-            idle_tvd_per_layer: d.idle,
-            attribution_min_tvd_per_layer: d.attribution.0,
-            attribution_max_tvd_per_layer: d.attribution.1,
-            detection_limit_tvd_per_layer: d.limit,
-            p_value: d.p_value,
-            detected: d.detected,
-            corroboration_p_value: d.corroboration_p,
-            supporting_rows: d.supporting_rows,
-            supporting_circuits: d.supporting_circuits,
-            isolated_tvd_per_layer: d.isolated,
-            top_supporting_circuits: d
-                .top_circuits
-                .iter()
-                .map(|&c| a.circuits.circuits[c as usize].id.clone())
-                .collect(),
-            leave_one_out_tvd_per_layer: d.loo,
-            most_influential_circuit: d
-                .most_influential
-                .map(|c| a.circuits.circuits[c as usize].id.clone()),
-            per_kind: d
-                .per_kind
-                .iter()
-                .map(|&(k, v)| KindValue { kind: kinds.get(k).label(layout), value: v })
-                .collect(),
-            depth_profile: if d.score > 0.0
-                || x.directed[x.index[&(d.aggressor, d.victim)]].score > 0.0
-            {
-                super::profile::depth_profile(a, d.victim, d.aggressor)
-            } else {
-                Vec::new()
-            },
-            confidence: None,
-            parametric_limit_tvd_per_layer: par(i).and_then(|p| finite(p.0)),
-            parametric_p_value: par(i).map(|p| p.1),
+        .map(|(i, d)| {
+            let profile =
+                if d.score > 0.0 || x.directed[x.index[&(d.aggressor, d.victim)]].score > 0.0 {
+                    super::profile::depth_profile(a, d.victim, d.aggressor)
+                } else {
+                    Vec::new()
+                };
+            directed_report(a, d, id(d.victim), id(d.aggressor), est_directed[i], par(i), profile)
         })
         .collect();
 
@@ -389,6 +384,219 @@ pub(crate) fn report(
         intrinsic,
         readout,
         warnings,
+        gates: gate_report(a, gates, &est_directed[x.directed.len()..], cfg, &|i| {
+            par(x.directed.len() + i)
+        }),
         rows: row_reports,
     }
+}
+
+/// The report of one direction (a qubit pair's, or a gate pair's with unit labels).
+fn directed_report(
+    a: &Analysis,
+    d: &super::assess::Directed,
+    victim: String,
+    aggressor: String,
+    estimate: f64,
+    parametric: Option<(f64, f64)>,
+    depth_profile: Vec<DepthPoint>,
+) -> DirectedReport {
+    let circuit = |c: u32| a.circuits.circuits[c as usize].id.clone();
+    let kinds = &a.rows.kinds;
+    DirectedReport {
+        victim,
+        aggressor,
+        score_tvd_per_layer: d.score,
+        estimate_tvd_per_layer: estimate,
+        sensitivity_tvd_per_layer: d.sensitivity,
+        driven_tvd_per_layer: d.driven,
+        idle_tvd_per_layer: d.idle,
+        attribution_min_tvd_per_layer: d.attribution.0,
+        attribution_max_tvd_per_layer: d.attribution.1,
+        detection_limit_tvd_per_layer: d.limit,
+        p_value: d.p_value,
+        detected: d.detected,
+        corroboration_p_value: d.corroboration_p,
+        supporting_rows: d.supporting_rows,
+        supporting_circuits: d.supporting_circuits,
+        isolated_tvd_per_layer: d.isolated,
+        top_supporting_circuits: d.top_circuits.iter().map(|&c| circuit(c)).collect(),
+        leave_one_out_tvd_per_layer: d.loo,
+        most_influential_circuit: d.most_influential.map(circuit),
+        per_kind: d
+            .per_kind
+            .iter()
+            .map(|&(k, v)| KindValue { kind: kinds.get(k).label(a.layout), value: v })
+            .collect(),
+        depth_profile,
+        confidence: None,
+        parametric_limit_tvd_per_layer: parametric.and_then(|p| p.0.is_finite().then_some(p.0)),
+        parametric_p_value: parametric.map(|p| p.1),
+    }
+}
+
+/// The gate section: every gate direction, the pairs they form with their verdicts (by the
+/// edges' rules), and the sparse matrices. `estimates[i]` and `parametric(i)` belong to
+/// `gates[i]`.
+fn gate_report(
+    a: &Analysis,
+    gates: &[GateDirected],
+    estimates: &[f64],
+    cfg: &AuditConfig,
+    parametric: &dyn Fn(usize) -> Option<(f64, f64)>,
+) -> GateReport {
+    if gates.is_empty() {
+        return GateReport::default();
+    }
+    let layout = a.layout;
+    let directed: Vec<DirectedReport> = gates
+        .iter()
+        .enumerate()
+        .map(|(i, g)| {
+            let (v, r) = (g.victim.label(layout), g.aggressor.label(layout));
+            directed_report(a, &g.d, v, r, estimates[i], parametric(i), Vec::new())
+        })
+        .collect();
+    let index = super::gates::index(gates);
+    // Unordered pairs, a coupler first.
+    let key = |u: Unit| match u {
+        Unit::Coupler(c) => (0, c),
+        Unit::Qubit(q) => (1, q),
+    };
+    let mut pairs: Vec<(Unit, Unit)> = gates
+        .iter()
+        .map(|g| {
+            let (u, v) = (g.victim, g.aggressor);
+            if key(u) <= key(v) {
+                (u, v)
+            } else {
+                (v, u)
+            }
+        })
+        .collect();
+    pairs.sort_by_key(|&(u, v)| (key(u), key(v)));
+    pairs.dedup();
+    let gate_name = |u: Unit| match u {
+        Unit::Coupler(_) => Some(layout.gates.two_qubit.to_string()),
+        Unit::Qubit(_) => None,
+    };
+    let mut out: Vec<GatePairReport> = pairs
+        .into_iter()
+        .map(|(u, v)| {
+            let ab = index.get(&(u, v)).copied();
+            let ba = index.get(&(v, u)).copied();
+            let verdicts: Vec<(usize, (Verdict, ReasonCode, String))> = [ab, ba]
+                .into_iter()
+                .flatten()
+                .map(|i| (i, direction_verdict(&gates[i].d, cfg)))
+                .collect();
+            // The direction with the stronger verdict leads; between equal verdicts, the
+            // larger score (as for edges).
+            let (lead, (verdict, code, why)) = verdicts
+                .into_iter()
+                .reduce(|p, q| {
+                    let (sp, sq) = (gates[p.0].d.score, gates[q.0].d.score);
+                    if q.1 .0 < p.1 .0 || (q.1 .0 == p.1 .0 && sq > sp) {
+                        q
+                    } else {
+                        p
+                    }
+                })
+                .expect("a pair has at least one measured direction");
+            let g = &gates[lead];
+            let score = |i: Option<usize>| i.map(|i| gates[i].d.score);
+            let confounded_with = if verdict == Verdict::Confounded {
+                g.co_active
+                    .iter()
+                    .filter(|&&o| {
+                        index
+                            .get(&(g.victim, o))
+                            .is_none_or(|&i| gates[i].d.attribution.1 > ZERO_SCORE)
+                    })
+                    .map(|&o| o.label(layout))
+                    .collect()
+            } else {
+                Vec::new()
+            };
+            GatePairReport {
+                a: u.label(layout),
+                a_gate: gate_name(u),
+                b: v.label(layout),
+                b_gate: gate_name(v),
+                score_tvd_per_layer: score(ab).unwrap_or(0.0).max(score(ba).unwrap_or(0.0)),
+                a_from_b_tvd_per_layer: score(ab),
+                b_from_a_tvd_per_layer: score(ba),
+                rank: None,
+                estimate_tvd_per_layer: [ab, ba]
+                    .into_iter()
+                    .flatten()
+                    .map(|i| estimates[i])
+                    .fold(0.0, f64::max),
+                detection_limit_tvd_per_layer: g.d.limit,
+                p_value: g.d.p_value,
+                victim: g.victim.label(layout),
+                aggressor: g.aggressor.label(layout),
+                confounded_with,
+                confidence: None,
+                verdict,
+                reason_code: code,
+                reason: format!(
+                    "{}<-{}: {}",
+                    g.victim.label(layout),
+                    g.aggressor.label(layout),
+                    why
+                ),
+            }
+        })
+        .collect();
+    order_gate_pairs(&mut out);
+    let couplers: Vec<String> =
+        (0..layout.couplers.len()).map(|c| Unit::Coupler(c).label(layout)).collect();
+    let mut matrix = GateMatrix {
+        couplers,
+        qubits: layout.qubits.iter().map(|q| q.id.clone()).collect(),
+        ..Default::default()
+    };
+    for (g, &e) in gates.iter().zip(estimates) {
+        match (g.victim, g.aggressor) {
+            (Unit::Coupler(c), Unit::Coupler(d)) => matrix.coupler_from_coupler.push((c, d, e)),
+            (Unit::Coupler(c), Unit::Qubit(r)) => matrix.coupler_from_qubit.push((c, r, e)),
+            (Unit::Qubit(q), Unit::Coupler(d)) => matrix.qubit_from_coupler.push((q, d, e)),
+            (Unit::Qubit(_), Unit::Qubit(_)) => {}
+        }
+    }
+    GateReport { directed, pairs: out, matrix }
+}
+
+/// Detected gate pairs first, by score, then the rest; ranks for positive scores only.
+pub(crate) fn order_gate_pairs(pairs: &mut [GatePairReport]) {
+    order_ranked(
+        pairs,
+        |e| (e.verdict, e.score_tvd_per_layer, e.a.as_str(), e.b.as_str()),
+        |e, r| e.rank = r,
+    );
+}
+
+/// [`revisit_verdicts`] for the gate pairs: a detected direction's verdict then rests on its
+/// interval's lower end.
+fn revisit_gate_verdicts(report: &mut AuditReport) {
+    let threshold = report.parameters.action_threshold_tvd_per_layer;
+    let nulls = report.parameters.null_replicates;
+    let gates = &mut report.gates;
+    let index: std::collections::HashMap<(&str, &str), usize> = gates
+        .directed
+        .iter()
+        .enumerate()
+        .map(|(j, d)| ((d.victim.as_str(), d.aggressor.as_str()), j))
+        .collect();
+    for e in gates.pairs.iter_mut() {
+        let both = [(e.a.as_str(), e.b.as_str()), (e.b.as_str(), e.a.as_str())];
+        let directions = both.iter().filter_map(|k| index.get(k)).map(|&j| &gates.directed[j]);
+        if let Some((v, code, why)) = detected_lead(directions, threshold, nulls) {
+            e.verdict = v;
+            e.reason_code = code;
+            e.reason = why;
+        }
+    }
+    order_gate_pairs(&mut gates.pairs);
 }

@@ -15,6 +15,7 @@ use crate::report::{AuditReport, InputFile};
 
 mod assess;
 mod build;
+mod gates;
 mod profile;
 
 pub use crate::pipeline::problems;
@@ -110,8 +111,24 @@ pub fn run_parts(
     check_cancel(progress)?;
     let assessed = assess::assess(&analysis, &solved, cfg, progress)?;
     check_cancel(progress)?;
-    let scorer = &assess::directed_scores;
-    let point: Vec<f64> = assessed.directed.iter().map(|d| d.score).collect();
+    let gate_index = gates::GateIndex::new(&analysis);
+    let gate_victims = gates::victims(&analysis, &gate_index);
+    let gate_directed =
+        gates::assess(&analysis, &gate_index, &gate_victims, &solved, cfg, progress)?;
+    check_cancel(progress)?;
+    // Qubit directions in `assessed` order, then gate directions in `gate_directed` order.
+    let scorer =
+        &move |a: &Analysis, all: &[crate::rows::Row], source: Option<&[usize]>, s: &Solved| {
+            let mut v = assess::directed_scores(a, all, s);
+            v.extend(gates::scores(a, &gate_index, &gate_victims, all, source, s));
+            v
+        };
+    let point: Vec<f64> = assessed
+        .directed
+        .iter()
+        .map(|d| d.score)
+        .chain(gate_directed.iter().map(|g| g.d.score))
+        .collect();
     let parametric = crate::confidence::parametric_null(
         &analysis,
         &point,
@@ -126,8 +143,15 @@ pub fn run_parts(
     check_cancel(progress)?;
     let estimate = pipeline::estimate(&analysis, scorer, progress)?;
     check_cancel(progress)?;
-    let report =
-        build::report(&analysis, &solved, &assessed, &estimate, cfg, parametric.as_deref());
+    let report = build::report(
+        &analysis,
+        &solved,
+        &assessed,
+        &gate_directed,
+        &estimate,
+        cfg,
+        parametric.as_deref(),
+    );
     let replicates = crate::confidence::bootstrap(
         &analysis,
         &report,

@@ -37,7 +37,7 @@ pub struct MergeArgs {
 /// Checks that every replicate of a part has one value per directed pair and per kind of
 /// the part's report, so that a damaged file is named rather than found later.
 fn check_lengths(part: &partial::Partial, path: &std::path::Path) -> slackmap::Result<()> {
-    let (nd, ni) = (part.report.directed.len(), part.report.intrinsic.len());
+    let (nd, ni) = (part.report.scored_directions(), part.report.intrinsic.len());
     for s in &part.scores {
         let bad = [
             ("directed_tvd_per_layer", s.directed_tvd_per_layer.len(), nd),

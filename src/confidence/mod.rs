@@ -275,7 +275,9 @@ pub fn fill(
     if reps.is_empty() {
         return Ok(Vec::new());
     }
-    let (nd, ni) = (report.directed.len(), report.intrinsic.len());
+    // Replicates hold the qubit directions, then the gate directions.
+    let nq = report.directed.len();
+    let (nd, ni) = (report.scored_directions(), report.intrinsic.len());
     for (i, r) in reps.iter().enumerate() {
         if r.index != i
             || r.directed_tvd_per_layer.len() != nd
@@ -295,6 +297,7 @@ pub fn fill(
         let s: Vec<f64> = reps.iter().map(|r| r.directed_tvd_per_layer[j]).collect();
         d.confidence = Some(summarise(d.estimate_tvd_per_layer, &v, &s, level));
     }
+    fill_gates(report, reps, nq, level);
     for (j, k) in report.intrinsic.iter_mut().enumerate() {
         let v: Vec<f64> = reps.iter().map(|r| r.intrinsic_estimate_tvd_per_occurrence[j]).collect();
         let s: Vec<f64> = reps.iter().map(|r| r.intrinsic_tvd_per_occurrence[j]).collect();
@@ -356,6 +359,34 @@ pub fn fill(
         });
     }
     Ok(pairs)
+}
+
+/// The gate section's confidence: each gate direction's (replicate position `offset + j`),
+/// and each gate pair's from the larger of its directions, as for edges.
+fn fill_gates(report: &mut AuditReport, reps: &[ReplicateScores], offset: usize, level: f64) {
+    let gates = &mut report.gates;
+    for (j, d) in gates.directed.iter_mut().enumerate() {
+        let v: Vec<f64> =
+            reps.iter().map(|r| r.directed_estimate_tvd_per_layer[offset + j]).collect();
+        let s: Vec<f64> = reps.iter().map(|r| r.directed_tvd_per_layer[offset + j]).collect();
+        d.confidence = Some(summarise(d.estimate_tvd_per_layer, &v, &s, level));
+    }
+    let index: std::collections::HashMap<(&str, &str), usize> = gates
+        .directed
+        .iter()
+        .enumerate()
+        .map(|(j, d)| ((d.victim.as_str(), d.aggressor.as_str()), offset + j))
+        .collect();
+    for e in gates.pairs.iter_mut() {
+        let cols: Vec<usize> = [(e.a.as_str(), e.b.as_str()), (e.b.as_str(), e.a.as_str())]
+            .iter()
+            .filter_map(|k| index.get(k).copied())
+            .collect();
+        let most = |v: &[f64]| cols.iter().map(|&c| v[c]).fold(0.0, f64::max);
+        let v: Vec<f64> = reps.iter().map(|r| most(&r.directed_estimate_tvd_per_layer)).collect();
+        let s: Vec<f64> = reps.iter().map(|r| most(&r.directed_tvd_per_layer)).collect();
+        e.confidence = Some(summarise(e.estimate_tvd_per_layer, &v, &s, level));
+    }
 }
 
 #[cfg(test)]

@@ -114,8 +114,12 @@ pub(crate) struct Solved {
 }
 
 /// Directed scores of a solved pass, in the audit's pair order: supplied by the audit, so
-/// that the pipeline knows nothing of how pairs are chosen and weighted.
-pub(crate) type Scorer = dyn Fn(&Analysis, &[rows::Row], &Solved) -> Vec<f64> + Sync;
+/// that the pipeline knows nothing of how pairs are chosen and weighted. The rows are the
+/// pass's own; the optional slice gives, per row, the analysis row whose program it holds
+/// (a bootstrap replicate that resamples circuits), so that a scorer can look at the circuit
+/// a row really came from.
+pub(crate) type Scorer =
+    dyn Fn(&Analysis, &[rows::Row], Option<&[usize]>, &Solved) -> Vec<f64> + Sync;
 
 pub(crate) fn check_cancel(p: &dyn Progress) -> Result<()> {
     if p.cancelled() {
@@ -421,7 +425,7 @@ fn solve_rows(
     let owner = |b: Budget| -> Option<QubitIx> {
         match b {
             Budget::Readout(q) => Some(q),
-            Budget::Intrinsic(k) | Budget::Context(k, _) => {
+            Budget::Intrinsic(k) | Budget::Context(k, _) | Budget::GateContext(k, _) => {
                 let kind = kinds.get(k);
                 (kind.gate.arity() == 1).then_some(kind.qubits[0])
             }
@@ -583,10 +587,14 @@ pub(crate) fn rescore(
     let marginals: Vec<Option<&Vec<u64>>> =
         data.counts.iter().map(|m| m.as_ref().filter(|m| m.iter().sum::<u64>() > 0)).collect();
     let (requirement, deviation) = requirements(&marginals, predictions, &a.thresholds);
-    let (directed, intrinsic) = scores_of(a, all, &requirement, scorer, &quiet)?;
+    let source = data.source.as_deref();
+    let (directed, intrinsic) = scores_of(a, all, source, &requirement, scorer, &quiet)?;
     check_cancel(progress)?;
-    let estimate =
-        if with_estimate { Some(scores_of(a, all, &deviation, scorer, &quiet)?) } else { None };
+    let estimate = if with_estimate {
+        Some(scores_of(a, all, source, &deviation, scorer, &quiet)?)
+    } else {
+        None
+    };
     Ok(Rescored { directed, intrinsic, estimate })
 }
 
@@ -595,6 +603,7 @@ pub(crate) fn rescore(
 fn scores_of(
     a: &Analysis,
     all: &[rows::Row],
+    source: Option<&[usize]>,
     requirement: &[f64],
     scorer: &Scorer,
     progress: &dyn Progress,
@@ -602,7 +611,7 @@ fn scores_of(
     // The point pass's problems hold exactly when the rows are the analysis' own.
     let own = std::ptr::eq(all.as_ptr(), a.rows.rows.as_ptr()) && all.len() == a.rows.rows.len();
     let solved = solve_rows(a, all, requirement, own.then_some(&a.templates), progress)?;
-    let directed = scorer(a, all, &solved);
+    let directed = scorer(a, all, source, &solved);
     let intrinsic =
         (0..a.rows.kinds.len() as u32).map(|k| intrinsic_slack(a, &solved, k)).collect();
     Ok((directed, intrinsic))
@@ -615,7 +624,7 @@ pub(crate) fn estimate(
     scorer: &Scorer,
     progress: &dyn Progress,
 ) -> Result<(Vec<f64>, Vec<f64>)> {
-    scores_of(a, &a.rows.rows, &a.deviation, scorer, &Nested(progress))
+    scores_of(a, &a.rows.rows, None, &a.deviation, scorer, &Nested(progress))
 }
 
 /// Scores of one rescoring: directed scores in `scorer`'s pair order and intrinsic slack

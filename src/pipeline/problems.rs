@@ -19,16 +19,23 @@ pub enum Budget {
     Intrinsic(KindIx),
     /// Context slack kappa_(k, r), per occurrence of k while r is active.
     Context(KindIx, QubitIx),
+    /// Context slack per occurrence of k while coupler `d` (an index into the layout's
+    /// couplers) runs its two-qubit gate in the same layer: the aggressor is that gate, not
+    /// one of its qubits. Only the gate view of a victim's rows uses it (`audit::gates`).
+    GateContext(KindIx, usize),
 }
 
 impl Budget {
     fn var_kind(self) -> VarKind {
         match self {
-            Budget::Context(..) => VarKind::Context,
+            Budget::Context(..) | Budget::GateContext(..) => VarKind::Context,
             _ => VarKind::Intrinsic,
         }
     }
 }
+
+/// The coefficient terms of a row given its global index.
+pub type RowTerms<'a> = dyn Fn(usize, &Row) -> Vec<(Budget, f64)> + 'a;
 
 /// One covering problem with its variables named.
 #[derive(Clone, Debug)]
@@ -51,6 +58,30 @@ pub fn row_budgets(row: &Row) -> Vec<(Budget, f64)> {
     t
 }
 
+/// Marks as reference rows the rows whose every context term is fixed by an earlier stage.
+///
+/// In a coupler's problem a two-qubit row can have context only on its one-qubit operations
+/// (a spectator driven between the gates, idle during them), whose budgets the qubit stage
+/// has set: nothing free in stage 2 could carry what those fixed budgets leave, while the
+/// coupler's own operations ran with no aggressor. For the coupler's free variables the row is
+/// a reference row, and stage 1 charges the rest to its intrinsic budgets, as the permutation
+/// null already does for rows left without a free context term. Rows of problems without
+/// fixed budgets are unchanged.
+fn settled_contexts_as_reference(lp: &mut CoveringProblem) {
+    if lp.fixed.is_empty() {
+        return;
+    }
+    for row in lp.rows.iter_mut().filter(|r| !r.reference) {
+        let free_context = row
+            .terms
+            .iter()
+            .any(|&(v, c)| c > 0.0 && lp.kinds[v] == VarKind::Context && lp.fixed[v].is_none());
+        if !free_context {
+            row.reference = true;
+        }
+    }
+}
+
 impl Problem {
     /// Builds a problem over `rows` (global indices into `all`), with requirements
     /// `requirement[global index]`; `fixed` gives the value of budgets set elsewhere.
@@ -60,11 +91,23 @@ impl Problem {
         requirement: &[f64],
         fixed: &dyn Fn(Budget) -> Option<f64>,
     ) -> Problem {
+        Problem::build_with(all, rows, requirement, fixed, &|_, row| row_budgets(row))
+    }
+
+    /// [`Problem::build`] with the terms of each row given by `terms(global index, row)`
+    /// instead of [`row_budgets`] (the gate view of a victim's rows).
+    pub fn build_with(
+        all: &[Row],
+        rows: Vec<usize>,
+        requirement: &[f64],
+        fixed: &dyn Fn(Budget) -> Option<f64>,
+        terms: &RowTerms,
+    ) -> Problem {
         let mut vars = Vec::new();
         let mut index = HashMap::new();
         let mut lp_rows = Vec::with_capacity(rows.len());
         for &i in &rows {
-            let terms = row_budgets(&all[i])
+            let terms = terms(i, &all[i])
                 .into_iter()
                 .map(|(b, c)| {
                     let v = *index.entry(b).or_insert_with(|| {
@@ -84,12 +127,9 @@ impl Problem {
         let fixed_values: Vec<Option<f64>> = vars.iter().map(|&b| fixed(b)).collect();
         let fixed_values =
             if fixed_values.iter().any(Option::is_some) { fixed_values } else { Vec::new() };
-        Problem {
-            vars,
-            index,
-            lp: CoveringProblem { kinds, fixed: fixed_values, rows: lp_rows },
-            rows,
-        }
+        let mut lp = CoveringProblem { kinds, fixed: fixed_values, rows: lp_rows };
+        settled_contexts_as_reference(&mut lp);
+        Problem { vars, index, lp, rows }
     }
 
     /// The same problem with other requirements (`requirement[global index]`) and fixed
@@ -107,6 +147,7 @@ impl Problem {
         let fixed_values: Vec<Option<f64>> = p.vars.iter().map(|&b| fixed(b)).collect();
         p.lp.fixed =
             if fixed_values.iter().any(Option::is_some) { fixed_values } else { Vec::new() };
+        settled_contexts_as_reference(&mut p.lp);
         p
     }
 

@@ -1,6 +1,7 @@
 //! CSV outputs: `edges.csv` (ranked edges), `replicates.csv` (every bootstrap replicate of
 //! every directed pair, long form), `adjacency.csv` (the full victim x aggressor matrix),
-//! `intrinsic.csv` (per-kind intrinsic slack) and `rows.csv` (per-row fit diagnostics).
+//! `intrinsic.csv` (per-kind intrinsic slack), `rows.csv` (per-row fit diagnostics) and
+//! `gate_pairs.csv` (ranked gate pairs).
 //!
 //! One value per cell, at full precision. Column names are the field names of `audit.json`,
 //! nested fields joined with `.` (as `pandas.json_normalize` names them), so a column means
@@ -91,6 +92,75 @@ fn occurrence_cells(c: Option<&OccurrenceConfidence>) -> Vec<String> {
         }),
         c.map(|c| (c.level, c.method.as_str())),
     )
+}
+
+/// Renders `gate_pairs.csv`: one row per gate pair in ranked order (the fields of
+/// `audit.json`'s `gates.pairs`), written only when the audit measured gate pairs.
+pub struct GatePairsCsv;
+
+/// The columns of `gate_pairs.csv`, in order.
+pub fn gate_pairs_header() -> Vec<String> {
+    [
+        "rank",
+        "a",
+        "a_gate",
+        "b",
+        "b_gate",
+        "victim",
+        "aggressor",
+        "verdict",
+        "reason_code",
+        "score_tvd_per_layer",
+        "a_from_b_tvd_per_layer",
+        "b_from_a_tvd_per_layer",
+        "estimate_tvd_per_layer",
+    ]
+    .map(String::from)
+    .into_iter()
+    .chain(confidence_columns("tvd_per_layer"))
+    .chain(
+        ["detection_limit_tvd_per_layer", "p_value", "confounded_with", "reason"].map(String::from),
+    )
+    .collect()
+}
+
+impl Render for GatePairsCsv {
+    fn file_name(&self) -> &'static str {
+        "gate_pairs.csv"
+    }
+    fn render(&self, r: &AuditReport) -> Vec<u8> {
+        let rows = r
+            .gates
+            .pairs
+            .iter()
+            .map(|e| {
+                let mut row = vec![
+                    opt(e.rank),
+                    e.a.clone(),
+                    e.a_gate.clone().unwrap_or_default(),
+                    e.b.clone(),
+                    e.b_gate.clone().unwrap_or_default(),
+                    e.victim.clone(),
+                    e.aggressor.clone(),
+                    e.verdict.word().to_string(),
+                    e.reason_code.code().to_string(),
+                    num(e.score_tvd_per_layer),
+                    opt_num(e.a_from_b_tvd_per_layer),
+                    opt_num(e.b_from_a_tvd_per_layer),
+                    num(e.estimate_tvd_per_layer),
+                ];
+                row.extend(layer_cells(e.confidence.as_ref()));
+                row.extend([
+                    num(e.detection_limit_tvd_per_layer),
+                    num(e.p_value),
+                    e.confounded_with.join(";"),
+                    e.reason.clone(),
+                ]);
+                row
+            })
+            .collect();
+        to_bytes(&gate_pairs_header(), rows)
+    }
 }
 
 /// Renders `edges.csv`: one row per edge in ranked order, one value per cell.

@@ -9,8 +9,10 @@ use std::fmt::Write;
 
 use super::markup::{escape, px, verdict_mark};
 use super::svg::{self, Doc};
-use super::terminal::{fit_words, outside_interval, per_mille, quantity_words, summary_words};
-use super::{AuditReport, DirectedReport, EdgeReport, ReasonCode, Render, Verdict};
+use super::terminal::{
+    fit_words, outside_interval, per_mille, quantity_words, summary_words, unit_text,
+};
+use super::{AuditReport, DirectedReport, EdgeReport, GatePairReport, ReasonCode, Render, Verdict};
 
 /// Renders `report.html`.
 pub struct ReportHtml;
@@ -286,6 +288,7 @@ pub fn html(r: &AuditReport) -> String {
     );
 
     edge_section(&mut o, r);
+    gate_section(&mut o, r);
     drill_section(&mut o, r);
     intrinsic_section(&mut o, r);
 
@@ -567,6 +570,82 @@ fn edge_section(o: &mut String, r: &AuditReport) {
         "<p class=\"hint\">a&lt;-b is the crosstalk onto a from b. {} Sensitivity is about the smallest estimate these circuits could tell from zero (first order, depolarizing-like error): a clean edge can still hide crosstalk below it. Attribution is the range of the score over near-optimal budgets; leave-one-out drops the most influential circuit. An estimate marked * lies outside its interval (its replicates ran to one side of it): act on the interval.</p></section>",
         escape(&quantity_words(r))
     );
+}
+
+/// The ranked gate-pair table (absent when the audit measured no gate pair).
+fn gate_section(o: &mut String, r: &AuditReport) {
+    if r.gates.pairs.is_empty() {
+        return;
+    }
+    let _ = writeln!(o, "<section id=\"gate-pairs\"><h2>Gate pairs, worst first</h2>");
+    let _ = writeln!(
+        o,
+        "<p class=\"hint\">A coupler's two-qubit gate disturbed while a nearby gate runs in the same layer, or while a nearby qubit is driven, and a qubit disturbed by a nearby gate. The score is the victim's context slack per layer while the aggressor runs; the layout picture draws these pairs as arcs with the arrow at the victim. Flagged pairs should not share a layer (see <code>slackmap hints</code>).</p>"
+    );
+    let heads = [
+        ("victim", false),
+        ("aggressor", false),
+        ("rank", true),
+        ("verdict", false),
+        ("why", false),
+        ("score x1e-3", true),
+        ("reverse x1e-3", true),
+        ("estimate x1e-3", true),
+        ("interval x1e-3", true),
+        ("detection limit x1e-3", true),
+        ("p", true),
+        ("confounded with", false),
+        ("reason", false),
+    ];
+    let unit = |e: &GatePairReport, u: &str| {
+        if u == e.a {
+            unit_text(&e.a, e.a_gate.as_deref())
+        } else {
+            unit_text(&e.b, e.b_gate.as_deref())
+        }
+    };
+    let rows = r
+        .gates
+        .pairs
+        .iter()
+        .map(|e| {
+            let (lead, reverse) = if e.victim == e.a {
+                (e.a_from_b_tvd_per_layer, e.b_from_a_tvd_per_layer)
+            } else {
+                (e.b_from_a_tvd_per_layer, e.a_from_b_tvd_per_layer)
+            };
+            let opt = |x: Option<f64>| x.map_or(num("-", None), pm_cell);
+            let verdict = Td {
+                text: format!("{}{}", mark_icon(e.verdict), e.verdict.word()),
+                sort: None,
+                class: "verdict",
+                raw: true,
+            };
+            (
+                format!("gate-pair verdict-{}", e.verdict.word()),
+                vec![
+                    Td { class: "id", ..td(unit(e, &e.victim)) },
+                    td(unit(e, &e.aggressor)),
+                    num(
+                        e.rank.map(|k| k.to_string()).unwrap_or_else(|| "-".into()),
+                        e.rank.map(|k| k as f64),
+                    ),
+                    verdict,
+                    Td { class: "code", ..td(e.reason_code.code()) },
+                    opt(lead),
+                    opt(reverse),
+                    pm_cell(e.estimate_tvd_per_layer),
+                    interval_cell(e.confidence.as_ref()),
+                    pm_cell(e.detection_limit_tvd_per_layer),
+                    num(format!("{:.3}", e.p_value), Some(e.p_value)),
+                    td(e.confounded_with.join(", ")),
+                    Td { class: "words", ..td(e.reason.clone()) },
+                ],
+            )
+        })
+        .collect();
+    write_table_with(o, "gate-pair-table", "sortable pinned", &heads, rows);
+    o.push_str("</section>\n");
 }
 
 /// Per flagged edge: both directions' numbers, the driven/idle split, the per-kind values,

@@ -74,6 +74,11 @@ pub struct AuditReport {
     pub readout: Vec<ReadoutReport>,
     /// Non-fatal findings, each once.
     pub warnings: Vec<WarningReport>,
+    /// Gate-on-gate crosstalk: a coupler's two-qubit gate disturbed by a nearby gate or a
+    /// driven qubit, and a qubit disturbed by a nearby gate. Absent when the circuits measured
+    /// no gate pair apart from other neighbours (`design --gate-pairs` does).
+    #[serde(default, skip_serializing_if = "GateReport::is_empty")]
+    pub gates: GateReport,
     /// Per-row fit diagnostics, written to `rows.csv` only (not part of `audit.json`, whose
     /// size they would multiply); empty when a report is re-read from `audit.json`.
     #[serde(skip)]
@@ -732,6 +737,12 @@ pub struct IntrinsicReport {
 }
 
 impl AuditReport {
+    /// The number of directed scores a bootstrap replicate holds: the qubit directions
+    /// (`directed`), then the gate directions (`gates.directed`).
+    pub fn scored_directions(&self) -> usize {
+        self.directed.len() + self.gates.directed.len()
+    }
+
     /// The intrinsic kinds in layout order: by the layout index of their qubits (so `q2`
     /// comes before `q10`), one-qubit kinds before two-qubit kinds on the same first qubit,
     /// then by label.
@@ -750,6 +761,102 @@ impl AuditReport {
         v.sort_by_cached_key(|k| key(k));
         v
     }
+}
+
+/// Gate-on-gate crosstalk of an audit (`audit.json`'s `gates`).
+///
+/// Units are qubits (`q7`) and couplers' two-qubit gates (`q5-q6`). Each direction is scored on
+/// the victim's *gate view*: its rows with the context of its own operations charged to the
+/// gate an aggressor qubit ran in that layer, or to the qubit when it ran none. Scores, null,
+/// leave-one-out, intervals and verdicts follow the same rules as `directed` and `edges`.
+#[derive(Clone, Debug, Default, Serialize, Deserialize, PartialEq, JsonSchema)]
+pub struct GateReport {
+    /// One entry per measured direction: victim a coupler (`q5-q6`) beside a coupler or a
+    /// qubit, or a qubit beside a coupler. Same fields as [`DirectedReport`]; the score
+    /// averages the context slack of the victim's own operations (its two-qubit gate, or its
+    /// one-qubit gates and idles) while the aggressor ran.
+    pub directed: Vec<DirectedReport>,
+    /// One entry per unordered pair of units with a measured direction, ranked like `edges`.
+    pub pairs: Vec<GatePairReport>,
+    /// The directed estimates as sparse matrices.
+    pub matrix: GateMatrix,
+}
+
+impl GateReport {
+    /// True when no gate direction was measured.
+    pub fn is_empty(&self) -> bool {
+        self.directed.is_empty() && self.pairs.is_empty()
+    }
+}
+
+/// One gate pair {a, b}: two couplers' gates, or a coupler's gate and a qubit.
+#[derive(Clone, Debug, Serialize, Deserialize, PartialEq, JsonSchema)]
+pub struct GatePairReport {
+    /// First unit: a coupler (`q5-q6`) or a qubit (`q7`); a coupler comes first.
+    pub a: String,
+    /// The two-qubit gate of `a` (`cz`), absent for a qubit.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub a_gate: Option<String>,
+    /// Second unit.
+    pub b: String,
+    /// The two-qubit gate of `b`, absent for a qubit.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub b_gate: Option<String>,
+    /// The larger directed score, TVD per layer.
+    #[serde(with = "special::number")]
+    #[schemars(with = "special::Number")]
+    pub score_tvd_per_layer: f64,
+    /// X(a <- b), TVD per layer; absent when that direction was not measured.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub a_from_b_tvd_per_layer: Option<f64>,
+    /// X(b <- a), TVD per layer; absent when that direction was not measured.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub b_from_a_tvd_per_layer: Option<f64>,
+    /// Rank among gate pairs with a positive score (1 = worst); null for "none found".
+    pub rank: Option<usize>,
+    /// The larger directed unlimited-shot estimate, TVD per layer; `confidence` is around it.
+    #[serde(with = "special::number")]
+    #[schemars(with = "special::Number")]
+    pub estimate_tvd_per_layer: f64,
+    /// Permutation-null detection limit of the leading direction, TVD per layer.
+    #[serde(with = "special::number")]
+    #[schemars(with = "special::Number")]
+    pub detection_limit_tvd_per_layer: f64,
+    /// Permutation mid-p value of the leading direction.
+    #[serde(with = "special::number")]
+    #[schemars(with = "special::Number")]
+    pub p_value: f64,
+    /// Victim of the leading direction (`a` or `b`).
+    pub victim: String,
+    /// Aggressor of the leading direction.
+    pub aggressor: String,
+    /// Other aggressors that could carry the slack (for `confounded`).
+    pub confounded_with: Vec<String>,
+    /// Bootstrap confidence of the estimate; null when no replicates were run.
+    pub confidence: Option<Confidence>,
+    /// The verdict, by the rules of `edges`.
+    pub verdict: Verdict,
+    /// Why, as a short code.
+    pub reason_code: ReasonCode,
+    /// Why, in words, naming the direction that decided it.
+    pub reason: String,
+}
+
+/// Directed gate estimates as sparse matrices: each entry is (victim index, aggressor index,
+/// unlimited-shot estimate in TVD per layer) over the lists `couplers` and `qubits`; a
+/// direction that was not measured has no entry.
+#[derive(Clone, Debug, Default, Serialize, Deserialize, PartialEq, JsonSchema)]
+pub struct GateMatrix {
+    /// Couplers, as `q5-q6`, in layout order.
+    pub couplers: Vec<String>,
+    /// Qubit ids, in layout order.
+    pub qubits: Vec<String>,
+    /// Victim coupler, aggressor coupler.
+    pub coupler_from_coupler: Vec<(usize, usize, f64)>,
+    /// Victim coupler, aggressor qubit.
+    pub coupler_from_qubit: Vec<(usize, usize, f64)>,
+    /// Victim qubit, aggressor coupler.
+    pub qubit_from_coupler: Vec<(usize, usize, f64)>,
 }
 
 /// Readout of one qubit.
@@ -797,7 +904,8 @@ pub trait Render {
 }
 
 /// Every file an audit writes, in order (`rows.csv` only when the report carries rows: an
-/// audit and a merge do, a re-render from `audit.json` does not).
+/// audit and a merge do, a re-render from `audit.json` does not; `gate_pairs.csv` only when
+/// the audit measured gate pairs).
 pub fn audit_files(report: &AuditReport) -> Vec<(String, Vec<u8>)> {
     let renderers: [&dyn Render; 8] = [
         &json::AuditJson,
@@ -813,6 +921,10 @@ pub fn audit_files(report: &AuditReport) -> Vec<(String, Vec<u8>)> {
         renderers.iter().map(|r| (r.file_name().to_string(), r.render(report))).collect();
     if !report.rows.is_empty() {
         files.push((csv::RowsCsv.file_name().to_string(), csv::RowsCsv.render(report)));
+    }
+    if !report.gates.is_empty() {
+        let g = csv::GatePairsCsv;
+        files.push((g.file_name().to_string(), g.render(report)));
     }
     files
 }

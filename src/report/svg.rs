@@ -12,7 +12,7 @@ use std::fmt::Write;
 
 use super::colour::{self, Ramp};
 use super::markup::{escape, nice_ceil, px, tick_label, ticks, verdict_mark, verdict_mark_open};
-use super::{AuditReport, Confidence, DirectedReport, EdgeReport, Render, Verdict};
+use super::{AuditReport, Confidence, DirectedReport, EdgeReport, GatePairReport, Render, Verdict};
 
 /// Whether an SVG is a file of its own or sits inside an HTML page (where the namespace is
 /// implied and naming it would put a URL in a page that promises to have none).
@@ -726,6 +726,8 @@ pub fn layout(r: &AuditReport, doc: Doc) -> String {
     }
     s.push_str("</g>\n");
 
+    s.push_str(&gate_arcs(r, &index, &|i| at(i), &score_scale, (wmin, wmax), dpx));
+
     // Qubits.
     let slack = qubit_slack(r);
     let qtop_pm = nice_ceil(slack.values().map(|q| q.weighted * 1e3).fold(0.0, f64::max));
@@ -849,6 +851,27 @@ pub fn layout(r: &AuditReport, doc: Doc) -> String {
         px(ly - 4.0)
     );
     s.push_str(&text(lx + 48.0, ly, 11.0, "start", " class=\"zero-key\"", "score exactly 0"));
+    if r.gates.pairs.iter().any(|e| e.score_tvd_per_layer > 0.0) {
+        ly += 20.0;
+        let _ = writeln!(
+            s,
+            "<path d=\"M{} {}Q{} {} {} {}\" fill=\"none\" stroke=\"#555555\" stroke-width=\"1.5\" stroke-dasharray=\"6 2.5\"/>",
+            px(lx),
+            px(ly - 2.0),
+            px(lx + 20.0),
+            px(ly - 12.0),
+            px(lx + 40.0),
+            px(ly - 2.0)
+        );
+        s.push_str(&text(
+            lx + 48.0,
+            ly,
+            11.0,
+            "start",
+            " class=\"gate-key\"",
+            "gate pair, arrow at the victim gate or qubit",
+        ));
+    }
     ly += 26.0;
     let (m, next) = mark_legend(lx, ly);
     s.push_str(&m);
@@ -879,6 +902,106 @@ pub fn layout(r: &AuditReport, doc: Doc) -> String {
     }
     s.push_str("</g>\n</svg>\n");
     s
+}
+
+/// The gate pairs with a positive score as arcs between the units' centres (a coupler's
+/// midpoint, or a qubit), bowed to one side so that they do not lie on the couplers, coloured
+/// and sized by the pair's score like the half-edges, with an arrowhead at the victim of the
+/// leading direction. Flagged pairs carry their verdict mark at the arc's middle.
+fn gate_arcs(
+    r: &AuditReport,
+    index: &HashMap<&str, usize>,
+    at: &dyn Fn(usize) -> (f64, f64),
+    scale: &ScoreScale,
+    (wmin, wmax): (f64, f64),
+    dpx: f64,
+) -> String {
+    let centre = |unit: &str| -> Option<(f64, f64)> {
+        match unit.split_once('-') {
+            Some((a, b)) if index.contains_key(a) && index.contains_key(b) => {
+                let (p, q) = (at(index[a]), at(index[b]));
+                Some(((p.0 + q.0) / 2.0, (p.1 + q.1) / 2.0))
+            }
+            _ => index.get(unit).map(|&i| at(i)),
+        }
+    };
+    let mut pairs: Vec<&GatePairReport> =
+        r.gates.pairs.iter().filter(|e| e.score_tvd_per_layer > 0.0).collect();
+    if pairs.is_empty() {
+        return String::new();
+    }
+    pairs.sort_by(|a, b| a.score_tvd_per_layer.total_cmp(&b.score_tvd_per_layer));
+    let mut s = String::from("<g class=\"gate-pairs\">\n");
+    for e in pairs {
+        let (Some(v), Some(g)) = (centre(&e.victim), centre(&e.aggressor)) else { continue };
+        let (dx, dy) = (v.0 - g.0, v.1 - g.1);
+        let len = (dx * dx + dy * dy).sqrt();
+        if len < 1.0 {
+            continue;
+        }
+        // Control point off the chord's middle, a third of its length to the side.
+        let (mx, my) = ((v.0 + g.0) / 2.0 - dy / 3.0, (v.1 + g.1) / 2.0 + dx / 3.0);
+        let t = scale.at(e.score_tvd_per_layer);
+        let (stroke, w) = (colour::SCORE.hex(t), wmin + (wmax - wmin) * t);
+        // Arrowhead at the victim along the curve's end tangent (control point to victim).
+        let (tx, ty) = (v.0 - mx, v.1 - my);
+        let tl = (tx * tx + ty * ty).sqrt().max(1e-9);
+        let (ux, uy) = (tx / tl, ty / tl);
+        let head = (dpx * 0.08).clamp(4.0, 10.0) + w;
+        let tip = (v.0 - ux * dpx * 0.05, v.1 - uy * dpx * 0.05);
+        let base = (tip.0 - ux * head, tip.1 - uy * head);
+        let (nx, ny) = (-uy * head * 0.5, ux * head * 0.5);
+        let _ = write!(
+            s,
+            "<g class=\"gate-pair\" data-victim=\"{}\" data-aggressor=\"{}\" data-verdict=\"{}\"><title>{}</title><path d=\"M{} {}Q{} {} {} {}\" fill=\"none\" stroke=\"{stroke}\" stroke-width=\"{}\" stroke-dasharray=\"{} {}\" stroke-linecap=\"round\"/><path d=\"M{} {}L{} {}L{} {}Z\" fill=\"{stroke}\"/>",
+            escape(&e.victim),
+            escape(&e.aggressor),
+            e.verdict.word(),
+            escape(&gate_pair_title(e)),
+            px(g.0),
+            px(g.1),
+            px(mx),
+            px(my),
+            px(base.0),
+            px(base.1),
+            px(w),
+            px(w * 4.0),
+            px(w * 1.5),
+            px(tip.0),
+            px(tip.1),
+            px(base.0 + nx),
+            px(base.1 + ny),
+            px(base.0 - nx),
+            px(base.1 - ny)
+        );
+        if e.verdict != Verdict::Clean {
+            // The curve's middle: (g + 2 m + v) / 4 for a quadratic Bezier at t = 1/2.
+            let (cx, cy) = ((g.0 + 2.0 * mx + v.0) / 4.0, (g.1 + 2.0 * my + v.1) / 4.0);
+            s.push_str(&verdict_mark(e.verdict, cx, cy, (dpx * 0.09).clamp(3.0, 9.0)));
+        }
+        s.push_str("</g>\n");
+    }
+    s.push_str("</g>\n");
+    s
+}
+
+fn gate_pair_title(e: &GatePairReport) -> String {
+    let unit = |u: &str| {
+        if u == e.a {
+            crate::report::terminal::unit_text(&e.a, e.a_gate.as_deref())
+        } else {
+            crate::report::terminal::unit_text(&e.b, e.b_gate.as_deref())
+        }
+    };
+    format!(
+        "gate pair {} <- {}: {} (score {} x1e-3 per layer; {}); {}",
+        unit(&e.victim),
+        unit(&e.aggressor),
+        e.verdict.word(),
+        pm(e.score_tvd_per_layer),
+        interval_words(&e.confidence),
+        e.reason
+    )
 }
 
 fn edge_title(e: &EdgeReport) -> String {

@@ -12,7 +12,7 @@ use std::fmt::Write;
 
 use comfy_table::{presets, Attribute, Cell, CellAlignment, Color, ContentArrangement, Table};
 
-use super::{AuditReport, Confidence, EdgeReport, ReasonCode, Verdict};
+use super::{AuditReport, Confidence, EdgeReport, GatePairReport, ReasonCode, Verdict};
 
 /// How terminal text is drawn.
 #[derive(Clone, Copy, Debug, Default, PartialEq, Eq)]
@@ -538,6 +538,7 @@ pub fn render(r: &AuditReport, opt: &TerminalOptions) -> String {
         );
     }
 
+    render_gate_pairs(r, opt, &mut out);
     render_adjacency(r, opt, &mut out);
     render_intrinsic(r, style, &mut out);
 
@@ -550,6 +551,111 @@ pub fn render(r: &AuditReport, opt: &TerminalOptions) -> String {
     out.push('\n');
     prose(&mut out, &format!("Caution: {}", r.caution));
     out
+}
+
+/// A gate pair's unit as the tables write it: `cz q5-q6` for a coupler's gate, `q7` for a
+/// qubit.
+pub fn unit_text(unit: &str, gate: Option<&str>) -> String {
+    match gate {
+        Some(g) => format!("{g} {unit}"),
+        None => unit.to_string(),
+    }
+}
+
+/// The gate-pair table: ranked pairs, victim and aggressor of the leading direction, both
+/// directions' scores. Nothing when the audit measured no gate pair.
+fn render_gate_pairs(r: &AuditReport, opt: &TerminalOptions, out: &mut String) {
+    let style = opt.style;
+    let pairs = &r.gates.pairs;
+    if pairs.is_empty() {
+        return;
+    }
+    let shown: Vec<&GatePairReport> =
+        pairs.iter().filter(|e| e.rank.is_some()).take(opt.max_edges).collect();
+    let ranked = pairs.iter().filter(|e| e.rank.is_some()).count();
+    let _ = writeln!(
+        out,
+        "\n{}",
+        bold("Gate pairs with context slack, worst first (x1e-3 TVD per layer)", style)
+    );
+    if !shown.is_empty() {
+        let level = shown
+            .iter()
+            .find_map(|e| e.confidence.as_ref())
+            .map_or(String::new(), |c| format!("{:.0}% ", c.level * 100.0));
+        let estimate = format!("estimate\n[{level}interval]");
+        let mut cols = columns(&[
+            ("rank", 4),
+            ("victim", 0),
+            ("aggressor", 0),
+            ("score", 0),
+            ("reverse", 5),
+            (estimate.as_str(), 0),
+            ("p", 3),
+            ("limit", 6),
+            ("verdict", 0),
+            ("why", 1),
+        ]);
+        let gate_of = |e: &GatePairReport, unit: &str| {
+            if unit == e.a {
+                unit_text(&e.a, e.a_gate.as_deref())
+            } else {
+                unit_text(&e.b, e.b_gate.as_deref())
+            }
+        };
+        for e in &shown {
+            let (lead, reverse) = if e.victim == e.a {
+                (e.a_from_b_tvd_per_layer, e.b_from_a_tvd_per_layer)
+            } else {
+                (e.b_from_a_tvd_per_layer, e.a_from_b_tvd_per_layer)
+            };
+            let cell = |x: Option<f64>| x.map_or("-".to_string(), per_mille);
+            let cells = [
+                number(e.rank.map(|k| k.to_string()).unwrap_or_default()),
+                text(gate_of(e, &e.victim)),
+                text(gate_of(e, &e.aggressor)),
+                number(cell(lead)),
+                number(cell(reverse)),
+                number(estimate_text(e.estimate_tvd_per_layer, e.confidence.as_ref())),
+                number(format!("{:.3}", e.p_value)),
+                number(per_mille(e.detection_limit_tvd_per_layer)),
+                verdict_cell(e.verdict, style),
+                text(e.reason_code.code()),
+            ];
+            push_row(&mut cols, cells);
+        }
+        fitted_table(cols, style, "gate_pairs.csv", out);
+    }
+    if ranked > shown.len() {
+        let _ =
+            writeln!(out, "... {} more ranked gate pairs in gate_pairs.csv", ranked - shown.len());
+    }
+    let _ = writeln!(
+        out,
+        "{} gate pairs: none found (score exactly zero, not ranked).",
+        pairs.len() - ranked
+    );
+    let flagged: Vec<String> = pairs
+        .iter()
+        .filter(|e| e.verdict <= Verdict::Watch)
+        .map(|e| {
+            format!(
+                "{} and {}",
+                unit_text(&e.a, e.a_gate.as_deref()),
+                unit_text(&e.b, e.b_gate.as_deref())
+            )
+        })
+        .collect();
+    if !flagged.is_empty() {
+        out.push_str(&wrap(
+            &format!(
+                "  Do not schedule in one layer: {}. The score is the victim's context slack per layer while the aggressor runs; it bounds unmodelled error and names no mechanism.",
+                flagged.join("; ")
+            ),
+            style.width,
+            "",
+        ));
+    }
 }
 
 /// Median and largest finite sensitivity of some edges, in 1e-3 units; None when no edge

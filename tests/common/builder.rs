@@ -313,6 +313,7 @@ impl AuditBuilder {
             intrinsic,
             readout: Vec::new(),
             warnings: Vec::new(),
+            gates: Default::default(),
             rows: Vec::new(),
         }
     }
