@@ -81,6 +81,15 @@ pub(crate) struct Directed {
     pub isolated: f64,
     /// Other aggressors that were active together with r on this victim.
     pub co_active: Vec<QubitIx>,
+    /// False when no row that carries r's label shares its stratum with a row that does not:
+    /// no permutation can move the label, so the null cannot test the direction.
+    pub testable: bool,
+    /// The score on the rows that can test r (see [`testing_rows`]): what the null, the
+    /// p-value, the detection limit and leave-one-out are about. Equal to `score` when every
+    /// row can; 0 when none can.
+    pub test_score: f64,
+    /// Rows left out of the test because r's label never varies in their stratum.
+    pub untestable_rows: usize,
 }
 
 /// The assessment of every directed pair, keyed by (victim, aggressor).
@@ -263,12 +272,36 @@ fn assess_pair(
     }
     d.co_active = co.into_iter().collect();
 
-    // Context-permutation null on the victim's problem.
-    if cfg.null_replicates > 0 {
-        let strata: Vec<u64> = p.rows.iter().map(|&i| stratum(a, i, q, r)).collect();
+    // The rows that can test r: the permutation moves r's label only within strata, so a
+    // labelled row in a stratum where every row carries the label keeps it in every
+    // replicate, and its slack comes back unchanged; such rows (all-active circuits, where
+    // no circuit idles r with the same other neighbours active) only add ties. The test, its
+    // null, leave-one-out and corroboration use the other rows; the score and the estimate
+    // keep every row.
+    let all_strata: Vec<u64> = p.rows.iter().map(|&i| stratum(a, i, q, r)).collect();
+    let testing = testing_rows(&p.lp.rows, &r_vars, &all_strata);
+    d.untestable_rows = p.rows.len() - testing.len();
+    let restricted;
+    let (tp, tsol, strata): (&Problem, &TwoStageSolution, Vec<u64>) =
+        if testing.len() == p.rows.len() {
+            (p, sol, all_strata)
+        } else {
+            let t = p.restricted(&testing);
+            let s = t.lp.solve()?;
+            restricted = (t, s);
+            (&restricted.0, &restricted.1, testing.iter().map(|&j| all_strata[j]).collect())
+        };
+    let labelled = |row: &crate::slack::lp::Row| {
+        row.terms.iter().any(|&(v, c)| c > 0.0 && r_vars.contains(&v))
+    };
+    d.testable = tp.lp.rows.iter().any(labelled);
+    d.test_score = if d.testable { score(tsol, &w) } else { 0.0 };
+
+    // Context-permutation null on the rows that can test r.
+    if cfg.null_replicates > 0 && d.testable {
         let seed = pair_seed(cfg.seed, q, r);
         d.null = crate::slack::null::permutation_null(
-            &p.lp,
+            &tp.lp,
             &r_vars,
             &strata,
             &w,
@@ -279,11 +312,10 @@ fn assess_pair(
         .map(clip)
         .collect();
         d.limit = crate::slack::null::detection_limit(&d.null, cfg.alpha);
-        d.p_value = crate::slack::null::p_value(d.score, &d.null);
+        d.p_value = crate::slack::null::p_value(d.test_score, &d.null);
     } else {
         d.p_value = 1.0;
     }
-    let strata = || -> Vec<u64> { p.rows.iter().map(|&i| stratum(a, i, q, r)).collect() };
 
     // Isolated evidence: the same problem restricted to rows where no other neighbour of q
     // was active. A score that only multi-aggressor rows carry cannot be told apart from
@@ -323,33 +355,33 @@ fn assess_pair(
     // Supporting rows: rows with r active whose requirement the intrinsic budgets alone do
     // not meet, so that they need context slack; leave-one-out drops their circuits.
     let mut load: HashMap<u32, f64> = HashMap::new();
-    for (j, row) in p.lp.rows.iter().enumerate() {
+    for (j, row) in tp.lp.rows.iter().enumerate() {
         if !row.terms.iter().any(|&(v, c)| c > 0.0 && r_vars.contains(&v)) {
             continue;
         }
         let intrinsic: f64 = row
             .terms
             .iter()
-            .filter(|&&(v, _)| !matches!(p.vars[v], Budget::Context(..)))
-            .map(|&(v, c)| c * sol.values[v])
+            .filter(|&&(v, _)| !matches!(tp.vars[v], Budget::Context(..)))
+            .map(|&(v, c)| c * tsol.values[v])
             .sum();
         let need = row.requirement - intrinsic;
         if need > SUPPORT_TOLERANCE {
             d.supporting_rows += 1;
-            *load.entry(a.rows.rows[p.rows[j]].circuit).or_default() += need;
+            *load.entry(a.rows.rows[tp.rows[j]].circuit).or_default() += need;
         }
     }
     d.supporting_circuits = load.len();
-    d.loo = d.score;
-    if d.score > 0.0 {
+    d.loo = d.test_score;
+    if d.test_score > 0.0 {
         let mut cands: Vec<(u32, f64)> = load.into_iter().collect();
         cands.sort_by(|x, y| y.1.total_cmp(&x.1).then(x.0.cmp(&y.0)));
         d.top_circuits = cands.iter().take(10).map(|c| c.0).collect();
         cands.truncate(LEAVE_ONE_OUT_CANDIDATES);
         for (c, _) in cands {
-            let reduced = p.without_circuit(&a.rows.rows, c);
+            let reduced = tp.without_circuit(&a.rows.rows, c);
             let rs = reduced.lp.solve()?;
-            let v = score(&rs, &remap(&w, p, &reduced));
+            let v = score(&rs, &remap(&w, tp, &reduced));
             if v < d.loo {
                 d.loo = v;
                 d.most_influential = Some(c);
@@ -357,18 +389,36 @@ fn assess_pair(
         }
     }
 
-    let significant = crate::slack::null::significant(d.score, &d.null, cfg.alpha);
+    let significant = crate::slack::null::significant(d.test_score, &d.null, cfg.alpha);
     if significant && !d.null.is_empty() {
         let robust = crate::slack::null::significant(d.loo, &d.null, cfg.alpha);
         if !robust {
             if let Some(c) = d.most_influential {
                 let seed = pair_seed(cfg.seed ^ CORROBORATION_SALT, q, r);
-                d.corroboration_p = Some(corroboration(a, p, &w, &strata(), c, cfg, seed)?);
+                d.corroboration_p = Some(corroboration(a, tp, &w, &strata, c, cfg, seed)?);
             }
         }
         d.detected = robust || d.corroboration_p.is_some_and(|pv| pv <= cfg.alpha);
     }
     Ok(d)
+}
+
+/// Positions of the rows that can test aggressor variables `r_vars`: every row without r's
+/// label, and every labelled row whose stratum also holds a row without it. A labelled row
+/// alone with labelled rows in its stratum keeps its label under every permutation
+/// (method.md section 5), so it can only reproduce the observed score in the null.
+fn testing_rows(rows: &[crate::slack::lp::Row], r_vars: &[usize], strata: &[u64]) -> Vec<usize> {
+    let labelled: Vec<bool> = rows
+        .iter()
+        .map(|row| row.terms.iter().any(|&(v, c)| c > 0.0 && r_vars.contains(&v)))
+        .collect();
+    let mut unlabelled_strata: Vec<u64> =
+        strata.iter().zip(&labelled).filter(|(_, &l)| !l).map(|(&s, _)| s).collect();
+    unlabelled_strata.sort_unstable();
+    unlabelled_strata.dedup();
+    (0..rows.len())
+        .filter(|&j| !labelled[j] || unlabelled_strata.binary_search(&strata[j]).is_ok())
+        .collect()
 }
 
 /// Salt that keeps the corroboration null's stream apart from the detection null's.
@@ -496,6 +546,16 @@ pub(crate) fn direction_verdict(d: &Directed, cfg: &AuditConfig) -> (Verdict, Re
             )
         };
     }
+    if !d.testable {
+        return (
+            Verdict::NotTested,
+            ReasonCode::Untestable,
+            format!(
+                "needs {} per layer of context slack, but only in circuits where this aggressor is active in every circuit alike in depth and in the other neighbours' activity, so no permutation can test it; add circuits where it is the victim's only active neighbour (design's pair contexts)",
+                pm(d.score)
+            ),
+        );
+    }
     if cfg.null_replicates == 0 {
         return (
             Verdict::NotTested,
@@ -506,13 +566,21 @@ pub(crate) fn direction_verdict(d: &Directed, cfg: &AuditConfig) -> (Verdict, Re
             ),
         );
     }
-    if !crate::slack::null::significant(d.score, &d.null, cfg.alpha) {
+    if !crate::slack::null::significant(d.test_score, &d.null, cfg.alpha) {
+        let rows = if d.untestable_rows == 0 {
+            String::new()
+        } else {
+            format!(
+                " on the rows that can test it ({} rows, where this aggressor is active in every circuit alike, cannot)",
+                d.untestable_rows
+            )
+        };
         return (
             Verdict::Clean,
             ReasonCode::InNull,
             format!(
-                "score {} is within the permutation null (limit {}, mid-p {:.3})",
-                pm(d.score),
+                "score {}{rows} is within the permutation null (limit {}, mid-p {:.3})",
+                pm(d.test_score),
                 pm(d.limit),
                 d.p_value
             ),
