@@ -90,6 +90,50 @@ pub(crate) struct Directed {
     pub test_score: f64,
     /// Rows left out of the test because r's label never varies in their stratum.
     pub untestable_rows: usize,
+    /// The test score without the most influential circuit: what robustness is judged on
+    /// (`loo` is the score's, for the reports).
+    pub test_loo: f64,
+}
+
+/// The problem the permutation test is about: the victim's rows that can test r
+/// ([`testing_rows`]), each labelled row carrying its own exposure to r.
+struct TestProblem {
+    problem: Problem,
+    /// Row j's exposure: (Context(k, r), occurrences of k in the row) for every kind k of the
+    /// victim with a context budget for r.
+    labels: Vec<Vec<(usize, f64)>>,
+    /// Whether r was active in row j.
+    labelled: Vec<bool>,
+}
+
+/// The rows `keep` of `p` with r's label of each labelled row replaced by its exposure.
+///
+/// A row's label counts the occurrences during which r was active; a row the permutation
+/// labels has no such count, so every row is given the same measure, its occurrences of each
+/// kind, for its exposure. Observed and replicate statistics then differ only in which rows
+/// are labelled.
+fn test_problem(p: &Problem, keep: &[usize], r_vars: &[usize], r: QubitIx) -> TestProblem {
+    let mut problem = p.restricted(keep);
+    let mut labels = Vec::with_capacity(keep.len());
+    let mut labelled = Vec::with_capacity(keep.len());
+    for row in &mut problem.lp.rows {
+        let exposure: Vec<(usize, f64)> = row
+            .terms
+            .iter()
+            .filter_map(|&(v, c)| match p.vars[v] {
+                Budget::Intrinsic(k) => p.index.get(&Budget::Context(k, r)).map(|&x| (x, c)),
+                _ => None,
+            })
+            .collect();
+        let on = row.terms.iter().any(|&(v, c)| c > 0.0 && r_vars.contains(&v));
+        row.terms.retain(|(v, _)| !r_vars.contains(v));
+        if on {
+            row.terms.extend_from_slice(&exposure);
+        }
+        labels.push(exposure);
+        labelled.push(on);
+    }
+    TestProblem { problem, labels, labelled }
 }
 
 /// The assessment of every directed pair, keyed by (victim, aggressor).
@@ -272,37 +316,34 @@ fn assess_pair(
     }
     d.co_active = co.into_iter().collect();
 
-    // The rows that can test r: the permutation moves r's label only within strata, so a
-    // labelled row in a stratum where every row carries the label keeps it in every
-    // replicate, and its slack comes back unchanged; such rows (all-active circuits, where
-    // no circuit idles r with the same other neighbours active) only add ties. The test, its
-    // null, leave-one-out and corroboration use the other rows; the score and the estimate
-    // keep every row.
+    // The test (method.md section 5, with two departures; DEVELOPERS.md, "Significance").
+    // 1. Rows that cannot test r: the permutation moves r's activity only within strata, so
+    //    a labelled row in a stratum where every row is labelled stays labelled in every
+    //    replicate and its slack comes back unchanged (all-active circuits: no circuit idles
+    //    r while the same other neighbours are active). They only add ties; the test uses
+    //    the other rows.
+    // 2. Exposure: a row labelled in a replicate carries its own exposure to r (every
+    //    occurrence of the victim's operations in it), not another row's label; see
+    //    `slack::null::indicator_null`. The observed test statistic uses the same exposure.
+    // The score, the estimate and the interval keep every row and the real labels.
     let all_strata: Vec<u64> = p.rows.iter().map(|&i| stratum(a, i, q, r)).collect();
     let testing = testing_rows(&p.lp.rows, &r_vars, &all_strata);
     d.untestable_rows = p.rows.len() - testing.len();
-    let restricted;
-    let (tp, tsol, strata): (&Problem, &TwoStageSolution, Vec<u64>) =
-        if testing.len() == p.rows.len() {
-            (p, sol, all_strata)
-        } else {
-            let t = p.restricted(&testing);
-            let s = t.lp.solve()?;
-            restricted = (t, s);
-            (&restricted.0, &restricted.1, testing.iter().map(|&j| all_strata[j]).collect())
-        };
-    let labelled = |row: &crate::slack::lp::Row| {
-        row.terms.iter().any(|&(v, c)| c > 0.0 && r_vars.contains(&v))
-    };
-    d.testable = tp.lp.rows.iter().any(labelled);
-    d.test_score = if d.testable { score(tsol, &w) } else { 0.0 };
+    let test = test_problem(p, &testing, &r_vars, r);
+    let strata: Vec<u64> = testing.iter().map(|&j| all_strata[j]).collect();
+    d.testable = test.labelled.iter().any(|&l| l);
+    let tsol = test.problem.lp.solve()?;
+    let tp = &test.problem;
+    d.test_score = if d.testable { score(&tsol, &w) } else { 0.0 };
 
     // Context-permutation null on the rows that can test r.
     if cfg.null_replicates > 0 && d.testable {
         let seed = pair_seed(cfg.seed, q, r);
-        d.null = crate::slack::null::permutation_null(
+        d.null = crate::slack::null::indicator_null(
             &tp.lp,
             &r_vars,
+            &test.labels,
+            &test.labelled,
             &strata,
             &w,
             cfg.null_replicates,
@@ -372,7 +413,8 @@ fn assess_pair(
         }
     }
     d.supporting_circuits = load.len();
-    d.loo = d.test_score;
+    d.loo = d.score;
+    d.test_loo = d.test_score;
     if d.test_score > 0.0 {
         let mut cands: Vec<(u32, f64)> = load.into_iter().collect();
         cands.sort_by(|x, y| y.1.total_cmp(&x.1).then(x.0.cmp(&y.0)));
@@ -382,20 +424,24 @@ fn assess_pair(
             let reduced = tp.without_circuit(&a.rows.rows, c);
             let rs = reduced.lp.solve()?;
             let v = score(&rs, &remap(&w, tp, &reduced));
-            if v < d.loo {
-                d.loo = v;
+            if v < d.test_loo {
+                d.test_loo = v;
                 d.most_influential = Some(c);
             }
+        }
+        if let Some(c) = d.most_influential {
+            let reduced = p.without_circuit(&a.rows.rows, c);
+            d.loo = score(&reduced.lp.solve()?, &remap(&w, p, &reduced));
         }
     }
 
     let significant = crate::slack::null::significant(d.test_score, &d.null, cfg.alpha);
     if significant && !d.null.is_empty() {
-        let robust = crate::slack::null::significant(d.loo, &d.null, cfg.alpha);
+        let robust = crate::slack::null::significant(d.test_loo, &d.null, cfg.alpha);
         if !robust {
             if let Some(c) = d.most_influential {
                 let seed = pair_seed(cfg.seed ^ CORROBORATION_SALT, q, r);
-                d.corroboration_p = Some(corroboration(a, tp, &w, &strata, c, cfg, seed)?);
+                d.corroboration_p = Some(corroboration(a, &test, &w, &strata, c, cfg, seed)?);
             }
         }
         d.detected = robust || d.corroboration_p.is_some_and(|pv| pv <= cfg.alpha);
@@ -438,13 +484,14 @@ const CORROBORATION_SALT: u64 = 0x636f_7272_6f62_6f72;
 /// label, and the null then finds them no more often than alpha.
 fn corroboration(
     a: &Analysis,
-    p: &Problem,
+    test: &TestProblem,
     w: &Weights,
     strata: &[u64],
     c: u32,
     cfg: &AuditConfig,
     seed: u64,
 ) -> Result<f64> {
+    let p = &test.problem;
     let keep: Vec<usize> =
         (0..p.rows.len()).filter(|&j| a.rows.rows[p.rows[j]].circuit != c).collect();
     let mut reduced = p.restricted(&keep);
@@ -473,9 +520,13 @@ fn corroboration(
     if observed <= 0.0 {
         return Ok(1.0);
     }
-    let null = crate::slack::null::permutation_null(
+    let sub_labels: Vec<Vec<(usize, f64)>> = keep.iter().map(|&j| test.labels[j].clone()).collect();
+    let sub_labelled: Vec<bool> = keep.iter().map(|&j| test.labelled[j]).collect();
+    let null = crate::slack::null::indicator_null(
         &reduced.lp,
         &r_vars,
+        &sub_labels,
+        &sub_labelled,
         &sub_strata,
         &w2,
         cfg.null_replicates,
