@@ -125,12 +125,10 @@ fn test_problem(p: &Problem, keep: &[usize], r_vars: &[usize], r: QubitIx) -> Te
                 _ => None,
             })
             .collect();
-        let on = row.terms.iter().any(|&(v, c)| c > 0.0 && r_vars.contains(&v));
-        row.terms.retain(|(v, _)| !r_vars.contains(v));
-        if on {
-            row.terms.extend_from_slice(&exposure);
-        }
-        labels.push(exposure);
+        let own: Vec<(usize, f64)> =
+            row.terms.iter().copied().filter(|(v, _)| r_vars.contains(v)).collect();
+        let on = own.iter().any(|&(_, c)| c > 0.0);
+        labels.push(if on { own } else { exposure });
         labelled.push(on);
     }
     TestProblem { problem, labels, labelled }
@@ -330,20 +328,25 @@ fn assess_pair(
     let testing = testing_rows(&p.lp.rows, &r_vars, &all_strata);
     d.untestable_rows = p.rows.len() - testing.len();
     let test = test_problem(p, &testing, &r_vars, r);
-    let strata: Vec<u64> = testing.iter().map(|&j| all_strata[j]).collect();
+    let strata: Vec<u64> = testing
+        .iter()
+        .zip(&test.labels)
+        .map(|(&j, l)| {
+            let total: f64 = l.iter().map(|e| e.1).sum();
+            all_strata[j] ^ (depth_class(total.max(1.0) as u32) as u64).wrapping_mul(0x9e37_79b9_7f4a_7c15)
+        })
+        .collect();
+    let tp = &p.restricted(&testing);
     d.testable = test.labelled.iter().any(|&l| l);
-    let tsol = test.problem.lp.solve()?;
-    let tp = &test.problem;
+    let tsol = tp.lp.solve()?;
     d.test_score = if d.testable { score(&tsol, &w) } else { 0.0 };
 
     // Context-permutation null on the rows that can test r.
     if cfg.null_replicates > 0 && d.testable {
         let seed = pair_seed(cfg.seed, q, r);
-        d.null = crate::slack::null::indicator_null(
+        d.null = crate::slack::null::permutation_null(
             &tp.lp,
             &r_vars,
-            &test.labels,
-            &test.labelled,
             &strata,
             &w,
             cfg.null_replicates,
