@@ -125,10 +125,12 @@ fn test_problem(p: &Problem, keep: &[usize], r_vars: &[usize], r: QubitIx) -> Te
                 _ => None,
             })
             .collect();
-        let own: Vec<(usize, f64)> =
-            row.terms.iter().copied().filter(|(v, _)| r_vars.contains(v)).collect();
-        let on = own.iter().any(|&(_, c)| c > 0.0);
-        labels.push(if on { own } else { exposure });
+        let on = row.terms.iter().any(|&(v, c)| c > 0.0 && r_vars.contains(&v));
+        row.terms.retain(|(v, _)| !r_vars.contains(v));
+        if on {
+            row.terms.extend_from_slice(&exposure);
+        }
+        labels.push(exposure);
         labelled.push(on);
     }
     TestProblem { problem, labels, labelled }
@@ -328,25 +330,20 @@ fn assess_pair(
     let testing = testing_rows(&p.lp.rows, &r_vars, &all_strata);
     d.untestable_rows = p.rows.len() - testing.len();
     let test = test_problem(p, &testing, &r_vars, r);
-    let strata: Vec<u64> = testing
-        .iter()
-        .zip(&test.labels)
-        .map(|(&j, l)| {
-            let total: f64 = l.iter().map(|e| e.1).sum();
-            all_strata[j] ^ (depth_class(total.max(1.0) as u32) as u64).wrapping_mul(0x9e37_79b9_7f4a_7c15)
-        })
-        .collect();
-    let tp = &p.restricted(&testing);
+    let strata: Vec<u64> = testing.iter().map(|&j| all_strata[j]).collect();
     d.testable = test.labelled.iter().any(|&l| l);
-    let tsol = tp.lp.solve()?;
+    let tsol = test.problem.lp.solve()?;
+    let tp = &test.problem;
     d.test_score = if d.testable { score(&tsol, &w) } else { 0.0 };
 
     // Context-permutation null on the rows that can test r.
     if cfg.null_replicates > 0 && d.testable {
         let seed = pair_seed(cfg.seed, q, r);
-        d.null = crate::slack::null::permutation_null(
+        d.null = crate::slack::null::indicator_null(
             &tp.lp,
             &r_vars,
+            &test.labels,
+            &test.labelled,
             &strata,
             &w,
             cfg.null_replicates,
@@ -646,7 +643,7 @@ pub(crate) fn direction_verdict(d: &Directed, cfg: &AuditConfig) -> (Verdict, Re
             ReasonCode::OneCircuit,
             format!(
                 "rests on one circuit: without it the score falls to {} (limit {}), and the other circuits, each judged at its own level, do not lean with this aggressor (mid-p {:.3})",
-                pm(d.loo),
+                pm(d.test_loo),
                 pm(d.limit),
                 d.corroboration_p.unwrap_or(1.0)
             ),
@@ -807,8 +804,65 @@ mod tests {
             p_value: crate::slack::null::p_value(s, &[0.0; 39]),
             detected: true,
             loo: s,
+            testable: true,
+            test_score: s,
+            test_loo: s,
             ..Default::default()
         }
+    }
+
+    #[test]
+    fn rows_whose_stratum_never_varies_the_label_do_not_test_it() {
+        use crate::slack::lp::Row;
+        let row = |terms: Vec<(usize, f64)>| Row { terms, requirement: 0.0, reference: false };
+        // Variables: 0 intrinsic, 1 the aggressor's context budget, 2 another's.
+        let rows = vec![
+            row(vec![(0, 4.0)]),                     // stratum 0, unlabelled
+            row(vec![(0, 4.0), (1, 4.0)]),           // stratum 0, labelled: testable
+            row(vec![(0, 8.0), (1, 8.0), (2, 8.0)]), // stratum 1, labelled only: not
+            row(vec![(0, 8.0), (1, 8.0), (2, 8.0)]), // stratum 1
+            row(vec![(0, 8.0), (2, 8.0)]),           // stratum 2, unlabelled
+            row(vec![(0, 8.0), (1, 0.0)]),           // stratum 3, a zero term is no label
+        ];
+        let strata = [0, 0, 1, 1, 2, 3];
+        assert_eq!(testing_rows(&rows, &[1], &strata), vec![0, 1, 4, 5]);
+        // For the other aggressor every labelled row is alone with labelled rows.
+        assert_eq!(testing_rows(&rows, &[2], &strata), vec![0, 1, 5]);
+        assert_eq!(testing_rows(&rows, &[0], &[0; 6]), Vec::<usize>::new());
+    }
+
+    #[test]
+    fn untestable_slack_is_not_tested_never_clean() {
+        let mut d = direction(5e-3);
+        d.testable = false;
+        d.test_score = 0.0;
+        d.null.clear();
+        d.p_value = 1.0;
+        d.detected = false;
+        let (v, code, why) = direction_verdict(&d, &cfg(39));
+        assert_eq!((v, code), (Verdict::NotTested, ReasonCode::Untestable), "{why}");
+        // Confounding is decided first: the advice to run them apart is the more useful one.
+        d.attribution = (0.0, 5e-3);
+        d.isolated = 0.0;
+        d.isolated_sensitivity = 3e-3;
+        let (v, _, _) = direction_verdict(&d, &cfg(39));
+        assert_eq!(v, Verdict::Confounded);
+    }
+
+    #[test]
+    fn in_null_is_judged_on_the_rows_that_test_it() {
+        // The score is set by rows the permutation cannot move; the testing rows need less,
+        // and that is what the null is about.
+        let mut d = direction(5e-3);
+        d.test_score = 1e-4;
+        d.untestable_rows = 12;
+        d.null = vec![1e-4; 39];
+        d.limit = 1e-4;
+        d.p_value = crate::slack::null::p_value(d.test_score, &d.null);
+        d.detected = false;
+        let (v, code, why) = direction_verdict(&d, &cfg(39));
+        assert_eq!((v, code), (Verdict::Clean, ReasonCode::InNull), "{why}");
+        assert!(why.contains("0.10") && why.contains("12 rows"), "{why}");
     }
 
     #[test]
@@ -858,6 +912,7 @@ mod tests {
     fn one_circuit_unless_corroborated() {
         let mut d = direction(3e-3);
         d.loo = 0.0;
+        d.test_loo = 0.0;
         d.detected = false;
         d.corroboration_p = Some(0.4);
         let (v, code, _) = direction_verdict(&d, &cfg(39));

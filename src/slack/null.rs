@@ -81,7 +81,11 @@ pub fn permutation_null(
                 terms.extend_from_slice(&s.base);
                 terms.extend_from_slice(label);
                 let labelled = label.iter().any(|&(v, c)| c > 0.0 && free_context(v));
-                Row { terms, requirement: row.requirement, reference: !(s.other_context || labelled) }
+                Row {
+                    terms,
+                    requirement: row.requirement,
+                    reference: !(s.other_context || labelled),
+                }
             })
             .collect()
     })
