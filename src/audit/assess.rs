@@ -90,6 +90,8 @@ pub(crate) struct Directed {
     pub test_score: f64,
     /// Rows left out of the test because r's label never varies in their stratum.
     pub untestable_rows: usize,
+    /// True when the exposure null decided (see [`NULLS`]); `null` then holds it.
+    pub exposure_null: bool,
     /// The test score without the most influential circuit: what robustness is judged on
     /// (`loo` is the score's, for the reports).
     pub test_loo: f64,
@@ -330,30 +332,51 @@ fn assess_pair(
     let testing = testing_rows(&p.lp.rows, &r_vars, &all_strata);
     d.untestable_rows = p.rows.len() - testing.len();
     let test = test_problem(p, &testing, &r_vars, r);
+    let label_problem = p.restricted(&testing);
     let strata: Vec<u64> = testing.iter().map(|&j| all_strata[j]).collect();
     d.testable = test.labelled.iter().any(|&l| l);
-    let tsol = test.problem.lp.solve()?;
-    let tp = &test.problem;
+    let mut tp = &label_problem;
+    let mut tsol = label_problem.lp.solve()?;
     d.test_score = if d.testable { score(&tsol, &w) } else { 0.0 };
 
-    // Context-permutation null on the rows that can test r.
+    // Two permutation nulls on the rows that can test r, combined by Bonferroni
+    // ([`NULLS`]): labels moved between rows, and indicators with each row's own exposure.
+    // The second is run only when the first does not already decide.
     if cfg.null_replicates > 0 && d.testable {
         let seed = pair_seed(cfg.seed, q, r);
-        d.null = crate::slack::null::indicator_null(
+        let clip_all = |v: Vec<f64>| -> Vec<f64> { v.into_iter().map(clip).collect() };
+        d.null = clip_all(crate::slack::null::permutation_null(
             &tp.lp,
             &r_vars,
-            &test.labels,
-            &test.labelled,
             &strata,
             &w,
             cfg.null_replicates,
             seed,
-        )?
-        .into_iter()
-        .map(clip)
-        .collect();
-        d.limit = crate::slack::null::detection_limit(&d.null, cfg.alpha);
-        d.p_value = crate::slack::null::p_value(d.test_score, &d.null);
+        )?);
+        if !significant(d.test_score, &d.null, cfg.alpha) && d.test_score > 0.0 {
+            let esol = test.problem.lp.solve()?;
+            let escore = score(&esol, &w);
+            let other = clip_all(crate::slack::null::indicator_null(
+                &test.problem.lp,
+                &r_vars,
+                &test.labels,
+                &test.labelled,
+                &strata,
+                &w,
+                cfg.null_replicates,
+                seed ^ INDICATOR_SALT,
+            )?);
+            let pv = crate::slack::null::p_value;
+            if pv(escore, &other) < pv(d.test_score, &d.null) {
+                d.null = other;
+                d.exposure_null = true;
+                d.test_score = escore;
+                tp = &test.problem;
+                tsol = esol;
+            }
+        }
+        d.limit = crate::slack::null::detection_limit(&d.null, cfg.alpha / NULLS);
+        d.p_value = combined_p(d.test_score, &d.null);
     } else {
         d.p_value = 1.0;
     }
@@ -435,13 +458,13 @@ fn assess_pair(
         }
     }
 
-    let significant = crate::slack::null::significant(d.test_score, &d.null, cfg.alpha);
-    if significant && !d.null.is_empty() {
-        let robust = crate::slack::null::significant(d.test_loo, &d.null, cfg.alpha);
+    if significant(d.test_score, &d.null, cfg.alpha) {
+        let robust = significant(d.test_loo, &d.null, cfg.alpha);
         if !robust {
             if let Some(c) = d.most_influential {
                 let seed = pair_seed(cfg.seed ^ CORROBORATION_SALT, q, r);
-                d.corroboration_p = Some(corroboration(a, &test, &w, &strata, c, cfg, seed)?);
+                d.corroboration_p =
+                    Some(corroboration(a, tp, &test, d.exposure_null, &w, &strata, c, cfg, seed)?);
             }
         }
         d.detected = robust || d.corroboration_p.is_some_and(|pv| pv <= cfg.alpha);
@@ -467,6 +490,33 @@ fn testing_rows(rows: &[crate::slack::lp::Row], r_vars: &[usize], strata: &[u64]
         .collect()
 }
 
+/// The permutation nulls a direction is tested against, combined by Bonferroni: significant
+/// when either null's mid-p value is at most alpha / NULLS.
+///
+/// Moving r's labels between rows (`slack::null::permutation_null`, method.md section 5)
+/// pairs a row's need with another row's exposure; when the need grows with exposure (a gate
+/// error per occurrence), the observed pairing needs the least budget and the null scores
+/// above it, so strong errors fell inside their own null (a 3.4e-2 dephasing context error
+/// on a 4x4 chip at mid-p 0.29). Moving only whether r was active, each row keeping its own
+/// exposure (`slack::null::indicator_null`), has no such bias but little power when the
+/// need does not grow with exposure (readout error that depends on r's outcome: the demo's
+/// q15 <- q11 fell from mid-p 0.010 to 0.095). Each null is exact under the hypothesis that
+/// the needs do not depend on r's activity, so the Bonferroni union keeps the level.
+pub const NULLS: f64 = 2.0;
+
+/// Salt that keeps the exposure null's stream apart from the label null's.
+const INDICATOR_SALT: u64 = 0x6578_706f_7375_7265;
+
+/// The combined p-value of score `x` against the null that decided ([`NULLS`]).
+fn combined_p(x: f64, null: &[f64]) -> f64 {
+    (NULLS * crate::slack::null::p_value(x, null)).min(1.0)
+}
+
+/// Whether `x` is significant at `alpha` against the null that decided ([`NULLS`]).
+fn significant(x: f64, null: &[f64], alpha: f64) -> bool {
+    !null.is_empty() && combined_p(x, null) <= alpha
+}
+
 /// Salt that keeps the corroboration null's stream apart from the detection null's.
 const CORROBORATION_SALT: u64 = 0x636f_7272_6f62_6f72;
 
@@ -482,16 +532,18 @@ const CORROBORATION_SALT: u64 = 0x636f_7272_6f62_6f72;
 /// every row above the Bonferroni threshold while the rows below it still lean with r's
 /// label; a chance outlier leaves rows whose unadjusted excesses are independent of r's
 /// label, and the null then finds them no more often than alpha.
+#[allow(clippy::too_many_arguments)]
 fn corroboration(
     a: &Analysis,
+    p: &Problem,
     test: &TestProblem,
+    exposure_null: bool,
     w: &Weights,
     strata: &[u64],
     c: u32,
     cfg: &AuditConfig,
     seed: u64,
 ) -> Result<f64> {
-    let p = &test.problem;
     let keep: Vec<usize> =
         (0..p.rows.len()).filter(|&j| a.rows.rows[p.rows[j]].circuit != c).collect();
     let mut reduced = p.restricted(&keep);
@@ -522,18 +574,29 @@ fn corroboration(
     }
     let sub_labels: Vec<Vec<(usize, f64)>> = keep.iter().map(|&j| test.labels[j].clone()).collect();
     let sub_labelled: Vec<bool> = keep.iter().map(|&j| test.labelled[j]).collect();
-    let null = crate::slack::null::indicator_null(
-        &reduced.lp,
-        &r_vars,
-        &sub_labels,
-        &sub_labelled,
-        &sub_strata,
-        &w2,
-        cfg.null_replicates,
-        seed,
-    )?;
+    let null = if exposure_null {
+        crate::slack::null::indicator_null(
+            &reduced.lp,
+            &r_vars,
+            &sub_labels,
+            &sub_labelled,
+            &sub_strata,
+            &w2,
+            cfg.null_replicates,
+            seed,
+        )?
+    } else {
+        crate::slack::null::permutation_null(
+            &reduced.lp,
+            &r_vars,
+            &sub_strata,
+            &w2,
+            cfg.null_replicates,
+            seed,
+        )?
+    };
     let null: Vec<f64> = null.into_iter().map(clip).collect();
-    Ok(crate::slack::null::p_value(observed, &null))
+    Ok(combined_p(observed, &null))
 }
 
 /// A direction's verdict and the reason (method.md section 6), before edge-level
@@ -617,7 +680,7 @@ pub(crate) fn direction_verdict(d: &Directed, cfg: &AuditConfig) -> (Verdict, Re
             ),
         );
     }
-    if !crate::slack::null::significant(d.test_score, &d.null, cfg.alpha) {
+    if !significant(d.test_score, &d.null, cfg.alpha) {
         let rows = if d.untestable_rows == 0 {
             String::new()
         } else {
