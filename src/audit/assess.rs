@@ -114,7 +114,15 @@ struct TestProblem {
 /// labels has no such count, so every row is given the same measure, its occurrences of each
 /// kind, for its exposure. Observed and replicate statistics then differ only in which rows
 /// are labelled.
-fn test_problem(p: &Problem, keep: &[usize], r_vars: &[usize], r: QubitIx) -> TestProblem {
+fn test_problem(p: &Problem, keep: &[usize], r_vars: &[usize]) -> TestProblem {
+    // The aggressor's context budget of each of the victim's kinds.
+    let by_kind: HashMap<KindIx, usize> = r_vars
+        .iter()
+        .filter_map(|&v| match p.vars[v] {
+            Budget::Context(k, _) => Some((k, v)),
+            _ => None,
+        })
+        .collect();
     let mut problem = p.restricted(keep);
     let mut labels = Vec::with_capacity(keep.len());
     let mut labelled = Vec::with_capacity(keep.len());
@@ -123,7 +131,7 @@ fn test_problem(p: &Problem, keep: &[usize], r_vars: &[usize], r: QubitIx) -> Te
             .terms
             .iter()
             .filter_map(|&(v, c)| match p.vars[v] {
-                Budget::Intrinsic(k) => p.index.get(&Budget::Context(k, r)).map(|&x| (x, c)),
+                Budget::Intrinsic(k) => by_kind.get(&k).map(|&x| (x, c)),
                 _ => None,
             })
             .collect();
@@ -331,7 +339,7 @@ fn assess_pair(
     let all_strata: Vec<u64> = p.rows.iter().map(|&i| stratum(a, i, q, r)).collect();
     let testing = testing_rows(&p.lp.rows, &r_vars, &all_strata);
     d.untestable_rows = p.rows.len() - testing.len();
-    let test = test_problem(p, &testing, &r_vars, r);
+    let test = test_problem(p, &testing, &r_vars);
     let label_problem = p.restricted(&testing);
     let strata: Vec<u64> = testing.iter().map(|&j| all_strata[j]).collect();
     d.testable = test.labelled.iter().any(|&l| l);
@@ -956,18 +964,20 @@ mod tests {
 
     #[test]
     fn a_tie_with_the_limit_is_split_not_rejected() {
-        // 37 replicates below, 2 tied with the score: mid-p 1.5 / 40 = 0.0375.
+        // Two nulls combined by Bonferroni: significant at mid-p <= 0.025. With 77 replicates
+        // below and 2 tied with the score: mid-p 1.5 / 80 = 0.01875 (Lancaster 1961).
         let mut d = direction(2e-3);
-        d.null = vec![0.0; 37];
+        d.null = vec![0.0; 77];
         d.null.extend([2e-3; 2]);
         d.limit = 2e-3;
-        d.p_value = crate::slack::null::p_value(d.score, &d.null);
-        let (v, _, why) = direction_verdict(&d, &cfg(39));
+        d.p_value = combined_p(d.score, &d.null);
+        assert!((d.p_value - 0.0375).abs() < 1e-12);
+        let (v, _, why) = direction_verdict(&d, &cfg(79));
         assert_eq!(v, Verdict::Recalibrate, "{why}");
-        // Four ties: 2.5 / 40 > 0.05, within the null.
-        d.null = vec![0.0; 35];
+        // Four ties: 2.5 / 80 = 0.03125 > 0.025, within the null.
+        d.null = vec![0.0; 75];
         d.null.extend([2e-3; 4]);
-        let (v, code, _) = direction_verdict(&d, &cfg(39));
+        let (v, code, _) = direction_verdict(&d, &cfg(79));
         assert_eq!((v, code), (Verdict::Clean, ReasonCode::InNull));
     }
 
