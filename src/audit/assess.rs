@@ -81,6 +81,69 @@ pub(crate) struct Directed {
     pub isolated: f64,
     /// Other aggressors that were active together with r on this victim.
     pub co_active: Vec<QubitIx>,
+    /// False when no row that carries r's label shares its stratum with a row that does not:
+    /// no permutation can move the label, so the null cannot test the direction.
+    pub testable: bool,
+    /// The score on the rows that can test r (see [`testing_rows`]): what the null, the
+    /// p-value, the detection limit and leave-one-out are about. Equal to `score` when every
+    /// row can; 0 when none can.
+    pub test_score: f64,
+    /// Rows left out of the test because r's label never varies in their stratum.
+    pub untestable_rows: usize,
+    /// True when the exposure null decided (see [`NULLS`]); `null` then holds it.
+    pub exposure_null: bool,
+    /// The test score without the most influential circuit: what robustness is judged on
+    /// (`loo` is the score's, for the reports).
+    pub test_loo: f64,
+}
+
+/// The problem the permutation test is about: the victim's rows that can test r
+/// ([`testing_rows`]), each labelled row carrying its own exposure to r.
+struct TestProblem {
+    problem: Problem,
+    /// Row j's exposure: (Context(k, r), occurrences of k in the row) for every kind k of the
+    /// victim with a context budget for r.
+    labels: Vec<Vec<(usize, f64)>>,
+    /// Whether r was active in row j.
+    labelled: Vec<bool>,
+}
+
+/// The rows `keep` of `p` with r's label of each labelled row replaced by its exposure.
+///
+/// A row's label counts the occurrences during which r was active; a row the permutation
+/// labels has no such count, so every row is given the same measure, its occurrences of each
+/// kind, for its exposure. Observed and replicate statistics then differ only in which rows
+/// are labelled.
+fn test_problem(p: &Problem, keep: &[usize], r_vars: &[usize]) -> TestProblem {
+    // The aggressor's context budget of each of the victim's kinds.
+    let by_kind: HashMap<KindIx, usize> = r_vars
+        .iter()
+        .filter_map(|&v| match p.vars[v] {
+            Budget::Context(k, _) | Budget::GateContext(k, _) => Some((k, v)),
+            _ => None,
+        })
+        .collect();
+    let mut problem = p.restricted(keep);
+    let mut labels = Vec::with_capacity(keep.len());
+    let mut labelled = Vec::with_capacity(keep.len());
+    for row in &mut problem.lp.rows {
+        let exposure: Vec<(usize, f64)> = row
+            .terms
+            .iter()
+            .filter_map(|&(v, c)| match p.vars[v] {
+                Budget::Intrinsic(k) => by_kind.get(&k).map(|&x| (x, c)),
+                _ => None,
+            })
+            .collect();
+        let on = row.terms.iter().any(|&(v, c)| c > 0.0 && r_vars.contains(&v));
+        row.terms.retain(|(v, _)| !r_vars.contains(v));
+        if on {
+            row.terms.extend_from_slice(&exposure);
+        }
+        labels.push(exposure);
+        labelled.push(on);
+    }
+    TestProblem { problem, labels, labelled }
 }
 
 /// The assessment of every directed pair, keyed by (victim, aggressor).
@@ -337,21 +400,65 @@ pub(crate) fn assess_direction(a: &Analysis, cfg: &AuditConfig, x: &Subject) -> 
         .collect();
     let r_vars: Vec<usize> = w.iter().map(|e| e.0).collect();
 
-    // Context-permutation null on the victim's problem.
-    if cfg.null_replicates > 0 {
-        d.null = crate::slack::null::permutation_null(
-            &p.lp,
+    // The test (method.md section 5, with two departures; DEVELOPERS.md, "Significance").
+    // 1. Rows that cannot test r: the permutation moves r's activity only within strata, so
+    //    a labelled row in a stratum where every row is labelled stays labelled in every
+    //    replicate and its slack comes back unchanged (all-active circuits: no circuit idles
+    //    r while the same other neighbours are active). They only add ties; the test uses
+    //    the other rows.
+    // 2. Exposure: a row labelled in a replicate carries its own exposure to r (every
+    //    occurrence of the victim's operations in it), not another row's label; see
+    //    `slack::null::indicator_null`. The observed test statistic uses the same exposure.
+    // The score, the estimate and the interval keep every row and the real labels.
+    let all_strata = &x.strata;
+    let testing = testing_rows(&p.lp.rows, &r_vars, all_strata);
+    d.untestable_rows = p.rows.len() - testing.len();
+    let test = test_problem(p, &testing, &r_vars);
+    let label_problem = p.restricted(&testing);
+    let strata: Vec<u64> = testing.iter().map(|&j| all_strata[j]).collect();
+    d.testable = test.labelled.iter().any(|&l| l);
+    let mut tp = &label_problem;
+    let mut tsol = label_problem.lp.solve()?;
+    d.test_score = if d.testable { score(&tsol, w) } else { 0.0 };
+
+    // Two permutation nulls on the rows that can test r, combined by Bonferroni
+    // ([`NULLS`]): labels moved between rows, and indicators with each row's own exposure.
+    // The second is run only when the first does not already decide.
+    if cfg.null_replicates > 0 && d.testable {
+        let seed = x.seed;
+        let clip_all = |v: Vec<f64>| -> Vec<f64> { v.into_iter().map(clip).collect() };
+        d.null = clip_all(crate::slack::null::permutation_null(
+            &tp.lp,
             &r_vars,
-            &x.strata,
+            &strata,
             w,
             cfg.null_replicates,
-            x.seed,
-        )?
-        .into_iter()
-        .map(clip)
-        .collect();
-        d.limit = crate::slack::null::detection_limit(&d.null, cfg.alpha);
-        d.p_value = crate::slack::null::p_value(d.score, &d.null);
+            seed,
+        )?);
+        if !significant(d.test_score, &d.null, cfg.alpha) && d.test_score > 0.0 {
+            let esol = test.problem.lp.solve()?;
+            let escore = score(&esol, w);
+            let other = clip_all(crate::slack::null::indicator_null(
+                &test.problem.lp,
+                &r_vars,
+                &test.labels,
+                &test.labelled,
+                &strata,
+                w,
+                cfg.null_replicates,
+                seed ^ INDICATOR_SALT,
+            )?);
+            let pv = crate::slack::null::p_value;
+            if pv(escore, &other) < pv(d.test_score, &d.null) {
+                d.null = other;
+                d.exposure_null = true;
+                d.test_score = escore;
+                tp = &test.problem;
+                tsol = esol;
+            }
+        }
+        d.limit = crate::slack::null::detection_limit(&d.null, cfg.alpha / NULLS);
+        d.p_value = combined_p(d.test_score, &d.null);
     } else {
         d.p_value = 1.0;
     }
@@ -387,52 +494,102 @@ pub(crate) fn assess_direction(a: &Analysis, cfg: &AuditConfig, x: &Subject) -> 
     // budgets alone do not meet, so that they need context slack; leave-one-out drops their
     // circuits.
     let mut load: HashMap<u32, f64> = HashMap::new();
-    for (j, row) in p.lp.rows.iter().enumerate() {
+    for (j, row) in tp.lp.rows.iter().enumerate() {
         if !row.terms.iter().any(|&(v, c)| c > 0.0 && r_vars.contains(&v)) {
             continue;
         }
         let intrinsic: f64 = row
             .terms
             .iter()
-            .filter(|&&(v, _)| !matches!(p.vars[v], Budget::Context(..) | Budget::GateContext(..)))
-            .map(|&(v, c)| c * sol.values[v])
+            .filter(|&&(v, _)| !matches!(tp.vars[v], Budget::Context(..) | Budget::GateContext(..)))
+            .map(|&(v, c)| c * tsol.values[v])
             .sum();
         let need = row.requirement - intrinsic;
         if need > SUPPORT_TOLERANCE {
             d.supporting_rows += 1;
-            *load.entry(a.rows.rows[p.rows[j]].circuit).or_default() += need;
+            *load.entry(a.rows.rows[tp.rows[j]].circuit).or_default() += need;
         }
     }
     d.supporting_circuits = load.len();
     d.loo = d.score;
-    if d.score > 0.0 {
+    d.test_loo = d.test_score;
+    if d.test_score > 0.0 {
         let mut cands: Vec<(u32, f64)> = load.into_iter().collect();
         cands.sort_by(|x, y| y.1.total_cmp(&x.1).then(x.0.cmp(&y.0)));
         d.top_circuits = cands.iter().take(10).map(|c| c.0).collect();
         cands.truncate(LEAVE_ONE_OUT_CANDIDATES);
         for (c, _) in cands {
-            let reduced = p.without_circuit(&a.rows.rows, c);
+            let reduced = tp.without_circuit(&a.rows.rows, c);
             let rs = reduced.lp.solve()?;
-            let v = score(&rs, &remap(w, p, &reduced));
-            if v < d.loo {
-                d.loo = v;
+            let v = score(&rs, &remap(w, tp, &reduced));
+            if v < d.test_loo {
+                d.test_loo = v;
                 d.most_influential = Some(c);
             }
         }
+        if let Some(c) = d.most_influential {
+            let reduced = p.without_circuit(&a.rows.rows, c);
+            d.loo = score(&reduced.lp.solve()?, &remap(w, p, &reduced));
+        }
     }
 
-    let significant = crate::slack::null::significant(d.score, &d.null, cfg.alpha);
-    if significant && !d.null.is_empty() {
-        let robust = crate::slack::null::significant(d.loo, &d.null, cfg.alpha);
+    if significant(d.test_score, &d.null, cfg.alpha) {
+        let robust = significant(d.test_loo, &d.null, cfg.alpha);
         if !robust {
             if let Some(c) = d.most_influential {
                 let seed = x.corroboration_seed;
-                d.corroboration_p = Some(corroboration(a, p, w, &x.strata, c, cfg, seed)?);
+                d.corroboration_p =
+                    Some(corroboration(a, tp, &test, d.exposure_null, w, &strata, c, cfg, seed)?);
             }
         }
         d.detected = robust || d.corroboration_p.is_some_and(|pv| pv <= cfg.alpha);
     }
     Ok(d)
+}
+
+/// Positions of the rows that can test aggressor variables `r_vars`: every row without r's
+/// label, and every labelled row whose stratum also holds a row without it. A labelled row
+/// alone with labelled rows in its stratum keeps its label under every permutation
+/// (method.md section 5), so it can only reproduce the observed score in the null.
+fn testing_rows(rows: &[crate::slack::lp::Row], r_vars: &[usize], strata: &[u64]) -> Vec<usize> {
+    let labelled: Vec<bool> = rows
+        .iter()
+        .map(|row| row.terms.iter().any(|&(v, c)| c > 0.0 && r_vars.contains(&v)))
+        .collect();
+    let mut unlabelled_strata: Vec<u64> =
+        strata.iter().zip(&labelled).filter(|(_, &l)| !l).map(|(&s, _)| s).collect();
+    unlabelled_strata.sort_unstable();
+    unlabelled_strata.dedup();
+    (0..rows.len())
+        .filter(|&j| !labelled[j] || unlabelled_strata.binary_search(&strata[j]).is_ok())
+        .collect()
+}
+
+/// The permutation nulls a direction is tested against, combined by Bonferroni: significant
+/// when either null's mid-p value is at most alpha / NULLS.
+///
+/// Moving r's labels between rows (`slack::null::permutation_null`, method.md section 5)
+/// pairs a row's need with another row's exposure; when the need grows with exposure (a gate
+/// error per occurrence), the observed pairing needs the least budget and the null scores
+/// above it, so strong errors fell inside their own null (a 3.4e-2 dephasing context error
+/// on a 4x4 chip at mid-p 0.29). Moving only whether r was active, each row keeping its own
+/// exposure (`slack::null::indicator_null`), has no such bias but little power when the
+/// need does not grow with exposure (readout error that depends on r's outcome: the demo's
+/// q15 <- q11 fell from mid-p 0.010 to 0.095). Each null is exact under the hypothesis that
+/// the needs do not depend on r's activity, so the Bonferroni union keeps the level.
+pub const NULLS: f64 = 2.0;
+
+/// Salt that keeps the exposure null's stream apart from the label null's.
+const INDICATOR_SALT: u64 = 0x6578_706f_7375_7265;
+
+/// The combined p-value of score `x` against the null that decided ([`NULLS`]).
+fn combined_p(x: f64, null: &[f64]) -> f64 {
+    (NULLS * crate::slack::null::p_value(x, null)).min(1.0)
+}
+
+/// Whether `x` is significant at `alpha` against the null that decided ([`NULLS`]).
+fn significant(x: f64, null: &[f64], alpha: f64) -> bool {
+    !null.is_empty() && combined_p(x, null) <= alpha
 }
 
 /// Salt that keeps the corroboration null's stream apart from the detection null's.
@@ -450,9 +607,12 @@ pub(crate) const CORROBORATION_SALT: u64 = 0x636f_7272_6f62_6f72;
 /// every row above the Bonferroni threshold while the rows below it still lean with r's
 /// label; a chance outlier leaves rows whose unadjusted excesses are independent of r's
 /// label, and the null then finds them no more often than alpha.
+#[allow(clippy::too_many_arguments)]
 fn corroboration(
     a: &Analysis,
     p: &Problem,
+    test: &TestProblem,
+    exposure_null: bool,
     w: &Weights,
     strata: &[u64],
     c: u32,
@@ -487,16 +647,31 @@ fn corroboration(
     if observed <= 0.0 {
         return Ok(1.0);
     }
-    let null = crate::slack::null::permutation_null(
-        &reduced.lp,
-        &r_vars,
-        &sub_strata,
-        &w2,
-        cfg.null_replicates,
-        seed,
-    )?;
+    let sub_labels: Vec<Vec<(usize, f64)>> = keep.iter().map(|&j| test.labels[j].clone()).collect();
+    let sub_labelled: Vec<bool> = keep.iter().map(|&j| test.labelled[j]).collect();
+    let null = if exposure_null {
+        crate::slack::null::indicator_null(
+            &reduced.lp,
+            &r_vars,
+            &sub_labels,
+            &sub_labelled,
+            &sub_strata,
+            &w2,
+            cfg.null_replicates,
+            seed,
+        )?
+    } else {
+        crate::slack::null::permutation_null(
+            &reduced.lp,
+            &r_vars,
+            &sub_strata,
+            &w2,
+            cfg.null_replicates,
+            seed,
+        )?
+    };
     let null: Vec<f64> = null.into_iter().map(clip).collect();
-    Ok(crate::slack::null::p_value(observed, &null))
+    Ok(combined_p(observed, &null))
 }
 
 /// A direction's verdict and the reason (method.md section 6), before edge-level
@@ -560,6 +735,16 @@ pub(crate) fn direction_verdict(d: &Directed, cfg: &AuditConfig) -> (Verdict, Re
             )
         };
     }
+    if !d.testable {
+        return (
+            Verdict::NotTested,
+            ReasonCode::Untestable,
+            format!(
+                "needs {} per layer of context slack, but only in circuits where this aggressor is active in every circuit alike in depth and in the other neighbours' activity, so no permutation can test it; add circuits where it is the victim's only active neighbour (design's pair contexts)",
+                pm(d.score)
+            ),
+        );
+    }
     if cfg.null_replicates == 0 {
         return (
             Verdict::NotTested,
@@ -570,13 +755,21 @@ pub(crate) fn direction_verdict(d: &Directed, cfg: &AuditConfig) -> (Verdict, Re
             ),
         );
     }
-    if !crate::slack::null::significant(d.score, &d.null, cfg.alpha) {
+    if !significant(d.test_score, &d.null, cfg.alpha) {
+        let rows = if d.untestable_rows == 0 {
+            String::new()
+        } else {
+            format!(
+                " on the rows that can test it ({} rows, where this aggressor is active in every circuit alike, cannot)",
+                d.untestable_rows
+            )
+        };
         return (
             Verdict::Clean,
             ReasonCode::InNull,
             format!(
-                "score {} is within the permutation null (limit {}, mid-p {:.3})",
-                pm(d.score),
+                "score {}{rows} is within the permutation null (limit {}, mid-p {:.3})",
+                pm(d.test_score),
                 pm(d.limit),
                 d.p_value
             ),
@@ -588,7 +781,7 @@ pub(crate) fn direction_verdict(d: &Directed, cfg: &AuditConfig) -> (Verdict, Re
             ReasonCode::OneCircuit,
             format!(
                 "rests on one circuit: without it the score falls to {} (limit {}), and the other circuits, each judged at its own level, do not lean with this aggressor (mid-p {:.3})",
-                pm(d.loo),
+                pm(d.test_loo),
                 pm(d.limit),
                 d.corroboration_p.unwrap_or(1.0)
             ),
@@ -754,8 +947,65 @@ mod tests {
             p_value: crate::slack::null::p_value(s, &[0.0; 39]),
             detected: true,
             loo: s,
+            testable: true,
+            test_score: s,
+            test_loo: s,
             ..Default::default()
         }
+    }
+
+    #[test]
+    fn rows_whose_stratum_never_varies_the_label_do_not_test_it() {
+        use crate::slack::lp::Row;
+        let row = |terms: Vec<(usize, f64)>| Row { terms, requirement: 0.0, reference: false };
+        // Variables: 0 intrinsic, 1 the aggressor's context budget, 2 another's.
+        let rows = vec![
+            row(vec![(0, 4.0)]),                     // stratum 0, unlabelled
+            row(vec![(0, 4.0), (1, 4.0)]),           // stratum 0, labelled: testable
+            row(vec![(0, 8.0), (1, 8.0), (2, 8.0)]), // stratum 1, labelled only: not
+            row(vec![(0, 8.0), (1, 8.0), (2, 8.0)]), // stratum 1
+            row(vec![(0, 8.0), (2, 8.0)]),           // stratum 2, unlabelled
+            row(vec![(0, 8.0), (1, 0.0)]),           // stratum 3, a zero term is no label
+        ];
+        let strata = [0, 0, 1, 1, 2, 3];
+        assert_eq!(testing_rows(&rows, &[1], &strata), vec![0, 1, 4, 5]);
+        // For the other aggressor every labelled row is alone with labelled rows.
+        assert_eq!(testing_rows(&rows, &[2], &strata), vec![0, 1, 5]);
+        assert_eq!(testing_rows(&rows, &[0], &[0; 6]), Vec::<usize>::new());
+    }
+
+    #[test]
+    fn untestable_slack_is_not_tested_never_clean() {
+        let mut d = direction(5e-3);
+        d.testable = false;
+        d.test_score = 0.0;
+        d.null.clear();
+        d.p_value = 1.0;
+        d.detected = false;
+        let (v, code, why) = direction_verdict(&d, &cfg(39));
+        assert_eq!((v, code), (Verdict::NotTested, ReasonCode::Untestable), "{why}");
+        // Confounding is decided first: the advice to run them apart is the more useful one.
+        d.attribution = (0.0, 5e-3);
+        d.isolated = 0.0;
+        d.isolated_sensitivity = 3e-3;
+        let (v, _, _) = direction_verdict(&d, &cfg(39));
+        assert_eq!(v, Verdict::Confounded);
+    }
+
+    #[test]
+    fn in_null_is_judged_on_the_rows_that_test_it() {
+        // The score is set by rows the permutation cannot move; the testing rows need less,
+        // and that is what the null is about.
+        let mut d = direction(5e-3);
+        d.test_score = 1e-4;
+        d.untestable_rows = 12;
+        d.null = vec![1e-4; 39];
+        d.limit = 1e-4;
+        d.p_value = crate::slack::null::p_value(d.test_score, &d.null);
+        d.detected = false;
+        let (v, code, why) = direction_verdict(&d, &cfg(39));
+        assert_eq!((v, code), (Verdict::Clean, ReasonCode::InNull), "{why}");
+        assert!(why.contains("0.10") && why.contains("12 rows"), "{why}");
     }
 
     #[test]
@@ -786,18 +1036,20 @@ mod tests {
 
     #[test]
     fn a_tie_with_the_limit_is_split_not_rejected() {
-        // 37 replicates below, 2 tied with the score: mid-p 1.5 / 40 = 0.0375.
+        // Two nulls combined by Bonferroni: significant at mid-p <= 0.025. With 77 replicates
+        // below and 2 tied with the score: mid-p 1.5 / 80 = 0.01875 (Lancaster 1961).
         let mut d = direction(2e-3);
-        d.null = vec![0.0; 37];
+        d.null = vec![0.0; 77];
         d.null.extend([2e-3; 2]);
         d.limit = 2e-3;
-        d.p_value = crate::slack::null::p_value(d.score, &d.null);
-        let (v, _, why) = direction_verdict(&d, &cfg(39));
+        d.p_value = combined_p(d.score, &d.null);
+        assert!((d.p_value - 0.0375).abs() < 1e-12);
+        let (v, _, why) = direction_verdict(&d, &cfg(79));
         assert_eq!(v, Verdict::Recalibrate, "{why}");
-        // Four ties: 2.5 / 40 > 0.05, within the null.
-        d.null = vec![0.0; 35];
+        // Four ties: 2.5 / 80 = 0.03125 > 0.025, within the null.
+        d.null = vec![0.0; 75];
         d.null.extend([2e-3; 4]);
-        let (v, code, _) = direction_verdict(&d, &cfg(39));
+        let (v, code, _) = direction_verdict(&d, &cfg(79));
         assert_eq!((v, code), (Verdict::Clean, ReasonCode::InNull));
     }
 
@@ -805,6 +1057,7 @@ mod tests {
     fn one_circuit_unless_corroborated() {
         let mut d = direction(3e-3);
         d.loo = 0.0;
+        d.test_loo = 0.0;
         d.detected = false;
         d.corroboration_p = Some(0.4);
         let (v, code, _) = direction_verdict(&d, &cfg(39));

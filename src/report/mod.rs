@@ -369,6 +369,10 @@ pub enum ReasonCode {
     /// The circuits where this aggressor is the victim's only active neighbour have the
     /// power to see the slack and need none: it belongs to another aggressor.
     NoneAlone,
+    /// The slack sits only in rows where the aggressor is active in every circuit that
+    /// agrees with them on depth and the other neighbours' activity: no permutation of its
+    /// label can test it.
+    Untestable,
     /// No permutation-null replicates were run, so nothing can be called detected.
     NoNull,
     /// The score is within the permutation-null detection limit.
@@ -383,12 +387,13 @@ pub enum ReasonCode {
 
 impl ReasonCode {
     /// Every code, in the order of the verdict rule.
-    pub const ALL: [ReasonCode; 10] = [
+    pub const ALL: [ReasonCode; 11] = [
         ReasonCode::Untested,
         ReasonCode::NoSlack,
         ReasonCode::Shared,
         ReasonCode::NotAlone,
         ReasonCode::NoneAlone,
+        ReasonCode::Untestable,
         ReasonCode::NoNull,
         ReasonCode::InNull,
         ReasonCode::OneCircuit,
@@ -404,6 +409,7 @@ impl ReasonCode {
             ReasonCode::Shared => "shared",
             ReasonCode::NotAlone => "not-alone",
             ReasonCode::NoneAlone => "none-alone",
+            ReasonCode::Untestable => "untestable",
             ReasonCode::NoNull => "no-null",
             ReasonCode::InNull => "in-null",
             ReasonCode::OneCircuit => "one-circuit",
@@ -423,6 +429,9 @@ impl ReasonCode {
             ReasonCode::NotAlone => "only circuits with other neighbours active too need it",
             ReasonCode::NoneAlone => {
                 "its own circuits could see the slack and need none: another aggressor's"
+            }
+            ReasonCode::Untestable => {
+                "needs slack only where the aggressor's activity never varies: no null can test it"
             }
             ReasonCode::NoNull => "no null replicates were run: not tested (--null-replicates)",
             ReasonCode::InNull => "score within the permutation null (mid-p above alpha)",

@@ -234,7 +234,7 @@ fn mark_legend(x: f64, mut y: f64) -> (String, f64) {
         (Verdict::Recalibrate, "recalibrate (detected, above threshold)"),
         (Verdict::Watch, "watch (detected, below threshold)"),
         (Verdict::Confounded, "confounded (another aggressor could carry it)"),
-        (Verdict::NotTested, "not-tested (needs slack; no null was run)"),
+        (Verdict::NotTested, "not-tested (needs slack; no null could test it)"),
     ] {
         s.push_str(&format!("<g class=\"legend-mark\" data-verdict=\"{}\">", v.word()));
         s.push_str(&verdict_mark(v, x + 8.0, y - 4.0, 6.0));

@@ -320,6 +320,10 @@ pub fn summary_words(r: &AuditReport) -> String {
             per_mille(r.parameters.action_threshold_tvd_per_layer)
         );
     }
+    if tested && untested > 0 {
+        let (n, verb) = if untested == 1 { ("pair", "needs") } else { ("pairs", "need") };
+        let _ = write!(s, " {untested} {n} {verb} context slack only in circuits where no permutation can test it (not-tested, untestable): add circuits where the aggressor is the victim's only active neighbour.");
+    }
     if conf > 0 {
         let (n, verb) = if conf == 1 { ("pair", "carries") } else { ("pairs", "carry") };
         let _ = write!(s, " {conf} {n} {verb} slack that another aggressor could explain instead (confounded): the circuits cannot tell them apart.");

@@ -69,21 +69,119 @@ pub fn permutation_null(
             SplitRow { base, label, other_context }
         })
         .collect();
+    let groups = stratum_groups(strata);
+    replicate_scores(problem, &groups, score_weights, replicates, seed, |source| {
+        split
+            .iter()
+            .zip(&problem.rows)
+            .zip(source)
+            .map(|((s, row), &src)| {
+                let label = &split[src].label;
+                let mut terms = Vec::with_capacity(s.base.len() + label.len());
+                terms.extend_from_slice(&s.base);
+                terms.extend_from_slice(label);
+                let labelled = label.iter().any(|&(v, c)| c > 0.0 && free_context(v));
+                Row {
+                    terms,
+                    requirement: row.requirement,
+                    reference: !(s.other_context || labelled),
+                }
+            })
+            .collect()
+    })
+}
+
+/// Null scores when the permutation moves only *whether* the aggressor was active, not its
+/// label: within each stratum the indicators `labelled` are shuffled among rows, and a row
+/// labelled in a replicate carries its own label `labels[j]` (its own exposure, for instance
+/// every occurrence of the victim's operations in it). The rows of `problem` hold their base
+/// terms and, where `labelled[j]`, `labels[j]`; terms on `r_vars` are taken as the label.
+///
+/// [`permutation_null`] moves labels between rows, so a row needing slack in proportion to
+/// its exposure receives another row's exposure in the null; the least budget covering it
+/// then rises (by the rearrangement inequality the observed pairing of needs and exposures is
+/// the one that needs least), and a strong real effect scored inside its own null. Here a
+/// labelled row keeps its own exposure, so only the dependence on the aggressor's activity is
+/// destroyed, as the test intends (method.md section 5).
+#[allow(clippy::too_many_arguments)]
+pub fn indicator_null(
+    problem: &CoveringProblem,
+    r_vars: &[usize],
+    labels: &[Vec<(usize, f64)>],
+    labelled: &[bool],
+    strata: &[u64],
+    score_weights: &[(usize, f64)],
+    replicates: usize,
+    seed: u64,
+) -> Result<Vec<f64>> {
+    problem.validate()?;
+    let n = problem.rows.len();
+    if strata.len() != n || labels.len() != n || labelled.len() != n {
+        return Err(Error::Analysis(format!(
+            "indicator null: {} strata, {} labels and {} indicators for {n} rows (give one per row)",
+            strata.len(),
+            labels.len(),
+            labelled.len()
+        )));
+    }
+    let free_context = |v: usize| {
+        problem.kinds[v] == VarKind::Context && problem.fixed.get(v).copied().flatten().is_none()
+    };
+    let base: Vec<Vec<(usize, f64)>> = problem
+        .rows
+        .iter()
+        .map(|row| row.terms.iter().copied().filter(|(v, _)| !r_vars.contains(v)).collect())
+        .collect();
+    let other_context: Vec<bool> =
+        base.iter().map(|b| b.iter().any(|&(v, c)| c > 0.0 && free_context(v))).collect();
+    let groups = stratum_groups(strata);
+    replicate_scores(problem, &groups, score_weights, replicates, seed, |source| {
+        (0..n)
+            .map(|j| {
+                let on = labelled[source[j]];
+                let mut terms = base[j].clone();
+                if on {
+                    terms.extend_from_slice(&labels[j]);
+                }
+                let carries = on && labels[j].iter().any(|&(v, c)| c > 0.0 && free_context(v));
+                Row {
+                    terms,
+                    requirement: problem.rows[j].requirement,
+                    reference: !(other_context[j] || carries),
+                }
+            })
+            .collect()
+    })
+}
+
+/// Rows grouped by stratum, groups of one left out (permuting them changes nothing).
+fn stratum_groups(strata: &[u64]) -> Vec<Vec<usize>> {
     let mut groups: BTreeMap<u64, Vec<usize>> = BTreeMap::new();
     for (i, &s) in strata.iter().enumerate() {
         groups.entry(s).or_default().push(i);
     }
-    let groups: Vec<Vec<usize>> = groups.into_values().filter(|g| g.len() > 1).collect();
+    groups.into_values().filter(|g| g.len() > 1).collect()
+}
 
+/// Scores of `replicates` replicates: replicate i shuffles each group with ChaCha8 seeded by
+/// `seed` on stream i, `rows(source)` builds its rows (`source[j]` = the row whose label or
+/// indicator row j receives), and both stages are re-solved.
+fn replicate_scores(
+    problem: &CoveringProblem,
+    groups: &[Vec<usize>],
+    score_weights: &[(usize, f64)],
+    replicates: usize,
+    seed: u64,
+    rows: impl Fn(&[usize]) -> Vec<Row> + Sync,
+) -> Result<Vec<f64>> {
     (0..replicates)
         .into_par_iter()
         .map(|i| {
             let mut rng = ChaCha8Rng::seed_from_u64(seed);
             rng.set_stream(i as u64);
-            // source[j] = the row whose label row j receives.
-            let mut source: Vec<usize> = (0..split.len()).collect();
+            let mut source: Vec<usize> = (0..problem.rows.len()).collect();
             let mut perm = Vec::new();
-            for g in &groups {
+            for g in groups {
                 perm.clear();
                 perm.extend_from_slice(g);
                 perm.shuffle(&mut rng);
@@ -91,27 +189,10 @@ pub fn permutation_null(
                     source[dst] = src;
                 }
             }
-            let rows: Vec<Row> = split
-                .iter()
-                .zip(&problem.rows)
-                .zip(&source)
-                .map(|((s, row), &src)| {
-                    let label = &split[src].label;
-                    let mut terms = Vec::with_capacity(s.base.len() + label.len());
-                    terms.extend_from_slice(&s.base);
-                    terms.extend_from_slice(label);
-                    let labelled = label.iter().any(|&(v, c)| c > 0.0 && free_context(v));
-                    Row {
-                        terms,
-                        requirement: row.requirement,
-                        reference: !(s.other_context || labelled),
-                    }
-                })
-                .collect();
             let replicate = CoveringProblem {
                 kinds: problem.kinds.clone(),
                 fixed: problem.fixed.clone(),
-                rows,
+                rows: rows(&source),
             };
             Ok(replicate.solve()?.score(score_weights))
         })
