@@ -384,6 +384,29 @@ enum Item {
 }
 
 impl<'a> Parser<'a> {
+    fn new(
+        toks: Vec<Token>,
+        path: &'a Path,
+        id: &'a str,
+        layout: &'a Layout,
+        map: Option<&'a QubitMap>,
+    ) -> Parser<'a> {
+        Parser {
+            toks,
+            pos: 0,
+            path,
+            id,
+            layout,
+            map,
+            qregs: HashMap::new(),
+            bregs: HashMap::new(),
+            breg_order: Vec::new(),
+            items: Vec::new(),
+            measures: Vec::new(),
+            n_statements: 0,
+        }
+    }
+
     fn line(&self) -> usize {
         self.toks.get(self.pos).or(self.toks.last()).map_or(1, |t| t.line)
     }
@@ -669,9 +692,10 @@ impl<'a> Parser<'a> {
                 "gates after a measurement are not supported: measure at the end of the program",
             ));
         }
-        let op = match gate.arity() {
-            2 => Op::two(gate, qs[0], qs[1]),
-            _ => Op::rot(gate, qs[0], angle.unwrap_or(0.0)),
+        let op = Op {
+            gate,
+            operands: [qs[0], *qs.last().unwrap_or(&qs[0])],
+            angle: angle.unwrap_or(0.0),
         };
         self.items.push(Item::Op(op));
         Ok(())
@@ -1004,22 +1028,29 @@ pub fn import(
 ) -> Result<Circuit> {
     let toks = tokenize(text)
         .map_err(|(line, m)| Error::input(path, Some(line), format!("circuit {id}: {m}")))?;
-    let mut p = Parser {
-        toks,
-        pos: 0,
-        path,
-        id,
-        layout,
-        map,
-        qregs: HashMap::new(),
-        bregs: HashMap::new(),
-        breg_order: Vec::new(),
-        items: Vec::new(),
-        measures: Vec::new(),
-        n_statements: 0,
-    };
+    let mut p = Parser::new(toks, path, id, layout, map);
     p.run()?;
     p.finish()
+}
+
+/// Evaluates an angle written as a gate call writes it (`pi/2`, `-0.25*tau`, `1.2e-3`): the
+/// `expr` of the grammar above. The error says what is allowed.
+pub fn angle_expression(text: &str) -> std::result::Result<f64, String> {
+    let bad = || {
+        format!(
+            "'{}' is not an angle (numbers, pi, tau, + - * / and parentheses, e.g. pi/2)",
+            crate::error::echo(text)
+        )
+    };
+    let toks = tokenize(text).map_err(|_| bad())?;
+    // The expression grammar needs no qubits; the parser is built on a one-qubit layout.
+    let layout = crate::layout::generate::chain(1);
+    let mut p = Parser::new(toks, Path::new(""), "", &layout, None);
+    let v = p.expr(0).map_err(|_| bad())?;
+    if p.pos != p.toks.len() || !v.is_finite() {
+        return Err(bad());
+    }
+    Ok(v)
 }
 
 #[cfg(test)]
