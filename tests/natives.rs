@@ -31,7 +31,10 @@ fn layout(dir: &Path, gates: &str) {
 /// intrinsic error on each of `natives`, and audit. Returns audit.json.
 fn run(dir: &Path, natives: &[&str]) -> serde_json::Value {
     let mut noise = common::noise_with_context("q4", "q1", 8e-3);
-    for n in natives.iter().filter(|n| !noise.contains(&format!("[intrinsic.{n}]"))) {
+    for n in natives {
+        if noise.contains(&format!("[intrinsic.{n}]")) {
+            continue;
+        }
         noise.push_str(&format!("[intrinsic.{n}]\ndepolarizing = 1.0e-2\n"));
     }
     std::fs::write(dir.join("noise.toml"), noise).unwrap();
