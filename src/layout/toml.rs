@@ -158,7 +158,7 @@ impl Checker<'_> {
             qubits.push(Qubit { id, position });
         }
         let couplers = self.pairs(wire.couplers, &seen, "coupler", true)?;
-        let gates = self.gates(wire.gates)?;
+        let gates = self.gates(wire.gates, &seen, &couplers)?;
         let (radius, extra_pairs) = match wire.neighbourhood {
             None => (1, Vec::new()),
             Some(n) => {
@@ -294,7 +294,12 @@ impl Checker<'_> {
         Ok(g)
     }
 
-    fn gates(&self, wire: GatesWire) -> Result<NativeGates> {
+    fn gates(
+        &self,
+        wire: GatesWire,
+        ids: &HashMap<String, Range<usize>>,
+        couplers: &[(String, String)],
+    ) -> Result<NativeGates> {
         let mut one_qubit = Vec::new();
         for n in &wire.one_qubit {
             let g = self.gate(n, "one_qubit", 1)?;
@@ -338,14 +343,38 @@ impl Checker<'_> {
                     "[[gates.coupler]] qubits is a pair of two qubit ids, like [\"q0\", \"q1\"]",
                 ));
             };
+            let (a, b) = (a.get_ref(), b.get_ref());
+            if let Some(q) = [a, b].into_iter().find(|q| !ids.contains_key(*q)) {
+                return Err(self.err(
+                    w.qubits.span(),
+                    format!("[[gates.coupler]] names unknown qubit '{}'", echo(q)),
+                ));
+            }
+            if !couplers.iter().any(|(x, y)| (x == a && y == b) || (x == b && y == a)) {
+                return Err(self.err(
+                    w.qubits.span(),
+                    format!(
+                        "[[gates.coupler]] {a}-{b} is not a coupler (list it in `couplers` first)"
+                    ),
+                ));
+            }
+            if coupler_gates
+                .iter()
+                .any(|(x, y, _): &(String, String, _)| (x == a && y == b) || (x == b && y == a))
+            {
+                return Err(
+                    self.err(w.qubits.span(), format!("[[gates.coupler]] {a}-{b} is listed twice"))
+                );
+            }
             let list = self.natives(&w.two_qubit, "coupler two_qubit")?;
-            coupler_gates.push((a.get_ref().clone(), b.get_ref().clone(), list));
+            coupler_gates.push((a.clone(), b.clone(), list));
         }
-        if wire.two_qubit.is_none() && wire.coupler.is_empty() {
+        if wire.two_qubit.is_none() && coupler_gates.len() < couplers.len() {
             return Err(Error::input(
                 self.path,
                 None,
-                "[gates] needs `two_qubit` (a gate name or a list, like \"cz\" or [\"ecr\"])",
+                "[gates] needs `two_qubit` (a gate name or a list, like \"cz\" or [\"ecr\"]) \
+                 unless every coupler has its own [[gates.coupler]] list",
             ));
         }
         Ok(NativeGates { one_qubit, virtual_gates, two_qubit, coupler_gates, custom })
@@ -696,6 +725,86 @@ mod tests {
         assert!(m.contains("line 13: coupler q0-q0 joins a qubit to itself"), "{m}");
         let m = err(&text.replace("position = [0.0, 0.0]", "position = [nan, 0.0]"));
         assert!(m.contains("line 4:") && m.contains("finite"), "{m}");
+    }
+
+    /// The good fixture with its `two_qubit = "cz"` line replaced by `gates`.
+    fn with_gates(gates: &str) -> String {
+        good_text().replace("two_qubit = \"cz\"\n", &format!("{gates}\n"))
+    }
+
+    #[test]
+    fn several_natives_per_coupler_and_custom_gates_round_trip() {
+        let text = with_gates(
+            "two_qubit = [\"ecr\", \"cp(pi/2)\"]\n[[gates.coupler]]\nqubits = [\"q4\", \"q1\"]\n\
+             two_qubit = [\"iswap\", \"rzz(-pi/4)\", \"half_swap\"]\n[[gates.custom]]\n\
+             name = \"half_swap\"\nunitary = [[1, 0, 0, 0], [0, [0.5, 0.5], [0.5, -0.5], 0], \
+             [0, [0.5, -0.5], [0.5, 0.5], 0], [0, 0, 0, 1]]",
+        );
+        let l = parse(&text).unwrap();
+        let half_swap = Gate::from_name("half_swap").unwrap();
+        assert_eq!(
+            l.gates.two_qubit,
+            vec![
+                Native2::fixed(Gate::Ecr),
+                Native2 { gate: Gate::Cp, angle: std::f64::consts::FRAC_PI_2 }
+            ]
+        );
+        assert_eq!(l.gates.custom, vec![half_swap]);
+        let c = l.coupler(1, 4).unwrap();
+        let own: Vec<Gate> = l.natives(c).iter().map(|n| n.gate).collect();
+        assert_eq!(own, vec![Gate::Iswap, Gate::Rzz, half_swap]);
+        assert_eq!(l.natives(l.coupler(0, 1).unwrap()), &l.gates.two_qubit[..]);
+        assert!(l.is_native_op(Gate::Cp, &[0, 1], std::f64::consts::FRAC_PI_2));
+        assert!(!l.is_native_op(Gate::Cp, &[0, 1], 0.3));
+        assert!(!l.is_native_op(Gate::Ecr, &[1, 4], 0.0));
+        // sqrt(SWAP) as written is symmetric under exchange of its operands.
+        assert!(half_swap.is_symmetric() && !Gate::Ecr.is_symmetric());
+        let back = parse(&to_toml(&l)).unwrap();
+        same(&l, &back);
+        assert_eq!(to_toml(&back), to_toml(&l));
+        // A simple layout still writes one name.
+        assert!(to_toml(&parse(&good_text()).unwrap()).contains("two_qubit = \"cz\"\n"));
+    }
+
+    #[test]
+    fn native_errors_name_the_line() {
+        let m = err(&with_gates("two_qubit = \"cp\""));
+        assert!(m.contains("line 19:") && m.contains("write it, like \"cp(pi/2)\""), "{m}");
+        let m = err(&with_gates("two_qubit = \"ecr(pi)\""));
+        assert!(m.contains("line 19:") && m.contains("gate 'ecr' takes no angle"), "{m}");
+        let m = err(&with_gates("two_qubit = [\"cz\", \"cz\"]"));
+        assert!(m.contains("line 19:") && m.contains("listed twice"), "{m}");
+        let m = err(&with_gates("two_qubit = \"rzz(pi/x)\""));
+        assert!(m.contains("line 19:") && m.contains("is not an angle"), "{m}");
+        let m = err(&with_gates("two_qubit = \"fsim\""));
+        assert!(
+            m.contains("line 19: unknown gate 'fsim'") && m.contains("[[gates.custom]]"),
+            "{m}"
+        );
+        let coupler = |pair: &str| {
+            with_gates(&format!(
+                "two_qubit = \"cz\"\n[[gates.coupler]]\nqubits = {pair}\ntwo_qubit = \"ecr\""
+            ))
+        };
+        let m = err(&coupler("[\"q0\", \"q5\"]"));
+        assert!(m.contains("line 21: [[gates.coupler]] q0-q5 is not a coupler"), "{m}");
+        let m = err(&coupler("[\"q0\", \"q9\"]"));
+        assert!(m.contains("line 21:") && m.contains("unknown qubit 'q9'"), "{m}");
+        let custom = |name: &str, last: &str| {
+            with_gates(&format!(
+                "two_qubit = \"cz\"\n[[gates.custom]]\nname = \"{name}\"\n\
+                 unitary = [[1, 0, 0, 0], [0, 1, 0, 0], [0, 0, 1, 0], {last}]"
+            ))
+        };
+        let m = err(&custom("cx", "[0, 0, 0, 1]"));
+        assert!(m.contains("line 21:") && m.contains("already a standard gate"), "{m}");
+        let m = err(&custom("near", "[0, 0, 0, 0.99]"));
+        assert!(m.contains("line 21:") && m.contains("not unitary"), "{m}");
+        let m = err(&custom("short", "[0, 0, 1]"));
+        assert!(m.contains("line 22:") && m.contains("4 rows of 4 entries"), "{m}");
+        // No list for some coupler and no default.
+        let m = err(&with_gates(""));
+        assert!(m.contains("needs `two_qubit`"), "{m}");
     }
 
     #[test]
