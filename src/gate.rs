@@ -99,7 +99,10 @@ pub fn define_custom(name: &str, rows: &Mat4) -> Result<Gate, String> {
             crate::error::echo(name)
         ));
     }
-    if Gate::ALL.iter().any(|g| g.name() == name) || is_reserved(name) {
+    if Gate::ALL.iter().any(|g| g.name() == name)
+        || is_reserved(name)
+        || stdgates_translated(name).is_some()
+    {
         return Err(format!(
             "custom gate name '{name}' is already a standard gate; choose another name"
         ));
@@ -366,6 +369,162 @@ impl Gate {
         }
         Some(m)
     }
+}
+
+/// A one- or two-qubit unitary.
+#[derive(Copy, Clone, Debug, PartialEq)]
+pub enum Unitary {
+    /// On one qubit.
+    One(Mat2),
+    /// On two qubits, basis index bit(first) + 2 * bit(second).
+    Two(Mat4),
+}
+
+impl Unitary {
+    /// The unitary of a gate at an angle.
+    pub fn of(gate: Gate, angle: f64) -> Option<Unitary> {
+        gate.unitary1(angle).map(Unitary::One).or_else(|| gate.unitary2(angle).map(Unitary::Two))
+    }
+
+    /// Number of qubits.
+    pub fn arity(&self) -> usize {
+        match self {
+            Unitary::One(_) => 1,
+            Unitary::Two(_) => 2,
+        }
+    }
+
+    fn entries(&self) -> Vec<Complex64> {
+        match self {
+            Unitary::One(m) => m.iter().flatten().copied().collect(),
+            Unitary::Two(m) => m.iter().flatten().copied().collect(),
+        }
+    }
+
+    /// True when both act on as many qubits and are equal up to a global phase, to 1e-9 in
+    /// every entry (a first-order test: a rotation by 1e-7 is not the identity).
+    pub fn same_up_to_phase(&self, other: &Unitary) -> bool {
+        if self.arity() != other.arity() {
+            return false;
+        }
+        let (a, b) = (self.entries(), other.entries());
+        let ip: Complex64 = a.iter().zip(&b).map(|(x, y)| x.conj() * y).sum();
+        if ip.norm() < 1e-9 {
+            return false;
+        }
+        let phase = ip / ip.norm();
+        a.iter().zip(&b).all(|(x, y)| (x * phase - y).norm() < 1e-9)
+    }
+
+    /// The same two-qubit unitary with its operands exchanged; a one-qubit unitary as it is.
+    pub fn swapped(&self) -> Unitary {
+        match self {
+            Unitary::One(m) => Unitary::One(*m),
+            Unitary::Two(m) => {
+                let s = |i: usize| ((i & 1) << 1) | (i >> 1);
+                Unitary::Two(std::array::from_fn(|r| std::array::from_fn(|c| m[s(r)][s(c)])))
+            }
+        }
+    }
+
+    /// The product `self` then `after` (matrix `after * self`); `None` for unequal arity.
+    pub fn then(&self, after: &Unitary) -> Option<Unitary> {
+        fn mul<const N: usize>(
+            a: &[[Complex64; N]; N],
+            b: &[[Complex64; N]; N],
+        ) -> [[Complex64; N]; N] {
+            std::array::from_fn(|i| {
+                std::array::from_fn(|j| (0..N).map(|k| a[i][k] * b[k][j]).sum())
+            })
+        }
+        match (self, after) {
+            (Unitary::One(a), Unitary::One(b)) => Some(Unitary::One(mul(b, a))),
+            (Unitary::Two(a), Unitary::Two(b)) => Some(Unitary::Two(mul(b, a))),
+            _ => None,
+        }
+    }
+
+    /// A one-qubit unitary on operand `k` (0 or 1) of a two-qubit register.
+    pub fn on_operand(m: &Mat2, k: usize) -> Unitary {
+        let o = Complex64::new(0.0, 0.0);
+        Unitary::Two(std::array::from_fn(|r| {
+            std::array::from_fn(|c| {
+                let other = (r >> (1 - k)) & 1 == (c >> (1 - k)) & 1;
+                if other {
+                    m[(r >> k) & 1][(c >> k) & 1]
+                } else {
+                    o
+                }
+            })
+        }))
+    }
+}
+
+/// Gates of the OpenQASM 3 `stdgates.inc` (and the built-in `U` and `CX`) that slackmap
+/// reads by translation into a gate it knows: (qubits, angles) of each name.
+pub fn stdgates_translated(name: &str) -> Option<(usize, usize)> {
+    Some(match name {
+        "sxdg" => (1, 0),
+        "u2" => (1, 2),
+        "u3" | "U" => (1, 3),
+        "CX" | "cy" | "ch" => (2, 0),
+        "crx" | "cry" | "crz" | "cphase" => (2, 1),
+        "cu" => (2, 4),
+        _ => return None,
+    })
+}
+
+/// The unitary of a translated standard-library gate at its angles (OpenQASM 3
+/// specification, stdgates.inc; the first operand controls): `U(θ, φ, λ)` =
+/// [[cos θ/2, -e^{iλ} sin θ/2], [e^{iφ} sin θ/2, e^{i(φ+λ)} cos θ/2]], `u3` equals it up to a
+/// phase and `u2(φ, λ)` = `u3(π/2, φ, λ)`; `cu(θ, φ, λ, γ)` applies e^{iγ} U(θ, φ, λ) to the
+/// target when the control is 1; `cphase` is `cp`.
+pub fn stdgates_unitary(name: &str, angles: &[f64]) -> Option<Unitary> {
+    let (arity, n) = stdgates_translated(name)?;
+    if angles.len() != n {
+        return None;
+    }
+    let u = |t: f64, p: f64, l: f64| -> Mat2 {
+        let (c, s) = ((t / 2.0).cos(), (t / 2.0).sin());
+        [
+            [Complex64::new(c, 0.0), -Complex64::from_polar(s, l)],
+            [Complex64::from_polar(s, p), Complex64::from_polar(c, p + l)],
+        ]
+    };
+    let controlled = |m: Mat2| -> Unitary {
+        let o = Complex64::new(0.0, 0.0);
+        let one = Complex64::new(1.0, 0.0);
+        Unitary::Two(std::array::from_fn(|r| {
+            std::array::from_fn(|c| match (r & 1, c & 1) {
+                (1, 1) => m[r >> 1][c >> 1],
+                (0, 0) if r == c => one,
+                _ => o,
+            })
+        }))
+    };
+    let one_qubit = |g: Gate, a: f64| g.unitary1(a).unwrap_or_default();
+    let _ = arity;
+    Some(match name {
+        "sxdg" => {
+            let m = one_qubit(Gate::Sx, 0.0);
+            Unitary::One([[m[0][0].conj(), m[1][0].conj()], [m[0][1].conj(), m[1][1].conj()]])
+        }
+        "u2" => Unitary::One(u(std::f64::consts::FRAC_PI_2, angles[0], angles[1])),
+        "u3" | "U" => Unitary::One(u(angles[0], angles[1], angles[2])),
+        "CX" => Unitary::of(Gate::Cx, 0.0)?,
+        "cy" => controlled(one_qubit(Gate::Y, 0.0)),
+        "ch" => controlled(one_qubit(Gate::H, 0.0)),
+        "crx" => controlled(one_qubit(Gate::Rx, angles[0])),
+        "cry" => controlled(one_qubit(Gate::Ry, angles[0])),
+        "crz" => controlled(one_qubit(Gate::Rz, angles[0])),
+        "cphase" => Unitary::of(Gate::Cp, angles[0])?,
+        "cu" => {
+            let m = u(angles[0], angles[1], angles[2]);
+            let g = Complex64::from_polar(1.0, angles[3]);
+            controlled([[m[0][0] * g, m[0][1] * g], [m[1][0] * g, m[1][1] * g]])
+        }
+        _ => return None,
+    })
 }
 
 impl std::fmt::Display for Gate {
