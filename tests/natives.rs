@@ -122,6 +122,9 @@ fn two_qubit_kinds(audit: &serde_json::Value) -> Vec<String> {
 
 type M = Vec<Vec<C>>;
 
+/// A repeated sequence's block across depths: (pattern, kind, sequence, block qubits).
+type CycleKey = (String, String, String, Vec<String>);
+
 fn c(re: f64, im: f64) -> C {
     C::new(re, im)
 }
@@ -274,9 +277,7 @@ fn compiled_sequences_implement_their_cliffords(dir: &Path) -> (usize, usize) {
         })
         .collect();
     let (mut randomized, mut repeated) = (0, 0);
-    // (pattern, kind, sequence, block) -> (depth, unitary)
-    let mut cycles: BTreeMap<(String, String, String, Vec<String>), Vec<(usize, M)>> =
-        BTreeMap::new();
+    let mut cycles: BTreeMap<CycleKey, Vec<(usize, M)>> = BTreeMap::new();
     for circuit in doc["circuits"].as_array().unwrap() {
         let id = circuit["id"].as_str().unwrap();
         let row = &rows[id];

@@ -65,7 +65,8 @@ impl std::fmt::Display for Native2 {
     }
 }
 
-/// The layout's native gate set.
+/// The layout's native gate set. [`Layout::new`] resolves each coupler's two-qubit list
+/// once: to change the two-qubit gates, build a new layout.
 #[derive(Clone, PartialEq)]
 pub struct NativeGates {
     /// One-qubit gates the chip runs (virtual ones included).
