@@ -879,8 +879,12 @@ impl<'a> Parser<'a> {
             Some((gate, angle)) if self.layout.is_native_op(gate, qs, angle) => {
                 Op { gate, operands, angle }
             }
-            Some((gate, angle)) => self.as_native(&u, qs).unwrap_or(Op { gate, operands, angle }),
-            None => self.as_native(&u, qs).ok_or_else(|| {
+            // A standard gate equal to the identity stays itself rather than becoming an
+            // idle: `rx(0)` is a pulse the program asked for.
+            Some((gate, angle)) => {
+                self.as_native(&u, qs, false).unwrap_or(Op { gate, operands, angle })
+            }
+            None => self.as_native(&u, qs, true).ok_or_else(|| {
                 let shown = if angles.is_empty() {
                     word.to_string()
                 } else {
@@ -925,14 +929,20 @@ impl<'a> Parser<'a> {
         Ok(())
     }
 
-    /// The native operation on `qs` whose unitary equals `u` up to a global phase.
-    fn as_native(&self, u: &Unitary, qs: &[QubitIx]) -> Option<Op> {
+    /// The native operation on `qs` whose unitary equals `u` up to a global phase; `id`
+    /// counts only with `idle`.
+    fn as_native(&self, u: &Unitary, qs: &[QubitIx], idle: bool) -> Option<Op> {
         match (u, qs) {
             (Unitary::One(m), &[q]) => {
-                for g in
-                    std::iter::once(Gate::Id).chain(self.layout.gates.one_qubit.iter().copied())
-                {
-                    let angle = if g.n_params() == 1 { rotation_angle(g, m)? } else { 0.0 };
+                let first = idle.then_some(Gate::Id);
+                for g in first.into_iter().chain(self.layout.gates.one_qubit.iter().copied()) {
+                    let angle = match g.n_params() {
+                        0 => 0.0,
+                        _ => match rotation_angle(g, m) {
+                            Some(a) => a,
+                            None => continue,
+                        },
+                    };
                     if Unitary::of(g, angle).is_some_and(|v| v.same_up_to_phase(u)) {
                         return Some(Op::rot(g, q, angle));
                     }
