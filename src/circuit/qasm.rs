@@ -880,7 +880,12 @@ impl<'a> Parser<'a> {
                 Op { gate, operands, angle }
             }
             // A standard gate equal to the identity stays itself rather than becoming an
-            // idle: `rx(0)` is a pulse the program asked for.
+            // idle or a frame change: `rx(0)` is a pulse the program asked for.
+            Some((gate, angle))
+                if Unitary::of(Gate::Id, 0.0).is_some_and(|i| i.same_up_to_phase(&u)) =>
+            {
+                Op { gate, operands, angle }
+            }
             Some((gate, angle)) => {
                 self.as_native(&u, qs, false).unwrap_or(Op { gate, operands, angle })
             }
@@ -1638,6 +1643,15 @@ mod tests {
         assert!((c.layers[1][0].angle + FRAC_PI_2).abs() < 1e-12);
         assert!((c.layers[4][0].angle.abs() - PI).abs() < 1e-12);
         assert_eq!(c.measured, vec![0, 1]);
+    }
+
+    #[test]
+    fn standard_gates_equal_to_the_identity_keep_their_name() {
+        // rx(0) equals id and rz(0) up to phase, but it is a pulse the program asked for; a
+        // translated gate equal to the identity is an explicit idle.
+        let c = imp("rx(0) $0;\nbarrier;\nu3(0, 0, 0) $0;\nbit c;\nc = measure $0;\n").unwrap();
+        assert_eq!(c.layers[0][0].gate, Gate::Rx);
+        assert_eq!(c.layers[1][0].gate, Gate::Id);
     }
 
     #[test]
