@@ -719,24 +719,16 @@ impl<'a> Parser<'a> {
                 self.measures.push((bit, q, line));
                 Ok(())
             }
-            w if self.bregs.get(w).is_some_and(|&(_, n)| n > 1)
-                && matches!(self.toks.get(self.pos + 1).map(|t| &t.tok), Some(Tok::Punct("="))) =>
-            {
-                let breg = w.to_string();
-                self.pos += 2;
-                if self.peek() != Some(&Tok::Ident("measure".into())) {
-                    return Err(self.err(
-                        line,
-                        "only measurements may be assigned to bits ('c = measure q;')",
-                    ));
-                }
-                self.pos += 1;
-                let qreg = self.ident("a qubit register (c = measure q;)")?;
-                self.expect_punct(";", "after the measurement")?;
-                self.measure_registers(&breg, &qreg, line)
-            }
             w if self.bregs.contains_key(w) => {
-                let bit = self.bitref()?;
+                // `c = measure q;` on a register of several bits measures it whole.
+                let whole = self.bregs[w].1 > 1
+                    && matches!(self.toks.get(self.pos + 1).map(|t| &t.tok), Some(Tok::Punct("=")));
+                let bit = if whole {
+                    self.pos += 1;
+                    None
+                } else {
+                    Some(self.bitref()?)
+                };
                 if !self.is_punct("=") {
                     return Err(self.err(line, format!("expected '=' after bit '{w}'")));
                 }
@@ -748,6 +740,11 @@ impl<'a> Parser<'a> {
                     ));
                 }
                 self.pos += 1;
+                let Some(bit) = bit else {
+                    let qreg = self.ident("a qubit register (c = measure q;)")?;
+                    self.expect_punct(";", "after the measurement")?;
+                    return self.measure_registers(w, &qreg, line);
+                };
                 let q = self.operand()?;
                 self.expect_punct(";", "after the measurement")?;
                 self.measures.push((bit, q, line));
