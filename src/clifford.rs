@@ -14,8 +14,8 @@ use num_complex::Complex64;
 use rand::RngExt;
 
 use crate::error::{Error, Result};
-use crate::gate::{Gate, Mat2};
-use crate::layout::Layout;
+use crate::gate::{Gate, Mat2, Mat4};
+use crate::layout::{Layout, Native2};
 
 /// Number of one-qubit Cliffords modulo global phase.
 pub const N_CLIFFORD1: usize = 24;
@@ -447,8 +447,8 @@ impl Tableau2 {
         Tableau2 { images: [embed(ia[0], 0), embed(ib[0], 1), embed(ia[1], 0), embed(ib[1], 1)] }
     }
 
-    /// The tableau of a native two-qubit gate (cz, or cx with the first operand as
-    /// control); `None` for other gates.
+    /// The tableau of cz, or cx with the first operand as control (written out); `None`
+    /// for other gates (see [`Tableau2::from_unitary`]).
     pub fn gate(g: Gate) -> Option<Tableau2> {
         let p = |x, z| Pauli2 { x, z, r: 0 };
         match g {
@@ -456,6 +456,37 @@ impl Tableau2 {
             Gate::Cx => Some(Tableau2 { images: [p(3, 0), p(2, 0), p(0, 1), p(0, 3)] }),
             _ => None,
         }
+    }
+
+    /// The tableau of a two-qubit unitary (basis index bit(first) + 2 * bit(second)), or
+    /// `None` when it is not a Clifford: some Pauli X1, X2, Z1, Z2 is not conjugated to a
+    /// signed Pauli (to 1e-9 in every entry).
+    pub fn from_unitary(u: &Mat4) -> Option<Tableau2> {
+        let generators = [(1, 0), (2, 0), (0, 1), (0, 2)];
+        let mut images = [Pauli2::ONE; 4];
+        for (slot, &(x, z)) in generators.iter().enumerate() {
+            let conj = mul4(&mul4(u, &pauli4(x, z, 0)), &dagger4(u));
+            images[slot] =
+                (0..64u8).map(|k| Pauli2 { x: k & 3, z: (k >> 2) & 3, r: k >> 4 }).find(|p| {
+                    let q = pauli4(p.x, p.z, p.r);
+                    (0..4).all(|i| (0..4).all(|j| (q[i][j] - conj[i][j]).norm() < 1e-9))
+                })?;
+        }
+        Some(Tableau2 { images })
+    }
+
+    /// The inverse: `self.then(&self.inverse())` is the identity. Found through the word
+    /// of a gate whose table holds every two-qubit Clifford.
+    pub fn inverse(&self, with: &Entangler) -> Tableau2 {
+        let Some(w) = with.word_for(self) else { return Tableau2::identity() };
+        let mut t = Tableau2::identity();
+        for (i, l) in w.layers.iter().enumerate().rev() {
+            t = t.then(&Tableau2::layer(l[0].inverse(), l[1].inverse()));
+            if i > 0 {
+                t = t.then(&with.inverse);
+            }
+        }
+        t
     }
 
     fn conjugate(&self, p: Pauli2) -> Pauli2 {
@@ -493,9 +524,9 @@ pub struct Word2 {
 }
 
 impl Word2 {
-    /// The tableau of the word for a two-qubit gate.
-    pub fn tableau(&self, g: Gate) -> Tableau2 {
-        let gate = Tableau2::gate(g).unwrap_or_else(Tableau2::identity);
+    /// The tableau of the word when the gate between its layers has tableau `gate`.
+    pub fn tableau(&self, gate: &Tableau2) -> Tableau2 {
+        let gate = *gate;
         let mut t = Tableau2::identity();
         for (i, l) in self.layers.iter().enumerate() {
             if i > 0 {
@@ -507,12 +538,12 @@ impl Word2 {
     }
 }
 
+#[derive(Debug)]
 struct Table2 {
     words: HashMap<u32, Word2>,
 }
 
-fn build_table2(g: Gate) -> Table2 {
-    let gate = Tableau2::gate(g).unwrap_or_else(Tableau2::identity);
+fn build_table2(gate: Tableau2) -> Table2 {
     let layers: Vec<([Clifford1; 2], Tableau2)> = Clifford1::all()
         .flat_map(|a| Clifford1::all().map(move |b| ([a, b], Tableau2::layer(a, b))))
         .collect();
@@ -545,37 +576,103 @@ fn build_table2(g: Gate) -> Table2 {
     Table2 { words }
 }
 
-fn table2(g: Gate) -> Option<&'static Table2> {
-    static CZ: OnceLock<Table2> = OnceLock::new();
-    static CX: OnceLock<Table2> = OnceLock::new();
-    match g {
-        Gate::Cz => Some(CZ.get_or_init(|| build_table2(Gate::Cz))),
-        Gate::Cx => Some(CX.get_or_init(|| build_table2(Gate::Cx))),
-        _ => None,
+/// The word table of a two-qubit gate, by its tableau: built once per process (a table
+/// depends only on the gate's tableau, so cz's is the same whichever layout asks).
+fn table2(gate: &Tableau2) -> &'static Table2 {
+    static TABLES: OnceLock<std::sync::Mutex<HashMap<u32, &'static Table2>>> = OnceLock::new();
+    let tables = TABLES.get_or_init(Default::default);
+    let mut map = tables.lock().unwrap_or_else(|e| e.into_inner());
+    // A handful of gates per process; each table lives as long as the process.
+    map.entry(gate.key()).or_insert_with(|| Box::leak(Box::new(build_table2(*gate))))
+}
+
+/// A two-qubit native that can build and close Clifford sequences: a Clifford gate that,
+/// with one-qubit Cliffords, reaches every two-qubit Clifford.
+#[derive(Clone, Debug)]
+pub struct Entangler {
+    /// The native (gate and angle).
+    pub native: Native2,
+    /// Its tableau.
+    pub tableau: Tableau2,
+    /// The tableau of its inverse.
+    pub inverse: Tableau2,
+    table: &'static Table2,
+}
+
+impl Entangler {
+    /// The entangler of a native; the error says why the native cannot serve Clifford
+    /// sequences.
+    pub fn new(native: Native2) -> std::result::Result<Entangler, String> {
+        let tableau = Tableau2::from_unitary(&native.unitary())
+            .ok_or_else(|| format!("{native} is not a Clifford gate"))?;
+        let table = table2(&tableau);
+        if table.words.len() < N_CLIFFORD2 {
+            return Err(format!(
+                "{native} is a Clifford gate but does not entangle (with one-qubit gates it \
+                 reaches {} of the {N_CLIFFORD2} two-qubit Cliffords)",
+                table.words.len()
+            ));
+        }
+        // The order of a Clifford divides |C2 / U(1)|; the inverse is the power before it.
+        let mut inverse = Tableau2::identity();
+        let mut power = tableau;
+        while power != Tableau2::identity() {
+            inverse = power;
+            power = power.then(&tableau);
+        }
+        Ok(Entangler { native, tableau, inverse, table })
+    }
+
+    /// True when the gate is its own inverse (up to phase), like cz, cx and ecr.
+    pub fn is_self_inverse(&self) -> bool {
+        self.inverse == self.tableau
+    }
+
+    /// A shortest word (fewest two-qubit gates) for a two-qubit Clifford.
+    pub fn word_for(&self, t: &Tableau2) -> Option<&'static Word2> {
+        self.table.words.get(&t.key())
+    }
+
+    /// Number of distinct two-qubit Cliffords the table holds (11520).
+    pub fn table_size(&self) -> usize {
+        self.table.words.len()
     }
 }
 
-/// Checks that the layout's two-qubit gate can build two-qubit Clifford sequences.
-pub fn check_two_qubit_gate(layout: &Layout) -> Result<()> {
-    match layout.gates.two_qubit {
-        Gate::Cz | Gate::Cx => Ok(()),
-        g => Err(Error::Usage(format!(
-            "layout '{}': two-qubit gate '{g}' is not supported for sequences (valid: cz, cx)",
-            layout.name
-        ))),
+/// The Clifford natives of a list that can serve sequences, in list order; when none can,
+/// the error names each native and why.
+pub fn entanglers(natives: &[Native2]) -> std::result::Result<Vec<Entangler>, String> {
+    let mut out = Vec::new();
+    let mut why = Vec::new();
+    for &n in natives {
+        match Entangler::new(n) {
+            Ok(e) => out.push(e),
+            Err(m) => why.push(m),
+        }
     }
-}
-
-/// A shortest native word (fewest two-qubit gates, at most 3) for a two-qubit Clifford.
-pub fn word_for(t: &Tableau2, g: Gate) -> Option<&'static Word2> {
-    table2(g).and_then(|tab| tab.words.get(&t.key()))
+    if out.is_empty() {
+        return Err(format!(
+            "{}; Clifford sequences need a Clifford entangling two-qubit gate such as cz, cx, \
+             ecr or iswap (cp only at an angle of pi, rzz only at an odd multiple of pi/2)",
+            why.join("; ")
+        ));
+    }
+    Ok(out)
 }
 
 /// The native word that, run after a circuit whose product is `t`, leaves the final
-/// X^b1 (x) X^b2: the inverse of `t` followed by the requested Pauli X's. Uses that cz and
-/// cx are their own inverses.
-pub fn recovery(t: &Tableau2, g: Gate, final_x: [bool; 2]) -> Option<Word2> {
-    let w = word_for(t, g)?;
+/// X^b1 (x) X^b2: the inverse of `t` followed by the requested Pauli X's. For a gate that
+/// is its own inverse this is `t`'s word run backwards with each layer inverted; otherwise
+/// the shortest word of that Clifford.
+pub fn recovery(t: &Tableau2, e: &Entangler, final_x: [bool; 2]) -> Option<Word2> {
+    if !e.is_self_inverse() {
+        let flips = Tableau2::layer(
+            if final_x[0] { Clifford1::x() } else { Clifford1::IDENTITY },
+            if final_x[1] { Clifford1::x() } else { Clifford1::IDENTITY },
+        );
+        return e.word_for(&t.inverse(e).then(&flips)).cloned();
+    }
+    let w = e.word_for(t)?;
     let mut layers: Vec<[Clifford1; 2]> =
         w.layers.iter().rev().map(|l| [l[0].inverse(), l[1].inverse()]).collect();
     if let Some(last) = layers.last_mut() {
@@ -588,9 +685,34 @@ pub fn recovery(t: &Tableau2, g: Gate, final_x: [bool; 2]) -> Option<Word2> {
     Some(Word2 { layers })
 }
 
-/// Number of distinct two-qubit Cliffords the table holds for a gate (11520 when built).
-pub fn table_size(g: Gate) -> usize {
-    table2(g).map(|t| t.words.len()).unwrap_or(0)
+fn pauli4(x: u8, z: u8, r: u8) -> Mat4 {
+    let ph = [c(1.0, 0.0), c(0.0, 1.0), c(-1.0, 0.0), c(0.0, -1.0)][r as usize % 4];
+    let mut m = [[c(0.0, 0.0); 4]; 4];
+    for (k, col) in (0..4usize).enumerate() {
+        let sign = if (col & usize::from(z)).count_ones() % 2 == 1 { -1.0 } else { 1.0 };
+        m[k ^ usize::from(x)][col] = ph * sign;
+    }
+    m
+}
+
+fn mul4(a: &Mat4, b: &Mat4) -> Mat4 {
+    let mut m = [[c(0.0, 0.0); 4]; 4];
+    for (i, row) in m.iter_mut().enumerate() {
+        for (j, v) in row.iter_mut().enumerate() {
+            *v = (0..4).map(|k| a[i][k] * b[k][j]).sum();
+        }
+    }
+    m
+}
+
+fn dagger4(a: &Mat4) -> Mat4 {
+    let mut m = [[c(0.0, 0.0); 4]; 4];
+    for (i, row) in m.iter_mut().enumerate() {
+        for (j, v) in row.iter_mut().enumerate() {
+            *v = a[j][i].conj();
+        }
+    }
+    m
 }
 
 #[cfg(test)]
@@ -643,7 +765,7 @@ mod tests {
     }
 
     fn word_unitary(w: &Word2, comp: &Compiler1, g: Gate) -> Mat4 {
-        let gate = g.unitary2().unwrap();
+        let gate = g.unitary2(0.0).unwrap();
         let mut u = kron(&Gate::Id.unitary1(0.0).unwrap(), &Gate::Id.unitary1(0.0).unwrap());
         for (i, l) in w.layers.iter().enumerate() {
             if i > 0 {
@@ -727,15 +849,48 @@ mod tests {
         assert!(err.contains("cannot express every one-qubit Clifford"), "{err}");
     }
 
+    fn entangler(g: Gate) -> Entangler {
+        Entangler::new(Native2::fixed(g)).unwrap()
+    }
+
     #[test]
     fn two_qubit_table_holds_the_whole_group() {
         // |C2 / U(1)| = 11520 (Aaronson and Gottesman, PRA 70, 052328 (2004), counting
-        // formula for n = 2); at most 3 two-qubit gates are needed (common practice).
-        for g in [Gate::Cz, Gate::Cx] {
-            assert_eq!(table_size(g), N_CLIFFORD2);
-            let max = table2(g).unwrap().words.values().map(|w| w.layers.len() - 1).max();
-            assert_eq!(max, Some(3));
+        // formula for n = 2); at most 3 two-qubit gates are needed (common practice), for
+        // cnot-class gates (cz, cx, ecr) and for iswap alike (from memory).
+        for g in [Gate::Cz, Gate::Cx, Gate::Ecr, Gate::Iswap] {
+            let e = entangler(g);
+            assert_eq!(e.table_size(), N_CLIFFORD2, "{g}");
+            let max = e.table.words.values().map(|w| w.layers.len() - 1).max();
+            assert_eq!(max, Some(3), "{g}");
         }
+    }
+
+    #[test]
+    fn tableaus_from_unitaries_match_the_written_ones() {
+        for g in [Gate::Cz, Gate::Cx] {
+            assert_eq!(Tableau2::from_unitary(&g.unitary2(0.0).unwrap()), Tableau2::gate(g));
+        }
+        // Pauli conjugation rules of the trade (common practice, from memory): ecr and cz are
+        // self-inverse, iswap squares to Z (x) Z, swap exchanges the qubits.
+        assert!(entangler(Gate::Ecr).is_self_inverse());
+        let iswap = entangler(Gate::Iswap);
+        assert!(!iswap.is_self_inverse());
+        let zz = Tableau2::layer(Clifford1::z_quarter(2), Clifford1::z_quarter(2));
+        assert_eq!(iswap.tableau.then(&iswap.tableau), zz);
+        assert_eq!(iswap.tableau.then(&iswap.inverse), Tableau2::identity());
+        // Not Clifford: sqrt(iSWAP), cp at a generic angle; Clifford: cp(pi) = cz and
+        // rzz(pi/2), locally equivalent to cz.
+        assert!(Tableau2::from_unitary(&Gate::SqrtIswap.unitary2(0.0).unwrap()).is_none());
+        assert!(Tableau2::from_unitary(&Gate::Cp.unitary2(0.3).unwrap()).is_none());
+        let cp_pi = Tableau2::from_unitary(&Gate::Cp.unitary2(std::f64::consts::PI).unwrap());
+        assert_eq!(cp_pi, Tableau2::gate(Gate::Cz));
+        let rzz = Native2 { gate: Gate::Rzz, angle: std::f64::consts::FRAC_PI_2 };
+        assert_eq!(Entangler::new(rzz).unwrap().table_size(), N_CLIFFORD2);
+        let swap = Entangler::new(Native2::fixed(Gate::Swap)).unwrap_err();
+        assert!(swap.contains("does not entangle"), "{swap}");
+        let err = entanglers(&[Native2 { gate: Gate::Cp, angle: 0.3 }]).unwrap_err();
+        assert!(err.contains("cp(0.3) is not a Clifford gate"), "{err}");
     }
 
     #[test]
@@ -743,21 +898,22 @@ mod tests {
         let layout = generate::grid(1, 2);
         let comp = Compiler1::new(&layout).unwrap();
         let mut rng = ChaCha8Rng::seed_from_u64(11);
-        for g in [Gate::Cz, Gate::Cx] {
+        for g in [Gate::Cz, Gate::Cx, Gate::Ecr, Gate::Iswap] {
+            let e = entangler(g);
             for depth in [0usize, 1, 3, 8] {
                 let layers: Vec<[Clifford1; 2]> = (0..=depth)
                     .map(|_| [Clifford1::random(&mut rng), Clifford1::random(&mut rng)])
                     .collect();
                 let seq = Word2 { layers };
-                let t = seq.tableau(g);
-                let rec = recovery(&t, g, [false, false]).unwrap();
+                let t = seq.tableau(&e.tableau);
+                let rec = recovery(&t, &e, [false, false]).unwrap();
                 let u = matmul4(&word_unitary(&rec, &comp, g), &word_unitary(&seq, &comp, g));
                 assert!(is_identity_up_to_phase4(&u), "{g} depth {depth}");
                 // The word found for t reproduces t's unitary.
-                let w = word_for(&t, g).unwrap();
-                let inv_seq = recovery(&t, g, [false, false]).unwrap();
-                let v = matmul4(&word_unitary(&inv_seq, &comp, g), &word_unitary(w, &comp, g));
+                let w = e.word_for(&t).unwrap();
+                let v = matmul4(&word_unitary(&rec, &comp, g), &word_unitary(w, &comp, g));
                 assert!(is_identity_up_to_phase4(&v), "{g} depth {depth}: table word");
+                assert_eq!(t.then(&t.inverse(&e)), Tableau2::identity());
             }
         }
     }
@@ -772,11 +928,13 @@ mod tests {
                 .map(|_| [Clifford1::random(&mut rng), Clifford1::random(&mut rng)])
                 .collect(),
         };
-        let g = Gate::Cz;
-        let rec = recovery(&seq.tableau(g), g, [true, false]).unwrap();
-        let u = matmul4(&word_unitary(&rec, &comp, g), &word_unitary(&seq, &comp, g));
-        // Column 0 is the image of |00>: all weight on |q0=1, q1=0> = index 1.
-        assert!((u[1][0].norm() - 1.0).abs() < 1e-9);
+        for g in [Gate::Cz, Gate::Iswap] {
+            let e = entangler(g);
+            let rec = recovery(&seq.tableau(&e.tableau), &e, [true, false]).unwrap();
+            let u = matmul4(&word_unitary(&rec, &comp, g), &word_unitary(&seq, &comp, g));
+            // Column 0 is the image of |00>: all weight on |q0=1, q1=0> = index 1.
+            assert!((u[1][0].norm() - 1.0).abs() < 1e-9, "{g}");
+        }
     }
 }
 

@@ -28,7 +28,7 @@ pub type KindIx = u32;
 /// An operation kind: a gate on specific qubits (`sx@q3`, `id@q3`, `cz@q3-q4`).
 ///
 /// Invariant: for one-qubit gates `qubits[1] == qubits[0]`; for symmetric two-qubit gates
-/// (`cz`) the qubits are sorted, so `cz@q3-q4` and `cz@q4-q3` are one kind; for `cx` the
+/// (`cz`, `iswap`, ...: [`Gate::is_symmetric`]) the qubits are sorted, so `cz@q3-q4` and `cz@q4-q3` are one kind; for `cx` the
 /// order is (control, target).
 #[derive(Copy, Clone, Debug, PartialEq, Eq, Hash, PartialOrd, Ord)]
 pub struct OpKind {
@@ -42,7 +42,7 @@ impl OpKind {
     /// The kind of gate `gate` on `qubits` (normalised as the type's invariant says).
     pub fn new(gate: Gate, qubits: &[QubitIx]) -> OpKind {
         let (a, b) = (qubits[0], *qubits.last().unwrap_or(&qubits[0]));
-        let qubits = if gate == Gate::Cz { [a.min(b), a.max(b)] } else { [a, b] };
+        let qubits = if gate.is_symmetric() { [a.min(b), a.max(b)] } else { [a, b] };
         OpKind { gate, qubits }
     }
 

@@ -95,7 +95,7 @@ fn simulate_noisy(c: &Circuit, block: &[QubitIx], noise: Noise) -> Vec<Complex64
                 *o = u[r][0] * psi[i0] + u[r][1] * psi[i1];
             }
         } else {
-            let mut u = op.gate.unitary2().unwrap();
+            let mut u = op.gate.unitary2(op.angle).unwrap();
             if op.gate == Gate::Cz {
                 u[3][3] *= Complex64::from_polar(1.0, noise.cphase);
             }
@@ -132,9 +132,11 @@ fn ideal_simulation_gives_the_manifest_outcomes() {
 #[test]
 fn ideal_outcomes_hold_for_other_native_sets() {
     // sx with virtual rz and cx; then rx/ry pulses without virtual gates.
-    let mut layout = generate::grid(2, 3);
+    let text = slackmap::layout::to_toml(&generate::grid(2, 3))
+        .replace("two_qubit = \"cz\"", "two_qubit = \"cx\"");
+    let mut layout =
+        slackmap::layout::parse_layout(&text, std::path::Path::new("cx.toml")).unwrap();
     layout.gates.one_qubit = vec![Gate::Sx, Gate::Rz];
-    layout.gates.two_qubit = Gate::Cx;
     let cfg = DesignConfig::new(vec![1, 5], 2, 21, Kind::ALL.to_vec()).unwrap();
     check_ideal(&layout, &design(&layout, &cfg).unwrap());
     layout.gates.one_qubit = vec![Gate::Rx, Gate::Ry];
@@ -378,7 +380,7 @@ fn every_coupler_gate_meets_each_neighbour_as_aggressor() {
     for c in &d.circuits.circuits {
         for (t, layer) in c.layers.iter().enumerate() {
             let active = c.active_qubits(&layout, t);
-            for op in layer.iter().filter(|op| op.gate == layout.gates.two_qubit) {
+            for op in layer.iter().filter(|op| op.gate.arity() == 2) {
                 let [a, b] = op.operands;
                 for &s in [a, b].iter() {
                     for &r in layout.neighbours(s) {

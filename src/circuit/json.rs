@@ -42,7 +42,7 @@ pub struct CircuitWire {
 pub struct OpWire {
     /// OpenQASM 3 standard-library gate name.
     pub gate: String,
-    /// Angles in radians (only for rx, ry, rz).
+    /// Angles in radians (only for rx, ry, rz, cp, rzz).
     #[serde(default, skip_serializing_if = "Vec::is_empty")]
     pub params: Vec<f64>,
     /// Operand qubit ids.

@@ -42,7 +42,7 @@ use std::path::Path;
 
 use super::{Circuit, Layer, Op};
 use crate::error::{Error, Result};
-use crate::gate::Gate;
+use crate::gate::{Gate, Mat2, Unitary};
 use crate::layout::{Layout, QubitIx};
 
 /// The largest OpenQASM file read (one circuit; anything this large is not one).
@@ -57,6 +57,24 @@ pub fn export(c: &Circuit, layout: &Layout) -> String {
     let _ = writeln!(s, "OPENQASM 3.0;");
     let _ = writeln!(s, "include \"stdgates.inc\";");
     let _ = writeln!(s, "// circuit {} on layout {}", c.id, layout.name);
+    let mut used: Vec<Gate> = c.layers.iter().flatten().map(|op| op.gate).collect();
+    used.sort_unstable();
+    used.dedup();
+    for g in used {
+        match definition(g) {
+            Some(body) => {
+                let _ = writeln!(s, "{body}");
+            }
+            None if matches!(g, Gate::Custom(_)) => {
+                let _ = writeln!(
+                    s,
+                    "// {g}: a two-qubit gate defined by its unitary in layout {}",
+                    layout.name
+                );
+            }
+            None => {}
+        }
+    }
     let _ = writeln!(s, "bit[{}] c;", c.measured.len());
     let mut first = true;
     for (t, layer) in c.layers.iter().enumerate() {
@@ -87,6 +105,24 @@ pub fn export(c: &Circuit, layout: &Layout) -> String {
         let _ = writeln!(s, "c[{i}] = measure ${q};");
     }
     s
+}
+
+/// The definition, in stdgates.inc gates, of a native gate the standard library lacks, so
+/// that exported programs stand alone; reading one back checks it against the gate's
+/// unitary. ecr = X on the first operand after exp(-i pi/4 Z(x)X); iswap as s, s, h, cx,
+/// cx, h; sqrt_iswap = exp(i pi/8 XX) exp(i pi/8 YY); rzz = cx, rz, cx (common practice,
+/// from memory; each is checked in this module's tests).
+fn definition(g: Gate) -> Option<&'static str> {
+    Some(match g {
+        Gate::Ecr => "gate ecr a, b { h b; cx a, b; rz(pi/2) b; cx a, b; h b; x a; }",
+        Gate::Iswap => "gate iswap a, b { s a; s b; h a; cx a, b; cx b, a; h b; }",
+        Gate::SqrtIswap => {
+            "gate sqrt_iswap a, b { h a; h b; cx a, b; rz(-pi/4) b; cx a, b; h a; h b; \
+             rx(pi/2) a; rx(pi/2) b; cx a, b; rz(-pi/4) b; cx a, b; rx(-pi/2) a; rx(-pi/2) b; }"
+        }
+        Gate::Rzz => "gate rzz(theta) a, b { cx a, b; rz(theta) b; cx a, b; }",
+        _ => return None,
+    })
 }
 
 /// Where declared qubit-register elements sit on the layout: `q[0]=q3, q[1]=q4`.
@@ -321,20 +357,19 @@ fn describe(t: Option<&Token>) -> String {
 /// Constructs of OpenQASM 3 outside the subset, with the name used in the error message.
 fn unsupported(word: &str) -> Option<&'static str> {
     Some(match word {
-        "gate" | "def" | "opaque" => "gate and subroutine definitions",
+        "def" | "opaque" => "subroutine and opaque definitions",
         "if" | "else" | "switch" | "case" => "classical control flow",
         "for" | "while" | "break" | "continue" => "loops",
-        "reset" => "reset operations",
         "ctrl" | "negctrl" | "inv" | "pow" => "gate modifiers such as 'ctrl @'",
         "int" | "uint" | "float" | "angle" | "bool" | "complex" | "duration" | "stretch"
         | "const" | "input" | "output" | "let" | "array" => {
             "classical declarations other than 'bit'"
         }
         "qreg" | "creg" => "OpenQASM 2 register declarations (use 'qubit[n] q;' and 'bit[n] c;')",
-        "delay" | "box" | "defcal" | "cal" | "defcalgrammar" | "extern" | "return" | "end" => {
-            "timing, calibration and subroutine constructs"
+        "box" | "defcal" | "cal" | "defcalgrammar" | "extern" | "return" | "end" => {
+            "timing boxes, calibration and subroutine constructs"
         }
-        "U" | "CX" => "built-in gates 'U' and 'CX' (use the stdgates.inc names)",
+        "ccx" | "cswap" => "three-qubit gates",
         _ => return None,
     })
 }
@@ -376,7 +411,31 @@ struct Parser<'a> {
     items: Vec<Item>,
     measures: Vec<((usize, usize), QubitIx, usize)>,
     n_statements: usize,
+    /// `gate` definitions whose calls are expanded.
+    defs: HashMap<String, GateDef>,
+    /// Formal parameters and qubits of the definitions being expanded, innermost last.
+    scopes: Vec<Scope>,
+    /// While a definition of a known gate is checked: each call's unitary and operands
+    /// (formal qubits numbered from 0), instead of operations.
+    collect: Option<Vec<(Unitary, Vec<QubitIx>)>>,
 }
+
+/// A `gate` definition: formal angles and qubits, and the body's tokens.
+#[derive(Clone, Debug)]
+struct GateDef {
+    params: Vec<String>,
+    qubits: Vec<String>,
+    body: Vec<Token>,
+}
+
+#[derive(Clone, Debug, Default)]
+struct Scope {
+    params: HashMap<String, f64>,
+    qubits: HashMap<String, QubitIx>,
+}
+
+/// Nesting of gate definitions (a definition that calls itself stops here).
+const MAX_EXPANSION: usize = 16;
 
 enum Item {
     Op(Op),
@@ -384,6 +443,32 @@ enum Item {
 }
 
 impl<'a> Parser<'a> {
+    fn new(
+        toks: Vec<Token>,
+        path: &'a Path,
+        id: &'a str,
+        layout: &'a Layout,
+        map: Option<&'a QubitMap>,
+    ) -> Parser<'a> {
+        Parser {
+            toks,
+            pos: 0,
+            path,
+            id,
+            layout,
+            map,
+            qregs: HashMap::new(),
+            bregs: HashMap::new(),
+            breg_order: Vec::new(),
+            items: Vec::new(),
+            measures: Vec::new(),
+            n_statements: 0,
+            defs: HashMap::new(),
+            scopes: Vec::new(),
+            collect: None,
+        }
+    }
+
     fn line(&self) -> usize {
         self.toks.get(self.pos).or(self.toks.last()).map_or(1, |t| t.line)
     }
@@ -562,6 +647,63 @@ impl<'a> Parser<'a> {
                 self.items.push(Item::Barrier);
                 Ok(())
             }
+            "gate" => self.gate_def(line),
+            "reset" => {
+                self.pos += 1;
+                let qs = self.operands_or_registers()?;
+                self.expect_punct(";", "after the reset")?;
+                for q in qs {
+                    let used = self
+                        .items
+                        .iter()
+                        .any(|i| matches!(i, Item::Op(op) if op.qubits().contains(&q)));
+                    if used {
+                        return Err(self.err(
+                            line,
+                            format!(
+                                "reset of {} after a gate on it (a reset between gates) is not supported; a reset before a qubit's first gate is read as nothing, since every qubit starts in |0>",
+                                self.layout.id(q)
+                            ),
+                        ));
+                    }
+                }
+                Ok(())
+            }
+            "delay" => {
+                self.pos += 1;
+                self.expect_punct("[", "after 'delay' (a duration such as delay[100ns])")?;
+                let start = self.pos;
+                while self.pos < self.toks.len() && !self.is_punct("]") && !self.is_punct(";") {
+                    self.pos += 1;
+                }
+                if self.pos == start {
+                    return Err(self.err(line, "delay needs a duration, like delay[100ns] $0;"));
+                }
+                self.expect_punct("]", "after the delay's duration")?;
+                if self.is_punct(";") {
+                    return Err(
+                        self.err(line, "delay needs the qubits it idles, like delay[100ns] $0;")
+                    );
+                }
+                let qs = self.operands_or_registers()?;
+                self.expect_punct(";", "after the delay")?;
+                if !self.measures.is_empty() {
+                    return Err(self.err(line, "gates after a measurement are not supported: measure at the end of the program"));
+                }
+                // An explicit idle in its layer; its duration is not modelled.
+                for q in qs {
+                    self.items.push(Item::Op(Op::one(Gate::Id, q)));
+                }
+                Ok(())
+            }
+            "measure" if self.whole_register_at(self.pos + 1) => {
+                self.pos += 1;
+                let qreg = self.ident("a qubit register")?;
+                self.expect_punct("->", "after the measured register")?;
+                let breg = self.ident("a bit register")?;
+                self.expect_punct(";", "after the measurement")?;
+                self.measure_registers(&breg, &qreg, line)
+            }
             "measure" => {
                 self.pos += 1;
                 let q = self.operand()?;
@@ -578,7 +720,15 @@ impl<'a> Parser<'a> {
                 Ok(())
             }
             w if self.bregs.contains_key(w) => {
-                let bit = self.bitref()?;
+                // `c = measure q;` on a register of several bits measures it whole.
+                let whole = self.bregs[w].1 > 1
+                    && matches!(self.toks.get(self.pos + 1).map(|t| &t.tok), Some(Tok::Punct("=")));
+                let bit = if whole {
+                    self.pos += 1;
+                    None
+                } else {
+                    Some(self.bitref()?)
+                };
                 if !self.is_punct("=") {
                     return Err(self.err(line, format!("expected '=' after bit '{w}'")));
                 }
@@ -590,6 +740,11 @@ impl<'a> Parser<'a> {
                     ));
                 }
                 self.pos += 1;
+                let Some(bit) = bit else {
+                    let qreg = self.ident("a qubit register (c = measure q;)")?;
+                    self.expect_punct(";", "after the measurement")?;
+                    return self.measure_registers(w, &qreg, line);
+                };
                 let q = self.operand()?;
                 self.expect_punct(";", "after the measurement")?;
                 self.measures.push((bit, q, line));
@@ -610,58 +765,59 @@ impl<'a> Parser<'a> {
             }
             return self.expect_punct(";", "after gphase");
         }
-        let (gate, fixed_angle) = match (Gate::from_name(word), phase_gate(word)) {
-            (Some(g), _) => (g, None),
-            (None, Some(angle)) => (Gate::Rz, angle),
-            (None, None) => {
-                let msg = match unsupported(word) {
-                    Some(what) => format!("'{word}': {what} are not supported by this importer"),
-                    None => format!(
-                        "unknown gate or statement '{word}' (supported gates: {})",
-                        Gate::known_names()
-                    ),
-                };
-                return Err(self.err(line, msg));
-            }
+        let Some((arity, n_angles)) = self.signature(word) else {
+            let msg = match unsupported(word) {
+                Some(what) => format!("'{word}': {what} are not supported by this importer"),
+                None => format!(
+                    "unknown gate or statement '{word}' (supported gates: {}, the rest of \
+                     stdgates.inc where it equals a native gate, and gates defined with 'gate')",
+                    Gate::known_names()
+                ),
+            };
+            return Err(self.err(line, msg));
         };
         self.pos += 1;
         if self.is_punct("@") {
             return Err(self.err(line, "gate modifiers ('@') are not supported"));
         }
-        let mut angle = fixed_angle;
-        if fixed_angle.is_some() && self.is_punct("(") {
-            return Err(self.err(line, format!("gate {word} takes no angle")));
-        }
+        let mut angles = Vec::new();
         if self.is_punct("(") {
+            if n_angles == 0 {
+                return Err(self.err(line, format!("gate {word} takes no angle")));
+            }
             self.pos += 1;
-            let v = self.expr(0)?;
-            if self.is_punct(",") {
-                return Err(self.err(line, format!("gate {gate} takes at most one angle")));
+            angles.push(self.expr(0)?);
+            while self.is_punct(",") {
+                if n_angles == 1 {
+                    return Err(self.err(line, format!("gate {word} takes at most one angle")));
+                }
+                self.pos += 1;
+                angles.push(self.expr(0)?);
             }
             self.expect_punct(")", "after the angle")?;
-            if !v.is_finite() {
-                return Err(self.err(line, format!("angle of {gate} is not a finite number")));
+            if angles.iter().any(|v| !v.is_finite()) {
+                return Err(self.err(line, format!("angle of {word} is not a finite number")));
             }
-            angle = Some(v);
         }
-        match (gate.n_params(), angle) {
-            (1, None) => {
-                return Err(self.err(line, format!("gate {gate} needs an angle, e.g. {gate}(pi/2)")))
-            }
-            (0, Some(_)) => return Err(self.err(line, format!("gate {gate} takes no angle"))),
-            _ => {}
+        if angles.len() != n_angles {
+            return Err(self.err(
+                line,
+                match n_angles {
+                    1 => format!("gate {word} needs an angle, e.g. {word}(pi/2)"),
+                    n => format!("gate {word} takes {n} angles, got {}", angles.len()),
+                },
+            ));
         }
         let mut qs = vec![self.operand()?];
         while self.is_punct(",") {
             self.pos += 1;
             qs.push(self.operand()?);
         }
-        self.expect_punct(";", &format!("after the operands of {gate}"))?;
-        if qs.len() != gate.arity() {
-            return Err(self.err(
-                line,
-                format!("gate {gate} takes {} qubit(s), got {}", gate.arity(), qs.len()),
-            ));
+        self.expect_punct(";", &format!("after the operands of {word}"))?;
+        if qs.len() != arity {
+            return Err(
+                self.err(line, format!("gate {word} takes {arity} qubit(s), got {}", qs.len()))
+            );
         }
         if !self.measures.is_empty() {
             return Err(self.err(
@@ -669,11 +825,366 @@ impl<'a> Parser<'a> {
                 "gates after a measurement are not supported: measure at the end of the program",
             ));
         }
-        let op = match gate.arity() {
-            2 => Op::two(gate, qs[0], qs[1]),
-            _ => Op::rot(gate, qs[0], angle.unwrap_or(0.0)),
+        self.emit(word, &angles, &qs, line)
+    }
+
+    /// (qubits, angles) of a gate name this program may call.
+    fn signature(&self, word: &str) -> Option<(usize, usize)> {
+        if let Some(d) = self.defs.get(word) {
+            return Some((d.qubits.len(), d.params.len()));
+        }
+        if let Some(g) = Gate::from_name(word) {
+            return Some((g.arity(), g.n_params()));
+        }
+        if let Some(fixed) = phase_gate(word) {
+            return Some((1, usize::from(fixed.is_none())));
+        }
+        crate::gate::stdgates_translated(word)
+    }
+
+    /// The unitary slackmap knows for a gate name at its angles (defined gates excluded).
+    fn known_unitary(word: &str, angles: &[f64]) -> Option<Unitary> {
+        if let Some(g) = Gate::from_name(word) {
+            return Unitary::of(g, angles.first().copied().unwrap_or(0.0));
+        }
+        if let Some(fixed) = phase_gate(word) {
+            return Unitary::of(Gate::Rz, fixed.or(angles.first().copied())?);
+        }
+        crate::gate::stdgates_unitary(word, angles)
+    }
+
+    /// Adds one call: a defined gate is expanded; a gate that is not native where it runs
+    /// is read as the native that equals it up to a global phase, if one does.
+    fn emit(&mut self, word: &str, angles: &[f64], qs: &[QubitIx], line: usize) -> Result<()> {
+        if let Some(def) = self.defs.get(word).cloned() {
+            return self.expand(word, &def, angles, qs, line);
+        }
+        let u = Self::known_unitary(word, angles)
+            .ok_or_else(|| self.err(line, format!("gate {word} has no unitary")))?;
+        if let Some(c) = self.collect.as_mut() {
+            c.push((u, qs.to_vec()));
+            return Ok(());
+        }
+        let standard = Gate::from_name(word)
+            .map(|g| (g, angles.first().copied().unwrap_or(0.0)))
+            .or_else(|| {
+                phase_gate(word)
+                    .map(|fixed| (Gate::Rz, fixed.or(angles.first().copied()).unwrap_or(0.0)))
+            });
+        let operands = [qs[0], *qs.last().unwrap_or(&qs[0])];
+        let op = match standard {
+            Some((gate, angle)) if self.layout.is_native_op(gate, qs, angle) => {
+                Op { gate, operands, angle }
+            }
+            // A standard gate equal to the identity stays itself rather than becoming an
+            // idle or a frame change: `rx(0)` is a pulse the program asked for.
+            Some((gate, angle))
+                if Unitary::of(Gate::Id, 0.0).is_some_and(|i| i.same_up_to_phase(&u)) =>
+            {
+                Op { gate, operands, angle }
+            }
+            Some((gate, angle)) => {
+                self.as_native(&u, qs, false).unwrap_or(Op { gate, operands, angle })
+            }
+            None => self.as_native(&u, qs, true).ok_or_else(|| {
+                let shown = if angles.is_empty() {
+                    word.to_string()
+                } else {
+                    format!(
+                        "{word}({})",
+                        angles.iter().map(|a| format!("{a:?}")).collect::<Vec<_>>().join(", ")
+                    )
+                };
+                let on: Vec<&str> = qs.iter().map(|&q| self.layout.id(q)).collect();
+                let natives = match qs {
+                    [a, b] => {
+                        let n: Vec<String> = self
+                            .layout
+                            .natives_between(*a, *b)
+                            .iter()
+                            .map(ToString::to_string)
+                            .collect();
+                        if n.is_empty() {
+                            "none: the qubits are not coupled".to_string()
+                        } else {
+                            n.join(", ")
+                        }
+                    }
+                    _ => std::iter::once(Gate::Id)
+                        .chain(self.layout.gates.one_qubit.iter().copied())
+                        .map(|g| g.name().to_string())
+                        .collect::<Vec<_>>()
+                        .join(", "),
+                };
+                self.err(
+                    line,
+                    format!(
+                        "{shown} on {} equals no native gate of layout '{}' there, as one gate \
+                         in one layer (native there: {natives}); write it as native gates",
+                        on.join("-"),
+                        self.layout.name
+                    ),
+                )
+            })?,
         };
         self.items.push(Item::Op(op));
+        Ok(())
+    }
+
+    /// The native operation on `qs` whose unitary equals `u` up to a global phase; `id`
+    /// counts only with `idle`.
+    fn as_native(&self, u: &Unitary, qs: &[QubitIx], idle: bool) -> Option<Op> {
+        match (u, qs) {
+            (Unitary::One(m), &[q]) => {
+                let first = idle.then_some(Gate::Id);
+                for g in first.into_iter().chain(self.layout.gates.one_qubit.iter().copied()) {
+                    let angle = match g.n_params() {
+                        0 => 0.0,
+                        _ => match rotation_angle(g, m) {
+                            Some(a) => a,
+                            None => continue,
+                        },
+                    };
+                    if Unitary::of(g, angle).is_some_and(|v| v.same_up_to_phase(u)) {
+                        return Some(Op::rot(g, q, angle));
+                    }
+                }
+                None
+            }
+            (Unitary::Two(_), &[a, b]) => {
+                for n in self.layout.natives_between(a, b) {
+                    let v = Unitary::Two(n.unitary());
+                    if v.same_up_to_phase(u) {
+                        return Some(Op { gate: n.gate, operands: [a, b], angle: n.angle });
+                    }
+                    if v.swapped().same_up_to_phase(u) {
+                        return Some(Op { gate: n.gate, operands: [b, a], angle: n.angle });
+                    }
+                }
+                None
+            }
+            _ => None,
+        }
+    }
+
+    /// Expands a call of a defined gate: its body with the formal angles and qubits bound.
+    fn expand(
+        &mut self,
+        word: &str,
+        def: &GateDef,
+        angles: &[f64],
+        qs: &[QubitIx],
+        line: usize,
+    ) -> Result<()> {
+        if self.scopes.len() >= MAX_EXPANSION {
+            return Err(self.err(
+                line,
+                format!("gate '{word}': definitions nest more than {MAX_EXPANSION} deep (does it call itself?)"),
+            ));
+        }
+        let scope = Scope {
+            params: def.params.iter().cloned().zip(angles.iter().copied()).collect(),
+            qubits: def.qubits.iter().cloned().zip(qs.iter().copied()).collect(),
+        };
+        let toks = std::mem::replace(&mut self.toks, def.body.clone());
+        let pos = std::mem::replace(&mut self.pos, 0);
+        self.scopes.push(scope);
+        let result = self.body();
+        self.scopes.pop();
+        self.toks = toks;
+        self.pos = pos;
+        result
+    }
+
+    /// The statements of a gate body: gate calls only.
+    fn body(&mut self) -> Result<()> {
+        while self.pos < self.toks.len() {
+            let line = self.line();
+            match self.peek() {
+                Some(Tok::Ident(w)) if self.signature(w).is_some() || w == "gphase" => {
+                    let w = w.clone();
+                    self.gate_call(&w, line)?;
+                }
+                _ => {
+                    return Err(self.err(
+                        line,
+                        format!(
+                            "a gate body holds gate calls only, found {}",
+                            describe(self.toks.get(self.pos))
+                        ),
+                    ))
+                }
+            }
+        }
+        Ok(())
+    }
+
+    /// `gate name(params) q0, q1 { body }`. A definition of a gate slackmap knows is checked
+    /// against that gate's unitary and calls keep using it; other definitions are expanded
+    /// where they are called.
+    fn gate_def(&mut self, line: usize) -> Result<()> {
+        self.pos += 1;
+        if !self.scopes.is_empty() {
+            return Err(self.err(line, "gate definitions cannot be nested"));
+        }
+        let name = self.ident("a gate name")?;
+        let mut params = Vec::new();
+        if self.is_punct("(") {
+            self.pos += 1;
+            while !self.is_punct(")") {
+                if !params.is_empty() {
+                    self.expect_punct(",", "between the angle names")?;
+                }
+                params.push(self.ident("an angle name")?);
+            }
+            self.pos += 1;
+        }
+        let mut qubits = vec![self.ident("a qubit argument name")?];
+        while self.is_punct(",") {
+            self.pos += 1;
+            qubits.push(self.ident("a qubit argument name")?);
+        }
+        self.expect_punct("{", &format!("to open the body of gate '{name}'"))?;
+        let start = self.pos;
+        while self.pos < self.toks.len() && !self.is_punct("}") {
+            if self.is_punct("{") {
+                return Err(
+                    self.err(self.line(), format!("gate '{name}': a body holds gate calls only"))
+                );
+            }
+            self.pos += 1;
+        }
+        if self.pos >= self.toks.len() {
+            return Err(
+                self.err(line, format!("the body of gate '{name}' is never closed with '}}'"))
+            );
+        }
+        let body = self.toks[start..self.pos].to_vec();
+        self.pos += 1;
+        for (i, n) in qubits.iter().chain(&params).enumerate() {
+            if qubits.iter().chain(&params).take(i).any(|m| m == n) {
+                return Err(self.err(line, format!("gate '{name}': argument '{n}' is named twice")));
+            }
+        }
+        if self.defs.contains_key(&name) {
+            return Err(self.err(line, format!("gate '{name}' is defined twice")));
+        }
+        let def = GateDef { params, qubits, body };
+        match self.signature(&name) {
+            Some(sig) => self.check_definition(&name, &def, sig, line),
+            None => {
+                self.defs.insert(name, def);
+                Ok(())
+            }
+        }
+    }
+
+    /// Checks a definition of a gate slackmap knows: same qubits and angles, and a body whose
+    /// product equals the gate's unitary up to a global phase at a few angles.
+    fn check_definition(
+        &mut self,
+        name: &str,
+        def: &GateDef,
+        sig: (usize, usize),
+        line: usize,
+    ) -> Result<()> {
+        if sig != (def.qubits.len(), def.params.len()) {
+            return Err(self.err(
+                line,
+                format!(
+                    "gate '{name}' is defined on {} qubit(s) with {} angle(s); slackmap's {name} takes {} and {} (rename the definition to have it expanded)",
+                    def.qubits.len(),
+                    def.params.len(),
+                    sig.0,
+                    sig.1
+                ),
+            ));
+        }
+        for trial in [[0.7, -0.3, 1.1, 0.4], [-2.1, 0.9, -0.6, 2.5]] {
+            let angles = &trial[..sig.1];
+            let formal: Vec<QubitIx> = (0..sig.0).collect();
+            let outer = self.collect.replace(Vec::new());
+            let expanded = self.expand(name, def, angles, &formal, line);
+            let calls = std::mem::replace(&mut self.collect, outer).unwrap_or_default();
+            expanded?;
+            let want = Self::known_unitary(name, angles)
+                .ok_or_else(|| self.err(line, format!("gate {name} has no unitary")))?;
+            let mut got = match sig.0 {
+                1 => Unitary::of(Gate::Id, 0.0),
+                _ => Unitary::of(Gate::Cz, 0.0).and_then(|cz| cz.then(&cz)),
+            };
+            for (u, on) in &calls {
+                let step = match (u, on.as_slice()) {
+                    (Unitary::One(m), [q]) if sig.0 == 2 => Unitary::on_operand(m, *q),
+                    (Unitary::Two(_), [a, _]) if *a == 1 => u.swapped(),
+                    _ => *u,
+                };
+                got = got.and_then(|g| g.then(&step));
+            }
+            if !got.is_some_and(|g| g.same_up_to_phase(&want)) {
+                return Err(self.err(
+                    line,
+                    format!(
+                        "gate '{name}' is defined here with a body that differs from slackmap's {name} (not equal up to a global phase); rename the definition to have its body used"
+                    ),
+                ));
+            }
+        }
+        Ok(())
+    }
+
+    /// Operands where whole qubit registers may stand for all their elements (reset, delay).
+    fn operands_or_registers(&mut self) -> Result<Vec<QubitIx>> {
+        let mut out = Vec::new();
+        loop {
+            let line = self.line();
+            if self.whole_register_at(self.pos) {
+                let name = self.ident("a qubit register")?;
+                let size = self.qregs[&name];
+                for i in 0..size {
+                    out.push(self.register_qubit(&name, i, line)?);
+                }
+            } else {
+                out.push(self.operand()?);
+            }
+            if !self.is_punct(",") {
+                return Ok(out);
+            }
+            self.pos += 1;
+        }
+    }
+
+    /// True when the token at `at` names a whole qubit register (no index follows).
+    fn whole_register_at(&self, at: usize) -> bool {
+        matches!(self.toks.get(at).map(|t| &t.tok), Some(Tok::Ident(n)) if self.qregs.contains_key(n) && !self.scopes.last().is_some_and(|s| s.qubits.contains_key(n)))
+            && !matches!(self.toks.get(at + 1).map(|t| &t.tok), Some(Tok::Punct("[")))
+    }
+
+    /// `c = measure q;` and `measure q -> c;` on whole registers of one size: bit i of c
+    /// gets qubit i of q.
+    fn measure_registers(&mut self, breg: &str, qreg: &str, line: usize) -> Result<()> {
+        let (reg, bits) = *self.bregs.get(breg).ok_or_else(|| {
+            self.err(
+                line,
+                format!("'{breg}' is not a declared bit register (declare 'bit[n] {breg};')"),
+            )
+        })?;
+        let qubits = *self.qregs.get(qreg).ok_or_else(|| {
+            self.err(
+                line,
+                format!("'{qreg}' is not a declared qubit register (declare 'qubit[n] {qreg};')"),
+            )
+        })?;
+        if bits != qubits {
+            return Err(self.err(
+                line,
+                format!("measuring register {qreg} ({qubits} qubits) into {breg} ({bits} bits) needs equal sizes"),
+            ));
+        }
+        for i in 0..bits {
+            let q = self.register_qubit(qreg, i, line)?;
+            self.measures.push(((reg, i), q, line));
+        }
         Ok(())
     }
 
@@ -717,6 +1228,13 @@ impl<'a> Parser<'a> {
                     )),
                 }
             }
+            Some(Tok::Ident(name))
+                if self.scopes.last().is_some_and(|s| s.qubits.contains_key(&name)) =>
+            {
+                Ok(self.scopes.last().map_or(0, |s| s.qubits[&name]))
+            }
+            Some(Tok::Ident(name)) if !self.scopes.is_empty() => Err(self
+                .err(line, format!("'{name}' is not a qubit argument of the gate being defined"))),
             Some(Tok::Ident(name)) => {
                 let size = match self.qregs.get(&name) {
                     Some(&s) => s,
@@ -728,24 +1246,7 @@ impl<'a> Parser<'a> {
                     }
                 };
                 let i = self.index_of(&name, size, "qubit")?;
-                let map = self.map.ok_or_else(|| {
-                    self.err(
-                        line,
-                        format!("{name}[{i}] is a declared qubit but no qubit map was given (e.g. --qubit-map {name}[{i}]=q0)"),
-                    )
-                })?;
-                let target = map.get(&name, i).ok_or_else(|| {
-                    self.err(line, format!("the qubit map has no entry for {name}[{i}]"))
-                })?;
-                self.layout.qubit(target).ok_or_else(|| {
-                    self.err(
-                        line,
-                        format!(
-                            "the qubit map sends {name}[{i}] to '{target}', which is not in layout '{}'",
-                            self.layout.name
-                        ),
-                    )
-                })
+                self.register_qubit(&name, i, line)
             }
             other => {
                 let shown = other.map(|tok| Token { tok, line });
@@ -755,6 +1256,28 @@ impl<'a> Parser<'a> {
                 ))
             }
         }
+    }
+
+    /// The layout qubit of element `i` of qubit register `name`, through the qubit map.
+    fn register_qubit(&self, name: &str, i: usize, line: usize) -> Result<QubitIx> {
+        let map = self.map.ok_or_else(|| {
+                    self.err(
+                        line,
+                        format!("{name}[{i}] is a declared qubit but no qubit map was given (e.g. --qubit-map {name}[{i}]=q0)"),
+                    )
+                })?;
+        let target = map
+            .get(name, i)
+            .ok_or_else(|| self.err(line, format!("the qubit map has no entry for {name}[{i}]")))?;
+        self.layout.qubit(target).ok_or_else(|| {
+            self.err(
+                line,
+                format!(
+                    "the qubit map sends {name}[{i}] to '{target}', which is not in layout '{}'",
+                    self.layout.name
+                ),
+            )
+        })
     }
 
     /// A barrier may name a whole register; it separates layers whatever it names.
@@ -830,6 +1353,9 @@ impl<'a> Parser<'a> {
             Some(Tok::Num(s)) => s
                 .parse::<f64>()
                 .map_err(|_| self.err(line, format!("'{s}' is not a number"))),
+            Some(Tok::Ident(s)) if self.scopes.last().is_some_and(|sc| sc.params.contains_key(&s)) => {
+                Ok(self.scopes.last().map_or(0.0, |sc| sc.params[&s]))
+            }
             Some(Tok::Ident(s)) => match s.as_str() {
                 "pi" | "π" => Ok(std::f64::consts::PI),
                 "tau" | "τ" => Ok(std::f64::consts::TAU),
@@ -906,6 +1432,26 @@ impl<'a> Parser<'a> {
             })
             .collect()
     }
+}
+
+/// The angle at which rotation gate `g` (rx, ry or rz) could equal `m` up to a phase: with
+/// m = e^{iφ}(cos(θ/2) I - i sin(θ/2) P), the traces of m and of i P m give e^{iφ} times
+/// cos(θ/2) and sin(θ/2). The caller checks that the rotation does equal `m`.
+fn rotation_angle(g: Gate, m: &Mat2) -> Option<f64> {
+    let i = num_complex::Complex64::new(0.0, 1.0);
+    let a = (m[0][0] + m[1][1]) / 2.0;
+    let b = match g {
+        Gate::Rx => i * (m[0][1] + m[1][0]) / 2.0,
+        Gate::Ry => (m[1][0] - m[0][1]) / 2.0,
+        Gate::Rz => i * (m[0][0] - m[1][1]) / 2.0,
+        _ => return None,
+    };
+    let big = if a.norm() >= b.norm() { a } else { b };
+    if big.norm() < 1e-12 {
+        return None;
+    }
+    let phase = big / big.norm();
+    Some(2.0 * (b / phase).re.atan2((a / phase).re))
 }
 
 /// True when an operation is a frame change for segment layering: `rz`, or a one-qubit
@@ -1004,22 +1550,29 @@ pub fn import(
 ) -> Result<Circuit> {
     let toks = tokenize(text)
         .map_err(|(line, m)| Error::input(path, Some(line), format!("circuit {id}: {m}")))?;
-    let mut p = Parser {
-        toks,
-        pos: 0,
-        path,
-        id,
-        layout,
-        map,
-        qregs: HashMap::new(),
-        bregs: HashMap::new(),
-        breg_order: Vec::new(),
-        items: Vec::new(),
-        measures: Vec::new(),
-        n_statements: 0,
-    };
+    let mut p = Parser::new(toks, path, id, layout, map);
     p.run()?;
     p.finish()
+}
+
+/// Evaluates an angle written as a gate call writes it (`pi/2`, `-0.25*tau`, `1.2e-3`): the
+/// `expr` of the grammar above. The error says what is allowed.
+pub fn angle_expression(text: &str) -> std::result::Result<f64, String> {
+    let bad = || {
+        format!(
+            "'{}' is not an angle (numbers, pi, tau, + - * / and parentheses, e.g. pi/2)",
+            crate::error::echo(text)
+        )
+    };
+    let toks = tokenize(text).map_err(|_| bad())?;
+    // The expression grammar needs no qubits; the parser is built on a one-qubit layout.
+    let layout = crate::layout::generate::chain(1);
+    let mut p = Parser::new(toks, Path::new(""), "", &layout, None);
+    let v = p.expr(0).map_err(|_| bad())?;
+    if p.pos != p.toks.len() || !v.is_finite() {
+        return Err(bad());
+    }
+    Ok(v)
 }
 
 #[cfg(test)]
@@ -1040,6 +1593,82 @@ mod tests {
 
     fn err_text(text: &str) -> String {
         imp(text).unwrap_err().to_string()
+    }
+
+    #[test]
+    fn exported_definitions_equal_the_gates() {
+        // Each definition read back is checked against the gate's unitary (the reader fails
+        // otherwise), on a layout where cx, h, s and rx are not native.
+        for g in [Gate::Ecr, Gate::Iswap, Gate::SqrtIswap, Gate::Rzz] {
+            let text = format!("{}\nbit c;\nc = measure $0;\n", definition(g).unwrap());
+            imp(&text).unwrap_or_else(|e| panic!("{g}: {e}"));
+            // A wrong body is refused.
+            let wrong = text.replace("cx a, b;", "cz a, b;");
+            let m = imp(&wrong).unwrap_err().to_string();
+            assert!(m.contains("differs from slackmap's"), "{g}: {m}");
+        }
+    }
+
+    #[test]
+    fn definitions_expand_and_stdgates_translate_to_natives() {
+        use std::f64::consts::FRAC_PI_2;
+        let text = "OPENQASM 3.0;\ninclude \"stdgates.inc\";\nqubit[2] q;\nbit[2] c;\n\
+                    gate half(t) a { rz(t/2) a; }\ngate pulse(t) a, b { half(t) a; sx b; half(-t) b; }\n\
+                    reset q;\npulse(pi) $0, $1;\nbarrier;\nu3(pi/2, -pi/2, pi/2) $0;\ndelay[40ns] $1;\n\
+                    barrier;\ncphase(pi) $1, $0;\nbarrier;\nz $1;\nc = measure q;\n";
+        let map = QubitMap::parse("q[0]=q0, q[1]=q1").unwrap();
+        let c = import(text, Path::new("t.qasm"), "t", &grid(2, 3), Some(&map)).unwrap();
+        let shown: Vec<Vec<(Gate, Vec<QubitIx>)>> = c
+            .layers
+            .iter()
+            .map(|l| l.iter().map(|o| (o.gate, o.qubits().to_vec())).collect())
+            .collect();
+        assert_eq!(
+            shown,
+            vec![
+                vec![(Gate::Rz, vec![0]), (Gate::Sx, vec![1])],
+                vec![(Gate::Rz, vec![1])],
+                // u3(pi/2, -pi/2, pi/2) = rx(pi/2) up to phase (stdgates.inc), = sx.
+                vec![(Gate::Sx, vec![0]), (Gate::Id, vec![1])],
+                // cphase(pi) = cz (symmetric).
+                vec![(Gate::Cz, vec![1, 0])],
+                // z = rz(pi) up to phase.
+                vec![(Gate::Rz, vec![1])],
+            ]
+        );
+        assert!((c.layers[0][0].angle - FRAC_PI_2).abs() < 1e-12);
+        assert!((c.layers[1][0].angle + FRAC_PI_2).abs() < 1e-12);
+        assert!((c.layers[4][0].angle.abs() - PI).abs() < 1e-12);
+        assert_eq!(c.measured, vec![0, 1]);
+    }
+
+    #[test]
+    fn standard_gates_equal_to_the_identity_keep_their_name() {
+        // rx(0) equals id and rz(0) up to phase, but it is a pulse the program asked for; a
+        // translated gate equal to the identity is an explicit idle.
+        let c = imp("rx(0) $0;\nbarrier;\nu3(0, 0, 0) $0;\nbit c;\nc = measure $0;\n").unwrap();
+        assert_eq!(c.layers[0][0].gate, Gate::Rx);
+        assert_eq!(c.layers[1][0].gate, Gate::Id);
+    }
+
+    #[test]
+    fn what_no_native_expresses_in_one_layer_is_refused() {
+        let m = err_text("u3(0.3, 0.2, 0.1) $0;\nbit c;\nc = measure $0;\n");
+        assert!(
+            m.contains("line 1:") && m.contains("u3(0.3, 0.2, 0.1) on q0 equals no native gate"),
+            "{m}"
+        );
+        let m = err_text("cy $0, $1;\nbit[2] c;\nc[0] = measure $0;\nc[1] = measure $1;\n");
+        assert!(
+            m.contains("cy on q0-q1 equals no native gate") && m.contains("native there: cz"),
+            "{m}"
+        );
+        let m = err_text("x $0;\nreset $0;\nbit c;\nc = measure $0;\n");
+        assert!(m.contains("line 2:") && m.contains("reset of q0 after a gate"), "{m}");
+        let m = err_text("gate g a { g a; }\ng $0;\nbit c;\nc = measure $0;\n");
+        assert!(m.contains("nest more than"), "{m}");
+        let m = err_text("gate g a { measure a; }\ng $0;\nbit c;\nc = measure $0;\n");
+        assert!(m.contains("line 1:") && m.contains("gate calls only"), "{m}");
     }
 
     #[test]
@@ -1145,14 +1774,17 @@ mod tests {
     #[test]
     fn errors_name_line_and_construct() {
         let cases = [
-            ("bit c;\nsx $0;\ngate foo a { x a; }\n", "line 3", "definitions"),
+            ("bit c;\nsx $0;\ndef foo(qubit a) { x a; }\n", "line 3", "definitions"),
+            ("bit c;\nsx $0;\ngate foo a { x a;\n", "line 3", "never closed"),
             ("bit c;\n\nif (c == 1) x $0;\n", "line 3", "control flow"),
             ("bit c;\nfor i in [0:2] { x $0; }\n", "line 2", "loops"),
-            ("bit c;\nreset $0;\n", "line 2", "'reset': reset operations"),
+            ("bit c;\nx $0;\nreset $0;\n", "line 3", "reset of q0 after a gate"),
+            ("bit c;\ndelay $0;\n", "line 2", "expected '['"),
             ("int i;\n", "line 1", "classical declarations"),
             ("gphase(pi;\n", "line 1", "after the phase"),
             ("bit c;\nctrl @ x $0, $1;\n", "line 2", "modifiers"),
-            ("bit c;\nu3(1,2,3) $0;\n", "line 2", "unknown gate"),
+            ("bit c;\nu4(1,2,3) $0;\n", "line 2", "unknown gate"),
+            ("bit c;\nu3(1,2) $0;\n", "line 2", "takes 3 angles"),
             ("/* a\ncomment */ bit c;\nrz $0;\n", "line 3", "needs an angle"),
             ("bit c;\nx(0.1) $0;\n", "line 2", "takes no angle"),
             ("bit c;\ncz $0;\n", "line 2", "takes 2 qubit"),

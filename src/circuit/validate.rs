@@ -72,17 +72,30 @@ pub fn validate_circuit(c: &Circuit, layout: &Layout, allow_non_native: bool) ->
                     ));
                 }
             }
-            if !allow_non_native && !layout.is_native(op.gate) {
-                let natives: Vec<&str> = std::iter::once(Gate::Id)
-                    .chain(layout.gates.one_qubit.iter().copied())
-                    .chain(std::iter::once(layout.gates.two_qubit))
-                    .map(Gate::name)
-                    .collect();
+            let on_coupler = qs.len() == 2 && layout.coupler(qs[0], qs[1]).is_some();
+            if !allow_non_native
+                && (qs.len() == 1 || on_coupler)
+                && !layout.is_native_op(op.gate, qs, op.angle)
+            {
+                let natives: Vec<String> = match qs {
+                    [a, b] => {
+                        layout.natives_between(*a, *b).iter().map(ToString::to_string).collect()
+                    }
+                    _ => std::iter::once(Gate::Id)
+                        .chain(layout.gates.one_qubit.iter().copied())
+                        .map(|g| g.name().to_string())
+                        .collect(),
+                };
+                let shown = if op.gate.n_params() == 1 && qs.len() == 2 {
+                    format!("{}({:?})", op.gate, op.angle)
+                } else {
+                    op.gate.to_string()
+                };
                 return fail(format!(
-                    "layer {t}: gate {} on {} is not native on layout '{}' (native: {}; pass --allow-non-native to accept it)",
-                    op.gate,
+                    "layer {t}: gate {shown} on {} is not native on layout '{}' (native {}: {}; pass --allow-non-native to accept it)",
                     qs.iter().map(|&q| name(q)).collect::<Vec<_>>().join("-"),
                     layout.name,
+                    if qs.len() == 2 { "on this coupler" } else { "one-qubit gates" },
                     natives.join(", ")
                 ));
             }

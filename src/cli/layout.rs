@@ -161,6 +161,21 @@ fn summary(l: &Layout) -> String {
         if l.is_connected() { "yes" } else { "no" },
         names(&l.gates.one_qubit),
         names(&l.gates.virtual_gates),
-        l.gates.two_qubit,
+        two_qubit(l),
     )
+}
+
+/// The two-qubit gates: the list every coupler runs, then the couplers with their own.
+fn two_qubit(l: &Layout) -> String {
+    let list = |v: &[slackmap::layout::Native2]| {
+        v.iter().map(ToString::to_string).collect::<Vec<_>>().join(", ")
+    };
+    let mut parts = Vec::new();
+    if !l.gates.two_qubit.is_empty() {
+        parts.push(list(&l.gates.two_qubit));
+    }
+    for (a, b, v) in &l.gates.coupler_gates {
+        parts.push(format!("{a}-{b}: {}", list(v)));
+    }
+    parts.join("; ")
 }

@@ -209,7 +209,7 @@ fn ideal_states(
                 s[i] = u[0][0] * a0 + u[0][1] * a1;
                 s[i | bit] = u[1][0] * a0 + u[1][1] * a1;
             }
-        } else if let (Some(u), [_, q1]) = (op.gate.unitary2(), qs) {
+        } else if let (Some(u), [_, q1]) = (op.gate.unitary2(op.angle), qs) {
             // Validation keeps a two-qubit gate inside one block.
             let j1 = slot[*q1].1;
             let local = |g: usize| ((g & 1) << j) | (((g >> 1) & 1) << j1);

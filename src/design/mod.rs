@@ -595,10 +595,11 @@ mod tests {
 
     #[test]
     fn unsupported_two_qubit_gate_is_a_clear_error() {
-        let mut layout = generate::chain(3);
-        layout.gates.two_qubit = crate::gate::Gate::Id;
+        let text = crate::layout::to_toml(&generate::chain(3))
+            .replace("two_qubit = \"cz\"", "two_qubit = \"cp(0.3)\"");
+        let layout = crate::layout::parse_layout(&text, std::path::Path::new("l.toml")).unwrap();
         let cfg = DesignConfig::new(vec![1], 1, 0, vec![Kind::Randomized]).unwrap();
         let err = design(&layout, &cfg).unwrap_err().to_string();
-        assert!(err.contains("valid: cz, cx"), "{err}");
+        assert!(err.contains("cp(0.3) is not a Clifford gate") && err.contains("ecr"), "{err}");
     }
 }

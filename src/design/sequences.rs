@@ -9,7 +9,7 @@
 use rand::RngExt;
 
 use crate::circuit::{Circuit, Layer, Op};
-use crate::clifford::{self, Clifford1, Compiler1, Tableau2, Word2};
+use crate::clifford::{self, Clifford1, Compiler1, Entangler, Tableau2, Word2};
 use crate::error::{Error, Result};
 use crate::gate::Gate;
 use crate::layout::{Layout, QubitIx};
@@ -148,14 +148,23 @@ enum Passage {
     Blocks,
 }
 
-fn frame_passage(g: Gate, k: usize) -> Passage {
-    match (g, k) {
+fn frame_passage(op: &Op, k: usize) -> Passage {
+    match (op.gate, k) {
         (Gate::Cz, _)
         | (Gate::Cx, 0)
         | (Gate::Id | Gate::Z | Gate::S | Gate::Sdg | Gate::Rz, _) => Passage::Commutes,
         (Gate::X | Gate::Y, _) => Passage::Negates,
+        (g, _) if g.arity() == 2 && commutes_with_z(g, op.angle, k) => Passage::Commutes,
         _ => Passage::Blocks,
     }
+}
+
+/// True when a two-qubit gate commutes with Z on operand `k`: it never connects basis
+/// states that differ in that bit.
+fn commutes_with_z(g: Gate, angle: f64, k: usize) -> bool {
+    g.unitary2(angle).is_some_and(|u| {
+        (0..4).all(|i| (0..4).all(|j| (i >> k) & 1 == (j >> k) & 1 || u[i][j].norm() < 1e-12))
+    })
 }
 
 /// The one-qubit Cliffords a set of gates reaches (closure under composition), counting
@@ -220,17 +229,58 @@ fn check_clifford_gates(layout: &Layout) -> Result<()> {
 pub(crate) struct Builder<'a> {
     layout: &'a Layout,
     comp: Compiler1,
-    gate: Gate,
+    /// The Clifford two-qubit natives of each coupler (by coupler index), never empty.
+    entanglers: Vec<Vec<Entangler>>,
+}
+
+/// The Clifford natives of every coupler; fails naming the first coupler whose natives
+/// cannot serve Clifford sequences.
+fn coupler_entanglers(layout: &Layout) -> Result<Vec<Vec<Entangler>>> {
+    // Couplers share a few lists; each distinct list is resolved once.
+    let mut seen: Vec<(&[crate::layout::Native2], Vec<Entangler>)> = Vec::new();
+    let mut out = Vec::with_capacity(layout.couplers.len());
+    for (c, &(a, b)) in layout.couplers.iter().enumerate() {
+        let natives = layout.natives(c);
+        if let Some((_, e)) = seen.iter().find(|(n, _)| *n == natives) {
+            out.push(e.clone());
+            continue;
+        }
+        let e = clifford::entanglers(natives).map_err(|m| {
+            Error::Usage(format!(
+                "layout '{}', coupler {}-{}: {m}",
+                crate::error::echo(&layout.name),
+                layout.id(a),
+                layout.id(b)
+            ))
+        })?;
+        seen.push((natives, e.clone()));
+        out.push(e);
+    }
+    Ok(out)
 }
 
 impl<'a> Builder<'a> {
     pub fn new(layout: &'a Layout) -> Result<Builder<'a>> {
         check_clifford_gates(layout)?;
         let comp = Compiler1::new(layout)?;
-        if !layout.couplers.is_empty() {
-            clifford::check_two_qubit_gate(layout)?;
-        }
-        Ok(Builder { layout, comp, gate: layout.gates.two_qubit })
+        let entanglers = coupler_entanglers(layout)?;
+        Ok(Builder { layout, comp, entanglers })
+    }
+
+    /// The Clifford natives of coupler a-b.
+    fn entanglers_of(&self, a: QubitIx, b: QubitIx) -> Result<&[Entangler]> {
+        self.layout
+            .coupler(a, b)
+            .and_then(|c| self.entanglers.get(c))
+            .map(Vec::as_slice)
+            .ok_or_else(|| {
+                Error::Usage(format!(
+                    "{}-{} is not a coupler of layout '{}'",
+                    self.layout.id(a),
+                    self.layout.id(b),
+                    crate::error::echo(&self.layout.name)
+                ))
+            })
     }
 
     fn slot1(&self, pos: usize, q: QubitIx, cliffords: &[Clifford1]) -> Slot {
@@ -253,22 +303,36 @@ impl<'a> Builder<'a> {
         Slot::beside(self.slot1(0, a, &[l[0]]), self.slot1(1, b, &[l[1]]))
     }
 
-    fn gate_slot(&self, a: QubitIx, b: QubitIx) -> Slot {
-        Slot {
-            columns: vec![Column { frames: [0; 2], ops: vec![Op::two(self.gate, a, b)] }],
-            tail: [0; 2],
-        }
+    fn gate_slot(&self, a: QubitIx, b: QubitIx, e: &Entangler) -> Slot {
+        let op = Op { gate: e.native.gate, operands: [a, b], angle: e.native.angle };
+        Slot { columns: vec![Column { frames: [0; 2], ops: vec![op] }], tail: [0; 2] }
     }
 
-    fn word(&self, a: QubitIx, b: QubitIx, w: &Word2) -> Slot {
+    fn word(&self, a: QubitIx, b: QubitIx, w: &Word2, e: &Entangler) -> Slot {
         let mut slot = Slot::default();
         for (i, l) in w.layers.iter().enumerate() {
             if i > 0 {
-                slot.extend(self.gate_slot(a, b));
+                slot.extend(self.gate_slot(a, b, e));
             }
             slot.extend(self.layer(a, b, *l));
         }
         slot
+    }
+
+    /// One identity cycle of a native: the gate twice, then (for a gate that is not its
+    /// own inverse) the native word that undoes the pair, such as Z on both qubits after
+    /// two iswaps.
+    fn cycle(&self, a: QubitIx, b: QubitIx, e: &Entangler) -> Result<Slot> {
+        let mut slot = self.gate_slot(a, b, e);
+        slot.extend(self.gate_slot(a, b, e));
+        if !e.is_self_inverse() {
+            let twice = e.tableau.then(&e.tableau);
+            let undo = e.word_for(&twice.inverse(e)).ok_or_else(|| {
+                Error::Usage(format!("two-qubit gate '{}' cannot close its cycle", e.native))
+            })?;
+            slot.extend(self.word(a, b, undo, e));
+        }
+        Ok(slot)
     }
 
     /// Quarter turn about an equatorial axis (`sx` where native) and the readout rotation
@@ -332,29 +396,39 @@ impl<'a> Builder<'a> {
     ) -> Result<BlockRun> {
         let (h, readout) = self.framing();
         let mut slots = Vec::with_capacity(depth + 2);
-        let gate_t = Tableau2::gate(self.gate).unwrap_or_else(Tableau2::identity);
+        let natives = self.entanglers_of(a, b)?;
         let ideal = match kind {
             Kind::Randomized => {
                 let mut total = Tableau2::identity();
                 for _ in 0..depth {
                     let l = [Clifford1::random(rng), Clifford1::random(rng)];
+                    // A coupler with several Clifford natives runs a random one per slot
+                    // (a draw only then, so one-native designs keep their stream).
+                    let e = match natives.len() {
+                        1 => &natives[0],
+                        n => &natives[rng.random_range(0..n)],
+                    };
                     let mut slot = self.layer(a, b, l);
-                    slot.extend(self.gate_slot(a, b));
+                    slot.extend(self.gate_slot(a, b, e));
                     slots.push(slot);
-                    total = total.then(&Tableau2::layer(l[0], l[1])).then(&gate_t);
+                    total = total.then(&Tableau2::layer(l[0], l[1])).then(&e.tableau);
                 }
                 let flips: [bool; 2] = [rng.random(), rng.random()];
-                let rec = clifford::recovery(&total, self.gate, flips).ok_or_else(|| {
-                    Error::Usage(format!("two-qubit gate '{}' cannot close sequences", self.gate))
+                let e = &natives[0];
+                let rec = clifford::recovery(&total, e, flips).ok_or_else(|| {
+                    Error::Usage(format!("two-qubit gate '{}' cannot close sequences", e.native))
                 })?;
-                slots.push(self.word(a, b, &rec));
+                slots.push(self.word(a, b, &rec, e));
                 vec![Ideal::Bit(flips[0]), Ideal::Bit(flips[1])]
             }
             Kind::RepeatedX | Kind::RepeatedZ => {
                 slots.push(self.layer(a, b, [h, h]));
                 for _ in 0..depth {
-                    let mut slot = self.gate_slot(a, b);
-                    slot.extend(self.gate_slot(a, b));
+                    // One identity cycle of every Clifford native of the coupler.
+                    let mut slot = Slot::default();
+                    for e in natives {
+                        slot.extend(self.cycle(a, b, e)?);
+                    }
                     slots.push(slot);
                 }
                 if kind == Kind::RepeatedZ {
@@ -393,7 +467,7 @@ impl<'a> Builder<'a> {
                     }
                     for op in &col.ops {
                         for (k, &q) in op.qubits().iter().enumerate() {
-                            match frame_passage(op.gate, k) {
+                            match frame_passage(op, k) {
                                 Passage::Commutes => continue,
                                 Passage::Negates => {
                                     pending[q] = (4 - pending[q]) % 4;

@@ -114,11 +114,7 @@ pub fn generate(kind: Kind, size: &str) -> Result<Layout> {
 
 /// The default native gate set of generated layouts.
 pub fn default_gates() -> NativeGates {
-    NativeGates {
-        one_qubit: vec![Gate::Sx, Gate::X, Gate::Rz],
-        virtual_gates: vec![Gate::Rz],
-        two_qubit: Gate::Cz,
-    }
+    NativeGates::simple(vec![Gate::Sx, Gate::X, Gate::Rz], vec![Gate::Rz], Gate::Cz)
 }
 
 fn build(name: String, positions: Vec<[f64; 2]>, couplers: Vec<(usize, usize)>) -> Layout {

@@ -27,15 +27,99 @@ pub struct Qubit {
     pub position: Option<[f64; 2]>,
 }
 
-/// The layout's native gate set.
-#[derive(Clone, Debug, PartialEq, Eq)]
+/// A two-qubit native gate: the gate, and its fixed angle for `cp` and `rzz` (0 for gates
+/// without one).
+#[derive(Copy, Clone, Debug, PartialEq)]
+pub struct Native2 {
+    /// The gate (arity 2).
+    pub gate: Gate,
+    /// The angle in radians the chip runs it at (0 unless `gate.n_params() == 1`).
+    pub angle: f64,
+}
+
+impl Native2 {
+    /// A native without an angle.
+    pub fn fixed(gate: Gate) -> Native2 {
+        Native2 { gate, angle: 0.0 }
+    }
+
+    /// True when an operation runs this native: same gate and, for a parametrized gate, the
+    /// same angle to 1e-9 rad.
+    pub fn runs(&self, gate: Gate, angle: f64) -> bool {
+        gate == self.gate && (gate.n_params() == 0 || (angle - self.angle).abs() <= 1e-9)
+    }
+
+    /// The ideal unitary (basis index bit(first) + 2 * bit(second)).
+    pub fn unitary(&self) -> crate::gate::Mat4 {
+        self.gate.unitary2(self.angle).unwrap_or_default()
+    }
+}
+
+impl std::fmt::Display for Native2 {
+    fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
+        if self.gate.n_params() == 1 {
+            write!(f, "{}({:?})", self.gate, self.angle)
+        } else {
+            write!(f, "{}", self.gate)
+        }
+    }
+}
+
+/// The layout's native gate set. [`Layout::new`] resolves each coupler's two-qubit list
+/// once: to change the two-qubit gates, build a new layout.
+#[derive(Clone, PartialEq)]
 pub struct NativeGates {
     /// One-qubit gates the chip runs (virtual ones included).
     pub one_qubit: Vec<Gate>,
     /// The subset of `one_qubit` that are frame changes: no duration, no error.
     pub virtual_gates: Vec<Gate>,
-    /// The two-qubit gate.
-    pub two_qubit: Gate,
+    /// The two-qubit gates of every coupler that has no list of its own, in file order
+    /// (the first one is what designs use first).
+    pub two_qubit: Vec<Native2>,
+    /// Couplers (qubit ids as written) with their own two-qubit gates, which replace
+    /// `two_qubit` on that coupler.
+    pub coupler_gates: Vec<(String, String, Vec<Native2>)>,
+    /// Two-qubit gates the layout file defines by their unitary.
+    pub custom: Vec<Gate>,
+}
+
+impl NativeGates {
+    /// One-qubit gates and one two-qubit gate on every coupler.
+    pub fn simple(one_qubit: Vec<Gate>, virtual_gates: Vec<Gate>, two_qubit: Gate) -> NativeGates {
+        NativeGates {
+            one_qubit,
+            virtual_gates,
+            two_qubit: vec![Native2::fixed(two_qubit)],
+            coupler_gates: Vec::new(),
+            custom: Vec::new(),
+        }
+    }
+
+    /// True for one fixed two-qubit gate on every coupler and no custom gates.
+    pub fn is_simple(&self) -> bool {
+        self.two_qubit.len() == 1
+            && self.two_qubit[0].gate.n_params() == 0
+            && self.coupler_gates.is_empty()
+            && self.custom.is_empty()
+    }
+}
+
+impl std::fmt::Debug for NativeGates {
+    /// A layout of one fixed two-qubit gate prints as it always has (design digests hash
+    /// this text); richer sets add their couplers' lists and the custom matrices.
+    fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
+        let mut d = f.debug_struct("NativeGates");
+        d.field("one_qubit", &self.one_qubit).field("virtual_gates", &self.virtual_gates);
+        if self.is_simple() {
+            return d.field("two_qubit", &self.two_qubit[0].gate).finish();
+        }
+        let custom: Vec<(&str, Option<crate::gate::Mat4>)> =
+            self.custom.iter().map(|g| (g.name(), g.unitary2(0.0))).collect();
+        d.field("two_qubit", &self.two_qubit)
+            .field("coupler_gates", &self.coupler_gates)
+            .field("custom", &custom)
+            .finish()
+    }
 }
 
 /// How the neighbourhood N(q) that defines an occurrence's context is built.
@@ -72,6 +156,8 @@ pub struct Layout {
     pub neighbourhood: NeighbourhoodSpec,
     index: HashMap<String, QubitIx>,
     coupler_index: HashMap<(QubitIx, QubitIx), usize>,
+    /// The two-qubit natives of each coupler, by coupler index (never empty).
+    coupler_natives: Vec<Vec<Native2>>,
     adjacency: Vec<Vec<QubitIx>>,
     neighbours: Vec<Vec<QubitIx>>,
 }
@@ -163,8 +249,60 @@ impl Layout {
             }
         }
         let couplers: Vec<(QubitIx, QubitIx)> = set.into_iter().collect();
-        if gates.two_qubit.arity() != 2 {
-            return Err(format!("two_qubit gate '{}' is not a two-qubit gate", gates.two_qubit));
+        let coupler_index: HashMap<(QubitIx, QubitIx), usize> =
+            couplers.iter().enumerate().map(|(i, &c)| (c, i)).collect();
+        let check_list = |list: &[Native2], whose: &str| -> std::result::Result<(), String> {
+            for (i, n) in list.iter().enumerate() {
+                if n.gate.arity() != 2 {
+                    return Err(format!("{whose}: gate '{}' is not a two-qubit gate", n.gate));
+                }
+                if !n.angle.is_finite() || (n.gate.n_params() == 0 && n.angle != 0.0) {
+                    return Err(format!("{whose}: gate '{n}' has an angle it cannot take"));
+                }
+                if list[..i].iter().any(|m| m.gate == n.gate) {
+                    return Err(format!(
+                        "{whose}: gate '{}' is listed twice (one angle per gate and coupler)",
+                        n.gate
+                    ));
+                }
+            }
+            Ok(())
+        };
+        check_list(&gates.two_qubit, "[gates] two_qubit")?;
+        let mut coupler_natives: Vec<Option<Vec<Native2>>> = vec![None; couplers.len()];
+        for (a, b, list) in &gates.coupler_gates {
+            let (ia, ib) =
+                (lookup(a, "a coupler's gate list")?, lookup(b, "a coupler's gate list")?);
+            let c = coupler_index
+                .get(&(ia.min(ib), ia.max(ib)))
+                .copied()
+                .ok_or_else(|| format!("gates are listed for {a}-{b}, which is not a coupler"))?;
+            if coupler_natives[c].is_some() {
+                return Err(format!("coupler {a}-{b} has two gate lists"));
+            }
+            if list.is_empty() {
+                return Err(format!("coupler {a}-{b}: its gate list is empty"));
+            }
+            check_list(list, &format!("coupler {a}-{b}"))?;
+            coupler_natives[c] = Some(list.clone());
+        }
+        let mut resolved = Vec::with_capacity(couplers.len());
+        for (c, own) in coupler_natives.into_iter().enumerate() {
+            match own {
+                Some(list) => resolved.push(list),
+                None if gates.two_qubit.is_empty() => {
+                    let (a, b) = couplers[c];
+                    return Err(format!(
+                        "coupler {}-{} has no two-qubit gate: give [gates] two_qubit, or a list \
+                         for this coupler",
+                        qubits[a].id, qubits[b].id
+                    ));
+                }
+                None => resolved.push(gates.two_qubit.clone()),
+            }
+        }
+        if let Some(g) = gates.custom.iter().find(|g| !matches!(g, Gate::Custom(_))) {
+            return Err(format!("gate '{g}' is a standard gate, not a custom one"));
         }
         if let Some(g) = gates.one_qubit.iter().find(|g| g.arity() != 1) {
             return Err(format!("one_qubit gate '{g}' is not a one-qubit gate"));
@@ -210,7 +348,6 @@ impl Layout {
             neighbours[a].insert(b);
             neighbours[b].insert(a);
         }
-        let coupler_index = couplers.iter().enumerate().map(|(i, &c)| (c, i)).collect();
         Ok(Layout {
             name,
             qubits,
@@ -219,6 +356,7 @@ impl Layout {
             neighbourhood: NeighbourhoodSpec { radius, extra_pairs: extra.into_iter().collect() },
             index,
             coupler_index,
+            coupler_natives: resolved,
             adjacency,
             neighbours: neighbours.into_iter().map(|s| s.into_iter().collect()).collect(),
         })
@@ -272,9 +410,41 @@ impl Layout {
         self.gates.virtual_gates.contains(&g)
     }
 
-    /// True when the gate is native on this layout.
+    /// True when the gate is native on this layout (a two-qubit gate: on some coupler).
     pub fn is_native(&self, g: Gate) -> bool {
-        g == Gate::Id || g == self.gates.two_qubit || self.gates.one_qubit.contains(&g)
+        g == Gate::Id
+            || self.gates.one_qubit.contains(&g)
+            || self.coupler_natives.iter().flatten().any(|n| n.gate == g)
+    }
+
+    /// The two-qubit natives of a coupler (by coupler index), never empty.
+    pub fn natives(&self, coupler: usize) -> &[Native2] {
+        &self.coupler_natives[coupler]
+    }
+
+    /// The two-qubit natives between two qubits (empty when they are not coupled).
+    pub fn natives_between(&self, a: QubitIx, b: QubitIx) -> &[Native2] {
+        self.coupler(a, b).map_or(&[], |c| self.natives(c))
+    }
+
+    /// Every distinct two-qubit native of the layout, in order of first appearance.
+    pub fn all_natives(&self) -> Vec<Native2> {
+        let mut out: Vec<Native2> = Vec::new();
+        for n in self.gates.two_qubit.iter().chain(self.coupler_natives.iter().flatten()) {
+            if !out.contains(n) {
+                out.push(*n);
+            }
+        }
+        out
+    }
+
+    /// True when an operation (gate, operands, angle) is native where it runs: a one-qubit
+    /// gate of the layout, or a two-qubit gate at its angle on a coupler that lists it.
+    pub fn is_native_op(&self, gate: Gate, qubits: &[QubitIx], angle: f64) -> bool {
+        match qubits {
+            [a, b] => self.natives_between(*a, *b).iter().any(|n| n.runs(gate, angle)),
+            _ => gate == Gate::Id || self.gates.one_qubit.contains(&gate),
+        }
     }
 
     /// Maximum coupler degree.

@@ -13,9 +13,9 @@ use std::path::Path;
 use ::toml::{Spanned, Value};
 use serde::Deserialize;
 
-use super::{Layout, NativeGates, Qubit};
-use crate::error::{Error, Result};
-use crate::gate::Gate;
+use super::{Layout, Native2, NativeGates, Qubit};
+use crate::error::{echo, Error, Result};
+use crate::gate::{Gate, Mat4};
 
 #[derive(Deserialize)]
 #[serde(deny_unknown_fields)]
@@ -40,7 +40,28 @@ struct GatesWire {
     one_qubit: Vec<Spanned<String>>,
     #[serde(rename = "virtual", default)]
     virtual_gates: Vec<Spanned<String>>,
-    two_qubit: Spanned<String>,
+    /// One name, or a list: the two-qubit gates of every coupler without its own list.
+    two_qubit: Option<Spanned<Value>>,
+    /// Couplers with their own two-qubit gates.
+    #[serde(default)]
+    coupler: Vec<Spanned<CouplerGatesWire>>,
+    /// Two-qubit gates defined by their unitary.
+    #[serde(default)]
+    custom: Vec<Spanned<CustomWire>>,
+}
+
+#[derive(Deserialize)]
+#[serde(deny_unknown_fields)]
+struct CouplerGatesWire {
+    qubits: Spanned<Vec<Spanned<String>>>,
+    two_qubit: Spanned<Value>,
+}
+
+#[derive(Deserialize)]
+#[serde(deny_unknown_fields)]
+struct CustomWire {
+    name: Spanned<String>,
+    unitary: Spanned<Value>,
 }
 
 #[derive(Deserialize)]
@@ -137,7 +158,7 @@ impl Checker<'_> {
             qubits.push(Qubit { id, position });
         }
         let couplers = self.pairs(wire.couplers, &seen, "coupler", true)?;
-        let gates = self.gates(wire.gates)?;
+        let gates = self.gates(wire.gates, &seen, &couplers)?;
         let (radius, extra_pairs) = match wire.neighbourhood {
             None => (1, Vec::new()),
             Some(n) => {
@@ -243,12 +264,17 @@ impl Checker<'_> {
     }
 
     fn gate(&self, name: &Spanned<String>, field: &str, arity: usize) -> Result<Gate> {
-        let g = Gate::from_name(name.get_ref()).ok_or_else(|| {
+        self.gate_at(name.get_ref(), name.span(), field, arity)
+    }
+
+    fn gate_at(&self, name: &str, span: Range<usize>, field: &str, arity: usize) -> Result<Gate> {
+        let g = Gate::from_name(name).ok_or_else(|| {
             self.err(
-                name.span(),
+                span.clone(),
                 format!(
-                    "unknown gate '{}' in [gates] {field} (known: {})",
-                    name.get_ref(),
+                    "unknown gate '{}' in [gates] {field} (known: {}; or define it in a \
+                     [[gates.custom]] table)",
+                    echo(name),
                     Gate::known_names()
                 ),
             )
@@ -257,7 +283,7 @@ impl Checker<'_> {
             let valid: Vec<&str> =
                 Gate::ALL.iter().filter(|g| g.arity() == arity).map(|g| g.name()).collect();
             return Err(self.err(
-                name.span(),
+                span,
                 format!(
                     "gate '{g}' in [gates] {field} acts on {} qubit(s); valid here: {}",
                     g.arity(),
@@ -268,7 +294,12 @@ impl Checker<'_> {
         Ok(g)
     }
 
-    fn gates(&self, wire: GatesWire) -> Result<NativeGates> {
+    fn gates(
+        &self,
+        wire: GatesWire,
+        ids: &HashMap<String, Range<usize>>,
+        couplers: &[(String, String)],
+    ) -> Result<NativeGates> {
         let mut one_qubit = Vec::new();
         for n in &wire.one_qubit {
             let g = self.gate(n, "one_qubit", 1)?;
@@ -295,8 +326,160 @@ impl Checker<'_> {
                 virtual_gates.push(g);
             }
         }
-        let two_qubit = self.gate(&wire.two_qubit, "two_qubit", 2)?;
-        Ok(NativeGates { one_qubit, virtual_gates, two_qubit })
+        let mut custom = Vec::new();
+        for c in &wire.custom {
+            custom.push(self.custom(c.get_ref())?);
+        }
+        let two_qubit = match &wire.two_qubit {
+            Some(v) => self.natives(v, "two_qubit")?,
+            None => Vec::new(),
+        };
+        let mut coupler_gates = Vec::new();
+        for c in &wire.coupler {
+            let w = c.get_ref();
+            let [a, b] = w.qubits.get_ref().as_slice() else {
+                return Err(self.err(
+                    w.qubits.span(),
+                    "[[gates.coupler]] qubits is a pair of two qubit ids, like [\"q0\", \"q1\"]",
+                ));
+            };
+            let (a, b) = (a.get_ref(), b.get_ref());
+            if let Some(q) = [a, b].into_iter().find(|q| !ids.contains_key(*q)) {
+                return Err(self.err(
+                    w.qubits.span(),
+                    format!("[[gates.coupler]] names unknown qubit '{}'", echo(q)),
+                ));
+            }
+            if !couplers.iter().any(|(x, y)| (x == a && y == b) || (x == b && y == a)) {
+                return Err(self.err(
+                    w.qubits.span(),
+                    format!(
+                        "[[gates.coupler]] {a}-{b} is not a coupler (list it in `couplers` first)"
+                    ),
+                ));
+            }
+            if coupler_gates
+                .iter()
+                .any(|(x, y, _): &(String, String, _)| (x == a && y == b) || (x == b && y == a))
+            {
+                return Err(
+                    self.err(w.qubits.span(), format!("[[gates.coupler]] {a}-{b} is listed twice"))
+                );
+            }
+            let list = self.natives(&w.two_qubit, "coupler two_qubit")?;
+            coupler_gates.push((a.clone(), b.clone(), list));
+        }
+        if wire.two_qubit.is_none() && coupler_gates.len() < couplers.len() {
+            return Err(Error::input(
+                self.path,
+                None,
+                "[gates] needs `two_qubit` (a gate name or a list, like \"cz\" or [\"ecr\"]) \
+                 unless every coupler has its own [[gates.coupler]] list",
+            ));
+        }
+        Ok(NativeGates { one_qubit, virtual_gates, two_qubit, coupler_gates, custom })
+    }
+
+    /// A list of two-qubit natives: one string or an array of strings, each a gate name or
+    /// a parametrized gate at its angle (`cp(pi/2)`).
+    fn natives(&self, value: &Spanned<Value>, field: &str) -> Result<Vec<Native2>> {
+        let span = value.span();
+        let names: Vec<&str> = match value.get_ref() {
+            Value::String(s) => vec![s.as_str()],
+            Value::Array(items) if !items.is_empty() => items
+                .iter()
+                .map(|v| v.as_str())
+                .collect::<Option<Vec<&str>>>()
+                .ok_or_else(|| self.err(span.clone(), format!("[gates] {field}: every entry is a gate name in quotes")))?,
+            _ => {
+                return Err(self.err(
+                    span,
+                    format!("[gates] {field} is a gate name or a non-empty list of names, like \"cz\" or [\"ecr\", \"cp(pi/2)\"]"),
+                ))
+            }
+        };
+        let mut out: Vec<Native2> = Vec::new();
+        for text in names {
+            let text = text.trim();
+            let (name, angle) = match text.split_once('(') {
+                Some((n, rest)) => match rest.strip_suffix(')') {
+                    Some(a) => (n.trim(), Some(a)),
+                    None => {
+                        return Err(self.err(
+                            span,
+                            format!("[gates] {field}: '{}' lacks its closing ')'", echo(text)),
+                        ))
+                    }
+                },
+                None => (text, None),
+            };
+            let gate = self.gate_at(name, span.clone(), field, 2)?;
+            let angle = match (gate.n_params(), angle) {
+                (0, None) => 0.0,
+                (0, Some(_)) => {
+                    return Err(self.err(span, format!("[gates] {field}: gate '{gate}' takes no angle")))
+                }
+                (_, None) => {
+                    return Err(self.err(
+                        span,
+                        format!("[gates] {field}: gate '{gate}' runs at one calibrated angle on a chip; write it, like \"{gate}(pi/2)\""),
+                    ))
+                }
+                (_, Some(a)) => crate::circuit::qasm::angle_expression(a)
+                    .map_err(|m| self.err(span.clone(), format!("[gates] {field}: {m}")))?,
+            };
+            let native = Native2 { gate, angle };
+            if out.iter().any(|n| n.gate == gate) {
+                return Err(
+                    self.err(span, format!("[gates] {field}: gate '{gate}' is listed twice"))
+                );
+            }
+            out.push(native);
+        }
+        Ok(out)
+    }
+
+    /// A `[[gates.custom]]` table: a name and four rows of four complex entries, each a
+    /// number or `[re, im]`.
+    fn custom(&self, w: &CustomWire) -> Result<Gate> {
+        let span = w.unitary.span();
+        let name = w.name.get_ref();
+        let shape = || {
+            self.err(
+                span.clone(),
+                format!(
+                    "custom gate '{}': `unitary` is 4 rows of 4 entries, each a number or [re, im] \
+                     (basis index = bit of the first operand + 2 * bit of the second)",
+                    echo(name)
+                ),
+            )
+        };
+        let Value::Array(rows) = w.unitary.get_ref() else { return Err(shape()) };
+        if rows.len() != 4 {
+            return Err(shape());
+        }
+        let num = |v: &Value| match v {
+            Value::Integer(i) => Some(*i as f64),
+            Value::Float(f) => Some(*f),
+            _ => None,
+        };
+        let mut m: Mat4 = Default::default();
+        for (r, row) in rows.iter().enumerate() {
+            let Value::Array(entries) = row else { return Err(shape()) };
+            if entries.len() != 4 {
+                return Err(shape());
+            }
+            for (c, e) in entries.iter().enumerate() {
+                m[r][c] = match e {
+                    Value::Array(pair) if pair.len() == 2 => match (num(&pair[0]), num(&pair[1])) {
+                        (Some(re), Some(im)) => num_complex::Complex64::new(re, im),
+                        _ => return Err(shape()),
+                    },
+                    v => num_complex::Complex64::new(num(v).ok_or_else(shape)?, 0.0),
+                };
+            }
+        }
+        crate::gate::define_custom(name, &m).map_err(|msg| self.err(w.name.span(), msg))
     }
 }
 
@@ -382,7 +565,35 @@ pub fn to_toml(layout: &Layout) -> String {
     s.push_str("\n[gates]\n");
     let _ = writeln!(s, "one_qubit = [{}]", list(&layout.gates.one_qubit));
     let _ = writeln!(s, "virtual = [{}]", list(&layout.gates.virtual_gates));
-    let _ = writeln!(s, "two_qubit = {}", quote(layout.gates.two_qubit.name()));
+    let natives = |list: &[Native2]| match list {
+        [one] => quote(&one.to_string()),
+        _ => format!(
+            "[{}]",
+            list.iter().map(|n| quote(&n.to_string())).collect::<Vec<_>>().join(", ")
+        ),
+    };
+    if !layout.gates.two_qubit.is_empty() {
+        let _ = writeln!(s, "two_qubit = {}", natives(&layout.gates.two_qubit));
+    }
+    for g in &layout.gates.custom {
+        let m = g.unitary2(0.0).unwrap_or_default();
+        let _ = writeln!(s, "\n[[gates.custom]]\nname = {}\nunitary = [", quote(g.name()));
+        for row in &m {
+            let entries: Vec<String> =
+                row.iter().map(|v| format!("[{}, {}]", number(v.re), number(v.im))).collect();
+            let _ = writeln!(s, "  [{}],", entries.join(", "));
+        }
+        s.push_str("]\n");
+    }
+    for (a, b, list) in &layout.gates.coupler_gates {
+        let _ = writeln!(
+            s,
+            "\n[[gates.coupler]]\nqubits = [{}, {}]\ntwo_qubit = {}",
+            quote(a),
+            quote(b),
+            natives(list)
+        );
+    }
     s.push_str("\n[neighbourhood]\n");
     let _ = writeln!(s, "radius = {}", layout.neighbourhood.radius);
     pair_list(&mut s, "extra_pairs", &layout.neighbourhood.extra_pairs);
@@ -428,7 +639,7 @@ mod tests {
         assert_eq!(l.couplers.len(), 7);
         assert_eq!(l.qubits[4].position, Some([1.0, 1.0]));
         assert_eq!(l.gates.virtual_gates, vec![Gate::Rz]);
-        assert_eq!(l.gates.two_qubit, Gate::Cz);
+        assert_eq!(l.gates.two_qubit, vec![Native2::fixed(Gate::Cz)]);
         assert_eq!(l.neighbourhood.radius, 1);
         // q1 sits in the middle of the top row: couplers to q0, q2 and q4.
         assert_eq!(l.coupled(1), &[0, 2, 4]);
@@ -514,6 +725,86 @@ mod tests {
         assert!(m.contains("line 13: coupler q0-q0 joins a qubit to itself"), "{m}");
         let m = err(&text.replace("position = [0.0, 0.0]", "position = [nan, 0.0]"));
         assert!(m.contains("line 4:") && m.contains("finite"), "{m}");
+    }
+
+    /// The good fixture with its `two_qubit = "cz"` line replaced by `gates`.
+    fn with_gates(gates: &str) -> String {
+        good_text().replace("two_qubit = \"cz\"\n", &format!("{gates}\n"))
+    }
+
+    #[test]
+    fn several_natives_per_coupler_and_custom_gates_round_trip() {
+        let text = with_gates(
+            "two_qubit = [\"ecr\", \"cp(pi/2)\"]\n[[gates.coupler]]\nqubits = [\"q4\", \"q1\"]\n\
+             two_qubit = [\"iswap\", \"rzz(-pi/4)\", \"half_swap\"]\n[[gates.custom]]\n\
+             name = \"half_swap\"\nunitary = [[1, 0, 0, 0], [0, [0.5, 0.5], [0.5, -0.5], 0], \
+             [0, [0.5, -0.5], [0.5, 0.5], 0], [0, 0, 0, 1]]",
+        );
+        let l = parse(&text).unwrap();
+        let half_swap = Gate::from_name("half_swap").unwrap();
+        assert_eq!(
+            l.gates.two_qubit,
+            vec![
+                Native2::fixed(Gate::Ecr),
+                Native2 { gate: Gate::Cp, angle: std::f64::consts::FRAC_PI_2 }
+            ]
+        );
+        assert_eq!(l.gates.custom, vec![half_swap]);
+        let c = l.coupler(1, 4).unwrap();
+        let own: Vec<Gate> = l.natives(c).iter().map(|n| n.gate).collect();
+        assert_eq!(own, vec![Gate::Iswap, Gate::Rzz, half_swap]);
+        assert_eq!(l.natives(l.coupler(0, 1).unwrap()), &l.gates.two_qubit[..]);
+        assert!(l.is_native_op(Gate::Cp, &[0, 1], std::f64::consts::FRAC_PI_2));
+        assert!(!l.is_native_op(Gate::Cp, &[0, 1], 0.3));
+        assert!(!l.is_native_op(Gate::Ecr, &[1, 4], 0.0));
+        // sqrt(SWAP) as written is symmetric under exchange of its operands.
+        assert!(half_swap.is_symmetric() && !Gate::Ecr.is_symmetric());
+        let back = parse(&to_toml(&l)).unwrap();
+        same(&l, &back);
+        assert_eq!(to_toml(&back), to_toml(&l));
+        // A simple layout still writes one name.
+        assert!(to_toml(&parse(&good_text()).unwrap()).contains("two_qubit = \"cz\"\n"));
+    }
+
+    #[test]
+    fn native_errors_name_the_line() {
+        let m = err(&with_gates("two_qubit = \"cp\""));
+        assert!(m.contains("line 19:") && m.contains("write it, like \"cp(pi/2)\""), "{m}");
+        let m = err(&with_gates("two_qubit = \"ecr(pi)\""));
+        assert!(m.contains("line 19:") && m.contains("gate 'ecr' takes no angle"), "{m}");
+        let m = err(&with_gates("two_qubit = [\"cz\", \"cz\"]"));
+        assert!(m.contains("line 19:") && m.contains("listed twice"), "{m}");
+        let m = err(&with_gates("two_qubit = \"rzz(pi/x)\""));
+        assert!(m.contains("line 19:") && m.contains("is not an angle"), "{m}");
+        let m = err(&with_gates("two_qubit = \"fsim\""));
+        assert!(
+            m.contains("line 19: unknown gate 'fsim'") && m.contains("[[gates.custom]]"),
+            "{m}"
+        );
+        let coupler = |pair: &str| {
+            with_gates(&format!(
+                "two_qubit = \"cz\"\n[[gates.coupler]]\nqubits = {pair}\ntwo_qubit = \"ecr\""
+            ))
+        };
+        let m = err(&coupler("[\"q0\", \"q5\"]"));
+        assert!(m.contains("line 21: [[gates.coupler]] q0-q5 is not a coupler"), "{m}");
+        let m = err(&coupler("[\"q0\", \"q9\"]"));
+        assert!(m.contains("line 21:") && m.contains("unknown qubit 'q9'"), "{m}");
+        let custom = |name: &str, last: &str| {
+            with_gates(&format!(
+                "two_qubit = \"cz\"\n[[gates.custom]]\nname = \"{name}\"\n\
+                 unitary = [[1, 0, 0, 0], [0, 1, 0, 0], [0, 0, 1, 0], {last}]"
+            ))
+        };
+        let m = err(&custom("cx", "[0, 0, 0, 1]"));
+        assert!(m.contains("line 21:") && m.contains("already a standard gate"), "{m}");
+        let m = err(&custom("near", "[0, 0, 0, 0.99]"));
+        assert!(m.contains("line 21:") && m.contains("not unitary"), "{m}");
+        let m = err(&custom("short", "[0, 0, 1]"));
+        assert!(m.contains("line 22:") && m.contains("4 rows of 4 entries"), "{m}");
+        // No list for some coupler and no default.
+        let m = err(&with_gates(""));
+        assert!(m.contains("needs `two_qubit`"), "{m}");
     }
 
     #[test]

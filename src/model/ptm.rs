@@ -112,7 +112,7 @@ pub fn gate_unitary(gate: Gate, angle: f64, reversed: bool) -> Option<CMat> {
     if let Some(m) = gate.unitary1(angle) {
         return Some(CMat::from_fn(2, 2, |r, col| m[r][col]));
     }
-    let m = gate.unitary2()?;
+    let m = gate.unitary2(angle)?;
     let swap = |i: usize| if reversed { ((i & 1) << 1) | (i >> 1) } else { i };
     Some(CMat::from_fn(4, 4, |r, col| m[swap(r)][swap(col)]))
 }

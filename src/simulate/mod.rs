@@ -447,7 +447,7 @@ fn block_populations(
                     let other = local(op.operands[1]).ok_or_else(|| {
                         Error::circuit(&c.id, format!("layer {t}: {} leaves its block", op.gate))
                     })?;
-                    st.apply2(&op.gate.unitary2().ok_or_else(|| bad(op))?, j);
+                    st.apply2(&op.gate.unitary2(op.angle).ok_or_else(|| bad(op))?, j);
                     if let Some(e) = noise.intrinsic(op.gate, op.qubits()) {
                         st.apply_error(&e, &[j, other]);
                     }

@@ -395,7 +395,10 @@ pub fn truth(layout: &Layout, noise: &Noise) -> Truth {
         .collect();
     one_q.sort_unstable();
     one_q.dedup();
-    let mut two_q: Vec<Gate> = std::iter::once(layout.gates.two_qubit)
+    let mut two_q: Vec<Gate> = layout
+        .all_natives()
+        .into_iter()
+        .map(|n| n.gate)
         .chain(noise.gates_with_errors().into_iter().filter(|g| g.arity() == 2))
         .collect();
     two_q.sort_unstable();
