@@ -961,12 +961,11 @@ pub fn hints(report: &AuditReport, path: &Path, level: FlagLevel, budget: u64) -
     conflicts.add_gate_pairs(&layout, &gate_pairs);
     let with_conflicts = parallelism(&layout, &conflicts, true, budget);
     let without_conflicts = parallelism(&layout, &conflicts, false, budget);
-    let two_qubit_gate = report
-        .gates
-        .pairs
-        .iter()
-        .find_map(|e| e.a_gate.clone())
-        .unwrap_or_else(|| layout.gates.two_qubit.to_string());
+    let two_qubit_gate =
+        report.gates.pairs.iter().find_map(|e| e.a_gate.clone()).unwrap_or_else(|| {
+            let names: Vec<String> = layout.all_natives().iter().map(ToString::to_string).collect();
+            names.join("/")
+        });
     Ok(Hints {
         layout,
         flagged,

@@ -477,7 +477,7 @@ fn gate_report(
     pairs.sort_by_key(|&(u, v)| (key(u), key(v)));
     pairs.dedup();
     let gate_name = |u: Unit| match u {
-        Unit::Coupler(_) => Some(layout.gates.two_qubit.to_string()),
+        Unit::Coupler(c) => Some(layout.natives_text(c)),
         Unit::Qubit(_) => None,
     };
     let mut out: Vec<GatePairReport> = pairs

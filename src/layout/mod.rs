@@ -417,6 +417,12 @@ impl Layout {
             || self.coupler_natives.iter().flatten().any(|n| n.gate == g)
     }
 
+    /// The two-qubit natives of coupler `coupler` as written in reports: "cz", "cz/iswap".
+    pub fn natives_text(&self, coupler: usize) -> String {
+        let names: Vec<String> = self.natives(coupler).iter().map(ToString::to_string).collect();
+        names.join("/")
+    }
+
     /// The two-qubit natives of a coupler (by coupler index), never empty.
     pub fn natives(&self, coupler: usize) -> &[Native2] {
         &self.coupler_natives[coupler]
