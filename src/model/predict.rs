@@ -45,7 +45,7 @@ struct Seg {
 }
 
 /// The parts of a row that do not depend on its counts.
-#[derive(Debug)]
+#[derive(Clone, Debug)]
 struct Compiled {
     n_slots: usize,
     readout: Vec<QubitIx>,
@@ -68,7 +68,7 @@ struct Compiled {
 
 /// One Pauli component of the initial state followed through a Clifford row: it ends as
 /// `coef` times Pauli `out` times the product of the eigenvalues it met on the way.
-#[derive(Debug)]
+#[derive(Clone, Debug)]
 struct PauliPath {
     coef: f64,
     out: usize,
@@ -193,6 +193,39 @@ fn times(pending: Option<Ptm>, step: &Ptm) -> Option<Ptm> {
 impl PreparedRow {
     /// Validates `row` against `spec` and compiles it.
     pub fn new(row: &Row, spec: &ModelSpec) -> Result<PreparedRow> {
+        let arity = |k: KindIx| spec.kind_arity.get(k).copied();
+        Self::compile(row, spec.family, spec.n_qubits, spec.kind_arity.len(), &arity)
+    }
+
+    /// [`PreparedRow::new`] for a row whose kinds index a list other than the model's (the
+    /// kinds of one circuit while its rows are built): `arity(k)` is kind k's arity, `None`
+    /// past the `n_kinds` kinds of that list. [`PreparedRow::relabel_kinds`] then renumbers
+    /// them into the model's table.
+    pub fn with_kinds(
+        row: &Row,
+        family: Family,
+        n_qubits: usize,
+        n_kinds: usize,
+        arity: &dyn Fn(KindIx) -> Option<usize>,
+    ) -> Result<PreparedRow> {
+        Self::compile(row, family, n_qubits, n_kinds, arity)
+    }
+
+    /// Renumbers the row's kinds: kind k becomes `map(k)`.
+    pub fn relabel_kinds(&mut self, map: &dyn Fn(KindIx) -> KindIx) {
+        let compiled = Arc::make_mut(&mut self.compiled);
+        for k in &mut compiled.kinds {
+            *k = map(*k);
+        }
+    }
+
+    fn compile(
+        row: &Row,
+        family: Family,
+        n_qubits: usize,
+        n_kinds: usize,
+        arity: &dyn Fn(KindIx) -> Option<usize>,
+    ) -> Result<PreparedRow> {
         let n = row.readout.len();
         let bad = |m: String| Err(Error::Analysis(format!("row program: {m}")));
         if n == 0 || n > 2 {
@@ -201,8 +234,8 @@ impl PreparedRow {
         if n == 2 && row.readout[0] == row.readout[1] {
             return bad(format!("both slots read out qubit {}", row.readout[0]));
         }
-        if let Some(&q) = row.readout.iter().find(|&&q| q >= spec.n_qubits) {
-            return bad(format!("readout qubit {q} is outside the {} qubits", spec.n_qubits));
+        if let Some(&q) = row.readout.iter().find(|&&q| q >= n_qubits) {
+            return bad(format!("readout qubit {q} is outside the {n_qubits} qubits"));
         }
         if row.counts.len() != 1 << n {
             return bad(format!(
@@ -211,15 +244,15 @@ impl PreparedRow {
                 row.counts.len()
             ));
         }
+        let kind_arity = arity;
         let check_kind = |k: KindIx, arity: usize| -> Result<()> {
-            match spec.kind_arity.get(k) {
-                Some(&a) if a == arity => Ok(()),
-                Some(&a) => Err(Error::Analysis(format!(
+            match kind_arity(k) {
+                Some(a) if a == arity => Ok(()),
+                Some(a) => Err(Error::Analysis(format!(
                     "row program: kind {k} acts on {a} qubit(s) but is used on {arity}"
                 ))),
                 None => Err(Error::Analysis(format!(
-                    "row program: kind {k} is not in the table of {} kinds",
-                    spec.kind_arity.len()
+                    "row program: kind {k} is not in the table of {n_kinds} kinds"
                 ))),
             }
         };
@@ -310,7 +343,7 @@ impl PreparedRow {
         let paths = pauli_paths(&r0, &segs, &layers);
         // Pauli channels never need the transfer matrices once the paths are known.
         let keep_matrices =
-            paths.is_none() || !matches!(spec.family, Family::Depolarizing | Family::Pauli);
+            paths.is_none() || !matches!(family, Family::Depolarizing | Family::Pauli);
         let (s0, segs) = if keep_matrices {
             let product = |ls: &[Ptm]| ls.iter().fold(None, times);
             let s0 = product(&layers[0]).map_or_else(|| r0.clone(), |m| m * &r0);
