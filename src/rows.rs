@@ -235,15 +235,7 @@ pub fn build_with<T: Send>(
     program: &Program<'_, T>,
     relabel: &(dyn Fn(&mut T, &[KindIx]) + Sync),
 ) -> Result<(Rows, Vec<T>)> {
-    if let Some(c) = counts {
-        if c.per_circuit.len() != set.len() {
-            return Err(Error::Analysis(format!(
-                "counts cover {} circuits but the set has {}",
-                c.per_circuit.len(),
-                set.len()
-            )));
-        }
-    }
+    check_aligned(set, counts)?;
     type PerCircuit<T> = (Vec<OpKind>, Vec<Row>, Vec<T>);
     let per_circuit: Vec<PerCircuit<T>> = set
         .circuits
@@ -279,11 +271,14 @@ pub fn build_with<T: Send>(
 /// Visits the rows of every circuit without keeping them: `visit` gets one circuit's rows,
 /// with kind indices into that circuit's own kind list (the second argument), and its
 /// results come back in circuit order. Memory stays that of a few circuits' rows.
+/// `counts`, when given, must be aligned with the set; rows get no marginal counts here.
 pub fn scan<T: Send>(
     layout: &Layout,
     set: &CircuitSet,
+    counts: Option<&Counts>,
     visit: &(dyn Fn(&[Row], &[OpKind]) -> T + Sync),
 ) -> Result<Vec<T>> {
+    check_aligned(set, counts)?;
     set.circuits
         .par_iter()
         .enumerate()
@@ -292,6 +287,17 @@ pub fn scan<T: Send>(
             Ok(visit(&rows, &local))
         })
         .collect()
+}
+
+fn check_aligned(set: &CircuitSet, counts: Option<&Counts>) -> Result<()> {
+    match counts {
+        Some(c) if c.per_circuit.len() != set.len() => Err(Error::Analysis(format!(
+            "counts cover {} circuits but the set has {}",
+            c.per_circuit.len(),
+            set.len()
+        ))),
+        _ => Ok(()),
+    }
 }
 
 fn remap(row: &mut Row, map: &[KindIx]) {
