@@ -290,6 +290,16 @@ fn fit_model(
     start: Option<&Params>,
 ) -> Result<Fitted> {
     let options = FitOptions::default();
+    // One default start for every qubit and coupler fit (each would otherwise build it for
+    // every kind of the chip: quadratic in its size).
+    let initial;
+    let start = match start {
+        Some(p) => p,
+        None => {
+            initial = Params::initial(spec)?;
+            &initial
+        }
+    };
     let select = |list: &[usize]| -> (Vec<PreparedRow>, bool) {
         let reference: Vec<PreparedRow> = list
             .iter()
@@ -306,13 +316,10 @@ fn fit_model(
     let qubit_fits = fit_each(
         qubit_rows,
         &select,
-        &|sel| model::fit_qubit(sel, spec, start, &options),
+        &|sel| model::fit_qubit(sel, spec, Some(start), &options),
         progress,
     )?;
-    let mut params = match start {
-        Some(p) => p.clone(),
-        None => Params::initial(spec)?,
-    };
+    let mut params = start.clone();
     for (q, (fit, all)) in qubit_fits.iter().enumerate() {
         let Some(fit) = fit else { continue };
         params.readout[q] = fit.params.readout[q];
@@ -325,7 +332,7 @@ fn fit_model(
     let coupler_fits = fit_each(
         coupler_rows,
         &select,
-        &|sel| model::fit_coupler(sel, spec, &params, start, &options),
+        &|sel| model::fit_coupler(sel, spec, &params, Some(start), &options),
         progress,
     )?;
     for (c, (fit, all)) in coupler_fits.iter().enumerate() {
