@@ -679,6 +679,29 @@ mod tests {
     }
 
     #[test]
+    fn repeated_contexts_are_kept_once_and_counted_in_full() {
+        let l = grid(2, 3);
+        // q0 runs sx four times: twice beside an active q1, twice alone.
+        let c = Circuit {
+            id: "rep".into(),
+            layers: vec![
+                vec![Op::one(Gate::Sx, 0), Op::one(Gate::X, 1)],
+                vec![Op::one(Gate::Sx, 0)],
+                vec![Op::one(Gate::Sx, 0), Op::one(Gate::X, 1)],
+                vec![Op::one(Gate::Sx, 0)],
+            ],
+            measured: vec![0],
+        };
+        let rows = build(&l, &set(vec![c]), None).unwrap();
+        let r = &rows.rows[0];
+        let sx0 = kind(&rows, &l, "sx@q0");
+        assert_eq!(r.occurrences.iter().map(|o| o.layer).collect::<Vec<_>>(), vec![0, 1]);
+        assert_eq!(r.aggressors(&r.occurrences[0]), &[1]);
+        assert!(r.aggressors(&r.occurrences[1]).is_empty());
+        assert_eq!((r.count(sx0), r.context_count(sx0, 1)), (4, 2));
+    }
+
+    #[test]
     fn blocks_larger_than_two_are_errors_and_order_is_deterministic() {
         let l = grid(2, 3);
         let bad = Circuit {
