@@ -267,6 +267,30 @@ struct Stream<'a> {
 use serde::de::{self, DeserializeSeed, MapAccess, SeqAccess, Visitor};
 use std::fmt;
 
+/// A seed that is its own visitor: the `DeserializeSeed` half calls deserializer method
+/// `$call` (with `$arg`s before the visitor), and the visitor expects `$what`; the visit
+/// methods follow.
+macro_rules! seed {
+    (<$de:lifetime> $ty:ty => $value:ty, $call:ident($($arg:expr),*), $what:literal; $($visit:tt)*) => {
+        impl<$de> DeserializeSeed<$de> for $ty {
+            type Value = $value;
+            fn deserialize<D: de::Deserializer<$de>>(
+                self,
+                d: D,
+            ) -> std::result::Result<$value, D::Error> {
+                d.$call($($arg,)* self)
+            }
+        }
+        impl<$de> Visitor<$de> for $ty {
+            type Value = $value;
+            fn expecting(&self, f: &mut fmt::Formatter) -> fmt::Result {
+                f.write_str($what)
+            }
+            $($visit)*
+        }
+    };
+}
+
 /// A struct field name among `fields`, as its position (unknown names are errors, as the
 /// wire types' `deny_unknown_fields` makes them).
 struct Field(&'static [&'static str]);
@@ -302,21 +326,8 @@ fn once<T, E: de::Error>(slot: &Option<T>, name: &'static str) -> std::result::R
 
 struct FileSeed<'s, 'a>(&'s Stream<'a>);
 
-impl<'de> DeserializeSeed<'de> for FileSeed<'_, '_> {
-    type Value = (u32, Vec<Circuit>);
-    fn deserialize<D: de::Deserializer<'de>>(
-        self,
-        d: D,
-    ) -> std::result::Result<Self::Value, D::Error> {
-        d.deserialize_struct("FileWire", FILE_FIELDS, self)
-    }
-}
-
-impl<'de> Visitor<'de> for FileSeed<'_, '_> {
-    type Value = (u32, Vec<Circuit>);
-    fn expecting(&self, f: &mut fmt::Formatter) -> fmt::Result {
-        f.write_str("struct FileWire")
-    }
+seed! {
+    <'de> FileSeed<'_, '_> => (u32, Vec<Circuit>), deserialize_struct("FileWire", FILE_FIELDS), "struct FileWire";
     fn visit_map<A: MapAccess<'de>>(
         self,
         mut map: A,
@@ -339,21 +350,8 @@ impl<'de> Visitor<'de> for FileSeed<'_, '_> {
 
 struct CircuitsSeed<'s, 'a>(&'s Stream<'a>);
 
-impl<'de> DeserializeSeed<'de> for CircuitsSeed<'_, '_> {
-    type Value = Vec<Circuit>;
-    fn deserialize<D: de::Deserializer<'de>>(
-        self,
-        d: D,
-    ) -> std::result::Result<Self::Value, D::Error> {
-        d.deserialize_seq(self)
-    }
-}
-
-impl<'de> Visitor<'de> for CircuitsSeed<'_, '_> {
-    type Value = Vec<Circuit>;
-    fn expecting(&self, f: &mut fmt::Formatter) -> fmt::Result {
-        f.write_str("a sequence")
-    }
+seed! {
+    <'de> CircuitsSeed<'_, '_> => Vec<Circuit>, deserialize_seq(), "a sequence";
     fn visit_seq<A: SeqAccess<'de>>(
         self,
         mut seq: A,
@@ -368,18 +366,8 @@ impl<'de> Visitor<'de> for CircuitsSeed<'_, '_> {
 
 struct CircuitSeed<'s, 'a>(&'s Stream<'a>);
 
-impl<'de> DeserializeSeed<'de> for CircuitSeed<'_, '_> {
-    type Value = Circuit;
-    fn deserialize<D: de::Deserializer<'de>>(self, d: D) -> std::result::Result<Circuit, D::Error> {
-        d.deserialize_struct("CircuitWire", CIRCUIT_FIELDS, self)
-    }
-}
-
-impl<'de> Visitor<'de> for CircuitSeed<'_, '_> {
-    type Value = Circuit;
-    fn expecting(&self, f: &mut fmt::Formatter) -> fmt::Result {
-        f.write_str("struct CircuitWire")
-    }
+seed! {
+    <'de> CircuitSeed<'_, '_> => Circuit, deserialize_struct("CircuitWire", CIRCUIT_FIELDS), "struct CircuitWire";
     fn visit_map<A: MapAccess<'de>>(self, mut map: A) -> std::result::Result<Circuit, A::Error> {
         let layout = self.0.layout;
         let (mut id, mut measured, mut layers) = (None, None, None);
@@ -427,21 +415,8 @@ struct QubitsRead {
 /// Reads a list of qubit ids; `.1` keeps every id, not only the first two.
 struct QubitsSeed<'a>(&'a Layout, bool);
 
-impl<'de> DeserializeSeed<'de> for QubitsSeed<'_> {
-    type Value = QubitsRead;
-    fn deserialize<D: de::Deserializer<'de>>(
-        self,
-        d: D,
-    ) -> std::result::Result<QubitsRead, D::Error> {
-        d.deserialize_seq(self)
-    }
-}
-
-impl<'de> Visitor<'de> for QubitsSeed<'_> {
-    type Value = QubitsRead;
-    fn expecting(&self, f: &mut fmt::Formatter) -> fmt::Result {
-        f.write_str("a sequence")
-    }
+seed! {
+    <'de> QubitsSeed<'_> => QubitsRead, deserialize_seq(), "a sequence";
     fn visit_seq<A: SeqAccess<'de>>(self, mut seq: A) -> std::result::Result<QubitsRead, A::Error> {
         let mut out = QubitsRead { qubits: Vec::new(), first: [0; 2], n: 0, unknown: None };
         while let Some(q) = seq.next_element_seed(QubitSeed(self.0))? {
@@ -462,21 +437,8 @@ impl<'de> Visitor<'de> for QubitsSeed<'_> {
 /// One qubit id, looked up in place; the id itself is kept only when the layout lacks it.
 struct QubitSeed<'a>(&'a Layout);
 
-impl<'de> DeserializeSeed<'de> for QubitSeed<'_> {
-    type Value = std::result::Result<crate::layout::QubitIx, String>;
-    fn deserialize<D: de::Deserializer<'de>>(
-        self,
-        d: D,
-    ) -> std::result::Result<Self::Value, D::Error> {
-        d.deserialize_str(self)
-    }
-}
-
-impl<'de> Visitor<'de> for QubitSeed<'_> {
-    type Value = std::result::Result<crate::layout::QubitIx, String>;
-    fn expecting(&self, f: &mut fmt::Formatter) -> fmt::Result {
-        f.write_str("a string")
-    }
+seed! {
+    <'de> QubitSeed<'_> => std::result::Result<crate::layout::QubitIx, String>, deserialize_str(), "a string";
     fn visit_str<E: de::Error>(self, v: &str) -> std::result::Result<Self::Value, E> {
         Ok(self.0.qubit(v).ok_or_else(|| v.to_string()))
     }
@@ -485,21 +447,8 @@ impl<'de> Visitor<'de> for QubitSeed<'_> {
 /// A gate name, looked up in place; kept only when unknown.
 struct GateSeed;
 
-impl<'de> DeserializeSeed<'de> for GateSeed {
-    type Value = std::result::Result<Gate, String>;
-    fn deserialize<D: de::Deserializer<'de>>(
-        self,
-        d: D,
-    ) -> std::result::Result<Self::Value, D::Error> {
-        d.deserialize_str(self)
-    }
-}
-
-impl<'de> Visitor<'de> for GateSeed {
-    type Value = std::result::Result<Gate, String>;
-    fn expecting(&self, f: &mut fmt::Formatter) -> fmt::Result {
-        f.write_str("a string")
-    }
+seed! {
+    <'de> GateSeed => std::result::Result<Gate, String>, deserialize_str(), "a string";
     fn visit_str<E: de::Error>(self, v: &str) -> std::result::Result<Self::Value, E> {
         Ok(Gate::from_name(v).ok_or_else(|| v.to_string()))
     }
@@ -508,21 +457,8 @@ impl<'de> Visitor<'de> for GateSeed {
 /// The layers of a circuit, and the first operation fault in them.
 struct LayersSeed<'a>(&'a Layout);
 
-impl<'de> DeserializeSeed<'de> for LayersSeed<'_> {
-    type Value = (Vec<super::Layer>, Option<Fault>);
-    fn deserialize<D: de::Deserializer<'de>>(
-        self,
-        d: D,
-    ) -> std::result::Result<Self::Value, D::Error> {
-        d.deserialize_seq(self)
-    }
-}
-
-impl<'de> Visitor<'de> for LayersSeed<'_> {
-    type Value = (Vec<super::Layer>, Option<Fault>);
-    fn expecting(&self, f: &mut fmt::Formatter) -> fmt::Result {
-        f.write_str("a sequence")
-    }
+seed! {
+    <'de> LayersSeed<'_> => (Vec<super::Layer>, Option<Fault>), deserialize_seq(), "a sequence";
     fn visit_seq<A: SeqAccess<'de>>(
         self,
         mut seq: A,
@@ -542,21 +478,8 @@ impl<'de> Visitor<'de> for LayersSeed<'_> {
 /// still empty.
 struct LayerSeed<'a, 'f>(&'a Layout, usize, &'f mut Option<Fault>);
 
-impl<'de> DeserializeSeed<'de> for LayerSeed<'_, '_> {
-    type Value = super::Layer;
-    fn deserialize<D: de::Deserializer<'de>>(
-        self,
-        d: D,
-    ) -> std::result::Result<Self::Value, D::Error> {
-        d.deserialize_seq(self)
-    }
-}
-
-impl<'de> Visitor<'de> for LayerSeed<'_, '_> {
-    type Value = super::Layer;
-    fn expecting(&self, f: &mut fmt::Formatter) -> fmt::Result {
-        f.write_str("a sequence")
-    }
+seed! {
+    <'de> LayerSeed<'_, '_> => super::Layer, deserialize_seq(), "a sequence";
     fn visit_seq<A: SeqAccess<'de>>(
         self,
         mut seq: A,
@@ -577,18 +500,8 @@ impl<'de> Visitor<'de> for LayerSeed<'_, '_> {
 
 struct OpSeed<'a>(&'a Layout);
 
-impl<'de> DeserializeSeed<'de> for OpSeed<'_> {
-    type Value = OpRead;
-    fn deserialize<D: de::Deserializer<'de>>(self, d: D) -> std::result::Result<OpRead, D::Error> {
-        d.deserialize_struct("OpWire", OP_FIELDS, self)
-    }
-}
-
-impl<'de> Visitor<'de> for OpSeed<'_> {
-    type Value = OpRead;
-    fn expecting(&self, f: &mut fmt::Formatter) -> fmt::Result {
-        f.write_str("struct OpWire")
-    }
+seed! {
+    <'de> OpSeed<'_> => OpRead, deserialize_struct("OpWire", OP_FIELDS), "struct OpWire";
     fn visit_map<A: MapAccess<'de>>(self, mut map: A) -> std::result::Result<OpRead, A::Error> {
         let (mut gate, mut params, mut qubits) = (None, None, None);
         while let Some(field) = map.next_key_seed(Field(OP_FIELDS))? {

@@ -232,21 +232,7 @@ impl PreparedRow {
     /// Validates `row` against `spec` and compiles it.
     pub fn new(row: &Row, spec: &ModelSpec) -> Result<PreparedRow> {
         let arity = |k: KindIx| spec.kind_arity.get(k).copied();
-        Self::compile(row, spec.family, spec.n_qubits, spec.kind_arity.len(), &arity)
-    }
-
-    /// [`PreparedRow::new`] for a row whose kinds index a list other than the model's (the
-    /// kinds of one circuit while its rows are built): `arity(k)` is kind k's arity, `None`
-    /// past the `n_kinds` kinds of that list. [`PreparedRow::relabel_kinds`] then renumbers
-    /// them into the model's table.
-    pub fn with_kinds(
-        row: &Row,
-        family: Family,
-        n_qubits: usize,
-        n_kinds: usize,
-        arity: &dyn Fn(KindIx) -> Option<usize>,
-    ) -> Result<PreparedRow> {
-        Self::compile(row, family, n_qubits, n_kinds, arity)
+        Self::with_kinds(row, spec.family, spec.n_qubits, spec.kind_arity.len(), &arity)
     }
 
     /// Renumbers the row's kinds: kind k becomes `map(k)`.
@@ -257,7 +243,11 @@ impl PreparedRow {
         }
     }
 
-    fn compile(
+    /// [`PreparedRow::new`] for a row whose kinds index a list other than the model's (the
+    /// kinds of one circuit while its rows are built): `arity(k)` is kind k's arity, `None`
+    /// past the `n_kinds` kinds of that list. [`PreparedRow::relabel_kinds`] then renumbers
+    /// them into the model's table.
+    pub fn with_kinds(
         row: &Row,
         family: Family,
         n_qubits: usize,
