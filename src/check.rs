@@ -128,7 +128,7 @@ impl Coverage {
         match r.block.as_slice() {
             [q] => {
                 self.blocks_1q += 1;
-                if r.is_reference && !r.occurrences.is_empty() {
+                if r.is_reference && !r.kind_counts.is_empty() {
                     self.ref_qubits.insert(*q);
                 }
             }

@@ -148,8 +148,8 @@ pub struct VictimRole {
     pub active_neighbours: Vec<QubitIx>,
 }
 
-/// One row of the analysis: a block of one circuit, kept as the aggregates later stages
-/// read (the block's program is handed to [`build_with`]'s callback once and not stored).
+/// One row of the analysis: a block of one circuit, kept as what later stages read (the
+/// block's program is handed to [`build_with`]'s callback once and not stored).
 ///
 /// Invariants: `block` is sorted and has one or two qubits, all measured; `positions[j]`
 /// is the position of `block[j]` in the circuit's measured list; `kind_counts` and
@@ -163,9 +163,8 @@ pub struct Row {
     pub block: Vec<QubitIx>,
     /// Positions of the block qubits in the circuit's measured list.
     pub positions: Vec<usize>,
-    /// Distinct occurrences: the first occurrence of each (kind, aggressor set) pair, in
-    /// time order. How often each kind occurred is in `kind_counts` and `context_counts`;
-    /// a row of a long sequence repeats a handful of contexts many times.
+    /// The occurrences that had an active neighbour, in time order (a reference row has
+    /// none). Every occurrence, with or without one, is counted in `kind_counts`.
     pub occurrences: Vec<Occurrence>,
     aggressor_pool: Vec<QubitIx>,
     /// Occurrences per kind.
@@ -461,11 +460,7 @@ fn circuit_rows(
                 any_context |= !agg.is_empty();
                 contexts_seen.extend(agg.iter().map(|&r| (k, r)));
                 kinds_seen.push(k);
-                let seen = occurrences.iter().any(|o| {
-                    let s = o.agg_start as usize;
-                    o.kind == k && pool[s..s + o.agg_len as usize] == agg[..]
-                });
-                if !seen {
+                if !agg.is_empty() {
                     occurrences.push(Occurrence {
                         kind: k,
                         layer: t as u32,
@@ -562,12 +557,12 @@ mod tests {
         assert_eq!((r4.block.clone(), r4.positions.clone()), (vec![4], vec![0]));
         assert_eq!((r0.block.clone(), r0.positions.clone()), (vec![0], vec![1]));
         let (sx0, id0) = (kind(&rows, &l, "sx@q0"), kind(&rows, &l, "id@q0"));
-        // Layer 1 holds only a virtual rz: no occurrence there, no idle of q0 or q4.
-        assert_eq!(r0.occurrences.len(), 3);
-        assert_eq!(r0.occurrences.iter().map(|o| o.layer).collect::<Vec<_>>(), vec![0, 2, 3]);
+        // Layer 1 holds only a virtual rz: no occurrence there, no idle of q0 or q4. The sx
+        // of layer 2 has no active neighbour, so only layers 0 and 3 are listed.
+        assert_eq!(r0.occurrences.iter().map(|o| o.layer).collect::<Vec<_>>(), vec![0, 3]);
         assert_eq!(r0.aggressors(&r0.occurrences[0]), &[1]);
-        assert!(r0.aggressors(&r0.occurrences[1]).is_empty());
-        assert_eq!(r0.aggressors(&r0.occurrences[2]), &[1], "cz on q1-q2 is active on q1");
+        assert_eq!(r0.aggressors(&r0.occurrences[1]), &[1], "cz on q1-q2 is active on q1");
+        assert_eq!(s0.iter().filter(|s| s.kind.is_some()).count(), 3);
         assert_eq!((r0.count(sx0), r0.count(id0)), (2, 1));
         assert_eq!((r0.context_count(sx0, 1), r0.context_count(id0, 1)), (1, 1));
         assert_eq!(r0.context_count(sx0, 3), 0);
@@ -606,8 +601,9 @@ mod tests {
         let (rows, steps) = with_steps(&l, &set(vec![reference, frames]), None);
         let r = &rows.rows[0];
         assert!(r.is_reference, "q5 is not a neighbour of q0, rz is virtual");
-        assert_eq!(r.occurrences.len(), 2);
-        assert_eq!(rows.kinds.get(r.occurrences[1].kind).label(&l), "id@q0");
+        assert!(r.occurrences.is_empty(), "no occurrence has an active neighbour");
+        assert_eq!(r.count(kind(&rows, &l, "id@q0")), 1);
+        assert_eq!(r.kind_counts.len(), 2);
         for (r, s) in rows.rows[1..].iter().zip(&steps[1..]) {
             assert!(r.occurrences.is_empty() && r.context_counts.is_empty() && r.is_reference);
             assert_eq!(r.n_timed_layers, 0);
@@ -646,7 +642,8 @@ mod tests {
         let cz = kind(&rows, &l, "cz@q0-q1");
         assert_eq!(OpKind::new(Gate::Cz, &[1, 0]), OpKind::new(Gate::Cz, &[0, 1]));
         assert_eq!(r.count(cz), 1);
-        assert!(r.aggressors(&r.occurrences[0]).is_empty());
+        assert_eq!(r.occurrences.len(), 1, "only sx@q1 beside x@q4 has a context");
+        assert_eq!(r.aggressors(&r.occurrences[0]), &[4]);
         let (sx0, sx1) = (kind(&rows, &l, "sx@q0"), kind(&rows, &l, "sx@q1"));
         assert_eq!(r.context_count(sx0, 1), 0, "the block partner is no aggressor");
         assert_eq!((r.context_count(sx1, 0), r.context_count(sx1, 4)), (0, 1));
@@ -675,11 +672,12 @@ mod tests {
         assert!(r.is_reference);
         assert_eq!(r.count(kind(&rows, &l, "id@q3")), 1);
         assert_eq!(r.count(kind(&rows, &l, "id@q0")), 1);
-        assert_eq!(r.occurrences.len(), 5);
+        assert!(r.occurrences.is_empty());
+        assert_eq!(r.kind_counts.iter().map(|e| e.1).sum::<u32>(), 5);
     }
 
     #[test]
-    fn repeated_contexts_are_kept_once_and_counted_in_full() {
+    fn only_occurrences_beside_an_active_neighbour_are_listed() {
         let l = grid(2, 3);
         // q0 runs sx four times: twice beside an active q1, twice alone.
         let c = Circuit {
@@ -695,9 +693,8 @@ mod tests {
         let rows = build(&l, &set(vec![c]), None).unwrap();
         let r = &rows.rows[0];
         let sx0 = kind(&rows, &l, "sx@q0");
-        assert_eq!(r.occurrences.iter().map(|o| o.layer).collect::<Vec<_>>(), vec![0, 1]);
-        assert_eq!(r.aggressors(&r.occurrences[0]), &[1]);
-        assert!(r.aggressors(&r.occurrences[1]).is_empty());
+        assert_eq!(r.occurrences.iter().map(|o| o.layer).collect::<Vec<_>>(), vec![0, 2]);
+        assert!(r.occurrences.iter().all(|o| r.aggressors(o) == [1] && o.kind == sx0));
         assert_eq!((r.count(sx0), r.context_count(sx0, 1)), (4, 2));
     }
 
