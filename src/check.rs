@@ -12,7 +12,7 @@ use crate::counts::agreement::{self, Agreement};
 use crate::counts::Counts;
 use crate::error::{Result, Warning};
 use crate::layout::{Layout, QubitIx};
-use crate::rows::{self, Rows};
+use crate::rows::{self, KindIx, OpKind, Row, Rows};
 
 /// Smallest, median and largest of a list of values (the lower median for even lengths).
 #[derive(Copy, Clone, Debug, PartialEq, Eq)]
@@ -73,14 +73,26 @@ pub struct CheckSummary {
 /// Fewer shots than this in a circuit make a row's requirement mostly shot noise.
 const FEW_SHOTS: u64 = 100;
 
-/// Summarises a validated circuit set (and its counts, aligned with the set).
+/// Summarises a validated circuit set (and its counts, aligned with the set). The rows are
+/// visited a circuit at a time and only their coverage is kept, so memory stays that of the
+/// inputs whatever the chip's size.
 pub fn summarise(
     layout: &Layout,
     set: &CircuitSet,
     counts: Option<&Counts>,
 ) -> Result<CheckSummary> {
-    let rows = rows::build(layout, set, counts)?;
-    Ok(summarise_rows(layout, set, counts, &rows))
+    let per_circuit = rows::scan(layout, set, counts, &|rows, kinds| {
+        let mut c = Coverage::default();
+        for r in rows {
+            c.add(r, &|k| kinds[k as usize]);
+        }
+        c
+    })?;
+    let mut coverage = Coverage::default();
+    for c in per_circuit {
+        coverage.merge(c);
+    }
+    Ok(summary(layout, set, counts, coverage))
 }
 
 /// Like [`summarise`], for rows already built from the same inputs.
@@ -90,35 +102,85 @@ pub fn summarise_rows(
     counts: Option<&Counts>,
     rows: &Rows,
 ) -> CheckSummary {
-    let id = |q: QubitIx| layout.id(q);
-    let mut ref_qubits = BTreeSet::new();
-    let mut ref_couplers = BTreeSet::new();
-    let mut seen_pairs = BTreeSet::new();
-    let (mut blocks_1q, mut blocks_2q) = (0, 0);
+    let mut coverage = Coverage::default();
     for r in &rows.rows {
+        coverage.add(r, &|k| rows.kinds.get(k));
+    }
+    summary(layout, set, counts, coverage)
+}
+
+/// What rows cover: blocks, reference rows per qubit, coupler and operation kind, and the
+/// directed pairs seen as a context.
+#[derive(Default)]
+struct Coverage {
+    blocks_1q: usize,
+    blocks_2q: usize,
+    ref_qubits: BTreeSet<QubitIx>,
+    ref_couplers: BTreeSet<(QubitIx, QubitIx)>,
+    seen_pairs: BTreeSet<(QubitIx, QubitIx)>,
+    kinds: BTreeSet<OpKind>,
+    kinds_with_reference: BTreeSet<OpKind>,
+}
+
+impl Coverage {
+    /// Counts one row; `kind` names its kind indices.
+    fn add(&mut self, r: &Row, kind: &dyn Fn(KindIx) -> OpKind) {
         match r.block.as_slice() {
             [q] => {
-                blocks_1q += 1;
-                if r.is_reference && !r.occurrences.is_empty() {
-                    ref_qubits.insert(*q);
+                self.blocks_1q += 1;
+                if r.is_reference && !r.kind_counts.is_empty() {
+                    self.ref_qubits.insert(*q);
                 }
             }
             [a, b] => {
-                blocks_2q += 1;
-                let two_qubit_gate =
-                    r.kind_counts.iter().any(|&(k, _)| rows.kinds.get(k).gate.arity() == 2);
+                self.blocks_2q += 1;
+                let two_qubit_gate = r.kind_counts.iter().any(|&(k, _)| kind(k).gate.arity() == 2);
                 if r.is_reference && two_qubit_gate {
-                    ref_couplers.insert((*a.min(b), *a.max(b)));
+                    self.ref_couplers.insert((*a.min(b), *a.max(b)));
                 }
             }
             _ => {}
         }
         for &((k, agg), _) in &r.context_counts {
-            for &v in rows.kinds.get(k).qubits() {
-                seen_pairs.insert((v, agg));
+            for &v in kind(k).qubits() {
+                self.seen_pairs.insert((v, agg));
+            }
+        }
+        for &(k, _) in &r.kind_counts {
+            self.kinds.insert(kind(k));
+            if r.is_reference {
+                self.kinds_with_reference.insert(kind(k));
             }
         }
     }
+
+    fn merge(&mut self, other: Coverage) {
+        self.blocks_1q += other.blocks_1q;
+        self.blocks_2q += other.blocks_2q;
+        self.ref_qubits.extend(other.ref_qubits);
+        self.ref_couplers.extend(other.ref_couplers);
+        self.seen_pairs.extend(other.seen_pairs);
+        self.kinds.extend(other.kinds);
+        self.kinds_with_reference.extend(other.kinds_with_reference);
+    }
+}
+
+fn summary(
+    layout: &Layout,
+    set: &CircuitSet,
+    counts: Option<&Counts>,
+    coverage: Coverage,
+) -> CheckSummary {
+    let id = |q: QubitIx| layout.id(q);
+    let Coverage {
+        blocks_1q,
+        blocks_2q,
+        ref_qubits,
+        ref_couplers,
+        seen_pairs,
+        kinds,
+        kinds_with_reference,
+    } = coverage;
     let mut warnings = BTreeSet::new();
     let qubits_without_reference: Vec<QubitIx> =
         (0..layout.n_qubits()).filter(|q| !ref_qubits.contains(q)).collect();
@@ -153,15 +215,12 @@ pub fn summarise_rows(
             }
         }
     }
-    for k in rows.kinds.kinds() {
-        let kix = rows.kinds.find(k).unwrap_or_default();
-        if !rows.rows.iter().any(|r| r.is_reference && r.count(kix) > 0) {
-            warnings.insert(Warning::new(
-                "kind-without-reference",
-                format!("operation {} occurs only with an active neighbour", k.label(layout)),
-                "its crosstalk-free rate will be fitted on context rows, so its context slack is a lower bound",
-            ));
-        }
+    for k in kinds.difference(&kinds_with_reference) {
+        warnings.insert(Warning::new(
+            "kind-without-reference",
+            format!("operation {} occurs only with an active neighbour", k.label(layout)),
+            "its crosstalk-free rate will be fitted on context rows, so its context slack is a lower bound",
+        ));
     }
     let agreement = counts.map(|c| agreement::agreement(layout, set, c));
     warnings.extend(agreement.as_ref().and_then(Agreement::warning));

@@ -12,7 +12,7 @@
 //! deterministic order (circuit order, then block order) and stored compactly: kinds are
 //! indices into one [`KindTable`].
 
-use std::collections::{BTreeMap, HashMap};
+use std::collections::HashMap;
 
 use rayon::prelude::*;
 
@@ -148,7 +148,8 @@ pub struct VictimRole {
     pub active_neighbours: Vec<QubitIx>,
 }
 
-/// One row of the analysis: a block of one circuit.
+/// One row of the analysis: a block of one circuit, kept as what later stages read (the
+/// block's program is handed to [`build_with`]'s callback once and not stored).
 ///
 /// Invariants: `block` is sorted and has one or two qubits, all measured; `positions[j]`
 /// is the position of `block[j]` in the circuit's measured list; `kind_counts` and
@@ -162,9 +163,8 @@ pub struct Row {
     pub block: Vec<QubitIx>,
     /// Positions of the block qubits in the circuit's measured list.
     pub positions: Vec<usize>,
-    /// Operations on the block, in time order (virtual ones included, idles explicit).
-    pub steps: Vec<Step>,
-    /// Occurrences, in time order.
+    /// The occurrences that had an active neighbour, in time order (a reference row has
+    /// none). Every occurrence, with or without one, is counted in `kind_counts`.
     pub occurrences: Vec<Occurrence>,
     aggressor_pool: Vec<QubitIx>,
     /// Occurrences per kind.
@@ -216,40 +216,90 @@ pub struct Rows {
 /// the set (`counts.per_circuit[i]` for circuit i). A block of more than two qubits or one
 /// that reaches an unmeasured qubit is an error (validation rejects both earlier).
 pub fn build(layout: &Layout, set: &CircuitSet, counts: Option<&Counts>) -> Result<Rows> {
-    if let Some(c) = counts {
-        if c.per_circuit.len() != set.len() {
-            return Err(Error::Analysis(format!(
-                "counts cover {} circuits but the set has {}",
-                c.per_circuit.len(),
-                set.len()
-            )));
-        }
-    }
-    let per_circuit: Vec<(Vec<OpKind>, Vec<Row>)> = set
+    Ok(build_with(layout, set, counts, &|_, _, _| Ok(()), &|_, _| {})?.0)
+}
+
+/// A row's program while its circuit is being read: the row (kinds still local to the
+/// circuit), its operations in time order, and the circuit's kinds so far, which the local
+/// kind indices of both refer to.
+pub type Program<'a, T> = dyn Fn(&Row, &[Step], &[OpKind]) -> Result<T> + Sync + 'a;
+
+/// [`build`], also making one `T` per row from its program while the circuit is at hand,
+/// so that the program itself is never stored. `relabel` then renumbers a `T`'s kinds from
+/// its circuit's local indices to the set's (`map[local]`). Results are aligned with the rows.
+pub fn build_with<T: Send>(
+    layout: &Layout,
+    set: &CircuitSet,
+    counts: Option<&Counts>,
+    program: &Program<'_, T>,
+    relabel: &(dyn Fn(&mut T, &[KindIx]) + Sync),
+) -> Result<(Rows, Vec<T>)> {
+    check_aligned(set, counts)?;
+    type PerCircuit<T> = (Vec<OpKind>, Vec<Row>, Vec<T>);
+    let per_circuit: Vec<PerCircuit<T>> = set
         .circuits
         .par_iter()
         .enumerate()
         .map(|(ci, c)| {
             let cc = counts.and_then(|k| k.per_circuit[ci].as_ref());
-            circuit_rows(layout, ci, c, cc)
+            let mut made = Vec::new();
+            let (local, rows) = circuit_rows(layout, ci, c, cc, &mut |r, s, k| {
+                made.push(program(r, s, k)?);
+                Ok(())
+            })?;
+            Ok((local, rows, made))
         })
         .collect::<Result<_>>()?;
     let mut kinds = KindTable::default();
-    let mut rows = Vec::new();
-    for (local, mut circuit_rows) in per_circuit {
+    let mut rows = Vec::with_capacity(per_circuit.iter().map(|c| c.1.len()).sum());
+    let mut made = Vec::with_capacity(rows.capacity());
+    for (local, mut circuit_rows, mut circuit_made) in per_circuit {
         let map: Vec<KindIx> = local.iter().map(|&k| kinds.intern(k)).collect();
         for row in &mut circuit_rows {
             remap(row, &map);
         }
+        for t in &mut circuit_made {
+            relabel(t, &map);
+        }
         rows.extend(circuit_rows);
+        made.extend(circuit_made);
     }
-    Ok(Rows { kinds, rows })
+    Ok((Rows { kinds, rows }, made))
+}
+
+/// Visits the rows of every circuit without keeping them: `visit` gets one circuit's rows,
+/// with kind indices into that circuit's own kind list (the second argument), and its
+/// results come back in circuit order. Memory stays that of a few circuits' rows.
+/// `counts`, when given, must be aligned with the set; rows get no marginal counts here.
+pub fn scan<T: Send>(
+    layout: &Layout,
+    set: &CircuitSet,
+    counts: Option<&Counts>,
+    visit: &(dyn Fn(&[Row], &[OpKind]) -> T + Sync),
+) -> Result<Vec<T>> {
+    check_aligned(set, counts)?;
+    set.circuits
+        .par_iter()
+        .enumerate()
+        .map(|(ci, c)| {
+            let (local, rows) = circuit_rows(layout, ci, c, None, &mut |_, _, _| Ok(()))?;
+            Ok(visit(&rows, &local))
+        })
+        .collect()
+}
+
+fn check_aligned(set: &CircuitSet, counts: Option<&Counts>) -> Result<()> {
+    match counts {
+        Some(c) if c.per_circuit.len() != set.len() => Err(Error::Analysis(format!(
+            "counts cover {} circuits but the set has {}",
+            c.per_circuit.len(),
+            set.len()
+        ))),
+        _ => Ok(()),
+    }
 }
 
 fn remap(row: &mut Row, map: &[KindIx]) {
-    for s in &mut row.steps {
-        s.kind = s.kind.map(|k| map[k as usize]);
-    }
     for o in &mut row.occurrences {
         o.kind = map[o.kind as usize];
     }
@@ -263,11 +313,28 @@ fn remap(row: &mut Row, map: &[KindIx]) {
     row.context_counts.sort_unstable();
 }
 
+/// Sorted (key, count) pairs of a list of keys, each key once.
+fn tally<K: Copy + Ord>(keys: &mut [K]) -> Vec<(K, u32)> {
+    keys.sort_unstable();
+    let mut out: Vec<(K, u32)> = Vec::new();
+    for &k in keys.iter() {
+        match out.last_mut() {
+            Some(e) if e.0 == k => e.1 += 1,
+            _ => out.push((k, 1)),
+        }
+    }
+    out.shrink_to_fit();
+    out
+}
+
+type OnRow<'a> = dyn FnMut(&Row, &[Step], &[OpKind]) -> Result<()> + 'a;
+
 fn circuit_rows(
     layout: &Layout,
     ci: usize,
     c: &Circuit,
     counts: Option<&crate::counts::CircuitCounts>,
+    on_row: &mut OnRow<'_>,
 ) -> Result<(Vec<OpKind>, Vec<Row>)> {
     let mut local = KindTable::default();
     let timed: Vec<bool> = (0..c.layers.len()).map(|t| c.is_timed(layout, t)).collect();
@@ -289,11 +356,25 @@ fn circuit_rows(
             }
         }
     }
+    // Position of each qubit in the measured list (the first, as a search would find).
+    let mut measured_at = vec![usize::MAX; n];
+    for (i, &q) in c.measured.iter().enumerate().rev() {
+        if q < n {
+            measured_at[q] = i;
+        }
+    }
     let mut rows = Vec::new();
+    // Scratch reused across the circuit's blocks; each row keeps exact-size copies.
+    let mut steps: Vec<Step> = Vec::new();
+    let mut occurrences: Vec<Occurrence> = Vec::new();
+    let mut pool: Vec<QubitIx> = Vec::new();
+    let mut kinds_seen: Vec<KindIx> = Vec::new();
+    let mut contexts_seen: Vec<(KindIx, QubitIx)> = Vec::new();
+    let mut agg: Vec<QubitIx> = Vec::new();
     for block in c.blocks() {
         let positions: Vec<usize> = block
             .iter()
-            .map(|q| c.measured.iter().position(|m| m == q))
+            .map(|&q| measured_at.get(q).copied().filter(|&p| p != usize::MAX))
             .collect::<Option<_>>()
             .ok_or_else(|| {
                 Error::circuit(
@@ -313,32 +394,42 @@ fn circuit_rows(
             ));
         }
         let pos_in_block = |q: QubitIx| block.iter().position(|&b| b == q).unwrap_or(0) as u8;
-        let mut steps = Vec::new();
-        let mut occurrences = Vec::new();
-        let mut pool = Vec::new();
-        let mut kind_counts: BTreeMap<KindIx, u32> = BTreeMap::new();
-        let mut context_counts: BTreeMap<(KindIx, QubitIx), u32> = BTreeMap::new();
-        let mut driven_layers = vec![0usize; block.len()];
-        let mut ever_active: Vec<Vec<QubitIx>> = vec![Vec::new(); block.len()];
+        steps.clear();
+        occurrences.clear();
+        pool.clear();
+        kinds_seen.clear();
+        contexts_seen.clear();
+        let mut any_context = false;
+        let mut driven_layers = [0usize; 2];
+        let mut ever_active: [Vec<QubitIx>; 2] = [Vec::new(), Vec::new()];
         for (t, layer) in c.layers.iter().enumerate() {
-            let mut touched = vec![false; block.len()];
-            let mut layer_ops: Vec<(Gate, [QubitIx; 2], f64)> = Vec::new();
-            let mut ixs: Vec<u32> =
-                block.iter().map(|&q| op_at[t * n + q]).filter(|&i| i != NONE).collect();
-            ixs.sort_unstable();
-            ixs.dedup();
-            for i in ixs {
+            let mut touched = [false; 2];
+            // At most two ops and two idles: the block has at most two qubits.
+            let mut layer_ops: [(Gate, [QubitIx; 2], f64); 4] = [(Gate::Id, [0, 0], 0.0); 4];
+            let mut n_ops = 0;
+            let mut ixs = [NONE; 2];
+            for (j, &q) in block.iter().enumerate() {
+                ixs[j] = op_at[t * n + q];
+            }
+            if ixs[1] < ixs[0] {
+                ixs.swap(0, 1);
+            }
+            for (j, &i) in ixs.iter().enumerate() {
+                if i == NONE || (j == 1 && i == ixs[0]) {
+                    continue;
+                }
                 let op = &layer[i as usize];
-                let qs = op.qubits();
-                for &q in qs {
+                for &q in op.qubits() {
                     touched[pos_in_block(q) as usize] = true;
                 }
-                layer_ops.push((op.gate, op.operands, op.angle));
+                layer_ops[n_ops] = (op.gate, op.operands, op.angle);
+                n_ops += 1;
             }
             if timed[t] {
                 for (j, &q) in block.iter().enumerate() {
                     if !touched[j] {
-                        layer_ops.push((Gate::Id, [q, q], 0.0));
+                        layer_ops[n_ops] = (Gate::Id, [q, q], 0.0);
+                        n_ops += 1;
                     }
                 }
                 for (j, &q) in block.iter().enumerate() {
@@ -352,31 +443,32 @@ fn circuit_rows(
                     }
                 }
             }
-            for (gate, operands, angle) in layer_ops {
+            for &(gate, operands, angle) in &layer_ops[..n_ops] {
                 let qs = &operands[..gate.arity()];
                 let kind = (!layout.is_virtual(gate)).then(|| local.intern(OpKind::new(gate, qs)));
                 let operands = [pos_in_block(qs[0]), pos_in_block(*qs.last().unwrap_or(&qs[0]))];
                 steps.push(Step { layer: t as u32, gate, operands, angle, kind });
                 let Some(k) = kind else { continue };
-                let start = pool.len();
-                let mut agg: Vec<QubitIx> = qs
-                    .iter()
-                    .flat_map(|&q| layout.neighbours(q).iter().copied())
-                    .filter(|r| !block.contains(r) && active[t].binary_search(r).is_ok())
-                    .collect();
+                agg.clear();
+                agg.extend(
+                    qs.iter()
+                        .flat_map(|&q| layout.neighbours(q).iter().copied())
+                        .filter(|r| !block.contains(r) && active[t].binary_search(r).is_ok()),
+                );
                 agg.sort_unstable();
                 agg.dedup();
-                for &r in &agg {
-                    *context_counts.entry((k, r)).or_default() += 1;
+                any_context |= !agg.is_empty();
+                contexts_seen.extend(agg.iter().map(|&r| (k, r)));
+                kinds_seen.push(k);
+                if !agg.is_empty() {
+                    occurrences.push(Occurrence {
+                        kind: k,
+                        layer: t as u32,
+                        agg_start: pool.len() as u32,
+                        agg_len: agg.len() as u32,
+                    });
+                    pool.extend_from_slice(&agg);
                 }
-                pool.extend_from_slice(&agg);
-                *kind_counts.entry(k).or_default() += 1;
-                occurrences.push(Occurrence {
-                    kind: k,
-                    layer: t as u32,
-                    agg_start: start as u32,
-                    agg_len: agg.len() as u32,
-                });
             }
         }
         let victims = block
@@ -386,6 +478,7 @@ fn circuit_rows(
                 let mut n = std::mem::take(&mut ever_active[j]);
                 n.sort_unstable();
                 n.dedup();
+                n.shrink_to_fit();
                 VictimRole {
                     qubit: q,
                     driven: 2 * driven_layers[j] > n_timed,
@@ -394,21 +487,22 @@ fn circuit_rows(
             })
             .collect();
         let marginal = counts.map(|k| k.marginal(&positions));
-        rows.push(Row {
+        let row = Row {
             circuit: ci as u32,
-            is_reference: pool.is_empty(),
+            is_reference: !any_context,
             block,
             positions,
-            steps,
-            occurrences,
-            aggressor_pool: pool,
-            kind_counts: kind_counts.into_iter().collect(),
-            context_counts: context_counts.into_iter().collect(),
+            occurrences: occurrences.clone(),
+            aggressor_pool: pool.clone(),
+            kind_counts: tally(&mut kinds_seen),
+            context_counts: tally(&mut contexts_seen),
             marginal,
             shots: counts.map_or(0, |k| k.shots()),
             n_timed_layers: n_timed as u32,
             victims,
-        });
+        };
+        on_row(&row, &steps, local.kinds())?;
+        rows.push(row);
     }
     Ok((local.kinds, rows))
 }
@@ -425,6 +519,16 @@ mod tests {
     //              q3 - q4 - q5
     fn set(circuits: Vec<Circuit>) -> CircuitSet {
         CircuitSet::new(circuits).unwrap()
+    }
+
+    /// The rows and each row's program, with the program's kinds in the set's numbering.
+    fn with_steps(l: &Layout, s: &CircuitSet, counts: Option<&Counts>) -> (Rows, Vec<Vec<Step>>) {
+        build_with(l, s, counts, &|_, steps, _| Ok(steps.to_vec()), &|steps, map| {
+            for s in steps {
+                s.kind = s.kind.map(|k| map[k as usize]);
+            }
+        })
+        .unwrap()
     }
 
     fn kind(rows: &Rows, layout: &Layout, label: &str) -> KindIx {
@@ -446,26 +550,28 @@ mod tests {
             ],
             measured: vec![4, 0],
         };
-        let rows = build(&l, &set(vec![c]), None).unwrap();
+        let (rows, steps) = with_steps(&l, &set(vec![c]), None);
         assert_eq!(rows.rows.len(), 2);
         let (r4, r0) = (&rows.rows[0], &rows.rows[1]);
+        let s0 = &steps[1];
         assert_eq!((r4.block.clone(), r4.positions.clone()), (vec![4], vec![0]));
         assert_eq!((r0.block.clone(), r0.positions.clone()), (vec![0], vec![1]));
         let (sx0, id0) = (kind(&rows, &l, "sx@q0"), kind(&rows, &l, "id@q0"));
-        // Layer 1 holds only a virtual rz: no occurrence there, no idle of q0 or q4.
-        assert_eq!(r0.occurrences.len(), 3);
-        assert_eq!(r0.occurrences.iter().map(|o| o.layer).collect::<Vec<_>>(), vec![0, 2, 3]);
+        // Layer 1 holds only a virtual rz: no occurrence there, no idle of q0 or q4. The sx
+        // of layer 2 has no active neighbour, so only layers 0 and 3 are listed.
+        assert_eq!(r0.occurrences.iter().map(|o| o.layer).collect::<Vec<_>>(), vec![0, 3]);
         assert_eq!(r0.aggressors(&r0.occurrences[0]), &[1]);
-        assert!(r0.aggressors(&r0.occurrences[1]).is_empty());
-        assert_eq!(r0.aggressors(&r0.occurrences[2]), &[1], "cz on q1-q2 is active on q1");
+        assert_eq!(r0.aggressors(&r0.occurrences[1]), &[1], "cz on q1-q2 is active on q1");
+        assert_eq!(s0.iter().filter(|s| s.kind.is_some()).count(), 3);
         assert_eq!((r0.count(sx0), r0.count(id0)), (2, 1));
         assert_eq!((r0.context_count(sx0, 1), r0.context_count(id0, 1)), (1, 1));
         assert_eq!(r0.context_count(sx0, 3), 0);
         assert!(!r0.is_reference);
-        assert_eq!(r0.steps.len(), 4);
-        assert_eq!((r0.steps[1].gate, r0.steps[1].kind), (Gate::Rz, None));
-        assert!((r0.steps[1].angle - 0.5).abs() < 1e-15);
-        assert_eq!(r0.steps[3].gate, Gate::Id);
+        assert_eq!(s0.len(), 4);
+        assert_eq!((s0[1].gate, s0[1].kind), (Gate::Rz, None));
+        assert!((s0[1].angle - 0.5).abs() < 1e-15);
+        assert_eq!((s0[3].gate, s0[3].kind), (Gate::Id, Some(id0)));
+        assert_eq!(s0[0].kind, Some(sx0));
         assert_eq!(r0.n_timed_layers, 3);
         assert!(r0.victims[0].driven, "q0 runs sx in 2 of 3 timed layers");
         assert!(!r4.victims[0].driven, "q4 runs x in 1 of 3 timed layers");
@@ -492,15 +598,16 @@ mod tests {
             layers: vec![vec![Op::rot(Gate::Rz, 0, 1.0), Op::rot(Gate::Rz, 1, 2.0)]],
             measured: vec![0, 1],
         };
-        let rows = build(&l, &set(vec![reference, frames]), None).unwrap();
+        let (rows, steps) = with_steps(&l, &set(vec![reference, frames]), None);
         let r = &rows.rows[0];
         assert!(r.is_reference, "q5 is not a neighbour of q0, rz is virtual");
-        assert_eq!(r.occurrences.len(), 2);
-        assert_eq!(rows.kinds.get(r.occurrences[1].kind).label(&l), "id@q0");
-        for r in &rows.rows[1..] {
+        assert!(r.occurrences.is_empty(), "no occurrence has an active neighbour");
+        assert_eq!(r.count(kind(&rows, &l, "id@q0")), 1);
+        assert_eq!(r.kind_counts.len(), 2);
+        for (r, s) in rows.rows[1..].iter().zip(&steps[1..]) {
             assert!(r.occurrences.is_empty() && r.context_counts.is_empty() && r.is_reference);
             assert_eq!(r.n_timed_layers, 0);
-            assert_eq!(r.steps.len(), 1);
+            assert_eq!(s.len(), 1);
         }
         assert_eq!(rows.kinds.len(), 2, "only sx@q0 and id@q0");
     }
@@ -525,7 +632,7 @@ mod tests {
                 ],
             })],
         };
-        let rows = build(&l, &set(vec![c]), Some(&counts)).unwrap();
+        let (rows, steps) = with_steps(&l, &set(vec![c]), Some(&counts));
         assert_eq!(rows.rows.len(), 1);
         let r = &rows.rows[0];
         assert_eq!((r.block.clone(), r.positions.clone()), (vec![0, 1], vec![1, 0]));
@@ -535,13 +642,14 @@ mod tests {
         let cz = kind(&rows, &l, "cz@q0-q1");
         assert_eq!(OpKind::new(Gate::Cz, &[1, 0]), OpKind::new(Gate::Cz, &[0, 1]));
         assert_eq!(r.count(cz), 1);
-        assert!(r.aggressors(&r.occurrences[0]).is_empty());
+        assert_eq!(r.occurrences.len(), 1, "only sx@q1 beside x@q4 has a context");
+        assert_eq!(r.aggressors(&r.occurrences[0]), &[4]);
         let (sx0, sx1) = (kind(&rows, &l, "sx@q0"), kind(&rows, &l, "sx@q1"));
         assert_eq!(r.context_count(sx0, 1), 0, "the block partner is no aggressor");
         assert_eq!((r.context_count(sx1, 0), r.context_count(sx1, 4)), (0, 1));
         assert_eq!(r.context_count(sx0, 3), 0, "q3 idles");
         assert!(!r.is_reference, "x on q4 is a context of sx@q1");
-        assert_eq!(r.steps[0].operands, [1, 0], "steps keep operand order (cx needs it)");
+        assert_eq!(steps[0][0].operands, [1, 0], "steps keep operand order (cx needs it)");
     }
 
     #[test]
@@ -564,7 +672,30 @@ mod tests {
         assert!(r.is_reference);
         assert_eq!(r.count(kind(&rows, &l, "id@q3")), 1);
         assert_eq!(r.count(kind(&rows, &l, "id@q0")), 1);
-        assert_eq!(r.occurrences.len(), 5);
+        assert!(r.occurrences.is_empty());
+        assert_eq!(r.kind_counts.iter().map(|e| e.1).sum::<u32>(), 5);
+    }
+
+    #[test]
+    fn only_occurrences_beside_an_active_neighbour_are_listed() {
+        let l = grid(2, 3);
+        // q0 runs sx four times: twice beside an active q1, twice alone.
+        let c = Circuit {
+            id: "rep".into(),
+            layers: vec![
+                vec![Op::one(Gate::Sx, 0), Op::one(Gate::X, 1)],
+                vec![Op::one(Gate::Sx, 0)],
+                vec![Op::one(Gate::Sx, 0), Op::one(Gate::X, 1)],
+                vec![Op::one(Gate::Sx, 0)],
+            ],
+            measured: vec![0],
+        };
+        let rows = build(&l, &set(vec![c]), None).unwrap();
+        let r = &rows.rows[0];
+        let sx0 = kind(&rows, &l, "sx@q0");
+        assert_eq!(r.occurrences.iter().map(|o| o.layer).collect::<Vec<_>>(), vec![0, 2]);
+        assert!(r.occurrences.iter().all(|o| r.aggressors(o) == [1] && o.kind == sx0));
+        assert_eq!((r.count(sx0), r.context_count(sx0, 1)), (4, 2));
     }
 
     #[test]

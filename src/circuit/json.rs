@@ -110,90 +110,426 @@ use crate::gate::Gate;
 /// fields, unknown gates or qubits, wrong operand or parameter counts) are errors naming
 /// the file and, for JSON syntax, the line; layout-level rules are checked by
 /// [`super::validate`].
+///
+/// The file is streamed: each operation becomes an [`Op`] as it is read, with gate names and
+/// qubit ids looked up in place (no string is kept per operation), so memory is that of the
+/// circuits themselves. Problems are reported as [`from_wire`] reports them for the whole
+/// document: a JSON error anywhere first, then the schema, then the first circuit's fault.
 pub fn read_json(path: &Path, layout: &Layout) -> Result<CircuitSet> {
     let file = std::fs::File::open(path).map_err(|e| Error::io(path, e))?;
-    let reader = std::io::BufReader::new(file);
-    let wire: FileWire = serde_json::from_reader(reader).map_err(|e| {
-        let line = (e.line() > 0).then_some(e.line());
-        Error::input(path, line, format!("not a valid slackmap circuit file: {e}"))
-    })?;
-    from_wire(wire, path, layout)
+    let reader = std::io::BufReader::with_capacity(1 << 16, file);
+    let mut de = serde_json::Deserializer::from_reader(reader);
+    let state = Stream { layout, fault: std::cell::RefCell::new(None) };
+    let (schema, circuits) = serde::de::DeserializeSeed::deserialize(FileSeed(&state), &mut de)
+        .and_then(|v| de.end().map(|()| v))
+        .map_err(|e| {
+            let line = (e.line() > 0).then_some(e.line());
+            Error::input(path, line, format!("not a valid slackmap circuit file: {e}"))
+        })?;
+    check_schema(schema, path)?;
+    if let Some((circuit, fault)) = state.fault.into_inner() {
+        return Err(fault.error(path, layout, &circuit));
+    }
+    into_set(circuits, path)
 }
 
-/// Converts the wire form to circuits, resolving ids against the layout.
-pub fn from_wire(wire: FileWire, path: &Path, layout: &Layout) -> Result<CircuitSet> {
-    if wire.schema != SCHEMA {
+fn check_schema(schema: u32, path: &Path) -> Result<()> {
+    if schema != SCHEMA {
         return Err(Error::input(
             path,
             None,
-            format!("schema {} is not supported (this build reads schema {SCHEMA})", wire.schema),
+            format!("schema {schema} is not supported (this build reads schema {SCHEMA})"),
         ));
     }
-    let qubit = |cid: &str, id: &str| {
-        layout.qubit(id).ok_or_else(|| {
-            Error::input(
-                path,
-                line_of_circuit(path, cid, 0),
-                format!("circuit {cid}: qubit '{id}' is not in layout '{}'", layout.name),
-            )
-        })
-    };
-    let mut circuits = Vec::with_capacity(wire.circuits.len());
-    for cw in wire.circuits {
-        let measured =
-            cw.measured.iter().map(|id| qubit(&cw.id, id)).collect::<Result<Vec<_>>>()?;
-        let mut layers = Vec::with_capacity(cw.layers.len());
-        for (t, lw) in cw.layers.iter().enumerate() {
-            let mut layer = Vec::with_capacity(lw.len());
-            for ow in lw {
-                let here = format!("circuit {} layer {t}", cw.id);
-                let gate = Gate::from_name(&ow.gate).ok_or_else(|| {
-                    Error::input(
-                        path,
-                        line_of_circuit(path, &cw.id, 0),
-                        format!(
-                            "{here}: unknown gate '{}' (known: {})",
-                            ow.gate,
-                            Gate::known_names()
-                        ),
-                    )
-                })?;
-                if ow.qubits.len() != gate.arity() {
-                    return Err(Error::input(
-                        path,
-                        line_of_circuit(path, &cw.id, 0),
-                        format!(
-                            "{here}: gate {gate} takes {} qubit(s), got {}",
-                            gate.arity(),
-                            ow.qubits.len()
-                        ),
-                    ));
-                }
-                if ow.params.len() != gate.n_params() || !ow.params.iter().all(|p| p.is_finite()) {
-                    return Err(Error::input(
-                        path,
-                        line_of_circuit(path, &cw.id, 0),
-                        format!(
-                            "{here}: gate {gate} takes {} finite angle(s), got {:?}",
-                            gate.n_params(),
-                            ow.params
-                        ),
-                    ));
-                }
-                let qs =
-                    ow.qubits.iter().map(|id| qubit(&cw.id, id)).collect::<Result<Vec<_>>>()?;
-                let angle = ow.params.first().copied().unwrap_or(0.0);
-                layer.push(Op { gate, operands: [qs[0], *qs.last().unwrap_or(&qs[0])], angle });
-            }
-            layers.push(layer);
-        }
-        circuits.push(Circuit { id: cw.id, layers, measured });
-    }
+    Ok(())
+}
+
+fn into_set(circuits: Vec<Circuit>, path: &Path) -> Result<CircuitSet> {
     CircuitSet::new(circuits).map_err(|m| {
         // The second circuit with the id is the one at fault.
         let line = super::duplicate_id(&m).and_then(|id| line_of_circuit(path, id, 1));
         Error::input(path, line, m)
     })
+}
+
+/// The first thing wrong with a circuit that is well-formed JSON.
+#[derive(Debug)]
+enum Fault {
+    /// A qubit id that is not in the layout.
+    Qubit(String),
+    /// An unknown gate name in layer `layer`.
+    Gate { layer: usize, name: String },
+    /// A gate given the wrong number of qubits.
+    Arity { layer: usize, gate: Gate, got: usize },
+    /// A gate given the wrong number of angles, or an angle that is not finite.
+    Params { layer: usize, gate: Gate, params: Vec<f64> },
+}
+
+impl Fault {
+    fn error(&self, path: &Path, layout: &Layout, circuit: &str) -> Error {
+        let line = line_of_circuit(path, circuit, 0);
+        let message = match self {
+            Fault::Qubit(id) => {
+                format!("circuit {circuit}: qubit '{id}' is not in layout '{}'", layout.name)
+            }
+            Fault::Gate { layer, name } => format!(
+                "circuit {circuit} layer {layer}: unknown gate '{name}' (known: {})",
+                Gate::known_names()
+            ),
+            Fault::Arity { layer, gate, got } => format!(
+                "circuit {circuit} layer {layer}: gate {gate} takes {} qubit(s), got {got}",
+                gate.arity()
+            ),
+            Fault::Params { layer, gate, params } => format!(
+                "circuit {circuit} layer {layer}: gate {gate} takes {} finite angle(s), got {params:?}",
+                gate.n_params()
+            ),
+        };
+        Error::input(path, line, message)
+    }
+}
+
+/// One operation as read: the gate (or the unknown name), its angles, how many qubit ids it
+/// named, the first two of them resolved, and the first id the layout does not know.
+struct OpRead {
+    gate: std::result::Result<Gate, String>,
+    params: Vec<f64>,
+    n_qubits: usize,
+    qubits: [crate::layout::QubitIx; 2],
+    unknown: Option<String>,
+}
+
+impl OpRead {
+    /// The operation, checked in the order the format's reader has always used: gate name,
+    /// operand count, angles, qubit ids.
+    fn op(self, layer: usize) -> std::result::Result<Op, Fault> {
+        let gate = self.gate.map_err(|name| Fault::Gate { layer, name })?;
+        if self.n_qubits != gate.arity() {
+            return Err(Fault::Arity { layer, gate, got: self.n_qubits });
+        }
+        if self.params.len() != gate.n_params() || !self.params.iter().all(|p| p.is_finite()) {
+            return Err(Fault::Params { layer, gate, params: self.params });
+        }
+        if let Some(id) = self.unknown {
+            return Err(Fault::Qubit(id));
+        }
+        let q = self.qubits;
+        let operands = [q[0], if gate.arity() == 2 { q[1] } else { q[0] }];
+        Ok(Op { gate, operands, angle: self.params.first().copied().unwrap_or(0.0) })
+    }
+}
+
+/// Converts the wire form to circuits, resolving ids against the layout.
+pub fn from_wire(wire: FileWire, path: &Path, layout: &Layout) -> Result<CircuitSet> {
+    check_schema(wire.schema, path)?;
+    let mut circuits = Vec::with_capacity(wire.circuits.len());
+    for cw in wire.circuits {
+        let fail = |f: Fault| f.error(path, layout, &cw.id);
+        let resolve = |id: &String| layout.qubit(id).ok_or_else(|| Fault::Qubit(id.clone()));
+        let measured = cw.measured.iter().map(resolve).collect::<std::result::Result<Vec<_>, _>>();
+        let measured = measured.map_err(fail)?;
+        let mut layers = Vec::with_capacity(cw.layers.len());
+        for (t, lw) in cw.layers.iter().enumerate() {
+            let mut layer = Vec::with_capacity(lw.len());
+            for ow in lw {
+                let mut read = OpRead {
+                    gate: Gate::from_name(&ow.gate).ok_or_else(|| ow.gate.clone()),
+                    params: ow.params.clone(),
+                    n_qubits: ow.qubits.len(),
+                    qubits: [0; 2],
+                    unknown: None,
+                };
+                for (j, id) in ow.qubits.iter().enumerate() {
+                    match layout.qubit(id) {
+                        Some(q) if j < 2 => read.qubits[j] = q,
+                        Some(_) => {}
+                        None => {
+                            read.unknown.get_or_insert_with(|| id.clone());
+                        }
+                    }
+                }
+                layer.push(read.op(t).map_err(fail)?);
+            }
+            layers.push(layer);
+        }
+        circuits.push(Circuit { id: cw.id, layers, measured });
+    }
+    into_set(circuits, path)
+}
+
+/// The streaming reader's state: the layout ids resolve against, and the first circuit
+/// fault met (with its circuit's id), reported once the whole file has parsed.
+struct Stream<'a> {
+    layout: &'a Layout,
+    fault: std::cell::RefCell<Option<(String, Fault)>>,
+}
+
+use serde::de::{self, DeserializeSeed, MapAccess, SeqAccess, Visitor};
+use std::fmt;
+
+/// A seed that is its own visitor: the `DeserializeSeed` half calls deserializer method
+/// `$call` (with `$arg`s before the visitor), and the visitor expects `$what`; the visit
+/// methods follow.
+macro_rules! seed {
+    (<$de:lifetime> $ty:ty => $value:ty, $call:ident($($arg:expr),*), $what:literal; $($visit:tt)*) => {
+        impl<$de> DeserializeSeed<$de> for $ty {
+            type Value = $value;
+            fn deserialize<D: de::Deserializer<$de>>(
+                self,
+                d: D,
+            ) -> std::result::Result<$value, D::Error> {
+                d.$call($($arg,)* self)
+            }
+        }
+        impl<$de> Visitor<$de> for $ty {
+            type Value = $value;
+            fn expecting(&self, f: &mut fmt::Formatter) -> fmt::Result {
+                f.write_str($what)
+            }
+            $($visit)*
+        }
+    };
+}
+
+/// A struct field name among `fields`, as its position (unknown names are errors, as the
+/// wire types' `deny_unknown_fields` makes them).
+struct Field(&'static [&'static str]);
+
+impl<'de> DeserializeSeed<'de> for Field {
+    type Value = usize;
+    fn deserialize<D: de::Deserializer<'de>>(self, d: D) -> std::result::Result<usize, D::Error> {
+        d.deserialize_identifier(self)
+    }
+}
+
+impl<'de> Visitor<'de> for Field {
+    type Value = usize;
+    fn expecting(&self, f: &mut fmt::Formatter) -> fmt::Result {
+        f.write_str("field identifier")
+    }
+    fn visit_str<E: de::Error>(self, v: &str) -> std::result::Result<usize, E> {
+        self.0.iter().position(|&f| f == v).ok_or_else(|| E::unknown_field(v, self.0))
+    }
+}
+
+const FILE_FIELDS: &[&str] = &["schema", "circuits"];
+const CIRCUIT_FIELDS: &[&str] = &["id", "measured", "layers"];
+const OP_FIELDS: &[&str] = &["gate", "params", "qubits"];
+
+/// Fails with serde's duplicate-field error when `slot` is already filled.
+fn once<T, E: de::Error>(slot: &Option<T>, name: &'static str) -> std::result::Result<(), E> {
+    if slot.is_some() {
+        return Err(E::duplicate_field(name));
+    }
+    Ok(())
+}
+
+struct FileSeed<'s, 'a>(&'s Stream<'a>);
+
+seed! {
+    <'de> FileSeed<'_, '_> => (u32, Vec<Circuit>), deserialize_struct("FileWire", FILE_FIELDS), "struct FileWire";
+    fn visit_map<A: MapAccess<'de>>(
+        self,
+        mut map: A,
+    ) -> std::result::Result<Self::Value, A::Error> {
+        let (mut schema, mut circuits) = (None, None);
+        while let Some(field) = map.next_key_seed(Field(FILE_FIELDS))? {
+            if field == 0 {
+                once(&schema, "schema")?;
+                schema = Some(map.next_value::<u32>()?);
+            } else {
+                once(&circuits, "circuits")?;
+                circuits = Some(map.next_value_seed(CircuitsSeed(self.0))?);
+            }
+        }
+        let schema = schema.ok_or_else(|| de::Error::missing_field("schema"))?;
+        let circuits = circuits.ok_or_else(|| de::Error::missing_field("circuits"))?;
+        Ok((schema, circuits))
+    }
+}
+
+struct CircuitsSeed<'s, 'a>(&'s Stream<'a>);
+
+seed! {
+    <'de> CircuitsSeed<'_, '_> => Vec<Circuit>, deserialize_seq(), "a sequence";
+    fn visit_seq<A: SeqAccess<'de>>(
+        self,
+        mut seq: A,
+    ) -> std::result::Result<Self::Value, A::Error> {
+        let mut out = Vec::new();
+        while let Some(c) = seq.next_element_seed(CircuitSeed(self.0))? {
+            out.push(c);
+        }
+        Ok(out)
+    }
+}
+
+struct CircuitSeed<'s, 'a>(&'s Stream<'a>);
+
+seed! {
+    <'de> CircuitSeed<'_, '_> => Circuit, deserialize_struct("CircuitWire", CIRCUIT_FIELDS), "struct CircuitWire";
+    fn visit_map<A: MapAccess<'de>>(self, mut map: A) -> std::result::Result<Circuit, A::Error> {
+        let layout = self.0.layout;
+        let (mut id, mut measured, mut layers) = (None, None, None);
+        while let Some(field) = map.next_key_seed(Field(CIRCUIT_FIELDS))? {
+            match field {
+                0 => {
+                    once(&id, "id")?;
+                    id = Some(map.next_value::<String>()?);
+                }
+                1 => {
+                    once(&measured, "measured")?;
+                    measured = Some(map.next_value_seed(QubitsSeed(layout, true))?);
+                }
+                _ => {
+                    once(&layers, "layers")?;
+                    layers = Some(map.next_value_seed(LayersSeed(layout))?);
+                }
+            }
+        }
+        let id: String = id.ok_or_else(|| de::Error::missing_field("id"))?;
+        let measured: QubitsRead = measured.ok_or_else(|| de::Error::missing_field("measured"))?;
+        let (layers, layer_fault) = layers.ok_or_else(|| de::Error::missing_field("layers"))?;
+        // Measured ids are checked before the layers, as in [`from_wire`].
+        let fault = measured.unknown.map(Fault::Qubit).or(layer_fault);
+        if let Some(fault) = fault {
+            let mut first = self.0.fault.borrow_mut();
+            if first.is_none() {
+                *first = Some((id.clone(), fault));
+            }
+        }
+        Ok(Circuit { id, layers, measured: measured.qubits })
+    }
+}
+
+/// A list of qubit ids resolved against the layout: all of them (a measured list) or only
+/// the first two (an operation's operands, so that no list is allocated per operation),
+/// how many there were, and the first id the layout does not know.
+struct QubitsRead {
+    qubits: Vec<crate::layout::QubitIx>,
+    first: [crate::layout::QubitIx; 2],
+    n: usize,
+    unknown: Option<String>,
+}
+
+/// Reads a list of qubit ids; `.1` keeps every id, not only the first two.
+struct QubitsSeed<'a>(&'a Layout, bool);
+
+seed! {
+    <'de> QubitsSeed<'_> => QubitsRead, deserialize_seq(), "a sequence";
+    fn visit_seq<A: SeqAccess<'de>>(self, mut seq: A) -> std::result::Result<QubitsRead, A::Error> {
+        let mut out = QubitsRead { qubits: Vec::new(), first: [0; 2], n: 0, unknown: None };
+        while let Some(q) = seq.next_element_seed(QubitSeed(self.0))? {
+            match q {
+                Ok(q) if self.1 => out.qubits.push(q),
+                Ok(q) if out.n < 2 => out.first[out.n] = q,
+                Ok(_) => {}
+                Err(id) => {
+                    out.unknown.get_or_insert(id);
+                }
+            }
+            out.n += 1;
+        }
+        Ok(out)
+    }
+}
+
+/// One qubit id, looked up in place; the id itself is kept only when the layout lacks it.
+struct QubitSeed<'a>(&'a Layout);
+
+seed! {
+    <'de> QubitSeed<'_> => std::result::Result<crate::layout::QubitIx, String>, deserialize_str(), "a string";
+    fn visit_str<E: de::Error>(self, v: &str) -> std::result::Result<Self::Value, E> {
+        Ok(self.0.qubit(v).ok_or_else(|| v.to_string()))
+    }
+}
+
+/// A gate name, looked up in place; kept only when unknown.
+struct GateSeed;
+
+seed! {
+    <'de> GateSeed => std::result::Result<Gate, String>, deserialize_str(), "a string";
+    fn visit_str<E: de::Error>(self, v: &str) -> std::result::Result<Self::Value, E> {
+        Ok(Gate::from_name(v).ok_or_else(|| v.to_string()))
+    }
+}
+
+/// The layers of a circuit, and the first operation fault in them.
+struct LayersSeed<'a>(&'a Layout);
+
+seed! {
+    <'de> LayersSeed<'_> => (Vec<super::Layer>, Option<Fault>), deserialize_seq(), "a sequence";
+    fn visit_seq<A: SeqAccess<'de>>(
+        self,
+        mut seq: A,
+    ) -> std::result::Result<Self::Value, A::Error> {
+        let mut layers = Vec::new();
+        let mut fault = None;
+        while let Some(layer) =
+            seq.next_element_seed(LayerSeed(self.0, layers.len(), &mut fault))?
+        {
+            layers.push(layer);
+        }
+        Ok((layers, fault))
+    }
+}
+
+/// One layer (index `.1`) of operations; the first fault in it goes to `.2` when that is
+/// still empty.
+struct LayerSeed<'a, 'f>(&'a Layout, usize, &'f mut Option<Fault>);
+
+seed! {
+    <'de> LayerSeed<'_, '_> => super::Layer, deserialize_seq(), "a sequence";
+    fn visit_seq<A: SeqAccess<'de>>(
+        self,
+        mut seq: A,
+    ) -> std::result::Result<Self::Value, A::Error> {
+        let mut ops = Vec::with_capacity(seq.size_hint().unwrap_or(0));
+        while let Some(read) = seq.next_element_seed(OpSeed(self.0))? {
+            match read.op(self.1) {
+                Ok(op) => ops.push(op),
+                Err(f) => {
+                    self.2.get_or_insert(f);
+                }
+            }
+        }
+        ops.shrink_to_fit();
+        Ok(ops)
+    }
+}
+
+struct OpSeed<'a>(&'a Layout);
+
+seed! {
+    <'de> OpSeed<'_> => OpRead, deserialize_struct("OpWire", OP_FIELDS), "struct OpWire";
+    fn visit_map<A: MapAccess<'de>>(self, mut map: A) -> std::result::Result<OpRead, A::Error> {
+        let (mut gate, mut params, mut qubits) = (None, None, None);
+        while let Some(field) = map.next_key_seed(Field(OP_FIELDS))? {
+            match field {
+                0 => {
+                    once(&gate, "gate")?;
+                    gate = Some(map.next_value_seed(GateSeed)?);
+                }
+                1 => {
+                    once(&params, "params")?;
+                    params = Some(map.next_value::<Vec<f64>>()?);
+                }
+                _ => {
+                    once(&qubits, "qubits")?;
+                    qubits = Some(map.next_value_seed(QubitsSeed(self.0, false))?);
+                }
+            }
+        }
+        let gate = gate.ok_or_else(|| de::Error::missing_field("gate"))?;
+        let qubits: QubitsRead = qubits.ok_or_else(|| de::Error::missing_field("qubits"))?;
+        Ok(OpRead {
+            gate,
+            params: params.unwrap_or_default(),
+            n_qubits: qubits.n,
+            qubits: qubits.first,
+            unknown: qubits.unknown,
+        })
+    }
 }
 
 /// The line on which the `nth` (from 0) circuit with id `id` starts in a circuit file, for
@@ -221,4 +557,65 @@ pub fn line_of_circuit(path: &Path, id: &str, nth: usize) -> Option<usize> {
         }
     }
     None
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::layout::generate::grid;
+
+    /// The whole-document path: parse into the wire types, then convert.
+    fn via_wire(text: &str, path: &Path, layout: &Layout) -> Result<CircuitSet> {
+        let wire: FileWire = serde_json::from_reader(text.as_bytes()).map_err(|e| {
+            let line = (e.line() > 0).then_some(e.line());
+            Error::input(path, line, format!("not a valid slackmap circuit file: {e}"))
+        })?;
+        from_wire(wire, path, layout)
+    }
+
+    #[test]
+    fn streaming_reader_reads_and_fails_as_the_wire_types_do() {
+        let l = grid(2, 3);
+        let good = r#"{"schema": 1, "circuits": [
+{"id":"a","measured":["q0","q1"],"layers":[[{"gate":"sx","qubits":["q0"]},{"gate":"rz","params":[0.5],"qubits":["q1"]}],[{"gate":"cz","qubits":["q1","q0"]}]]},
+{"layers":[[{"qubits":["q4"],"gate":"x"}]],"measured":["q4"],"id":"b"}
+]}"#;
+        let docs = [
+            good.to_string(),
+            good.replace("\"sx\"", "\"sqx\""),
+            good.replace("[\"q4\"],\"gate\"", "[\"q9\"],\"gate\""),
+            good.replace("\"measured\":[\"q4\"]", "\"measured\":[\"q4\",\"q77\"]"),
+            good.replace("\"qubits\":[\"q0\"]}", "\"qubits\":[\"q0\",\"q1\"]}"),
+            good.replace("[0.5]", "[]"),
+            good.replace("[0.5]", "[0.5, 1.0]"),
+            good.replace("\"id\":\"b\"", "\"id\":\"a\""),
+            good.replace("\"id\":\"b\"", "\"id\":\"b\",\"extra\":1"),
+            good.replace(",\"gate\":\"x\"", ""),
+            good.replace("\"schema\": 1", "\"schema\": 2"),
+            good.replace("\"schema\": 1", "\"schema\": 2").replace("\"sx\"", "\"sqx\""),
+            // A gate fault in circuit a and a measured-qubit fault in circuit b: a's is first.
+            good.replace("\"sx\"", "\"sqx\"").replace("[\"q4\"],\"id\"", "[\"q99\"],\"id\""),
+            good.replace("]]}", "]]"),
+            good.replace("\"id\":\"a\"", "\"id\":3"),
+            format!("{good} trailing"),
+        ];
+        let dir = tempfile::tempdir().unwrap();
+        for (i, doc) in docs.iter().enumerate() {
+            let path = dir.path().join(format!("c{i}.json"));
+            std::fs::write(&path, doc).unwrap();
+            let streamed = read_json(&path, &l);
+            let whole = via_wire(doc, &path, &l);
+            match (streamed, whole) {
+                (Ok(a), Ok(b)) => assert_eq!(a.circuits, b.circuits, "document {i}"),
+                (Err(a), Err(b)) => assert_eq!(a.to_string(), b.to_string(), "document {i}"),
+                (a, b) => panic!("document {i}: streamed {a:?}, whole {b:?}"),
+            }
+        }
+        let set = read_json(&dir.path().join("c0.json"), &l).unwrap();
+        let a = &set.circuits[0];
+        assert_eq!(a.measured, vec![0, 1]);
+        assert_eq!(a.layers[0][1], Op::rot(Gate::Rz, 1, 0.5));
+        assert_eq!(a.layers[1][0], Op::two(Gate::Cz, 1, 0));
+        assert_eq!(set.circuits[1].layers[0][0], Op::one(Gate::X, 4));
+    }
 }

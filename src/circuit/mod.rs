@@ -170,10 +170,16 @@ impl Circuit {
         for g in &mut out {
             g.sort_unstable();
         }
+        // Each qubit's first position in the measured list, looked up once: searching the
+        // list per comparison made this quadratic in the qubits measured.
+        let mut at: HashMap<QubitIx, usize> = HashMap::with_capacity(self.measured.len());
+        for (i, &m) in self.measured.iter().enumerate() {
+            at.entry(m).or_insert(i);
+        }
         let first_measured = |g: &Vec<QubitIx>| {
-            self.measured.iter().position(|m| g.contains(m)).unwrap_or(usize::MAX)
+            g.iter().filter_map(|q| at.get(q)).min().copied().unwrap_or(usize::MAX)
         };
-        out.sort_by_key(first_measured);
+        out.sort_by_cached_key(first_measured);
         out
     }
 }

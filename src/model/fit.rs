@@ -187,8 +187,15 @@ pub fn fit_coupler(
     options: &FitOptions,
 ) -> Result<FitResult> {
     let mut base = fixed_one_qubit.clone();
-    let init = Params::initial(spec)?;
-    let from = start.unwrap_or(&init);
+    // The default start is built only when none is given: it holds every kind of the chip.
+    let init;
+    let from = match start {
+        Some(p) => p,
+        None => {
+            init = Params::initial(spec)?;
+            &init
+        }
+    };
     for (k, &a) in spec.kind_arity.iter().enumerate() {
         if a == 2 {
             if let (Some(dst), Some(src)) = (base.kinds.get_mut(k), from.kinds.get(k)) {

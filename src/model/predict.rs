@@ -15,6 +15,7 @@
 //! matrices are not stored at all.
 
 use std::collections::HashMap;
+use std::rc::Rc;
 use std::sync::Arc;
 
 use nalgebra::{DMatrix, DVector};
@@ -45,7 +46,7 @@ struct Seg {
 }
 
 /// The parts of a row that do not depend on its counts.
-#[derive(Debug)]
+#[derive(Clone, Debug)]
 struct Compiled {
     n_slots: usize,
     readout: Vec<QubitIx>,
@@ -68,7 +69,7 @@ struct Compiled {
 
 /// One Pauli component of the initial state followed through a Clifford row: it ends as
 /// `coef` times Pauli `out` times the product of the eigenvalues it met on the way.
-#[derive(Debug)]
+#[derive(Clone, Debug)]
 struct PauliPath {
     coef: f64,
     out: usize,
@@ -96,12 +97,12 @@ fn monomial_image(m: &Ptm, q: usize) -> Option<(usize, f64)> {
 }
 
 /// The Pauli paths of a program, or None when an ideal layer is not Clifford: `r0` is the
-/// initial state, `segs` the error channels in time order and `layers[i]` the ideal layers
-/// before channel i (the last entry: after the last channel).
-fn pauli_paths(
+/// initial state, `segs` the error channels in time order and `segment(i)` the ideal
+/// layers before channel i (`segment(segs.len())`: after the last channel).
+fn pauli_paths<'l>(
     r0: &DVector<f64>,
     segs: &[(usize, Place)],
-    layers: &[Vec<Ptm>],
+    segment: &dyn Fn(usize) -> &'l [Rc<LayerPtm>],
 ) -> Option<Vec<PauliPath>> {
     let mut out = Vec::new();
     for (start, &v) in r0.iter().enumerate() {
@@ -110,7 +111,7 @@ fn pauli_paths(
         }
         let (mut q, mut coef) = (start, v);
         let mut factors: Vec<(u32, u32, u32)> = Vec::new();
-        for (i, ls) in layers.iter().enumerate() {
+        for i in 0..=segs.len() {
             if i > 0 {
                 let (local, place) = segs[i - 1];
                 let key = (local as u32, diag_index(place, q) as u32);
@@ -119,8 +120,8 @@ fn pauli_paths(
                     None => factors.push((key.0, key.1, 1)),
                 }
             }
-            for m in ls {
-                let (r, x) = monomial_image(m, q)?;
+            for m in segment(i) {
+                let (r, x) = m.mono[q]?;
                 q = r;
                 coef *= x;
             }
@@ -128,6 +129,51 @@ fn pauli_paths(
         out.push(PauliPath { coef, out: q, factors });
     }
     Some(out)
+}
+
+/// An ideal layer of a row (one gate per slot, or one two-qubit gate): its transfer matrix
+/// and, per Pauli, its image when that is a multiple of one Pauli ([`monomial_image`]; a
+/// path through a non-Clifford layer may still only meet such Paulis).
+#[derive(Debug)]
+struct LayerPtm {
+    m: Ptm,
+    mono: Vec<Option<(usize, f64)>>,
+}
+
+/// What an ideal layer is made of: per slot a gate and its angle's bits (slot 1 unused in a
+/// one-qubit row), or a two-qubit gate and whether its first operand is slot 1.
+#[derive(Copy, Clone, Debug, PartialEq, Eq, Hash)]
+enum LayerKey {
+    Local(usize, [Option<(crate::gate::Gate, u64)>; 2]),
+    Joint(crate::gate::Gate, bool),
+}
+
+/// Ideal layers kept by the thread that built them: a design repeats a few dozen distinct
+/// layers across all its rows, and building their matrices per row was most of compiling.
+/// Cleared when it grows past [`LAYER_CACHE_LIMIT`] (many distinct imported angles).
+const LAYER_CACHE_LIMIT: usize = 1 << 14;
+
+thread_local! {
+    static LAYERS: std::cell::RefCell<HashMap<LayerKey, Rc<LayerPtm>>> =
+        std::cell::RefCell::new(HashMap::new());
+}
+
+/// The cached layer of `key`, built by `build` on first use.
+fn layer(key: LayerKey, build: impl FnOnce() -> Result<Ptm>) -> Result<Rc<LayerPtm>> {
+    if let Some(l) = LAYERS.with(|c| c.borrow().get(&key).cloned()) {
+        return Ok(l);
+    }
+    let m = build()?;
+    let mono = (0..m.ncols()).map(|q| monomial_image(&m, q)).collect();
+    let l = Rc::new(LayerPtm { m, mono });
+    LAYERS.with(|c| {
+        let mut c = c.borrow_mut();
+        if c.len() >= LAYER_CACHE_LIMIT {
+            c.clear();
+        }
+        c.insert(key, Rc::clone(&l));
+    });
+    Ok(l)
 }
 
 /// A validated, compiled row: cheap to clone, and [`PreparedRow::with_counts`] reuses the
@@ -169,18 +215,10 @@ pub struct Prediction {
     pub jacobian: DMatrix<f64>,
 }
 
-type PtmCache = HashMap<(crate::gate::Gate, u64, bool), Ptm>;
-
-fn gate_ptm(cache: &mut PtmCache, a: &Action, reversed: bool) -> Result<Ptm> {
-    let key = (a.gate, a.angle.to_bits(), reversed);
-    if let Some(m) = cache.get(&key) {
-        return Ok(m.clone());
-    }
+fn gate_ptm(a: &Action, reversed: bool) -> Result<Ptm> {
     let u = ptm::gate_unitary(a.gate, a.angle, reversed)
         .ok_or_else(|| Error::Analysis(format!("gate {} has no unitary", a.gate)))?;
-    let m = ptm::unitary_ptm(&u);
-    cache.insert(key, m.clone());
-    Ok(m)
+    Ok(ptm::unitary_ptm(&u))
 }
 
 fn times(pending: Option<Ptm>, step: &Ptm) -> Option<Ptm> {
@@ -193,6 +231,29 @@ fn times(pending: Option<Ptm>, step: &Ptm) -> Option<Ptm> {
 impl PreparedRow {
     /// Validates `row` against `spec` and compiles it.
     pub fn new(row: &Row, spec: &ModelSpec) -> Result<PreparedRow> {
+        let arity = |k: KindIx| spec.kind_arity.get(k).copied();
+        Self::with_kinds(row, spec.family, spec.n_qubits, spec.kind_arity.len(), &arity)
+    }
+
+    /// Renumbers the row's kinds: kind k becomes `map(k)`.
+    pub fn relabel_kinds(&mut self, map: &dyn Fn(KindIx) -> KindIx) {
+        let compiled = Arc::make_mut(&mut self.compiled);
+        for k in &mut compiled.kinds {
+            *k = map(*k);
+        }
+    }
+
+    /// [`PreparedRow::new`] for a row whose kinds index a list other than the model's (the
+    /// kinds of one circuit while its rows are built): `arity(k)` is kind k's arity, `None`
+    /// past the `n_kinds` kinds of that list. [`PreparedRow::relabel_kinds`] then renumbers
+    /// them into the model's table.
+    pub fn with_kinds(
+        row: &Row,
+        family: Family,
+        n_qubits: usize,
+        n_kinds: usize,
+        arity: &dyn Fn(KindIx) -> Option<usize>,
+    ) -> Result<PreparedRow> {
         let n = row.readout.len();
         let bad = |m: String| Err(Error::Analysis(format!("row program: {m}")));
         if n == 0 || n > 2 {
@@ -201,8 +262,8 @@ impl PreparedRow {
         if n == 2 && row.readout[0] == row.readout[1] {
             return bad(format!("both slots read out qubit {}", row.readout[0]));
         }
-        if let Some(&q) = row.readout.iter().find(|&&q| q >= spec.n_qubits) {
-            return bad(format!("readout qubit {q} is outside the {} qubits", spec.n_qubits));
+        if let Some(&q) = row.readout.iter().find(|&&q| q >= n_qubits) {
+            return bad(format!("readout qubit {q} is outside the {n_qubits} qubits"));
         }
         if row.counts.len() != 1 << n {
             return bad(format!(
@@ -211,32 +272,30 @@ impl PreparedRow {
                 row.counts.len()
             ));
         }
+        let kind_arity = arity;
         let check_kind = |k: KindIx, arity: usize| -> Result<()> {
-            match spec.kind_arity.get(k) {
-                Some(&a) if a == arity => Ok(()),
-                Some(&a) => Err(Error::Analysis(format!(
+            match kind_arity(k) {
+                Some(a) if a == arity => Ok(()),
+                Some(a) => Err(Error::Analysis(format!(
                     "row program: kind {k} acts on {a} qubit(s) but is used on {arity}"
                 ))),
                 None => Err(Error::Analysis(format!(
-                    "row program: kind {k} is not in the table of {} kinds",
-                    spec.kind_arity.len()
+                    "row program: kind {k} is not in the table of {n_kinds} kinds"
                 ))),
             }
         };
         let dim = ptm::pauli_dim(n);
         let r0 = ptm::zero_state(n);
-        let mut cache = PtmCache::new();
         let mut kinds: Vec<KindIx> = Vec::new();
         let mut occurrences: Vec<u32> = Vec::new();
-        // The ideal layers before the first error channel and after each one; multiplied
-        // out only when the row cannot be kept as Pauli paths.
+        // The ideal layers in time order; segment i (the layers before error channel i, and
+        // after the last one) starts at bounds[i]. Multiplied out only when the row cannot
+        // be kept as Pauli paths.
         let mut segs: Vec<(usize, Place)> = Vec::new();
-        let mut layers: Vec<Vec<Ptm>> = vec![Vec::new()];
-        let mut ideal = r0.clone();
-        let mut push = |k: KindIx,
-                        place: Place,
-                        layers: &mut Vec<Vec<Ptm>>,
-                        segs: &mut Vec<(usize, Place)>| {
+        let mut layers: Vec<Rc<LayerPtm>> = Vec::new();
+        let mut bounds: Vec<usize> = vec![0];
+        let (mut ideal, mut next) = (r0.clone(), DVector::zeros(dim));
+        let mut push = |k: KindIx, place: Place, at: usize, segs: &mut Vec<(usize, Place)>| {
             let local = match kinds.iter().position(|&x| x == k) {
                 Some(i) => i,
                 None => {
@@ -246,46 +305,41 @@ impl PreparedRow {
                 }
             };
             occurrences[local] += 1;
-            layers.push(Vec::new());
+            bounds.push(at);
             segs.push((local, place));
         };
         for (t, step) in row.steps.iter().enumerate() {
-            match step {
+            let m = match step {
                 Step::Local(acts) => {
                     if n == 1 && acts[1].is_some() {
                         return bad(format!("layer {t}: slot 1 used in a one-qubit row"));
                     }
-                    let mut per_slot: Vec<Ptm> = Vec::with_capacity(2);
-                    for a in acts.iter().take(n) {
-                        match a {
-                            Some(a) => {
-                                if a.gate.arity() != 1 || !a.angle.is_finite() {
-                                    return bad(format!(
-                                        "layer {t}: {} (angle {}) is not a one-qubit gate",
-                                        a.gate, a.angle
-                                    ));
-                                }
-                                if let Some(k) = a.kind {
-                                    check_kind(k, 1)?;
-                                }
-                                per_slot.push(gate_ptm(&mut cache, a, false)?);
-                            }
-                            None => per_slot.push(Ptm::identity(4, 4)),
-                        }
-                    }
-                    let m = if n == 1 {
-                        per_slot.swap_remove(0)
-                    } else {
-                        ptm::kron(&per_slot[0], &per_slot[1])
-                    };
-                    ideal = &m * ideal;
-                    layers.last_mut().expect("a layer list per segment").push(m);
+                    let mut key = [None; 2];
                     for (slot, a) in acts.iter().enumerate().take(n) {
-                        if let Some(k) = a.and_then(|a| a.kind) {
-                            let place = if n == 1 { Place::Full } else { Place::Slot(slot) };
-                            push(k, place, &mut layers, &mut segs);
+                        if let Some(a) = a {
+                            if a.gate.arity() != 1 || !a.angle.is_finite() {
+                                return bad(format!(
+                                    "layer {t}: {} (angle {}) is not a one-qubit gate",
+                                    a.gate, a.angle
+                                ));
+                            }
+                            if let Some(k) = a.kind {
+                                check_kind(k, 1)?;
+                            }
+                            key[slot] = Some((a.gate, a.angle.to_bits()));
                         }
                     }
+                    layer(LayerKey::Local(n, key), || {
+                        let one = |a: &Option<Action>| match a {
+                            Some(a) => gate_ptm(a, false),
+                            None => Ok(Ptm::identity(4, 4)),
+                        };
+                        Ok(if n == 1 {
+                            one(&acts[0])?
+                        } else {
+                            ptm::kron(&one(&acts[0])?, &one(&acts[1])?)
+                        })
+                    })?
                 }
                 Step::Joint { action, reversed } => {
                     if n != 2 || action.gate.arity() != 2 {
@@ -297,31 +351,48 @@ impl PreparedRow {
                     if let Some(k) = action.kind {
                         check_kind(k, 2)?;
                     }
-                    let m = gate_ptm(&mut cache, action, *reversed)?;
-                    ideal = &m * ideal;
-                    layers.last_mut().expect("a layer list per segment").push(m);
+                    layer(LayerKey::Joint(action.gate, *reversed), || gate_ptm(action, *reversed))?
+                }
+            };
+            next.gemv(1.0, &m.m, &ideal, 0.0);
+            std::mem::swap(&mut ideal, &mut next);
+            layers.push(m);
+            match step {
+                Step::Local(acts) => {
+                    for (slot, a) in acts.iter().enumerate().take(n) {
+                        if let Some(k) = a.and_then(|a| a.kind) {
+                            let place = if n == 1 { Place::Full } else { Place::Slot(slot) };
+                            push(k, place, layers.len(), &mut segs);
+                        }
+                    }
+                }
+                Step::Joint { action, .. } => {
                     if let Some(k) = action.kind {
-                        push(k, Place::Full, &mut layers, &mut segs);
+                        push(k, Place::Full, layers.len(), &mut segs);
                     }
                 }
             }
         }
         let z_ideal = if n == 1 { ideal[3] } else { 0.0 };
-        let paths = pauli_paths(&r0, &segs, &layers);
+        let segment = |i: usize| -> &[Rc<LayerPtm>] {
+            let end = bounds.get(i + 1).copied().unwrap_or(layers.len());
+            &layers[bounds[i]..end]
+        };
+        let paths = pauli_paths(&r0, &segs, &segment);
         // Pauli channels never need the transfer matrices once the paths are known.
         let keep_matrices =
-            paths.is_none() || !matches!(spec.family, Family::Depolarizing | Family::Pauli);
+            paths.is_none() || !matches!(family, Family::Depolarizing | Family::Pauli);
         let (s0, segs) = if keep_matrices {
-            let product = |ls: &[Ptm]| ls.iter().fold(None, times);
-            let s0 = product(&layers[0]).map_or_else(|| r0.clone(), |m| m * &r0);
+            let product = |ls: &[Rc<LayerPtm>]| ls.iter().map(|l| &l.m).fold(None, times);
+            let s0 = product(segment(0)).map_or_else(|| r0.clone(), |m| m * &r0);
             let segs = segs
                 .iter()
-                .zip(&layers[1..])
-                .map(|(&(local, place), ls)| Seg { local, place, after: product(ls) })
+                .enumerate()
+                .map(|(i, &(local, place))| Seg { local, place, after: product(segment(i + 1)) })
                 .collect();
             (s0, segs)
         } else {
-            let s0 = layers[0].iter().fold(r0.clone(), |v, m| m * v);
+            let s0 = segment(0).iter().fold(r0.clone(), |v, m| &m.m * v);
             (s0, Vec::new())
         };
         debug_assert_eq!(s0.len(), dim);

@@ -139,7 +139,31 @@ pub(crate) fn analyse<'a>(
     alpha: f64,
     progress: &dyn Progress,
 ) -> Result<Analysis<'a>> {
-    let rows = rows::build(layout, circuits, Some(counts))?;
+    // Each row's program is compiled while its circuit is at hand and never stored: the
+    // rows keep only what the fit, the LPs and the assessment read.
+    let n_qubits = layout.n_qubits();
+    progress
+        .stage("preparing rows", circuits.circuits.iter().map(|c| c.measured.len() as u64).sum());
+    let program = |r: &rows::Row,
+                   steps: &[rows::Step],
+                   kinds: &[rows::OpKind]|
+     -> Result<Option<PreparedRow>> {
+        progress.advance(r.block.len() as u64);
+        match &r.marginal {
+            Some(m) if r.shots > 0 => {
+                let arity = |k: usize| kinds.get(k).map(|o| o.gate.arity());
+                let row = model_row(&r.block, steps, m.clone());
+                PreparedRow::with_kinds(&row, family, n_qubits, kinds.len(), &arity).map(Some)
+            }
+            _ => Ok(None),
+        }
+    };
+    let relabel = |p: &mut Option<PreparedRow>, map: &[rows::KindIx]| {
+        if let Some(p) = p {
+            p.relabel_kinds(&|k| map[k] as usize);
+        }
+    };
+    let (rows, prepared) = rows::build_with(layout, circuits, Some(counts), &program, &relabel)?;
     let mut warnings = Vec::new();
     let used: Vec<usize> = (0..rows.rows.len())
         .filter(|&i| rows.rows[i].marginal.is_some() && rows.rows[i].shots > 0)
@@ -153,23 +177,8 @@ pub(crate) fn analyse<'a>(
     let spec = ModelSpec {
         family,
         kind_arity: rows.kinds.kinds().iter().map(|k| k.gate.arity()).collect(),
-        n_qubits: layout.n_qubits(),
+        n_qubits,
     };
-    progress.stage("preparing rows", used.len() as u64);
-    let prepared: Vec<Option<PreparedRow>> = (0..rows.rows.len())
-        .into_par_iter()
-        .map(|i| {
-            let r = &rows.rows[i];
-            match &r.marginal {
-                Some(m) if r.shots > 0 => {
-                    let pr = PreparedRow::new(&model_row(r, m.clone()), &spec).map(Some);
-                    progress.advance(1);
-                    pr
-                }
-                _ => Ok(None),
-            }
-        })
-        .collect::<Result<_>>()?;
 
     let mut qubit_rows = vec![Vec::new(); layout.n_qubits()];
     let mut coupler_rows = vec![Vec::new(); layout.couplers.len()];
@@ -236,12 +245,13 @@ pub(crate) fn analyse<'a>(
     })
 }
 
-/// The model's program for one analysis row.
-fn model_row(r: &rows::Row, marginal: Vec<u64>) -> model::Row {
+/// The model's program for one analysis row: its block, its operations in time order and
+/// its marginal counts.
+fn model_row(block: &[QubitIx], row_steps: &[rows::Step], marginal: Vec<u64>) -> model::Row {
     use model::{Action, Step};
     let mut steps: Vec<Step> = Vec::new();
     let mut current: Option<(u32, [Option<Action>; 2])> = None;
-    for s in &r.steps {
+    for s in row_steps {
         let action = Action { gate: s.gate, angle: s.angle, kind: s.kind.map(|k| k as usize) };
         if s.gate.arity() == 2 {
             if let Some((_, local)) = current.take() {
@@ -268,7 +278,7 @@ fn model_row(r: &rows::Row, marginal: Vec<u64>) -> model::Row {
     if let Some((_, local)) = current {
         steps.push(Step::Local(local));
     }
-    model::Row { steps, readout: r.block.clone(), counts: marginal }
+    model::Row { steps, readout: block.to_vec(), counts: marginal }
 }
 
 #[allow(clippy::too_many_arguments)]
@@ -284,6 +294,16 @@ fn fit_model(
     start: Option<&Params>,
 ) -> Result<Fitted> {
     let options = FitOptions::default();
+    // One default start for every qubit and coupler fit (each would otherwise build it for
+    // every kind of the chip: quadratic in its size).
+    let initial;
+    let start = match start {
+        Some(p) => p,
+        None => {
+            initial = Params::initial(spec)?;
+            &initial
+        }
+    };
     let select = |list: &[usize]| -> (Vec<PreparedRow>, bool) {
         let reference: Vec<PreparedRow> = list
             .iter()
@@ -300,13 +320,10 @@ fn fit_model(
     let qubit_fits = fit_each(
         qubit_rows,
         &select,
-        &|sel| model::fit_qubit(sel, spec, start, &options),
+        &|sel| model::fit_qubit(sel, spec, Some(start), &options),
         progress,
     )?;
-    let mut params = match start {
-        Some(p) => p.clone(),
-        None => Params::initial(spec)?,
-    };
+    let mut params = start.clone();
     for (q, (fit, all)) in qubit_fits.iter().enumerate() {
         let Some(fit) = fit else { continue };
         params.readout[q] = fit.params.readout[q];
@@ -319,7 +336,7 @@ fn fit_model(
     let coupler_fits = fit_each(
         coupler_rows,
         &select,
-        &|sel| model::fit_coupler(sel, spec, &params, start, &options),
+        &|sel| model::fit_coupler(sel, spec, &params, Some(start), &options),
         progress,
     )?;
     for (c, (fit, all)) in coupler_fits.iter().enumerate() {

@@ -1,6 +1,6 @@
 //! Scale benchmark: grid scenarios of 16, 144 and 1,024 qubits made with slackmap's own
-//! `design` and `simulate`, then audited; prints per command and per audit stage the wall
-//! time and the peak resident memory, and the cost of one bootstrap and one parametric-null
+//! `design` and `simulate`, then checked and audited; prints per command and per audit stage
+//! the wall time and the peak resident memory, and the cost of one bootstrap and one parametric-null
 //! replicate. It reports figures; it asserts nothing about them. The noise is the tests'
 //! base noise with one depolarizing context term.
 //!
@@ -153,6 +153,9 @@ fn bench(size: &str, o: &Options, root: &Path) {
     sim.extend([o.shots.to_string(), s("--seed"), s("1"), s("--out"), s("d/counts.csv")]);
     sim.extend(threads.iter().cloned());
     line("simulate", &run(&dir, &sim));
+    let mut check = vec![s("check"), s("--layout"), s("chip.toml"), s("--circuits")];
+    check.extend([s("d/circuits.json"), s("--counts"), s("d/counts.csv")]);
+    line("check", &run(&dir, &check));
     let audit = |out: &str, replicates: usize, nulls: usize, full: bool| -> Measured {
         let mut a = vec![s("audit"), s("--layout"), s("chip.toml"), s("--circuits")];
         a.extend([s("d/circuits.json"), s("--counts"), s("d/counts.csv"), s("-q")]);
