@@ -236,7 +236,21 @@ fn qubit_edges_keep_their_verdicts_when_gate_pair_circuits_are_added() {
         // outputs; with them it finds the injected one.
         assert!(plain.get("gates").is_none());
         assert!(!dir.join(format!("audit-p{seed}/gate_pairs.csv")).exists());
-        assert!(right_direction(&gates), "seed {seed}: {:?}", flagged_gate_pairs(&gates));
+        // The injected gate pair is found. The injected q4 <- q5 error acts on q4 whatever q4
+        // runs, its cz with q3 included (the simulator's context term), so the gate view may
+        // also flag a gate of q4 beside q5: the same error, not a false pair.
+        let found = flagged_gate_pairs(&gates);
+        assert!(
+            found.contains(&("q2-q3".to_string(), "q0-q1".to_string())),
+            "seed {seed}: {found:?}"
+        );
+        let holds = |unit: &str, q: &str| unit.split('-').any(|x| x == q);
+        assert!(
+            found
+                .iter()
+                .all(|(v, g)| (v == "q2-q3" && g == "q0-q1") || (holds(v, "q4") && holds(g, "q5"))),
+            "seed {seed}: {found:?}"
+        );
     }
 }
 
