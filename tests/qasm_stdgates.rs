@@ -80,3 +80,33 @@ fn openqasm2_is_refused_with_the_conversion() {
     let m = String::from_utf8_lossy(&out.stderr);
     assert!(m.contains("old.qasm line 1") && m.contains("'qubit[n] q;' for 'qreg q[n];'"), "{m}");
 }
+
+#[test]
+fn skipped_pragmas_and_annotations_are_listed_once() {
+    let dir = tempfile::tempdir().unwrap();
+    let c = dir.path().join("c");
+    std::fs::create_dir(&c).unwrap();
+    let body = "OPENQASM 3.0;\ninclude \"stdgates.inc\";\nbit[1] c;\nsx $0;\nc[0] = measure $0;\n";
+    let head = "OPENQASM 3.0;\ninclude \"stdgates.inc\";\nbit[1] c;\n";
+    let a = format!("#pragma compiler-version 7\n{head}@slot fast\nsx $0;\nc[0] = measure $0;\n");
+    std::fs::write(c.join("a.qasm"), a).unwrap();
+    std::fs::write(c.join("b.qasm"), format!("#pragma compiler-version 7\n{body}#pragma end\n"))
+        .unwrap();
+    let out = common::slackmap()
+        .args(["check", "--layout", common::good("layout.toml").to_str().unwrap()])
+        .args(["--circuits", c.to_str().unwrap()])
+        .output()
+        .unwrap();
+    let text =
+        format!("{}{}", String::from_utf8_lossy(&out.stdout), String::from_utf8_lossy(&out.stderr));
+    // One warning, each distinct line once, with the files that hold it.
+    assert_eq!(text.matches("#pragma or annotation line").count(), 1, "{text}");
+    assert!(text.contains("hold 3 distinct"), "{text}");
+    assert!(text.contains("'#pragma compiler-version 7' (2 files; first"), "{text}");
+    assert!(text.contains("a.qasm line 1"), "{text}");
+    assert!(
+        text.contains("'@slot fast' (1 file; first") && text.contains("a.qasm line 5"),
+        "{text}"
+    );
+    assert!(text.contains("'#pragma end' (1 file;") && text.contains("b.qasm line 7"), "{text}");
+}

@@ -1537,6 +1537,20 @@ fn segment_layers(ops: &[Op], layout: &Layout) -> Vec<Layer> {
         .collect()
 }
 
+/// The `#pragma` and annotation (`@name ...`) lines of a program, as (line, text). The reader
+/// skips them; the commands list them once (see
+/// [`crate::circuit::validate::skipped_directives_warning`]), so that nothing a control stack
+/// meant by them is dropped unseen.
+pub fn skipped_directives(text: &str) -> Vec<(usize, String)> {
+    text.lines()
+        .enumerate()
+        .filter_map(|(i, l)| {
+            let t = l.trim();
+            (t.starts_with("#pragma") || t.starts_with('@')).then(|| (i + 1, t.to_string()))
+        })
+        .collect()
+}
+
 /// Imports one OpenQASM 3 program (the subset in the module doc) as circuit `id`.
 /// Physical qubit `$k` is `layout.qubits[k]`; declared registers need `map`. Errors name
 /// `path`, the line and the construct. Layout-level rules (couplers, native gates,

@@ -209,3 +209,72 @@ pub fn read_circuits(path: &Path, layout: &Layout, opts: &ReadOptions) -> Result
         }
     }
 }
+
+/// One warning listing the `#pragma` and annotation lines that the OpenQASM files behind
+/// `path` (a `.qasm` file or a folder of them) hold: each distinct line once, with how many
+/// files hold it and where it first appears. None for JSON circuits or programs without any.
+pub fn skipped_directives_warning(path: &Path) -> Result<Option<crate::Warning>> {
+    let files: Vec<PathBuf> = if path.is_dir() {
+        let mut files = Vec::new();
+        for entry in std::fs::read_dir(path).map_err(|e| Error::io(path, e))? {
+            let p = entry.map_err(|e| Error::io(path, e))?.path();
+            if p.extension()
+                .and_then(|e| e.to_str())
+                .is_some_and(|e| e.eq_ignore_ascii_case("qasm"))
+            {
+                files.push(p);
+            }
+        }
+        files.sort();
+        files
+    } else if path
+        .extension()
+        .and_then(|e| e.to_str())
+        .is_some_and(|e| e.eq_ignore_ascii_case("qasm"))
+    {
+        vec![path.to_path_buf()]
+    } else {
+        return Ok(None);
+    };
+    // Distinct text -> (files holding it, first file, first line), in order of first sight.
+    let mut seen: Vec<(String, usize, PathBuf, usize)> = Vec::new();
+    for f in &files {
+        let text = crate::files::read_text_capped(f, qasm::MAX_QASM_FILE_BYTES, "OpenQASM file")?;
+        let mut here: Vec<String> = Vec::new();
+        for (line, t) in qasm::skipped_directives(&text) {
+            if here.contains(&t) {
+                continue;
+            }
+            match seen.iter_mut().find(|e| e.0 == t) {
+                Some(e) => e.1 += 1,
+                None => seen.push((t.clone(), 1, f.clone(), line)),
+            }
+            here.push(t);
+        }
+    }
+    if seen.is_empty() {
+        return Ok(None);
+    }
+    const SHOWN: usize = 8;
+    let mut list: Vec<String> = seen
+        .iter()
+        .take(SHOWN)
+        .map(|(t, n, f, line)| {
+            let files = if *n == 1 { "1 file".to_string() } else { format!("{n} files") };
+            format!("'{t}' ({files}; first {} line {line})", f.display())
+        })
+        .collect();
+    if seen.len() > SHOWN {
+        list.push(format!("and {} more", seen.len() - SHOWN));
+    }
+    Ok(Some(crate::Warning::new(
+        "skipped-directives",
+        format!(
+            "the OpenQASM programs hold {} distinct #pragma or annotation line(s), which slackmap skips: {}",
+            seen.len(),
+            list.join("; ")
+        ),
+        "they change nothing in the circuits read; if one sets something the run depends on \
+         (timing, a gate's calibration), express it as gates or leave it out",
+    )))
+}

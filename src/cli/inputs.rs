@@ -84,6 +84,8 @@ impl InputArgs {
         let is_json = self.circuits.extension().is_some_and(|e| e.eq_ignore_ascii_case("json"));
         if !is_json {
             warnings.extend(layout.placement_warning());
+            warnings
+                .extend(slackmap::circuit::validate::skipped_directives_warning(&self.circuits)?);
         }
         let counts_read = match counts {
             Some(p) => {
