@@ -135,7 +135,7 @@ fn test_problem(p: &Problem, keep: &[usize], r_vars: &[usize]) -> TestProblem {
                 _ => None,
             })
             .collect();
-        let on = row.terms.iter().any(|&(v, c)| c > 0.0 && r_vars.contains(&v));
+        let on = carries_label(row, r_vars);
         row.terms.retain(|(v, _)| !r_vars.contains(v));
         if on {
             row.terms.extend_from_slice(&exposure);
@@ -551,11 +551,13 @@ pub(crate) fn assess_direction(a: &Analysis, cfg: &AuditConfig, x: &Subject) -> 
 /// label, and every labelled row whose stratum also holds a row without it. A labelled row
 /// alone with labelled rows in its stratum keeps its label under every permutation
 /// (method.md section 5), so it can only reproduce the observed score in the null.
+/// Whether a row carries the aggressor's label: a positive term on one of `r_vars`.
+fn carries_label(row: &crate::slack::lp::Row, r_vars: &[usize]) -> bool {
+    row.terms.iter().any(|&(v, c)| c > 0.0 && r_vars.contains(&v))
+}
+
 fn testing_rows(rows: &[crate::slack::lp::Row], r_vars: &[usize], strata: &[u64]) -> Vec<usize> {
-    let labelled: Vec<bool> = rows
-        .iter()
-        .map(|row| row.terms.iter().any(|&(v, c)| c > 0.0 && r_vars.contains(&v)))
-        .collect();
+    let labelled: Vec<bool> = rows.iter().map(|row| carries_label(row, r_vars)).collect();
     let mut unlabelled_strata: Vec<u64> =
         strata.iter().zip(&labelled).filter(|(_, &l)| !l).map(|(&s, _)| s).collect();
     unlabelled_strata.sort_unstable();

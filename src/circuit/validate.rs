@@ -161,18 +161,7 @@ pub fn read_circuits(path: &Path, layout: &Layout, opts: &ReadOptions) -> Result
     };
     let ext = path.extension().and_then(|e| e.to_str()).map(str::to_ascii_lowercase);
     if path.is_dir() {
-        let entries = std::fs::read_dir(path).map_err(|e| Error::io(path, e))?;
-        let mut files: Vec<PathBuf> = Vec::new();
-        for entry in entries {
-            let p = entry.map_err(|e| Error::io(path, e))?.path();
-            if p.extension()
-                .and_then(|e| e.to_str())
-                .is_some_and(|e| e.eq_ignore_ascii_case("qasm"))
-            {
-                files.push(p);
-            }
-        }
-        files.sort();
+        let files = qasm_files_in(path)?;
         if files.is_empty() {
             return Err(Error::input(path, None, "folder holds no .qasm files"));
         }
@@ -215,23 +204,8 @@ pub fn read_circuits(path: &Path, layout: &Layout, opts: &ReadOptions) -> Result
 /// files hold it and where it first appears. None for JSON circuits or programs without any.
 pub fn skipped_directives_warning(path: &Path) -> Result<Option<crate::Warning>> {
     let files: Vec<PathBuf> = if path.is_dir() {
-        let mut files = Vec::new();
-        for entry in std::fs::read_dir(path).map_err(|e| Error::io(path, e))? {
-            let p = entry.map_err(|e| Error::io(path, e))?.path();
-            if p.extension()
-                .and_then(|e| e.to_str())
-                .is_some_and(|e| e.eq_ignore_ascii_case("qasm"))
-            {
-                files.push(p);
-            }
-        }
-        files.sort();
-        files
-    } else if path
-        .extension()
-        .and_then(|e| e.to_str())
-        .is_some_and(|e| e.eq_ignore_ascii_case("qasm"))
-    {
+        qasm_files_in(path)?
+    } else if is_qasm(path) {
         vec![path.to_path_buf()]
     } else {
         return Ok(None);
@@ -277,4 +251,22 @@ pub fn skipped_directives_warning(path: &Path) -> Result<Option<crate::Warning>>
         "they change nothing in the circuits read; if one sets something the run depends on \
          (timing, a gate's calibration), express it as gates or leave it out",
     )))
+}
+
+/// Whether `path` names an OpenQASM file (extension `.qasm`, any case).
+fn is_qasm(path: &Path) -> bool {
+    path.extension().and_then(|e| e.to_str()).is_some_and(|e| e.eq_ignore_ascii_case("qasm"))
+}
+
+/// The `.qasm` files directly in folder `dir`, sorted by name.
+fn qasm_files_in(dir: &Path) -> Result<Vec<PathBuf>> {
+    let mut files = Vec::new();
+    for entry in std::fs::read_dir(dir).map_err(|e| Error::io(dir, e))? {
+        let p = entry.map_err(|e| Error::io(dir, e))?.path();
+        if is_qasm(&p) {
+            files.push(p);
+        }
+    }
+    files.sort();
+    Ok(files)
 }
