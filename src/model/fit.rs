@@ -376,7 +376,7 @@ struct Eval {
     row_llr: Vec<f64>,
 }
 
-fn evaluate(rows: &[PreparedRow], params: &Params, coords: &Coords, want_derivs: bool) -> Eval {
+fn evaluate(rows: &[PreparedRow], params: &Params, coords: &Coords) -> Eval {
     let n = coords.refs.len();
     let ch = Channels::new(rows, params);
     let mut ll = 0.0;
@@ -393,9 +393,6 @@ fn evaluate(rows: &[PreparedRow], params: &Params, coords: &Coords, want_derivs:
             }
         }
         row_llr.push(llr(counts, &pred.probs));
-        if !want_derivs {
-            continue;
-        }
         let cols: Vec<(usize, usize)> = pred
             .columns
             .iter()
@@ -473,7 +470,7 @@ pub fn fit(
     for &k in &coords.kinds {
         probe.kinds[k] = probe.kinds[k].isotropic();
     }
-    let e0 = evaluate(rows, &probe, &coords, true);
+    let e0 = evaluate(rows, &probe, &coords);
     let s0 = coords.natural_jacobian(&probe);
     let (f0, _, _) = to_natural(&e0.fisher, &e0.grad, &s0).ok_or_else(|| {
         Error::Analysis("a channel parameter sits on its boundary at the start".into())
@@ -487,7 +484,7 @@ pub fn fit(
     let identified: Vec<bool> = (0..n).map(|i| null.row(i).norm_squared() < 0.01).collect();
 
     let mut x = coords.get(&params);
-    let mut cur = evaluate(rows, &params, &coords, true);
+    let mut cur = evaluate(rows, &params, &coords);
     let mut mu = 1e-3;
     let mut iterations = 0;
     let mut converged = rank == 0;
@@ -546,12 +543,14 @@ pub fn fit(
                 continue;
             };
             let trial_x = coords.get(&trial);
-            let probe_eval = evaluate(rows, &trial, &coords, false);
-            if probe_eval.ll.is_finite() && probe_eval.ll >= cur.ll {
-                let gain = probe_eval.ll - cur.ll;
+            // Evaluated with its derivatives at once: a warm Newton step is seldom refused,
+            // and an accepted point would otherwise be evaluated twice.
+            let trial_eval = evaluate(rows, &trial, &coords);
+            if trial_eval.ll.is_finite() && trial_eval.ll >= cur.ll {
+                let gain = trial_eval.ll - cur.ll;
                 x = trial_x;
                 params = trial;
-                cur = evaluate(rows, &params, &coords, true);
+                cur = trial_eval;
                 mu = (mu * 0.3).max(1e-10);
                 accepted = true;
                 if gain < 1e-13 * (1.0 + cur.ll.abs()) && 0.5 * decrement < 1e3 * options.tolerance
