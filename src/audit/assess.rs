@@ -236,15 +236,46 @@ pub(crate) fn pairs(a: &Analysis) -> Vec<(QubitIx, QubitIx)> {
         .collect()
 }
 
-/// Every directed score of a solution over `all` (a replicate's rows), in [`pairs`] order;
-/// 0 for a pair the rows never test.
-pub(crate) fn directed_scores(a: &Analysis, all: &[crate::rows::Row], s: &Solved) -> Vec<f64> {
+/// The score weights (all kinds) of every directed pair of [`pairs`] on the victims'
+/// problems in `s`, over `all` (a replicate's rows): the first of [`weights_in`]'s three,
+/// found in one pass over each victim's rows rather than one per aggressor.
+pub(crate) fn direction_weights(a: &Analysis, all: &[crate::rows::Row], s: &Solved) -> Vec<Weights> {
+    (0..a.layout.n_qubits())
+        .into_par_iter()
+        .flat_map_iter(|q| {
+            let (p, _) = &s.qubit[q];
+            let aggressors = a.layout.neighbours(q);
+            let mut counts: Vec<Vec<(usize, KindIx, f64)>> = vec![Vec::new(); aggressors.len()];
+            for &i in &p.rows {
+                for &((k, r), c) in &all[i].context_counts {
+                    let Some(slot) = aggressors.iter().position(|&x| x == r) else { continue };
+                    let v = p.index[&Budget::Context(k, r)];
+                    let list = &mut counts[slot];
+                    match list.iter_mut().find(|e| e.0 == v) {
+                        Some(e) => e.2 += c as f64,
+                        None => list.push((v, k, c as f64)),
+                    }
+                }
+            }
+            counts.into_iter().map(|mut list| {
+                list.sort_by_key(|e| e.0);
+                let total: f64 = list.iter().map(|e| e.2).sum();
+                if total == 0.0 {
+                    return Vec::new();
+                }
+                list.iter().map(|e| (e.0, e.2 / total)).collect()
+            })
+        })
+        .collect()
+}
+
+/// Every directed score of a solution, in [`pairs`] order, under the weights of
+/// [`direction_weights`]; 0 for a pair the rows never test.
+pub(crate) fn directed_scores(a: &Analysis, weights: &[Weights], s: &Solved) -> Vec<f64> {
     pairs(a)
         .into_iter()
-        .map(|(q, r)| {
-            let (p, sol) = &s.qubit[q];
-            score(sol, &weights_in(a, all, p, r).0)
-        })
+        .zip(weights)
+        .map(|((q, _), w)| score(&s.qubit[q].1, w))
         .collect()
 }
 

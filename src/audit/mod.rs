@@ -117,9 +117,19 @@ pub fn run_parts(
         gates::assess(&analysis, &gate_index, &gate_victims, &solved, cfg, progress)?;
     check_cancel(progress)?;
     // Qubit directions in `assessed` order, then gate directions in `gate_directed` order.
+    // The weights over the analysis' own rows are the same in every pass that keeps them
+    // (the parametric null, a bootstrap that resamples shots): found once.
+    let own_weights = std::sync::OnceLock::new();
     let scorer =
         &move |a: &Analysis, all: &[crate::rows::Row], source: Option<&[usize]>, s: &Solved| {
-            let mut v = assess::directed_scores(a, all, s);
+            let computed;
+            let weights = if std::ptr::eq(all, a.rows.rows.as_slice()) {
+                own_weights.get_or_init(|| assess::direction_weights(a, all, s))
+            } else {
+                computed = assess::direction_weights(a, all, s);
+                &computed
+            };
+            let mut v = assess::directed_scores(a, weights, s);
             v.extend(gates::scores(a, &gate_index, &gate_victims, all, source, s));
             v
         };
