@@ -525,8 +525,30 @@ fn confusion(e: [f64; 2]) -> [[f64; 2]; 2] {
 /// Ideal (pre-readout) outcome distribution and, if asked, dq/dE per local kind and outcome.
 struct Ideal {
     q: Vec<f64>,
-    /// `grad[local][y]`: d q_y / d E (4x4 or 16x16, in the kind's own space).
-    grad: Vec<Vec<Ptm>>,
+    grad: IdealGrad,
+}
+
+/// d q_y / d E per local kind and outcome y, in the kind's own space (4x4 or 16x16).
+enum IdealGrad {
+    /// `[local][y]`: the whole matrix (transfer-matrix rows).
+    Full(Vec<Vec<Ptm>>),
+    /// `[local][y][a]`: its diagonal, the rest being zero (Pauli paths meet only the
+    /// diagonal of a Pauli channel).
+    Diagonal(Vec<Vec<Vec<f64>>>),
+}
+
+impl IdealGrad {
+    /// The contraction sum_ij de_ij (d q_y / d E)_ij. On a diagonal gradient the sum runs
+    /// over the diagonal in the order a full matrix's column-by-column sum meets it, so
+    /// both give the same number to the last bit.
+    fn contract(&self, local: usize, y: usize, de: &Ptm) -> f64 {
+        match self {
+            IdealGrad::Full(g) => de.dot(&g[local][y]),
+            IdealGrad::Diagonal(g) => {
+                g[local][y].iter().enumerate().fold(0.0, |acc, (a, &d)| acc + de[(a, a)] * d)
+            }
+        }
+    }
 }
 
 /// [`ideal_ptm`] over the Pauli paths: q_y = sum over paths of F[y, out] coef prod f^n,
@@ -535,8 +557,8 @@ fn ideal_paths(c: &Compiled, paths: &[PauliPath], ch: &Channels, want_grad: bool
     let k_out = c.functionals.nrows();
     let mut q = vec![0.0; k_out];
     let kdim = |local: usize| ch.get(c.kinds[local]).e.nrows();
-    let mut grad: Vec<Vec<Ptm>> = if want_grad {
-        (0..c.kinds.len()).map(|l| vec![Ptm::zeros(kdim(l), kdim(l)); k_out]).collect()
+    let mut grad: Vec<Vec<Vec<f64>>> = if want_grad {
+        (0..c.kinds.len()).map(|l| vec![vec![0.0; kdim(l)]; k_out]).collect()
     } else {
         Vec::new()
     };
@@ -561,11 +583,11 @@ fn ideal_paths(c: &Compiled, paths: &[PauliPath], ch: &Channels, want_grad: bool
             let d = path.coef * others * f.2 as f64 * eig(f).powi(f.2 as i32 - 1);
             let a = f.1 as usize;
             for (y, g) in grad[f.0 as usize].iter_mut().enumerate() {
-                g[(a, a)] += c.functionals[(y, path.out)] * d;
+                g[a] += c.functionals[(y, path.out)] * d;
             }
         }
     }
-    Ideal { q, grad }
+    Ideal { q, grad: IdealGrad::Diagonal(grad) }
 }
 
 fn ideal_ptm(c: &Compiled, ch: &Channels, want_grad: bool) -> Ideal {
@@ -588,7 +610,7 @@ fn ideal_ptm(c: &Compiled, ch: &Channels, want_grad: bool) -> Ideal {
         } else {
             Vec::new()
         };
-        return Ideal { q: vec![f64::NAN; k_out], grad };
+        return Ideal { q: vec![f64::NAN; k_out], grad: IdealGrad::Full(grad) };
     }
     let dim = c.s0.len();
     let k_out = c.functionals.nrows();
@@ -616,7 +638,7 @@ fn ideal_ptm(c: &Compiled, ch: &Channels, want_grad: bool) -> Ideal {
     let qv = &c.functionals * &s;
     let q: Vec<f64> = qv.iter().copied().collect();
     if !want_grad {
-        return Ideal { q, grad: Vec::new() };
+        return Ideal { q, grad: IdealGrad::Full(Vec::new()) };
     }
     let kdim = |local: usize| ch.get(c.kinds[local]).e.nrows();
     let mut grad: Vec<Vec<Ptm>> =
@@ -687,7 +709,7 @@ fn ideal_ptm(c: &Compiled, ch: &Channels, want_grad: bool) -> Ideal {
         }
         std::mem::swap(&mut l, &mut ltmp);
     }
-    Ideal { q, grad }
+    Ideal { q, grad: IdealGrad::Full(grad) }
 }
 
 /// The counted fast path: one-qubit row, depolarizing family.
@@ -804,7 +826,7 @@ fn predict_path(row: &PreparedRow, params: &Params, ch: &Channels, counted: bool
         for (local, &k) in c.kinds.iter().enumerate() {
             for de in &ch.get(k).de {
                 for y in 0..k_out {
-                    dq[(y, col)] = de.dot(&ideal.grad[local][y]);
+                    dq[(y, col)] = ideal.grad.contract(local, y, de);
                 }
                 col += 1;
             }
