@@ -5,6 +5,7 @@
 //! the identity component pinned for Pauli rates, and free angles for the coherent part.
 //! Users read the "natural" coordinates (rates, angles, readout probabilities).
 
+use std::sync::Arc;
 use nalgebra::DMatrix;
 
 use super::ptm::{self, CMat, Ptm};
@@ -77,11 +78,14 @@ pub fn pauli_label(arity: usize, p: usize) -> String {
 /// One kind's error channel E_k in raw coordinates.
 ///
 /// Invariant: `raw.len() == family.n_params(arity)`, `arity` is 1 or 2.
+///
+/// The coordinates are shared until written (a fit copies the whole chip's parameters
+/// several times, and writes a few kinds), so a copy allocates nothing per kind.
 #[derive(Clone, Debug, PartialEq)]
 pub struct KindParams {
     arity: usize,
     family: Family,
-    raw: Vec<f64>,
+    raw: Arc<[f64]>,
 }
 
 /// An error channel's PTM and its derivatives with respect to each raw coordinate.
@@ -116,14 +120,14 @@ impl KindParams {
             )));
         }
         let x = (p / pmax).clamp(RATE_FLOOR, 1.0 - RATE_FLOOR);
-        Ok(KindParams { arity, family: Family::Depolarizing, raw: vec![logit(x)] })
+        Ok(KindParams { arity, family: Family::Depolarizing, raw: Arc::from([logit(x)]) })
     }
 
     /// A Pauli channel with the d^2 - 1 non-identity rates in Pauli-index order.
     pub fn pauli(arity: usize, rates: &[f64]) -> Result<KindParams> {
         Self::check_arity(arity)?;
         let raw = softmax_inverse(arity, rates)?;
-        Ok(KindParams { arity, family: Family::Pauli, raw })
+        Ok(KindParams { arity, family: Family::Pauli, raw: raw.into() })
     }
 
     /// A Pauli channel after exp(-i sum_P h_P P): rates and angles in Pauli-index order.
@@ -138,7 +142,7 @@ impl KindParams {
             )));
         }
         raw.extend_from_slice(angles);
-        Ok(KindParams { arity, family: Family::PauliCoherent, raw })
+        Ok(KindParams { arity, family: Family::PauliCoherent, raw: raw.into() })
     }
 
     /// The same error expressed in `family`: a Pauli channel with total error e becomes the
@@ -192,7 +196,7 @@ impl KindParams {
 
     /// Mutable raw coordinates (the optimiser's and tests' handle).
     pub fn raw_mut(&mut self) -> &mut [f64] {
-        &mut self.raw
+        Arc::make_mut(&mut self.raw)
     }
 
     /// Pauli probabilities over all d^2 Paulis (index 0 = identity) and their derivatives
@@ -453,8 +457,8 @@ mod tests {
         for i in 0..k.raw.len() {
             let h = 1e-6;
             let (mut kp, mut km) = (k.clone(), k.clone());
-            kp.raw[i] += h;
-            km.raw[i] -= h;
+            kp.raw_mut()[i] += h;
+            km.raw_mut()[i] -= h;
             let fd = (kp.channel().e - km.channel().e) / (2.0 * h);
             let err = (fd - &ev.de[i]).amax();
             assert!(err < 1e-7, "{:?} coordinate {i}: {err}", k.family);
@@ -485,8 +489,8 @@ mod tests {
         for j in 0..k.raw.len() {
             let h = 1e-6;
             let (mut kp, mut km) = (k.clone(), k.clone());
-            kp.raw[j] += h;
-            km.raw[j] -= h;
+            kp.raw_mut()[j] += h;
+            km.raw_mut()[j] -= h;
             for i in 0..nat.len() {
                 let fd = (kp.natural()[i] - km.natural()[i]) / (2.0 * h);
                 assert!((fd - s[(i, j)]).abs() < 1e-7);
