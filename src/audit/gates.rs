@@ -212,6 +212,21 @@ fn measured_apart(a: &Analysis, gates: &GateIndex, victim: Unit) -> BTreeSet<Uni
         if row.is_reference || gates.0[row.circuit as usize].is_empty() {
             continue;
         }
+        // A unit holds at most two qubits, so a row with more distinct aggressors than
+        // that measures nothing apart (most rows of the all-active circuits).
+        let mut aggressors: [Option<QubitIx>; 2] = [None; 2];
+        let few = row.context_counts.iter().all(|&((_, r), _)| {
+            match aggressors.iter().position(|&x| x.is_none() || x == Some(r)) {
+                Some(slot) => {
+                    aggressors[slot] = Some(r);
+                    true
+                }
+                None => false,
+            }
+        });
+        if !few {
+            continue;
+        }
         let terms = view_terms(a, gates, victim, row, row.circuit as usize);
         let present = row_aggressors(&terms);
         for (k, x) in terms.iter().filter_map(|&(b, _)| charged(b)) {
