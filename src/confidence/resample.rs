@@ -117,10 +117,15 @@ impl Plan {
         out: &mut Resampled,
     ) {
         let tally = multinomial(from.shots, &from.freq, rng);
+        // Outcomes drawn at least once: with as many distinct outcomes as shots (wide
+        // circuits), about a third are drawn none. Counts are whole numbers, so the order
+        // of the sums does not matter.
+        let drawn: Vec<(usize, u64)> =
+            tally.iter().enumerate().filter(|e| *e.1 > 0).map(|(j, &t)| (j, t)).collect();
         for (((dst, _), (src, codes)), &k) in to.rows.iter().zip(&from.rows).zip(&from.n_outcomes) {
             let mut m = vec![0u64; k];
-            for (&code, &t) in codes.iter().zip(&tally) {
-                m[code as usize] += t;
+            for &(j, t) in &drawn {
+                m[codes[j] as usize] += t;
             }
             out.counts[*dst] = Some(m);
             if let Some(s) = out.source.as_mut() {
