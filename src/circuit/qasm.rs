@@ -952,12 +952,17 @@ impl<'a> Parser<'a> {
                 None
             }
             (Unitary::Two(_), &[a, b]) => {
+                // A directed native counts only in its coupler's direction: the other way
+                // round is not the operation the chip calibrated.
+                let either = |n: &crate::layout::Native2| n.gate.is_symmetric();
                 for n in self.layout.natives_between(a, b) {
                     let v = Unitary::Two(n.unitary());
-                    if v.same_up_to_phase(u) {
+                    let forward = either(n) || self.layout.runs_forward(a, b);
+                    if forward && v.same_up_to_phase(u) {
                         return Some(Op { gate: n.gate, operands: [a, b], angle: n.angle });
                     }
-                    if v.swapped().same_up_to_phase(u) {
+                    let backward = either(n) || self.layout.runs_forward(b, a);
+                    if backward && v.swapped().same_up_to_phase(u) {
                         return Some(Op { gate: n.gate, operands: [b, a], angle: n.angle });
                     }
                 }

@@ -73,6 +73,26 @@ pub fn validate_circuit(c: &Circuit, layout: &Layout, allow_non_native: bool) ->
                 }
             }
             let on_coupler = qs.len() == 2 && layout.coupler(qs[0], qs[1]).is_some();
+            if let Some((from, to)) = layout.reversed_native(op.gate, qs, op.angle) {
+                if !allow_non_native {
+                    return fail(format!(
+                        "layer {t}: {} on {}-{} runs against its coupler's direction: layout '{}' \
+                         writes the coupler {}-{}, so its {} runs from {} (the control of cx and \
+                         ecr), the only direction the chip calibrated. The reversed gate is \
+                         another operation: write it the calibrated way round (cx reversed is \
+                         h on both qubits, cx, h on both), or pass --allow-non-native to audit \
+                         it as an operation of its own",
+                        op.gate,
+                        name(qs[0]),
+                        name(qs[1]),
+                        layout.name,
+                        name(from),
+                        name(to),
+                        op.gate,
+                        name(from)
+                    ));
+                }
+            }
             if !allow_non_native
                 && (qs.len() == 1 || on_coupler)
                 && !layout.is_native_op(op.gate, qs, op.angle)
