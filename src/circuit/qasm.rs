@@ -40,7 +40,7 @@ use std::collections::{BTreeMap, HashMap};
 use std::fmt::Write;
 use std::path::Path;
 
-use super::{Circuit, Layer, Op};
+use super::{Circuit, Delay, Layer, Op};
 use crate::error::{Error, Result};
 use crate::gate::{Gate, Mat2, Unitary};
 use crate::layout::{Layout, QubitIx};
@@ -409,6 +409,8 @@ struct Parser<'a> {
     bregs: HashMap<String, (usize, usize)>,
     breg_order: Vec<(String, usize)>,
     items: Vec<Item>,
+    /// Delays as (position in `items` of their idle, duration as written).
+    delays: Vec<(usize, String)>,
     measures: Vec<((usize, usize), QubitIx, usize)>,
     n_statements: usize,
     /// `gate` definitions whose calls are expanded.
@@ -461,6 +463,7 @@ impl<'a> Parser<'a> {
             bregs: HashMap::new(),
             breg_order: Vec::new(),
             items: Vec::new(),
+            delays: Vec::new(),
             measures: Vec::new(),
             n_statements: 0,
             defs: HashMap::new(),
@@ -679,6 +682,15 @@ impl<'a> Parser<'a> {
                 if self.pos == start {
                     return Err(self.err(line, "delay needs a duration, like delay[100ns] $0;"));
                 }
+                let duration: String = self.toks[start..self.pos]
+                    .iter()
+                    .map(|t| match &t.tok {
+                        Tok::Num(v) | Tok::Ident(v) => v.clone(),
+                        Tok::Hw(v) => format!("${v}"),
+                        Tok::Str(v) => format!("\"{v}\""),
+                        Tok::Punct(p) => p.to_string(),
+                    })
+                    .collect();
                 self.expect_punct("]", "after the delay's duration")?;
                 if self.is_punct(";") {
                     return Err(
@@ -690,8 +702,9 @@ impl<'a> Parser<'a> {
                 if !self.measures.is_empty() {
                     return Err(self.err(line, "gates after a measurement are not supported: measure at the end of the program"));
                 }
-                // An explicit idle in its layer; its duration is not modelled.
+                // An explicit idle in its layer; its duration is recorded, not modelled.
                 for q in qs {
+                    self.delays.push((self.items.len(), duration.clone()));
                     self.items.push(Item::Op(Op::one(Gate::Id, q)));
                 }
                 Ok(())
@@ -1381,8 +1394,9 @@ impl<'a> Parser<'a> {
         }
     }
 
-    fn finish(self) -> Result<Circuit> {
+    fn finish(self) -> Result<(Circuit, Vec<Delay>)> {
         let layers = self.barrier_layers();
+        let delays = self.delay_layers(&layers);
         let mut measures = self.measures.clone();
         measures.sort_by_key(|&(bit, _, line)| (bit, line));
         for w in measures.windows(2) {
@@ -1413,11 +1427,41 @@ impl<'a> Parser<'a> {
                 }
             }
         }
-        Ok(Circuit {
+        let circuit = Circuit {
             id: self.id.to_string(),
             layers,
             measured: measures.iter().map(|m| m.1).collect(),
-        })
+        };
+        Ok((circuit, delays))
+    }
+
+    /// Where each delay's idle landed. Layering keeps every qubit's program order, so the
+    /// k-th `id` on a qubit in the program is the k-th `id` on it in layer order.
+    fn delay_layers(&self, layers: &[Layer]) -> Vec<Delay> {
+        let mut idles_in_layers: HashMap<QubitIx, Vec<usize>> = HashMap::new();
+        for (t, layer) in layers.iter().enumerate() {
+            for op in layer.iter().filter(|op| op.gate == Gate::Id) {
+                idles_in_layers.entry(op.operands[0]).or_default().push(t);
+            }
+        }
+        let mut seen: HashMap<QubitIx, usize> = HashMap::new();
+        let mut out = Vec::with_capacity(self.delays.len());
+        let mut next = self.delays.iter().peekable();
+        for (i, item) in self.items.iter().enumerate() {
+            let Item::Op(op) = item else { continue };
+            if op.gate != Gate::Id {
+                continue;
+            }
+            let q = op.operands[0];
+            let k = seen.entry(q).or_insert(0);
+            if let Some((_, duration)) = next.next_if(|(at, _)| *at == i) {
+                if let Some(&layer) = idles_in_layers.get(&q).and_then(|v| v.get(*k)) {
+                    out.push(Delay { qubit: q, layer, duration: duration.clone() });
+                }
+            }
+            *k += 1;
+        }
+        out
     }
 
     /// The layers: each stretch between barriers (the whole program when it has none)
@@ -1567,6 +1611,18 @@ pub fn import(
     layout: &Layout,
     map: Option<&QubitMap>,
 ) -> Result<Circuit> {
+    import_with_delays(text, path, id, layout, map).map(|(c, _)| c)
+}
+
+/// [`import`], also giving the program's `delay[...]` statements: each idle's qubit, layer
+/// and duration as written (recorded for the user; durations are not modelled).
+pub fn import_with_delays(
+    text: &str,
+    path: &Path,
+    id: &str,
+    layout: &Layout,
+    map: Option<&QubitMap>,
+) -> Result<(Circuit, Vec<Delay>)> {
     let toks = tokenize(text)
         .map_err(|(line, m)| Error::input(path, Some(line), format!("circuit {id}: {m}")))?;
     let mut p = Parser::new(toks, path, id, layout, map);
