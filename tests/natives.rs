@@ -496,3 +496,65 @@ fn directed_natives_run_the_way_the_layout_writes_their_coupler() {
         "{err}"
     );
 }
+
+/// The truth file lists, per coupler, only that coupler's own natives, a directed one in the
+/// direction the layout runs it (the audit's kind label).
+#[test]
+fn truth_lists_each_couplers_own_natives() {
+    let tmp = tempfile::tempdir().unwrap();
+    let dir = tmp.path();
+    let gates = "two_qubit = [\"cz\", \"iswap\"]";
+    layout(dir, gates);
+    let text = std::fs::read_to_string(dir.join("chip.toml")).unwrap();
+    let own =
+        format!("{gates}\n\n[[gates.coupler]]\nqubits = [\"q2\", \"q1\"]\ntwo_qubit = \"ecr\"");
+    let text = text.replace("[\"q1\", \"q2\"]", "[\"q2\", \"q1\"]").replace(gates, &own);
+    std::fs::write(dir.join("chip.toml"), text).unwrap();
+    ok(dir, &["layout", "check", "chip.toml"]);
+    let noise = "schema = 1\n[intrinsic.ecr]\ndepolarizing = 1.0e-2\n[intrinsic.cx]\n\
+                 depolarizing = 3.0e-2\n";
+    std::fs::write(dir.join("noise.toml"), noise).unwrap();
+    ok(
+        dir,
+        &["design", "--layout", "chip.toml", "--out", "d", "--depths", "1", "--sequences", "1"],
+    );
+    ok(
+        dir,
+        &[
+            "simulate",
+            "--layout",
+            "chip.toml",
+            "--circuits",
+            "d/circuits.json",
+            "--noise",
+            "noise.toml",
+            "--shots",
+            "10",
+            "--out",
+            "counts.csv",
+            "--truth",
+            "truth.json",
+        ],
+    );
+    let truth: serde_json::Value =
+        serde_json::from_str(&std::fs::read_to_string(dir.join("truth.json")).unwrap()).unwrap();
+    let listed: BTreeMap<String, Vec<String>> = truth["couplers"]
+        .as_array()
+        .unwrap()
+        .iter()
+        .map(|c| {
+            let kinds = c["intrinsic"].as_array().unwrap();
+            let kinds = kinds.iter().map(|k| k["kind"].as_str().unwrap().to_string()).collect();
+            (c["coupler"].as_str().unwrap().to_string(), kinds)
+        })
+        .collect();
+    assert_eq!(listed["q1-q2"], ["ecr@q2-q1"]);
+    assert_eq!(listed["q0-q1"], ["cz@q0-q1", "iswap@q0-q1"]);
+    assert_eq!(listed.len(), 7);
+    // cx has an error in the noise file but is no coupler's native: it is not listed.
+    assert!(listed.values().flatten().all(|k| !k.starts_with("cx@")), "{listed:?}");
+    let ecr =
+        &truth["couplers"].as_array().unwrap().iter().find(|c| c["coupler"] == "q1-q2").unwrap()
+            ["intrinsic"][0];
+    assert!(ecr["error"]["infidelity"].as_f64().unwrap() > 0.0, "{ecr}");
+}
