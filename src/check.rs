@@ -66,8 +66,74 @@ pub struct CheckSummary {
     pub pairs_never_context: Vec<(QubitIx, QubitIx)>,
     /// Agreement of the counts with the circuits' ideal outcomes; `None` without counts.
     pub agreement: Option<Agreement>,
+    /// The OpenQASM delays the circuits hold (read as idles; durations not modelled).
+    pub delays: DelaySummary,
     /// Every problem found, each once.
     pub warnings: Vec<Warning>,
+}
+
+/// The recorded OpenQASM delays of a circuit set, for the user to see: each is an explicit
+/// idle in its layer, and its duration is not modelled.
+#[derive(Clone, Debug, Default, PartialEq, Eq)]
+pub struct DelaySummary {
+    /// Number of delays (one per qubit a `delay` statement names).
+    pub count: usize,
+    /// Circuits holding at least one.
+    pub circuits: usize,
+    /// Each distinct duration as written, with how many delays have it, in order of first
+    /// sight.
+    pub durations: Vec<(String, usize)>,
+    /// The first few, as `circuit: qubit layer t (duration)`.
+    pub first: Vec<String>,
+}
+
+/// Delays listed by name in [`DelaySummary::first`].
+const DELAYS_LISTED: usize = 5;
+
+impl DelaySummary {
+    /// The delays of `set`.
+    pub fn of(layout: &Layout, set: &CircuitSet) -> DelaySummary {
+        let mut out = DelaySummary::default();
+        let mut last_circuit = None;
+        for (i, d) in set.all_delays() {
+            out.count += 1;
+            if last_circuit != Some(i) {
+                out.circuits += 1;
+                last_circuit = Some(i);
+            }
+            match out.durations.iter_mut().find(|(t, _)| *t == d.duration) {
+                Some(e) => e.1 += 1,
+                None => out.durations.push((d.duration.clone(), 1)),
+            }
+            if out.first.len() < DELAYS_LISTED {
+                out.first.push(format!(
+                    "{}: {} layer {} ({})",
+                    set.circuits[i].id,
+                    layout.id(d.qubit),
+                    d.layer,
+                    crate::error::echo(&d.duration)
+                ));
+            }
+        }
+        out
+    }
+
+    /// One line for a summary: how many, the durations, the first few; "none" without any.
+    pub fn describe(&self) -> String {
+        if self.count == 0 {
+            return "none".into();
+        }
+        let durations: Vec<String> =
+            self.durations.iter().map(|(t, n)| format!("{} x{n}", crate::error::echo(t))).collect();
+        let more = if self.count > self.first.len() { ", ..." } else { "" };
+        format!(
+            "{} in {} circuit(s); durations {}; {}{more}",
+            self.count,
+            self.circuits,
+            durations.join(", "),
+            self.first.join(", ")
+        )
+    }
 }
 
 /// Fewer shots than this in a circuit make a row's requirement mostly shot noise.
@@ -265,6 +331,7 @@ fn summary(
         directed_pairs,
         pairs_never_context,
         agreement,
+        delays: DelaySummary::of(layout, set),
         warnings: warnings.into_iter().collect(),
     }
 }

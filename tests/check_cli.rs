@@ -238,3 +238,54 @@ fn placement_is_shown_and_out_of_order_ids_warned() {
     assert!(out.contains("$0=q0, $1=q1"), "{out}");
     assert!(!out.contains("out of order"), "{out}");
 }
+
+/// `delay[...]` is an explicit idle in its layer: `check` shows where each one sits and its
+/// duration as written, and says that durations are not modelled.
+#[test]
+fn delays_are_listed_with_their_durations_and_not_modelled() {
+    let dir = tempfile::tempdir().unwrap();
+    let a = "OPENQASM 3.0;\ninclude \"stdgates.inc\";\nbit[3] c;\nsx $0;\ndelay[100ns] $1;\n\
+             barrier;\ndelay[1.5us] $0, $1;\nsx $2;\nbarrier;\nc[0] = measure $0;\n\
+             c[1] = measure $1;\nc[2] = measure $2;\n";
+    let b = "OPENQASM 3.0;\nbit c;\nx $0;\ndelay[2dt] $0;\nx $0;\nc = measure $0;\n";
+    std::fs::write(dir.path().join("a.qasm"), a).unwrap();
+    std::fs::write(dir.path().join("b.qasm"), b).unwrap();
+    let out = check(&["--circuits", dir.path().to_str().unwrap()]);
+    let stdout = String::from_utf8_lossy(&out.stdout);
+    assert_eq!(out.status.code(), Some(0), "{}", String::from_utf8_lossy(&out.stderr));
+    // a: layer 0 holds sx q0 and q1's 100ns idle, layer 1 both 1.5us idles and sx q2; b: the
+    // delay sits between the two x gates, in layer 1.
+    assert!(stdout.contains("delays (read as idle layers; durations recorded, not modelled)"));
+    assert!(
+        stdout.contains(
+            "4 in 2 circuit(s); durations 100ns x1, 1.5us x2, 2dt x1; a: q1 layer 0 (100ns), \
+             a: q0 layer 1 (1.5us), a: q1 layer 1 (1.5us), b: q0 layer 1 (2dt)"
+        ),
+        "{stdout}"
+    );
+    assert!(stdout.contains("warning: the circuits hold 4 delay(s) in 2 circuit(s)"), "{stdout}");
+    assert!(stdout.contains("(100ns, 1.5us, 2dt) are not modelled"), "{stdout}");
+    // Without delays the row is absent.
+    let out = check(&["--circuits", "tests/fixtures/good/circuits.json"]);
+    assert!(!String::from_utf8_lossy(&out.stdout).contains("delays"));
+    // In slackmap's JSON format a delay names an explicit idle of its qubit.
+    let json = |layer: usize| {
+        format!(
+            r#"{{"schema": 1, "circuits": [{{"id": "d", "measured": ["q0"], "layers": [[{{"gate": "x", "qubits": ["q0"]}}], [{{"gate": "id", "qubits": ["q0"]}}]], "delays": [{{"qubit": "q0", "layer": {layer}, "duration": "40ns"}}]}}]}}"#
+        )
+    };
+    let path = dir.path().join("d.json");
+    std::fs::write(&path, json(1)).unwrap();
+    let out = check(&["--circuits", path.to_str().unwrap()]);
+    assert_eq!(out.status.code(), Some(0), "{}", String::from_utf8_lossy(&out.stderr));
+    assert!(String::from_utf8_lossy(&out.stdout).contains("1 in 1 circuit(s); durations 40ns x1"));
+    std::fs::write(&path, json(0)).unwrap();
+    let out = check(&["--circuits", path.to_str().unwrap()]);
+    let stderr = String::from_utf8_lossy(&out.stderr);
+    assert_eq!(out.status.code(), Some(2));
+    assert!(
+        stderr.contains("d.json")
+            && stderr.contains("delay[40ns] on q0 names layer 0, which has no explicit idle"),
+        "{stderr}"
+    );
+}

@@ -408,3 +408,153 @@ fn non_clifford_natives_cannot_serve_a_clifford_design() {
     );
     assert!(!dir.join("d").exists());
 }
+
+fn fails(dir: &Path, args: &[&str]) -> String {
+    let out = slackmap().args(args).current_dir(dir).output().unwrap();
+    assert_eq!(out.status.code(), Some(2), "{args:?}: {}", String::from_utf8_lossy(&out.stdout));
+    let err = String::from_utf8_lossy(&out.stderr).into_owned();
+    assert!(!err.contains("panicked"), "{err}");
+    err
+}
+
+/// A directed native (ecr, cx) runs from the first qubit of its `couplers` entry: the chip
+/// calibrated that direction only. `design` runs it that way round, and a program that runs
+/// it the other way is refused (the reversed gate is another operation) unless
+/// `--allow-non-native`, which audits it as an operation kind of its own.
+#[test]
+fn directed_natives_run_the_way_the_layout_writes_their_coupler() {
+    let tmp = tempfile::tempdir().unwrap();
+    let dir = tmp.path();
+    layout(dir, "two_qubit = \"ecr\"");
+    let text = std::fs::read_to_string(dir.join("chip.toml")).unwrap();
+    let reversed = text.replace("[\"q1\", \"q2\"]", "[\"q2\", \"q1\"]");
+    assert_ne!(reversed, text, "the generated layout changed; update this test");
+    std::fs::write(dir.join("chip.toml"), &reversed).unwrap();
+    ok(
+        dir,
+        &["design", "--layout", "chip.toml", "--out", "d", "--depths", "1,4", "--sequences", "2"],
+    );
+    // Every ecr on q1-q2 runs q2 -> q1; every other coupler runs from its lower qubit.
+    let doc: serde_json::Value =
+        serde_json::from_str(&std::fs::read_to_string(dir.join("d/circuits.json")).unwrap())
+            .unwrap();
+    let mut directions: BTreeMap<String, usize> = BTreeMap::new();
+    for c in doc["circuits"].as_array().unwrap() {
+        for op in c["layers"].as_array().unwrap().iter().flat_map(|l| l.as_array().unwrap()) {
+            if op["gate"] == "ecr" {
+                let q: Vec<&str> =
+                    op["qubits"].as_array().unwrap().iter().map(|q| q.as_str().unwrap()).collect();
+                *directions.entry(q.join("-")).or_default() += 1;
+            }
+        }
+    }
+    let keys: Vec<&str> = directions.keys().map(String::as_str).collect();
+    assert_eq!(keys, ["q0-q1", "q0-q3", "q1-q4", "q2-q1", "q2-q5", "q3-q4", "q4-q5"]);
+    // The sequences still implement their Cliffords with the gate run the other way round.
+    let (randomized, repeated) = compiled_sequences_implement_their_cliffords(dir);
+    assert!(randomized > 50 && repeated > 10, "{randomized} {repeated}");
+    let out = ok(dir, &["check", "--layout", "chip.toml", "--circuits", "d/qasm"]);
+    assert!(out.contains("circuits"), "{out}");
+
+    // A program that runs ecr q1 -> q2 on that coupler is refused, naming both directions.
+    std::fs::create_dir(dir.join("p")).unwrap();
+    let program = "OPENQASM 3.0;\ninclude \"stdgates.inc\";\nbit[2] c;\necr $1, $2;\n\
+                   c[0] = measure $1;\nc[1] = measure $2;\n";
+    std::fs::write(dir.join("p/rev.qasm"), program).unwrap();
+    let err = fails(dir, &["check", "--layout", "chip.toml", "--circuits", "p"]);
+    assert!(
+        err.contains("rev.qasm")
+            && err.contains("ecr on q1-q2 runs against its coupler's direction")
+            && err.contains("writes the coupler q2-q1")
+            && err.contains("--allow-non-native"),
+        "{err}"
+    );
+    // The calibrated way round passes; with --allow-non-native the reversed one is read.
+    std::fs::write(dir.join("p/fwd.qasm"), program.replace("ecr $1, $2;", "ecr $2, $1;")).unwrap();
+    std::fs::remove_file(dir.join("p/rev.qasm")).unwrap();
+    ok(dir, &["check", "--layout", "chip.toml", "--circuits", "p"]);
+    std::fs::write(dir.join("p/rev.qasm"), program).unwrap();
+    ok(dir, &["check", "--layout", "chip.toml", "--circuits", "p", "--allow-non-native"]);
+
+    // The same rule holds for circuits in slackmap's JSON format.
+    let json = r#"{"schema": 1, "circuits": [{"id": "r", "measured": ["q1", "q2"], "layers": [[{"gate": "ecr", "qubits": ["q1", "q2"]}]]}]}"#;
+    std::fs::write(dir.join("rev.json"), json).unwrap();
+    let err = fails(dir, &["check", "--layout", "chip.toml", "--circuits", "rev.json"]);
+    assert!(err.contains("circuit r: layer 0: ecr on q1-q2 runs against"), "{err}");
+
+    // A coupler's own list may not name a directed gate in the other order than `couplers`.
+    let own = reversed.replace(
+        "two_qubit = \"ecr\"",
+        "two_qubit = \"cz\"\n\n[[gates.coupler]]\nqubits = [\"q1\", \"q2\"]\ntwo_qubit = \"cx\"",
+    );
+    std::fs::write(dir.join("own.toml"), own).unwrap();
+    let err = fails(dir, &["layout", "check", "own.toml"]);
+    assert!(
+        err.contains("own.toml line")
+            && err.contains("[[gates.coupler]] q1-q2 lists the directed gate cx")
+            && err.contains("writes this coupler q2-q1"),
+        "{err}"
+    );
+}
+
+/// The truth file lists, per coupler, only that coupler's own natives, a directed one in the
+/// direction the layout runs it (the audit's kind label).
+#[test]
+fn truth_lists_each_couplers_own_natives() {
+    let tmp = tempfile::tempdir().unwrap();
+    let dir = tmp.path();
+    let gates = "two_qubit = [\"cz\", \"iswap\"]";
+    layout(dir, gates);
+    let text = std::fs::read_to_string(dir.join("chip.toml")).unwrap();
+    let own =
+        format!("{gates}\n\n[[gates.coupler]]\nqubits = [\"q2\", \"q1\"]\ntwo_qubit = \"ecr\"");
+    let text = text.replace("[\"q1\", \"q2\"]", "[\"q2\", \"q1\"]").replace(gates, &own);
+    std::fs::write(dir.join("chip.toml"), text).unwrap();
+    ok(dir, &["layout", "check", "chip.toml"]);
+    let noise = "schema = 1\n[intrinsic.ecr]\ndepolarizing = 1.0e-2\n[intrinsic.cx]\n\
+                 depolarizing = 3.0e-2\n";
+    std::fs::write(dir.join("noise.toml"), noise).unwrap();
+    ok(
+        dir,
+        &["design", "--layout", "chip.toml", "--out", "d", "--depths", "1", "--sequences", "1"],
+    );
+    ok(
+        dir,
+        &[
+            "simulate",
+            "--layout",
+            "chip.toml",
+            "--circuits",
+            "d/circuits.json",
+            "--noise",
+            "noise.toml",
+            "--shots",
+            "10",
+            "--out",
+            "counts.csv",
+            "--truth",
+            "truth.json",
+        ],
+    );
+    let truth: serde_json::Value =
+        serde_json::from_str(&std::fs::read_to_string(dir.join("truth.json")).unwrap()).unwrap();
+    let listed: BTreeMap<String, Vec<String>> = truth["couplers"]
+        .as_array()
+        .unwrap()
+        .iter()
+        .map(|c| {
+            let kinds = c["intrinsic"].as_array().unwrap();
+            let kinds = kinds.iter().map(|k| k["kind"].as_str().unwrap().to_string()).collect();
+            (c["coupler"].as_str().unwrap().to_string(), kinds)
+        })
+        .collect();
+    assert_eq!(listed["q1-q2"], ["ecr@q2-q1"]);
+    assert_eq!(listed["q0-q1"], ["cz@q0-q1", "iswap@q0-q1"]);
+    assert_eq!(listed.len(), 7);
+    // cx has an error in the noise file but is no coupler's native: it is not listed.
+    assert!(listed.values().flatten().all(|k| !k.starts_with("cx@")), "{listed:?}");
+    let ecr =
+        &truth["couplers"].as_array().unwrap().iter().find(|c| c["coupler"] == "q1-q2").unwrap()
+            ["intrinsic"][0];
+    assert!(ecr["error"]["infidelity"].as_f64().unwrap() > 0.0, "{ecr}");
+}

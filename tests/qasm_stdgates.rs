@@ -1,5 +1,5 @@
 //! OpenQASM 3 as compilers write it: phase gates of stdgates.inc, `gphase`, `#pragma` and
-//! annotation lines; OpenQASM 2 is refused with how to convert.
+//! annotation lines; OpenQASM 2 programs with `qreg`/`creg` and qelib1.inc.
 
 mod common;
 
@@ -62,23 +62,70 @@ fn gphase_pragmas_and_annotations_change_nothing() {
     assert_eq!(a, b);
 }
 
+/// OpenQASM 2 programs as lab archives hold them: `qreg`/`creg`, qelib1.inc, `measure q[i]
+/// -> c[i]`. qelib1.inc's `cu1(λ)` is stdgates.inc's `cp(λ)`, `cu3(θ, φ, λ)` is `cu(θ, φ, λ,
+/// 0)` and `u` is `u3` (OpenQASM 2 specification, Cross et al. 2017, qelib1.inc; OpenQASM 3
+/// specification, stdgates.inc). Each program reads as the OpenQASM 3 program written with
+/// the standard's own conversion.
 #[test]
-fn openqasm2_is_refused_with_the_conversion() {
+fn openqasm2_programs_read_as_their_openqasm3_conversion() {
+    let l = layout();
+    let map = slackmap::circuit::qasm::QubitMap::parse("q[0]=q0, q[1]=q1").unwrap();
+    let v2 = "OPENQASM 2.0;\ninclude \"qelib1.inc\";\nqreg q[2];\ncreg c[2];\n\
+              u3(pi/2, -pi/2, pi/2) q[0];\nu(pi, 0, pi) q[1];\nbarrier q;\ncu1(pi) q[0], q[1];\n\
+              barrier q;\ncu3(0, 0, pi) q[1], q[0];\nbarrier q[0], q[1];\nu1(pi/4) q[0];\n\
+              u2(-pi/2, pi/2) q[1];\nmeasure q[0] -> c[0];\nmeasure q[1] -> c[1];\n";
+    let v3 = "OPENQASM 3.0;\ninclude \"stdgates.inc\";\nqubit[2] q;\nbit[2] c;\n\
+              u3(pi/2, -pi/2, pi/2) q[0];\nu3(pi, 0, pi) q[1];\nbarrier q;\ncp(pi) q[0], q[1];\n\
+              barrier q;\ncu(0, 0, pi, 0) q[1], q[0];\nbarrier q[0], q[1];\nu1(pi/4) q[0];\n\
+              u2(-pi/2, pi/2) q[1];\nc[0] = measure q[0];\nc[1] = measure q[1];\n";
+    let a = import(v2, Path::new("old.qasm"), "p", &l, Some(&map)).unwrap();
+    let b = import(v3, Path::new("new.qasm"), "p", &l, Some(&map)).unwrap();
+    assert_eq!(a, b);
+    // u3(pi/2, -pi/2, pi/2) = rx(pi/2) = sx and u(pi, 0, pi) = x up to phase; cu1(pi) = cz;
+    // cu3(0, 0, pi) = cp(pi) = cz (symmetric); u2(-pi/2, pi/2) = u3(pi/2, -pi/2, pi/2) = sx.
+    let gates: Vec<Vec<Gate>> =
+        a.layers.iter().map(|l| l.iter().map(|o| o.gate).collect()).collect();
+    assert_eq!(gates[0], [Gate::Sx, Gate::X]);
+    assert_eq!(gates[1], [Gate::Cz]);
+    assert_eq!(gates[2], [Gate::Cz]);
+
+    // Through the binary, with the whole-register measurement of OpenQASM 2.
     let dir = tempfile::tempdir().unwrap();
     let f = dir.path().join("old.qasm");
-    std::fs::write(
-        &f,
-        "OPENQASM 2.0;\ninclude \"qelib1.inc\";\nqreg q[1];\ncreg c[1];\nx q[0];\nmeasure q[0] -> c[0];\n",
-    )
-    .unwrap();
-    let out = common::slackmap()
-        .args(["check", "--layout", common::good("layout.toml").to_str().unwrap()])
-        .args(["--circuits", f.to_str().unwrap()])
-        .output()
-        .unwrap();
+    let ok = "OPENQASM 2.0;\ninclude \"qelib1.inc\";\nqreg q[2];\ncreg c[2];\nu3(pi,0,pi) q[0];\n\
+              barrier q;\ncz q[0],q[1];\nmeasure q -> c;\n";
+    std::fs::write(&f, ok).unwrap();
+    let run = |extra: &[&str]| {
+        common::slackmap()
+            .args(["check", "--layout", common::good("layout.toml").to_str().unwrap()])
+            .args(["--circuits", f.to_str().unwrap()])
+            .args(extra)
+            .output()
+            .unwrap()
+    };
+    let out = run(&["--qubit-map", "q[0]=q1,q[1]=q4"]);
+    assert_eq!(out.status.code(), Some(0), "{}", String::from_utf8_lossy(&out.stderr));
+    // Registers need a placement, as in OpenQASM 3.
+    let out = run(&[]);
     assert_eq!(out.status.code(), Some(2));
     let m = String::from_utf8_lossy(&out.stderr);
-    assert!(m.contains("old.qasm line 1") && m.contains("'qubit[n] q;' for 'qreg q[n];'"), "{m}");
+    assert!(m.contains("old.qasm line 5") && m.contains("no qubit map was given"), "{m}");
+    // What OpenQASM 2 has beyond the subset stays an error with file and line.
+    for (body, line, what) in [
+        ("if(c==1) x q[0];\n", "line 5", "classical control flow"),
+        ("opaque magic a;\n", "line 5", "opaque definitions"),
+        ("x q[0];\nmeasure q[0] -> c[0];\nx q[1];\n", "line 7", "after a measurement"),
+        ("reset q[0];\nx q[0];\nreset q[0];\n", "line 7", "reset of q1 after a gate"),
+    ] {
+        let text =
+            format!("OPENQASM 2.0;\ninclude \"qelib1.inc\";\nqreg q[2];\ncreg c[2];\n{body}");
+        std::fs::write(&f, text).unwrap();
+        let out = run(&["--qubit-map", "q[0]=q1,q[1]=q4"]);
+        assert_eq!(out.status.code(), Some(2), "{body}");
+        let m = String::from_utf8_lossy(&out.stderr);
+        assert!(m.contains(&format!("old.qasm {line}")) && m.contains(what), "{body}: {m}");
+    }
 }
 
 #[test]

@@ -34,6 +34,22 @@ pub struct CircuitWire {
     pub measured: Vec<String>,
     /// Layers of operations.
     pub layers: Vec<Vec<OpWire>>,
+    /// OpenQASM `delay[...]` idles as read: each names an explicit `id` of its qubit in a
+    /// layer, with the duration as written (recorded, not modelled).
+    #[serde(default, skip_serializing_if = "Vec::is_empty")]
+    pub delays: Vec<DelayWire>,
+}
+
+/// One recorded delay on the wire.
+#[derive(Serialize, Deserialize, Debug)]
+#[serde(deny_unknown_fields)]
+pub struct DelayWire {
+    /// The idling qubit's id.
+    pub qubit: String,
+    /// The layer (0-based) holding the qubit's `id`.
+    pub layer: usize,
+    /// The duration as written (`100ns`, `2dt`).
+    pub duration: String,
 }
 
 /// One operation on the wire.
@@ -49,7 +65,7 @@ pub struct OpWire {
     pub qubits: Vec<String>,
 }
 
-use super::{Circuit, CircuitSet, Op};
+use super::{Circuit, CircuitSet, Delay, Op};
 use crate::layout::Layout;
 
 /// Converts a circuit set to its wire form (ids from the layout; idles left implicit).
@@ -57,13 +73,23 @@ pub fn to_wire(set: &CircuitSet, layout: &Layout) -> FileWire {
     let circuits = set
         .circuits
         .iter()
-        .map(|c| CircuitWire {
+        .enumerate()
+        .map(|(i, c)| CircuitWire {
             id: c.id.clone(),
             measured: c.measured.iter().map(|&q| layout.id(q).to_string()).collect(),
             layers: c
                 .layers
                 .iter()
                 .map(|l| l.iter().map(|op| op_wire(op, layout)).collect())
+                .collect(),
+            delays: set
+                .delays_of(i)
+                .iter()
+                .map(|d| DelayWire {
+                    qubit: layout.id(d.qubit).to_string(),
+                    layer: d.layer,
+                    duration: d.duration.clone(),
+                })
                 .collect(),
         })
         .collect();
@@ -97,6 +123,7 @@ pub fn circuit_to_json(c: &Circuit, layout: &Layout) -> String {
         id: c.id.clone(),
         measured: c.measured.iter().map(|&q| layout.id(q).to_string()).collect(),
         layers: c.layers.iter().map(|l| l.iter().map(|op| op_wire(op, layout)).collect()).collect(),
+        delays: Vec::new(),
     };
     serde_json::to_string(&wire).expect("wire types always serialise")
 }
@@ -144,12 +171,27 @@ fn check_schema(schema: u32, path: &Path) -> Result<()> {
     Ok(())
 }
 
-fn into_set(circuits: Vec<Circuit>, path: &Path) -> Result<CircuitSet> {
-    CircuitSet::new(circuits).map_err(|m| {
+fn into_set(read: Vec<(Circuit, Vec<Delay>)>, path: &Path) -> Result<CircuitSet> {
+    let (circuits, delays): (Vec<Circuit>, Vec<Vec<Delay>>) = read.into_iter().unzip();
+    let mut set = CircuitSet::new(circuits).map_err(|m| {
         // The second circuit with the id is the one at fault.
         let line = super::duplicate_id(&m).and_then(|id| line_of_circuit(path, id, 1));
         Error::input(path, line, m)
-    })
+    })?;
+    for (i, d) in delays.into_iter().enumerate() {
+        set.set_delays(i, d);
+    }
+    Ok(set)
+}
+
+/// A circuit's delays with qubit ids resolved; the first unknown id is the fault.
+fn resolve_delays(wire: Vec<DelayWire>, layout: &Layout) -> std::result::Result<Vec<Delay>, Fault> {
+    wire.into_iter()
+        .map(|d| match layout.qubit(&d.qubit) {
+            Some(qubit) => Ok(Delay { qubit, layer: d.layer, duration: d.duration }),
+            None => Err(Fault::Qubit(d.qubit)),
+        })
+        .collect()
 }
 
 /// The first thing wrong with a circuit that is well-formed JSON.
@@ -252,7 +294,8 @@ pub fn from_wire(wire: FileWire, path: &Path, layout: &Layout) -> Result<Circuit
             }
             layers.push(layer);
         }
-        circuits.push(Circuit { id: cw.id, layers, measured });
+        let delays = resolve_delays(cw.delays, layout).map_err(fail)?;
+        circuits.push((Circuit { id: cw.id, layers, measured }, delays));
     }
     into_set(circuits, path)
 }
@@ -313,7 +356,7 @@ impl<'de> Visitor<'de> for Field {
 }
 
 const FILE_FIELDS: &[&str] = &["schema", "circuits"];
-const CIRCUIT_FIELDS: &[&str] = &["id", "measured", "layers"];
+const CIRCUIT_FIELDS: &[&str] = &["id", "measured", "layers", "delays"];
 const OP_FIELDS: &[&str] = &["gate", "params", "qubits"];
 
 /// Fails with serde's duplicate-field error when `slot` is already filled.
@@ -327,7 +370,7 @@ fn once<T, E: de::Error>(slot: &Option<T>, name: &'static str) -> std::result::R
 struct FileSeed<'s, 'a>(&'s Stream<'a>);
 
 seed! {
-    <'de> FileSeed<'_, '_> => (u32, Vec<Circuit>), deserialize_struct("FileWire", FILE_FIELDS), "struct FileWire";
+    <'de> FileSeed<'_, '_> => (u32, Vec<(Circuit, Vec<Delay>)>), deserialize_struct("FileWire", FILE_FIELDS), "struct FileWire";
     fn visit_map<A: MapAccess<'de>>(
         self,
         mut map: A,
@@ -351,7 +394,7 @@ seed! {
 struct CircuitsSeed<'s, 'a>(&'s Stream<'a>);
 
 seed! {
-    <'de> CircuitsSeed<'_, '_> => Vec<Circuit>, deserialize_seq(), "a sequence";
+    <'de> CircuitsSeed<'_, '_> => Vec<(Circuit, Vec<Delay>)>, deserialize_seq(), "a sequence";
     fn visit_seq<A: SeqAccess<'de>>(
         self,
         mut seq: A,
@@ -367,10 +410,10 @@ seed! {
 struct CircuitSeed<'s, 'a>(&'s Stream<'a>);
 
 seed! {
-    <'de> CircuitSeed<'_, '_> => Circuit, deserialize_struct("CircuitWire", CIRCUIT_FIELDS), "struct CircuitWire";
-    fn visit_map<A: MapAccess<'de>>(self, mut map: A) -> std::result::Result<Circuit, A::Error> {
+    <'de> CircuitSeed<'_, '_> => (Circuit, Vec<Delay>), deserialize_struct("CircuitWire", CIRCUIT_FIELDS), "struct CircuitWire";
+    fn visit_map<A: MapAccess<'de>>(self, mut map: A) -> std::result::Result<Self::Value, A::Error> {
         let layout = self.0.layout;
-        let (mut id, mut measured, mut layers) = (None, None, None);
+        let (mut id, mut measured, mut layers, mut delays) = (None, None, None, None);
         while let Some(field) = map.next_key_seed(Field(CIRCUIT_FIELDS))? {
             match field {
                 0 => {
@@ -381,24 +424,33 @@ seed! {
                     once(&measured, "measured")?;
                     measured = Some(map.next_value_seed(QubitsSeed(layout, true))?);
                 }
-                _ => {
+                2 => {
                     once(&layers, "layers")?;
                     layers = Some(map.next_value_seed(LayersSeed(layout))?);
+                }
+                _ => {
+                    once(&delays, "delays")?;
+                    delays = Some(map.next_value::<Vec<DelayWire>>()?);
                 }
             }
         }
         let id: String = id.ok_or_else(|| de::Error::missing_field("id"))?;
         let measured: QubitsRead = measured.ok_or_else(|| de::Error::missing_field("measured"))?;
         let (layers, layer_fault) = layers.ok_or_else(|| de::Error::missing_field("layers"))?;
-        // Measured ids are checked before the layers, as in [`from_wire`].
-        let fault = measured.unknown.map(Fault::Qubit).or(layer_fault);
+        // Measured ids are checked before the layers, and the layers before the delays, as
+        // in [`from_wire`].
+        let (delays, delay_fault) = match resolve_delays(delays.unwrap_or_default(), layout) {
+            Ok(d) => (d, None),
+            Err(f) => (Vec::new(), Some(f)),
+        };
+        let fault = measured.unknown.map(Fault::Qubit).or(layer_fault).or(delay_fault);
         if let Some(fault) = fault {
             let mut first = self.0.fault.borrow_mut();
             if first.is_none() {
                 *first = Some((id.clone(), fault));
             }
         }
-        Ok(Circuit { id, layers, measured: measured.qubits })
+        Ok((Circuit { id, layers, measured: measured.qubits }, delays))
     }
 }
 
@@ -598,6 +650,18 @@ mod tests {
             good.replace("]]}", "]]"),
             good.replace("\"id\":\"a\"", "\"id\":3"),
             format!("{good} trailing"),
+            good.replace(
+                "\"id\":\"b\"",
+                "\"id\":\"b\",\"delays\":[{\"qubit\":\"q4\",\"layer\":0,\"duration\":\"40ns\"}]",
+            ),
+            good.replace(
+                "\"id\":\"b\"",
+                "\"id\":\"b\",\"delays\":[{\"qubit\":\"q99\",\"layer\":0,\"duration\":\"4dt\"}]",
+            ),
+            good.replace(
+                "\"id\":\"b\"",
+                "\"id\":\"b\",\"delays\":[{\"qubit\":\"q4\",\"layer\":0}]",
+            ),
         ];
         let dir = tempfile::tempdir().unwrap();
         for (i, doc) in docs.iter().enumerate() {
@@ -606,7 +670,12 @@ mod tests {
             let streamed = read_json(&path, &l);
             let whole = via_wire(doc, &path, &l);
             match (streamed, whole) {
-                (Ok(a), Ok(b)) => assert_eq!(a.circuits, b.circuits, "document {i}"),
+                (Ok(a), Ok(b)) => {
+                    assert_eq!(a.circuits, b.circuits, "document {i}");
+                    let (da, db): (Vec<_>, Vec<_>) =
+                        (a.all_delays().collect(), b.all_delays().collect());
+                    assert_eq!(da, db, "document {i}");
+                }
                 (Err(a), Err(b)) => assert_eq!(a.to_string(), b.to_string(), "document {i}"),
                 (a, b) => panic!("document {i}: streamed {a:?}, whole {b:?}"),
             }
@@ -617,5 +686,14 @@ mod tests {
         assert_eq!(a.layers[0][1], Op::rot(Gate::Rz, 1, 0.5));
         assert_eq!(a.layers[1][0], Op::two(Gate::Cz, 1, 0));
         assert_eq!(set.circuits[1].layers[0][0], Op::one(Gate::X, 4));
+        // Delays are carried through the reader and back out by the writer.
+        let set = read_json(&dir.path().join(format!("c{}.json", docs.len() - 3)), &l).unwrap();
+        let want = Delay { qubit: 4, layer: 0, duration: "40ns".into() };
+        assert_eq!(set.delays_of(1), std::slice::from_ref(&want));
+        assert!(
+            to_json(&set, &l).contains(r#""delays":[{"qubit":"q4","layer":0,"duration":"40ns"}]"#)
+        );
+        let m = read_json(&dir.path().join(format!("c{}.json", docs.len() - 2)), &l).unwrap_err();
+        assert!(m.to_string().contains("qubit 'q99' is not in layout"), "{m}");
     }
 }

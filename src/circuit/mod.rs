@@ -79,12 +79,27 @@ pub(crate) fn duplicate_id(message: &str) -> Option<&str> {
     message.strip_prefix(DUPLICATE_ID)?.strip_prefix('\'')?.strip_suffix('\'')
 }
 
+/// An OpenQASM `delay[...]` as read: an explicit idle of `qubit` in layer `layer` (an `id`
+/// operation there), with its duration as written (`100ns`, `2dt`, `1.5us`). Durations are
+/// recorded for the user to see, not modelled: the analysis sees an idle layer.
+#[derive(Clone, Debug, PartialEq, Eq)]
+pub struct Delay {
+    /// The idling qubit.
+    pub qubit: QubitIx,
+    /// The layer (0-based, counting every layer) that holds the idle.
+    pub layer: usize,
+    /// The duration as written in the program.
+    pub duration: String,
+}
+
 /// A set of circuits with unique ids, in file order.
 #[derive(Clone, Debug, Default)]
 pub struct CircuitSet {
     /// The circuits.
     pub circuits: Vec<Circuit>,
     index: HashMap<String, usize>,
+    /// Recorded delays, by circuit position (only circuits that have some).
+    delays: std::collections::BTreeMap<usize, Vec<Delay>>,
 }
 
 impl CircuitSet {
@@ -96,7 +111,26 @@ impl CircuitSet {
                 return Err(format!("{DUPLICATE_ID}'{}'", c.id));
             }
         }
-        Ok(CircuitSet { circuits, index })
+        Ok(CircuitSet { circuits, index, delays: Default::default() })
+    }
+
+    /// Records the delays of the circuit at position `i` (replacing any recorded before).
+    pub fn set_delays(&mut self, i: usize, delays: Vec<Delay>) {
+        if delays.is_empty() {
+            self.delays.remove(&i);
+        } else {
+            self.delays.insert(i, delays);
+        }
+    }
+
+    /// The recorded delays of the circuit at position `i`.
+    pub fn delays_of(&self, i: usize) -> &[Delay] {
+        self.delays.get(&i).map_or(&[], Vec::as_slice)
+    }
+
+    /// Every recorded delay with its circuit's position, in circuit order.
+    pub fn all_delays(&self) -> impl Iterator<Item = (usize, &Delay)> {
+        self.delays.iter().flat_map(|(&i, v)| v.iter().map(move |d| (i, d)))
     }
 
     /// Position of a circuit id.

@@ -7,10 +7,15 @@
 //! specification, "Language"); everything outside it is an error naming file and line.
 //!
 //! ```text
-//! program    = [ "OPENQASM" version ";" ] { statement } ;
-//! statement  = "include" string ";"                 (only "stdgates.inc")
+//! program    = [ "OPENQASM" version ";" ] { statement } ;     (version 3, 3.x, 2 or 2.x)
+//! statement  = "include" string ";"           ("stdgates.inc", or "qelib1.inc")
 //!            | "qubit" [ "[" int "]" ] ident ";"
 //!            | "bit" [ "[" int "]" ] ident ";"
+//!            | "qreg" ident "[" int "]" ";"        (OpenQASM 2: a qubit register)
+//!            | "creg" ident "[" int "]" ";"        (OpenQASM 2: a bit register)
+//!            | "delay" "[" duration "]" targets ";"   (an idle; duration recorded)
+//!            | "reset" targets ";"                 (before the qubit's first gate only)
+//!            | "gate" ident [ "(" idents ")" ] idents "{" { gate call } "}"
 //!            | "barrier" [ target { "," target } ] ";"    (target = operand | register)
 //!            | gate [ "(" expr ")" ] operand { "," operand } ";"
 //!            | bitref "=" "measure" operand ";"
@@ -18,7 +23,8 @@
 //!            | "gphase" [ "(" expr ")" ] ";"          (ignored: no outcome sees it)
 //! gate       = "id" | "x" | "y" | "z" | "h" | "s" | "sdg" | "sx"
 //!            | "rx" | "ry" | "rz" | "cz" | "cx"
-//!            | "p" | "phase" | "u1" | "t" | "tdg" ;   (read as rz, equal up to a phase)
+//!            | "p" | "phase" | "u1" | "t" | "tdg"     (read as rz, equal up to a phase)
+//!            | other stdgates.inc gates, the layout's natives, defined gates ;
 //! operand    = "$" int | ident "[" int "]" | ident ;   (ident alone: a one-qubit register)
 //! bitref     = ident "[" int "]" | ident ;
 //! expr       = term { ("+" | "-") term } ;
@@ -26,10 +32,11 @@
 //! unary      = ("-" | "+") unary | primary ;
 //! primary    = number | "pi" | "π" | "tau" | "τ" | "(" expr ")" ;
 //! ```
-//! Comments `//` and `/* */`, `#pragma` lines and annotation lines (`@name ...`) are skipped;
-//! `OPENQASM 2` programs are refused with how to convert them. Layers: the operations
-//! between two barriers (the whole program when it has none) form one segment, laid out
-//! by `segment_layers` (a partial `barrier q...;` separates segments just the same).
+//! Comments `//` and `/* */`, `#pragma` lines and annotation lines (`@name ...`) are skipped.
+//! After `OPENQASM 2.0;` qelib1.inc's `cu1`, `cu3` and `u` are read as stdgates.inc's `cp`,
+//! `cu` (fourth angle 0) and `u3`; every other construct reads as in OpenQASM 3.
+//! Layers: the operations between two barriers (the whole program when it has none) form
+//! one segment, laid out by `segment_layers` (a partial `barrier q...;` separates segments just the same).
 //! All measurements come after the last gate; the measured list is ordered by bit
 //! (registers in declaration order, then index), and every declared bit must be
 //! measured exactly once. Explicit `id` operations are kept: they
@@ -40,7 +47,7 @@ use std::collections::{BTreeMap, HashMap};
 use std::fmt::Write;
 use std::path::Path;
 
-use super::{Circuit, Layer, Op};
+use super::{Circuit, Delay, Layer, Op};
 use crate::error::{Error, Result};
 use crate::gate::{Gate, Mat2, Unitary};
 use crate::layout::{Layout, QubitIx};
@@ -365,7 +372,6 @@ fn unsupported(word: &str) -> Option<&'static str> {
         | "const" | "input" | "output" | "let" | "array" => {
             "classical declarations other than 'bit'"
         }
-        "qreg" | "creg" => "OpenQASM 2 register declarations (use 'qubit[n] q;' and 'bit[n] c;')",
         "box" | "defcal" | "cal" | "defcalgrammar" | "extern" | "return" | "end" => {
             "timing boxes, calibration and subroutine constructs"
         }
@@ -388,11 +394,18 @@ fn phase_gate(word: &str) -> Option<Option<f64>> {
     }
 }
 
-/// Why an OpenQASM 2 program is refused, and how to convert it.
-const OPENQASM2: &str = "OpenQASM 2 programs are not read; convert to OpenQASM 3: write \
-     'OPENQASM 3.0;' and 'include \"stdgates.inc\";' (for \"qelib1.inc\"), 'qubit[n] q;' for \
-     'qreg q[n];', 'bit[n] c;' for 'creg c[n];'; 'measure q[i] -> c[i];' and the gate lines \
-     stay as they are";
+/// The OpenQASM 3 (stdgates.inc) gate that a qelib1.inc gate of OpenQASM 2 is, and how
+/// many angles it takes there: `cu1(λ)` is `cp(λ)`, `cu3(θ, φ, λ)` is `cu(θ, φ, λ, 0)`
+/// and `u(θ, φ, λ)` is `u3` (OpenQASM 2 specification, qelib1.inc; OpenQASM 3
+/// specification, stdgates.inc, which keeps the other names).
+fn qelib1_alias(word: &str) -> Option<(&'static str, usize)> {
+    Some(match word {
+        "cu1" => ("cp", 1),
+        "cu3" => ("cu", 3),
+        "u" => ("u3", 3),
+        _ => return None,
+    })
+}
 
 /// Deepest parenthesis nesting accepted in an angle, so hostile input cannot overflow
 /// the stack.
@@ -409,6 +422,8 @@ struct Parser<'a> {
     bregs: HashMap<String, (usize, usize)>,
     breg_order: Vec<(String, usize)>,
     items: Vec<Item>,
+    /// Delays as (position in `items` of their idle, duration as written).
+    delays: Vec<(usize, String)>,
     measures: Vec<((usize, usize), QubitIx, usize)>,
     n_statements: usize,
     /// `gate` definitions whose calls are expanded.
@@ -418,6 +433,8 @@ struct Parser<'a> {
     /// While a definition of a known gate is checked: each call's unitary and operands
     /// (formal qubits numbered from 0), instead of operations.
     collect: Option<Vec<(Unitary, Vec<QubitIx>)>>,
+    /// True after `OPENQASM 2.0;`: qelib1.inc's names are read too.
+    qasm2: bool,
 }
 
 /// A `gate` definition: formal angles and qubits, and the body's tokens.
@@ -461,11 +478,13 @@ impl<'a> Parser<'a> {
             bregs: HashMap::new(),
             breg_order: Vec::new(),
             items: Vec::new(),
+            delays: Vec::new(),
             measures: Vec::new(),
             n_statements: 0,
             defs: HashMap::new(),
             scopes: Vec::new(),
             collect: None,
+            qasm2: false,
         }
     }
 
@@ -586,15 +605,16 @@ impl<'a> Parser<'a> {
                 }
                 match self.bump().map(|t| t.tok) {
                     Some(Tok::Num(v)) if v == "3" || v.starts_with("3.") => {}
-                    Some(Tok::Num(v)) if v == "2" || v.starts_with("2.") => {
-                        return Err(self.err(line, OPENQASM2));
-                    }
+                    Some(Tok::Num(v)) if v == "2" || v.starts_with("2.") => self.qasm2 = true,
                     other => {
                         let shown = other
                             .map_or("nothing".into(), |t| describe(Some(&Token { tok: t, line })));
                         return Err(self.err(
                             line,
-                            format!("OpenQASM version {shown} is not supported (valid: 3 or 3.0)"),
+                            format!(
+                                "OpenQASM version {shown} is not supported (valid: 3, 3.0, or 2.0 \
+                                 for OpenQASM 2 programs)"
+                            ),
                         ));
                     }
                 }
@@ -603,11 +623,14 @@ impl<'a> Parser<'a> {
             "include" => {
                 self.pos += 1;
                 match self.bump().map(|t| t.tok) {
-                    Some(Tok::Str(s)) if s == "stdgates.inc" => {}
+                    Some(Tok::Str(s)) if s == "stdgates.inc" || s == "qelib1.inc" => {}
                     Some(Tok::Str(s)) => {
                         return Err(self.err(
                             line,
-                            format!("include \"{s}\" is not supported (only \"stdgates.inc\")"),
+                            format!(
+                                "include \"{s}\" is not supported (only \"stdgates.inc\", or \
+                                 \"qelib1.inc\" in OpenQASM 2 programs)"
+                            ),
                         ))
                     }
                     _ => return Err(self.err(line, "include needs a file name in quotes")),
@@ -634,6 +657,25 @@ impl<'a> Parser<'a> {
                 }
                 Ok(())
             }
+            "qreg" | "creg" => {
+                // OpenQASM 2: `qreg q[n];` is `qubit[n] q;` and `creg c[n];` is `bit[n] c;`.
+                self.pos += 1;
+                let name = self.ident("a register name")?;
+                if self.declared(&name) {
+                    return Err(self.err(line, format!("register '{name}' is declared twice")));
+                }
+                let size = self.optional_size()?.ok_or_else(|| {
+                    self.err(line, format!("{word} needs a size, like '{word} {name}[2];'"))
+                })?;
+                self.expect_punct(";", "after the declaration")?;
+                if word == "qreg" {
+                    self.qregs.insert(name, size);
+                } else {
+                    self.bregs.insert(name.clone(), (self.breg_order.len(), size));
+                    self.breg_order.push((name, size));
+                }
+                Ok(())
+            }
             "barrier" => {
                 self.pos += 1;
                 if !self.is_punct(";") {
@@ -652,6 +694,12 @@ impl<'a> Parser<'a> {
                 self.pos += 1;
                 let qs = self.operands_or_registers()?;
                 self.expect_punct(";", "after the reset")?;
+                if !self.measures.is_empty() {
+                    return Err(self.err(
+                        line,
+                        "a reset after a measurement is not supported: measure at the end of the program",
+                    ));
+                }
                 for q in qs {
                     let used = self
                         .items
@@ -679,6 +727,15 @@ impl<'a> Parser<'a> {
                 if self.pos == start {
                     return Err(self.err(line, "delay needs a duration, like delay[100ns] $0;"));
                 }
+                let duration: String = self.toks[start..self.pos]
+                    .iter()
+                    .map(|t| match &t.tok {
+                        Tok::Num(v) | Tok::Ident(v) => v.clone(),
+                        Tok::Hw(v) => format!("${v}"),
+                        Tok::Str(v) => format!("\"{v}\""),
+                        Tok::Punct(p) => p.to_string(),
+                    })
+                    .collect();
                 self.expect_punct("]", "after the delay's duration")?;
                 if self.is_punct(";") {
                     return Err(
@@ -690,8 +747,9 @@ impl<'a> Parser<'a> {
                 if !self.measures.is_empty() {
                     return Err(self.err(line, "gates after a measurement are not supported: measure at the end of the program"));
                 }
-                // An explicit idle in its layer; its duration is not modelled.
+                // An explicit idle in its layer; its duration is recorded, not modelled.
                 for q in qs {
+                    self.delays.push((self.items.len(), duration.clone()));
                     self.items.push(Item::Op(Op::one(Gate::Id, q)));
                 }
                 Ok(())
@@ -765,7 +823,15 @@ impl<'a> Parser<'a> {
             }
             return self.expect_punct(";", "after gphase");
         }
-        let Some((arity, n_angles)) = self.signature(word) else {
+        // OpenQASM 2's qelib1.inc names that stdgates.inc spells otherwise; cu3 is cu with
+        // its fourth angle (a phase on the controlled branch) at 0.
+        let alias =
+            if self.qasm2 && !self.defs.contains_key(word) { qelib1_alias(word) } else { None };
+        let signature = match alias {
+            Some((name, n)) => self.signature(name).map(|(arity, _)| (arity, n)),
+            None => self.signature(word),
+        };
+        let Some((arity, n_angles)) = signature else {
             let msg = match unsupported(word) {
                 Some(what) => format!("'{word}': {what} are not supported by this importer"),
                 None => format!(
@@ -825,7 +891,15 @@ impl<'a> Parser<'a> {
                 "gates after a measurement are not supported: measure at the end of the program",
             ));
         }
-        self.emit(word, &angles, &qs, line)
+        match alias {
+            Some((name, _)) => {
+                if name == "cu" {
+                    angles.push(0.0);
+                }
+                self.emit(name, &angles, &qs, line)
+            }
+            None => self.emit(word, &angles, &qs, line),
+        }
     }
 
     /// (qubits, angles) of a gate name this program may call.
@@ -952,12 +1026,17 @@ impl<'a> Parser<'a> {
                 None
             }
             (Unitary::Two(_), &[a, b]) => {
+                // A directed native counts only in its coupler's direction: the other way
+                // round is not the operation the chip calibrated.
+                let either = |n: &crate::layout::Native2| n.gate.is_symmetric();
                 for n in self.layout.natives_between(a, b) {
                     let v = Unitary::Two(n.unitary());
-                    if v.same_up_to_phase(u) {
+                    let forward = either(n) || self.layout.runs_forward(a, b);
+                    if forward && v.same_up_to_phase(u) {
                         return Some(Op { gate: n.gate, operands: [a, b], angle: n.angle });
                     }
-                    if v.swapped().same_up_to_phase(u) {
+                    let backward = either(n) || self.layout.runs_forward(b, a);
+                    if backward && v.swapped().same_up_to_phase(u) {
                         return Some(Op { gate: n.gate, operands: [b, a], angle: n.angle });
                     }
                 }
@@ -1001,7 +1080,11 @@ impl<'a> Parser<'a> {
         while self.pos < self.toks.len() {
             let line = self.line();
             match self.peek() {
-                Some(Tok::Ident(w)) if self.signature(w).is_some() || w == "gphase" => {
+                Some(Tok::Ident(w))
+                    if self.signature(w).is_some()
+                        || w == "gphase"
+                        || (self.qasm2 && qelib1_alias(w).is_some()) =>
+                {
                     let w = w.clone();
                     self.gate_call(&w, line)?;
                 }
@@ -1376,8 +1459,9 @@ impl<'a> Parser<'a> {
         }
     }
 
-    fn finish(self) -> Result<Circuit> {
+    fn finish(self) -> Result<(Circuit, Vec<Delay>)> {
         let layers = self.barrier_layers();
+        let delays = self.delay_layers(&layers);
         let mut measures = self.measures.clone();
         measures.sort_by_key(|&(bit, _, line)| (bit, line));
         for w in measures.windows(2) {
@@ -1408,11 +1492,41 @@ impl<'a> Parser<'a> {
                 }
             }
         }
-        Ok(Circuit {
+        let circuit = Circuit {
             id: self.id.to_string(),
             layers,
             measured: measures.iter().map(|m| m.1).collect(),
-        })
+        };
+        Ok((circuit, delays))
+    }
+
+    /// Where each delay's idle landed. Layering keeps every qubit's program order, so the
+    /// k-th `id` on a qubit in the program is the k-th `id` on it in layer order.
+    fn delay_layers(&self, layers: &[Layer]) -> Vec<Delay> {
+        let mut idles_in_layers: HashMap<QubitIx, Vec<usize>> = HashMap::new();
+        for (t, layer) in layers.iter().enumerate() {
+            for op in layer.iter().filter(|op| op.gate == Gate::Id) {
+                idles_in_layers.entry(op.operands[0]).or_default().push(t);
+            }
+        }
+        let mut seen: HashMap<QubitIx, usize> = HashMap::new();
+        let mut out = Vec::with_capacity(self.delays.len());
+        let mut next = self.delays.iter().peekable();
+        for (i, item) in self.items.iter().enumerate() {
+            let Item::Op(op) = item else { continue };
+            if op.gate != Gate::Id {
+                continue;
+            }
+            let q = op.operands[0];
+            let k = seen.entry(q).or_insert(0);
+            if let Some((_, duration)) = next.next_if(|(at, _)| *at == i) {
+                if let Some(&layer) = idles_in_layers.get(&q).and_then(|v| v.get(*k)) {
+                    out.push(Delay { qubit: q, layer, duration: duration.clone() });
+                }
+            }
+            *k += 1;
+        }
+        out
     }
 
     /// The layers: each stretch between barriers (the whole program when it has none)
@@ -1562,6 +1676,18 @@ pub fn import(
     layout: &Layout,
     map: Option<&QubitMap>,
 ) -> Result<Circuit> {
+    import_with_delays(text, path, id, layout, map).map(|(c, _)| c)
+}
+
+/// [`import`], also giving the program's `delay[...]` statements: each idle's qubit, layer
+/// and duration as written (recorded for the user; durations are not modelled).
+pub fn import_with_delays(
+    text: &str,
+    path: &Path,
+    id: &str,
+    layout: &Layout,
+    map: Option<&QubitMap>,
+) -> Result<(Circuit, Vec<Delay>)> {
     let toks = tokenize(text)
         .map_err(|(line, m)| Error::input(path, Some(line), format!("circuit {id}: {m}")))?;
     let mut p = Parser::new(toks, path, id, layout, map);
@@ -1806,8 +1932,8 @@ mod tests {
             ("bit c;\nrz(pi/0) $0;\n", "line 2", "finite"),
             ("bit c;\nrz(foo) $0;\n", "line 2", "'foo'"),
             ("bit c;\nx $0\nx $1;\n", "line 3", "expected ';'"),
-            ("OPENQASM 2.0;\n", "line 1", "convert to OpenQASM 3"),
-            ("include \"qelib1.inc\";\n", "line 1", "qelib1.inc"),
+            ("OPENQASM 4.0;\n", "line 1", "valid: 3, 3.0, or 2.0"),
+            ("include \"other.inc\";\n", "line 1", "\"qelib1.inc\" in OpenQASM 2"),
             ("bit[2] c;\nc[0] = measure $0;\n", "line 2", "c[1] is declared but never measured"),
             ("bit[2] c;\nc[0] = measure $0;\nc[0] = measure $1;\n", "line 3", "measured twice"),
             ("bit[2] c;\nc[0] = measure $0;\nc[1] = measure $0;\n", "line 3", "measured twice"),
@@ -1815,7 +1941,9 @@ mod tests {
             ("bit c;\nc[3] = measure $0;\n", "line 2", "out of range"),
             ("bit c;\n/* never closed\n", "line 2", "never closed"),
             ("bit c; x $0; # no\n", "line 1", "unexpected character"),
-            ("qreg q[2];\n", "line 1", "OpenQASM 2"),
+            ("qreg q;\n", "line 1", "qreg needs a size, like 'qreg q[2];'"),
+            ("bit c;\nc = measure $0;\nreset $0;\n", "line 3", "reset after a measurement"),
+            ("OPENQASM 2.0;\nbit c;\ncu3(1, 2) $0, $1;\n", "line 3", "takes 3 angles"),
         ];
         for (text, line, frag) in cases {
             let e = err_text(text);

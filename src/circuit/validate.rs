@@ -73,6 +73,26 @@ pub fn validate_circuit(c: &Circuit, layout: &Layout, allow_non_native: bool) ->
                 }
             }
             let on_coupler = qs.len() == 2 && layout.coupler(qs[0], qs[1]).is_some();
+            if let Some((from, to)) = layout.reversed_native(op.gate, qs, op.angle) {
+                if !allow_non_native {
+                    return fail(format!(
+                        "layer {t}: {} on {}-{} runs against its coupler's direction: layout '{}' \
+                         writes the coupler {}-{}, so its {} runs from {} (the control of cx and \
+                         ecr), the only direction the chip calibrated. The reversed gate is \
+                         another operation: write it the calibrated way round (cx reversed is \
+                         h on both qubits, cx, h on both), or pass --allow-non-native to audit \
+                         it as an operation of its own",
+                        op.gate,
+                        name(qs[0]),
+                        name(qs[1]),
+                        layout.name,
+                        name(from),
+                        name(to),
+                        op.gate,
+                        name(from)
+                    ));
+                }
+            }
             if !allow_non_native
                 && (qs.len() == 1 || on_coupler)
                 && !layout.is_native_op(op.gate, qs, op.angle)
@@ -135,8 +155,31 @@ pub fn validate_circuit(c: &Circuit, layout: &Layout, allow_non_native: bool) ->
 }
 
 /// Checks every circuit of a set; the first problem, in circuit order, is returned.
+/// A recorded delay must name a layer of its circuit where its qubit idles explicitly.
 pub fn validate(set: &CircuitSet, layout: &Layout, allow_non_native: bool) -> Result<()> {
-    set.circuits.iter().try_for_each(|c| validate_circuit(c, layout, allow_non_native))
+    for (i, c) in set.circuits.iter().enumerate() {
+        validate_circuit(c, layout, allow_non_native)?;
+        for d in set.delays_of(i) {
+            let idles = c.layers.get(d.layer).is_some_and(|l| {
+                l.iter().any(|op| op.gate == Gate::Id && op.operands[0] == d.qubit)
+            });
+            if !idles {
+                return Err(Error::circuit(
+                    &c.id,
+                    format!(
+                        "delay[{}] on {} names layer {}, which has no explicit idle (`id`) of {} \
+                         (a delay is an idle of its qubit in a layer of 0 to {})",
+                        crate::error::echo(&d.duration),
+                        layout.id(d.qubit),
+                        d.layer,
+                        layout.id(d.qubit),
+                        c.layers.len().saturating_sub(1)
+                    ),
+                ));
+            }
+        }
+    }
+    Ok(())
 }
 
 fn at_file(path: &Path, e: Error) -> Error {
@@ -152,12 +195,20 @@ fn at_file(path: &Path, e: Error) -> Error {
 /// file (one circuit, id = file stem), or a folder of `.qasm` files (one circuit per
 /// file, id = file stem, sorted by file name). Validation errors name the file.
 pub fn read_circuits(path: &Path, layout: &Layout, opts: &ReadOptions) -> Result<CircuitSet> {
-    let read_qasm = |p: &Path| -> Result<super::Circuit> {
+    let read_qasm = |p: &Path| -> Result<(super::Circuit, Vec<super::Delay>)> {
         let text = crate::files::read_text_capped(p, qasm::MAX_QASM_FILE_BYTES, "OpenQASM file")?;
         let id = p.file_stem().map(|s| s.to_string_lossy().into_owned()).unwrap_or_default();
-        let c = qasm::import(&text, p, &id, layout, opts.qubit_map.as_ref())?;
+        let (c, delays) = qasm::import_with_delays(&text, p, &id, layout, opts.qubit_map.as_ref())?;
         validate_circuit(&c, layout, opts.allow_non_native).map_err(|e| at_file(p, e))?;
-        Ok(c)
+        Ok((c, delays))
+    };
+    let with_delays = |read: Vec<(super::Circuit, Vec<super::Delay>)>, at: &Path| {
+        let (circuits, delays): (Vec<_>, Vec<_>) = read.into_iter().unzip();
+        let mut set = CircuitSet::new(circuits).map_err(|m| Error::input(at, None, m))?;
+        for (i, d) in delays.into_iter().enumerate() {
+            set.set_delays(i, d);
+        }
+        Ok::<CircuitSet, Error>(set)
     };
     let ext = path.extension().and_then(|e| e.to_str()).map(str::to_ascii_lowercase);
     if path.is_dir() {
@@ -166,7 +217,7 @@ pub fn read_circuits(path: &Path, layout: &Layout, opts: &ReadOptions) -> Result
             return Err(Error::input(path, None, "folder holds no .qasm files"));
         }
         let circuits = files.iter().map(|p| read_qasm(p)).collect::<Result<Vec<_>>>()?;
-        return CircuitSet::new(circuits).map_err(|m| Error::input(path, None, m));
+        return with_delays(circuits, path);
     }
     match ext.as_deref() {
         Some("json") => {
@@ -183,7 +234,7 @@ pub fn read_circuits(path: &Path, layout: &Layout, opts: &ReadOptions) -> Result
         }
         Some("qasm") => {
             let c = read_qasm(path)?;
-            CircuitSet::new(vec![c]).map_err(|m| Error::input(path, None, m))
+            with_delays(vec![c], path)
         }
         _ => {
             // The operating system's own reason (missing, a loop of links, no permission).

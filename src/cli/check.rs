@@ -60,6 +60,12 @@ fn print(layout: &Layout, s: &CheckSummary, style: Style) {
         layout.placement(PLACEMENT_SHOWN),
     ]);
     t.add_row(["circuits".to_string(), s.n_circuits.to_string()]);
+    if s.delays.count > 0 {
+        t.add_row([
+            "delays (read as idle layers; durations recorded, not modelled)".to_string(),
+            s.delays.describe(),
+        ]);
+    }
     t.add_row(["layers (min / median / max)".to_string(), spread(&s.layers)]);
     t.add_row(["blocks (1q / 2q)".to_string(), format!("{} / {}", s.blocks_1q, s.blocks_2q)]);
     t.add_row(["shots per circuit (min / median / max)".to_string(), spread(&s.shots)]);

@@ -87,6 +87,28 @@ impl InputArgs {
             warnings
                 .extend(slackmap::circuit::validate::skipped_directives_warning(&self.circuits)?);
         }
+        let delays = slackmap::check::DelaySummary::of(&layout, &circuits);
+        if delays.count > 0 {
+            warnings.push(Warning::new(
+                "delays-not-modelled",
+                format!(
+                    "the circuits hold {} delay(s) in {} circuit(s), read as explicit idles in \
+                     their layers; their durations ({}) are not modelled",
+                    delays.count,
+                    delays.circuits,
+                    delays
+                        .durations
+                        .iter()
+                        .take(8)
+                        .map(|(t, _)| slackmap::error::echo(t))
+                        .collect::<Vec<_>>()
+                        .join(", ")
+                ),
+                "an idle layer is judged like any other idle: a long delay's decoherence shows \
+                 as error of that qubit's idle, not of the time it lasted; `check` lists where \
+                 each delay sits",
+            ));
+        }
         let counts_read = match counts {
             Some(p) => {
                 if let Some(n) = self.shots {

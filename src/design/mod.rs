@@ -478,6 +478,12 @@ fn design_digest(layout: &Layout, cfg: &DesignConfig) -> String {
         "qubits {ids:?}\ncouplers {:?}\ngates {:?}\nneighbourhood {:?}\n",
         layout.couplers, layout.gates, layout.neighbourhood
     ));
+    if layout.has_reversed_directed() {
+        // Directions change the circuits only here; other digests stay as they were.
+        let d: Vec<(usize, usize)> =
+            (0..layout.couplers.len()).map(|c| layout.coupler_direction(c)).collect();
+        h.update(format!("directions {d:?}\n"));
+    }
     h.update(format!(
         "depths {:?}\nsequences {}\nkinds {:?}\nseed {}\n",
         cfg.depths, cfg.sequences, cfg.kinds, cfg.seed

@@ -233,30 +233,54 @@ pub(crate) struct Builder<'a> {
     entanglers: Vec<Vec<Entangler>>,
 }
 
-/// The Clifford natives of every coupler; fails naming the first coupler whose natives
-/// cannot serve Clifford sequences.
+/// The Clifford natives of every coupler; fails naming every coupler whose natives cannot
+/// serve Clifford sequences, each with its natives and why.
 fn coupler_entanglers(layout: &Layout) -> Result<Vec<Vec<Entangler>>> {
     // Couplers share a few lists; each distinct list is resolved once.
-    let mut seen: Vec<(&[crate::layout::Native2], Vec<Entangler>)> = Vec::new();
+    type Resolved = std::result::Result<Vec<Entangler>, String>;
+    let mut seen: Vec<(&[crate::layout::Native2], Resolved)> = Vec::new();
     let mut out = Vec::with_capacity(layout.couplers.len());
+    let mut refused: Vec<String> = Vec::new();
     for (c, &(a, b)) in layout.couplers.iter().enumerate() {
         let natives = layout.natives(c);
-        if let Some((_, e)) = seen.iter().find(|(n, _)| *n == natives) {
-            out.push(e.clone());
-            continue;
+        let resolved = match seen.iter().find(|(n, _)| *n == natives) {
+            Some((_, e)) => e.clone(),
+            None => {
+                // Each native on its own, so the message says why each one cannot serve.
+                let (ok, why): (Vec<_>, Vec<_>) =
+                    natives.iter().map(|&n| Entangler::new(n)).partition(|e| e.is_ok());
+                let e = if ok.is_empty() {
+                    Err(why.into_iter().filter_map(|e| e.err()).collect::<Vec<_>>().join(", "))
+                } else {
+                    Ok(ok.into_iter().filter_map(|e| e.ok()).collect())
+                };
+                seen.push((natives, e.clone()));
+                e
+            }
+        };
+        match resolved {
+            Ok(e) => out.push(e),
+            Err(m) => refused.push(format!("{}-{} ({m})", layout.id(a), layout.id(b))),
         }
-        let e = clifford::entanglers(natives).map_err(|m| {
-            Error::Usage(format!(
-                "layout '{}', coupler {}-{}: {m}",
-                crate::error::echo(&layout.name),
-                layout.id(a),
-                layout.id(b)
-            ))
-        })?;
-        seen.push((natives, e.clone()));
-        out.push(e);
     }
-    Ok(out)
+    if refused.is_empty() {
+        return Ok(out);
+    }
+    const SHOWN: usize = 6;
+    let n = refused.len();
+    let mut shown: Vec<String> = refused.into_iter().take(SHOWN).collect();
+    if n > SHOWN {
+        shown.push(format!("and {} more", n - SHOWN));
+    }
+    Err(Error::Usage(format!(
+        "layout '{}': {n} coupler(s) have no two-qubit gate that can serve Clifford sequences, \
+         so `design` cannot measure them: {}. Clifford sequences need a Clifford entangling \
+         two-qubit gate on every coupler, such as cz, cx, ecr or iswap, cp only at an angle of \
+         pi, rzz only at an odd multiple of pi/2, or a custom gate whose unitary is one: add \
+         one to each coupler's list beside the gates it has",
+        crate::error::echo(&layout.name),
+        shown.join("; ")
+    )))
 }
 
 impl<'a> Builder<'a> {
@@ -397,6 +421,14 @@ impl<'a> Builder<'a> {
         let (h, readout) = self.framing();
         let mut slots = Vec::with_capacity(depth + 2);
         let natives = self.entanglers_of(a, b)?;
+        // A directed native runs only the way the layout writes its coupler; the block's
+        // first operand is that coupler's first qubit (symmetric natives keep a, b).
+        let (a, b) = match self.layout.coupler(a, b) {
+            Some(c) if natives.iter().any(|e| !e.native.gate.is_symmetric()) => {
+                self.layout.coupler_direction(c)
+            }
+            _ => (a, b),
+        };
         let ideal = match kind {
             Kind::Randomized => {
                 let mut total = Tableau2::identity();

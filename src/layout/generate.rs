@@ -123,7 +123,11 @@ fn build(name: String, positions: Vec<[f64; 2]>, couplers: Vec<(usize, usize)>) 
         .enumerate()
         .map(|(i, p)| Qubit { id: format!("q{i}"), position: Some(p) })
         .collect();
-    let couplers = couplers.into_iter().map(|(a, b)| (format!("q{a}"), format!("q{b}"))).collect();
+    // Lower index first, so a directed native swapped in later runs from the lower index.
+    let couplers = couplers
+        .into_iter()
+        .map(|(a, b)| (format!("q{}", a.min(b)), format!("q{}", a.max(b))))
+        .collect();
     Layout::new(name, qubits, couplers, default_gates(), 1, Vec::new())
         .expect("generated layouts are valid by construction")
 }

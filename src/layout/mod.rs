@@ -158,6 +158,9 @@ pub struct Layout {
     coupler_index: HashMap<(QubitIx, QubitIx), usize>,
     /// The two-qubit natives of each coupler, by coupler index (never empty).
     coupler_natives: Vec<Vec<Native2>>,
+    /// Per coupler index: true when the file writes it (higher index, lower index), so a
+    /// directed native on it runs from the higher-index qubit.
+    written_reversed: Vec<bool>,
     adjacency: Vec<Vec<QubitIx>>,
     neighbours: Vec<Vec<QubitIx>>,
 }
@@ -239,6 +242,7 @@ impl Layout {
             index.get(id).copied().ok_or_else(|| format!("{what} names unknown qubit '{id}'"))
         };
         let mut set = BTreeSet::new();
+        let mut reversed = BTreeSet::new();
         for (a, b) in &couplers {
             let (ia, ib) = (lookup(a, "a coupler")?, lookup(b, "a coupler")?);
             if ia == ib {
@@ -247,8 +251,12 @@ impl Layout {
             if !set.insert((ia.min(ib), ia.max(ib))) {
                 return Err(format!("duplicate coupler {a}-{b}"));
             }
+            if ia > ib {
+                reversed.insert((ib, ia));
+            }
         }
         let couplers: Vec<(QubitIx, QubitIx)> = set.into_iter().collect();
+        let written_reversed: Vec<bool> = couplers.iter().map(|c| reversed.contains(c)).collect();
         let coupler_index: HashMap<(QubitIx, QubitIx), usize> =
             couplers.iter().enumerate().map(|(i, &c)| (c, i)).collect();
         let check_list = |list: &[Native2], whose: &str| -> std::result::Result<(), String> {
@@ -284,6 +292,14 @@ impl Layout {
                 return Err(format!("coupler {a}-{b}: its gate list is empty"));
             }
             check_list(list, &format!("coupler {a}-{b}"))?;
+            if written_reversed[c] != (ia > ib) {
+                if let Some(n) = list.iter().find(|n| !n.gate.is_symmetric()) {
+                    return Err(format!(
+                        "coupler {a}-{b} lists the directed gate {n} but `couplers` writes it \
+                         {b}-{a}: write both in the same order"
+                    ));
+                }
+            }
             coupler_natives[c] = Some(list.clone());
         }
         let mut resolved = Vec::with_capacity(couplers.len());
@@ -357,6 +373,7 @@ impl Layout {
             index,
             coupler_index,
             coupler_natives: resolved,
+            written_reversed,
             adjacency,
             neighbours: neighbours.into_iter().map(|s| s.into_iter().collect()).collect(),
         })
@@ -444,13 +461,58 @@ impl Layout {
         out
     }
 
+    /// Coupler `coupler` as the file writes it, (first, second): a directed native on it
+    /// (one whose unitary changes when its operands swap, like `cx` and `ecr`) runs with
+    /// `first` as its first operand, the only direction the chip calibrated.
+    pub fn coupler_direction(&self, coupler: usize) -> (QubitIx, QubitIx) {
+        let (a, b) = self.couplers[coupler];
+        if self.written_reversed[coupler] {
+            (b, a)
+        } else {
+            (a, b)
+        }
+    }
+
     /// True when an operation (gate, operands, angle) is native where it runs: a one-qubit
-    /// gate of the layout, or a two-qubit gate at its angle on a coupler that lists it.
+    /// gate of the layout, or a two-qubit gate at its angle on a coupler that lists it and,
+    /// for a directed gate, in the coupler's direction ([`Layout::coupler_direction`]).
     pub fn is_native_op(&self, gate: Gate, qubits: &[QubitIx], angle: f64) -> bool {
         match qubits {
-            [a, b] => self.natives_between(*a, *b).iter().any(|n| n.runs(gate, angle)),
+            [a, b] => {
+                self.natives_between(*a, *b).iter().any(|n| n.runs(gate, angle))
+                    && (gate.is_symmetric() || self.runs_forward(*a, *b))
+            }
             _ => gate == Gate::Id || self.gates.one_qubit.contains(&gate),
         }
+    }
+
+    /// True when (a, b) is the direction of coupler a-b ([`Layout::coupler_direction`]);
+    /// false when they are not coupled.
+    pub fn runs_forward(&self, a: QubitIx, b: QubitIx) -> bool {
+        self.coupler(a, b).is_some_and(|c| self.coupler_direction(c) == (a, b))
+    }
+
+    /// A directed gate on a coupler that lists it, applied against the coupler's direction:
+    /// the coupler as the file writes it, else `None`.
+    pub fn reversed_native(
+        &self,
+        gate: Gate,
+        qubits: &[QubitIx],
+        angle: f64,
+    ) -> Option<(QubitIx, QubitIx)> {
+        let [a, b] = *qubits else { return None };
+        let c = self.coupler(a, b)?;
+        let listed = self.natives(c).iter().any(|n| n.runs(gate, angle));
+        (listed && !gate.is_symmetric() && self.coupler_direction(c) != (a, b))
+            .then(|| self.coupler_direction(c))
+    }
+
+    /// True when some coupler carries a directed native and is written against index order
+    /// (the only case where directions change what `design` writes).
+    pub fn has_reversed_directed(&self) -> bool {
+        (0..self.couplers.len()).any(|c| {
+            self.written_reversed[c] && self.natives(c).iter().any(|n| !n.gate.is_symmetric())
+        })
     }
 
     /// Maximum coupler degree.

@@ -367,6 +367,20 @@ impl Checker<'_> {
                 );
             }
             let list = self.natives(&w.two_qubit, "coupler two_qubit")?;
+            // A directed gate runs from the first qubit `couplers` writes; a list written
+            // the other way round would leave the reader guessing which way the chip runs it.
+            let reversed = couplers.iter().any(|(x, y)| x == b && y == a);
+            if let Some(n) = list.iter().find(|n| !n.gate.is_symmetric()).filter(|_| reversed) {
+                return Err(self.err(
+                    w.qubits.span(),
+                    format!(
+                        "[[gates.coupler]] {a}-{b} lists the directed gate {n}, but `couplers` \
+                         writes this coupler {b}-{a}; a directed gate runs from the first qubit \
+                         of its `couplers` entry (here {b}, the control of cx and ecr): write \
+                         both in the same order"
+                    ),
+                ));
+            }
             coupler_gates.push((a.clone(), b.clone(), list));
         }
         if wire.two_qubit.is_none() && coupler_gates.len() < couplers.len() {
@@ -559,7 +573,10 @@ pub fn to_toml(layout: &Layout) -> String {
         }
         s.push_str("]\n");
     };
-    pair_list(&mut s, "couplers", &layout.couplers);
+    // Each coupler as written: a directed native runs from its first qubit.
+    let couplers: Vec<(usize, usize)> =
+        (0..layout.couplers.len()).map(|c| layout.coupler_direction(c)).collect();
+    pair_list(&mut s, "couplers", &couplers);
     let list =
         |gates: &[Gate]| gates.iter().map(|g| quote(g.name())).collect::<Vec<_>>().join(", ");
     s.push_str("\n[gates]\n");
@@ -627,6 +644,9 @@ mod tests {
         assert_eq!(a.name, b.name);
         assert_eq!(a.qubits, b.qubits);
         assert_eq!(a.couplers, b.couplers);
+        for c in 0..a.couplers.len() {
+            assert_eq!(a.coupler_direction(c), b.coupler_direction(c));
+        }
         assert_eq!(a.gates, b.gates);
         assert_eq!(a.neighbourhood, b.neighbourhood);
     }
@@ -666,6 +686,11 @@ mod tests {
         assert_eq!(l.qubits[0].position, None);
         assert_eq!(l.qubits[1].position, Some([-1.0, 2.5e-3]));
         assert_eq!(l.couplers, vec![(0, 1)]);
+        // cx runs from b, the first qubit written: b -> a is native, a -> b is not.
+        assert_eq!(l.coupler_direction(0), (1, 0));
+        assert!(l.is_native_op(Gate::Cx, &[1, 0], 0.0) && !l.is_native_op(Gate::Cx, &[0, 1], 0.0));
+        assert_eq!(l.reversed_native(Gate::Cx, &[0, 1], 0.0), Some((1, 0)));
+        assert!(to_toml(&l).contains("couplers = [\n  [\"b\", \"a\"],\n]"));
         assert_eq!(l.neighbourhood.extra_pairs, vec![(0, 2)]);
         assert!(l.gates.virtual_gates.is_empty());
         same(&l, &parse(&to_toml(&l)).unwrap());

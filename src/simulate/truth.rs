@@ -190,7 +190,7 @@ pub struct DriftTruth {
 pub struct CouplerTruth {
     /// The coupler, `qa-qb`.
     pub coupler: String,
-    /// Two-qubit kinds on it.
+    /// Its own two-qubit natives as operation kinds (a directed one in the direction it runs).
     pub intrinsic: Vec<KindTruth>,
 }
 
@@ -395,14 +395,6 @@ pub fn truth(layout: &Layout, noise: &Noise) -> Truth {
         .collect();
     one_q.sort_unstable();
     one_q.dedup();
-    let mut two_q: Vec<Gate> = layout
-        .all_natives()
-        .into_iter()
-        .map(|n| n.gate)
-        .chain(noise.gates_with_errors().into_iter().filter(|g| g.arity() == 2))
-        .collect();
-    two_q.sort_unstable();
-    two_q.dedup();
     let qubits = (0..layout.n_qubits())
         .map(|q| {
             let ro = noise.readout(q);
@@ -430,15 +422,30 @@ pub fn truth(layout: &Layout, noise: &Noise) -> Truth {
             }
         })
         .collect();
+    // Each coupler lists only its own natives; a directed one (cx, ecr) is labelled and
+    // measured in the direction the layout runs it, as the audit names its kind.
     let couplers = layout
         .couplers
         .iter()
-        .map(|&(a, b)| {
+        .enumerate()
+        .map(|(c, &(a, b))| {
             let name = format!("{}-{}", layout.id(a), layout.id(b));
+            let mut gates: Vec<Gate> = layout.natives(c).iter().map(|n| n.gate).collect();
+            gates.sort_unstable();
+            gates.dedup();
             CouplerTruth {
-                intrinsic: two_q
+                intrinsic: gates
                     .iter()
-                    .map(|&g| kind_truth(noise, g, &[a, b], format!("{g}@{name}")))
+                    .map(|&g| {
+                        let (x, y) =
+                            if g.is_symmetric() { (a, b) } else { layout.coupler_direction(c) };
+                        kind_truth(
+                            noise,
+                            g,
+                            &[x, y],
+                            format!("{g}@{}-{}", layout.id(x), layout.id(y)),
+                        )
+                    })
                     .collect(),
                 coupler: name,
             }
