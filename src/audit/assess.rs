@@ -239,7 +239,11 @@ pub(crate) fn pairs(a: &Analysis) -> Vec<(QubitIx, QubitIx)> {
 /// The score weights (all kinds) of every directed pair of [`pairs`] on the victims'
 /// problems in `s`, over `all` (a replicate's rows): the first of [`weights_in`]'s three,
 /// found in one pass over each victim's rows rather than one per aggressor.
-pub(crate) fn direction_weights(a: &Analysis, all: &[crate::rows::Row], s: &Solved) -> Vec<Weights> {
+pub(crate) fn direction_weights(
+    a: &Analysis,
+    all: &[crate::rows::Row],
+    s: &Solved,
+) -> Vec<Weights> {
     (0..a.layout.n_qubits())
         .into_par_iter()
         .flat_map_iter(|q| {
@@ -272,11 +276,7 @@ pub(crate) fn direction_weights(a: &Analysis, all: &[crate::rows::Row], s: &Solv
 /// Every directed score of a solution, in [`pairs`] order, under the weights of
 /// [`direction_weights`]; 0 for a pair the rows never test.
 pub(crate) fn directed_scores(a: &Analysis, weights: &[Weights], s: &Solved) -> Vec<f64> {
-    pairs(a)
-        .into_iter()
-        .zip(weights)
-        .map(|((q, _), w)| score(&s.qubit[q].1, w))
-        .collect()
+    pairs(a).into_iter().zip(weights).map(|((q, _), w)| score(&s.qubit[q].1, w)).collect()
 }
 
 pub(crate) fn assess(

@@ -5,8 +5,8 @@
 //! the identity component pinned for Pauli rates, and free angles for the coherent part.
 //! Users read the "natural" coordinates (rates, angles, readout probabilities).
 
-use std::sync::Arc;
 use nalgebra::DMatrix;
+use std::sync::Arc;
 
 use super::ptm::{self, CMat, Ptm};
 use crate::{Error, Result};
