@@ -41,9 +41,85 @@ pub struct DesignConfig {
     pub kinds: Vec<Kind>,
     /// Size limits (depth, sequences, circuits, bytes of the files); see [`Limits`].
     pub limits: Limits,
-    /// Adds the gate-pair and gate-qubit patterns ([`patterns::gate_patterns`]) after the
-    /// standard ones; the standard circuits stay as they are without it.
-    pub gate_pairs: bool,
+    /// Which gate-pair and gate-qubit patterns ([`patterns::gate_patterns`]) follow the
+    /// standard ones; the standard circuits stay as they are whatever it is.
+    pub gate_pairs: GateSelection,
+}
+
+/// The gate contexts a design adds (`design --gate-pairs`).
+#[derive(Clone, Debug, Default, PartialEq, Eq)]
+pub enum GateSelection {
+    /// None: the standard design.
+    #[default]
+    None,
+    /// Every gate pair and every coupler beside every nearby qubit.
+    All,
+    /// Only the gate pairs whose two couplers are both listed, and the listed couplers beside
+    /// their nearby qubits ([`patterns::gate_patterns_among`]). Couplers are named `a-b` as
+    /// given; they are resolved against the layout when the design is built.
+    Couplers(Vec<String>),
+}
+
+impl GateSelection {
+    /// Reads `all` or a comma-separated list of couplers `a-b` (the layout is checked later,
+    /// by [`GateSelection::couplers`]).
+    pub fn parse(text: &str) -> Result<GateSelection> {
+        let text = text.trim();
+        if text == "all" {
+            return Ok(GateSelection::All);
+        }
+        let names: Vec<String> = text.split(',').map(|c| c.trim().to_string()).collect();
+        if names.iter().any(|n| n.is_empty() || !n.contains('-')) {
+            return Err(Error::Usage(format!(
+                "--gate-pairs '{}': give 'all' or couplers as two qubit ids joined by '-', comma \
+                 separated (e.g. q5-q6,q9-q10)",
+                echo(text)
+            )));
+        }
+        Ok(GateSelection::Couplers(names))
+    }
+
+    /// True when the design adds gate contexts.
+    pub fn any(&self) -> bool {
+        *self != GateSelection::None
+    }
+
+    /// The listed couplers as indices into `layout.couplers` (sorted, each once); None for
+    /// `None` and `All`. Fails on a name that is no coupler of the layout.
+    pub fn couplers(&self, layout: &Layout) -> Result<Option<Vec<usize>>> {
+        let GateSelection::Couplers(names) = self else { return Ok(None) };
+        let mut out = Vec::with_capacity(names.len());
+        for n in names {
+            let c = patterns::coupler_by_name(layout, n).ok_or_else(|| {
+                let example: Vec<String> = layout
+                    .couplers
+                    .iter()
+                    .take(3)
+                    .map(|&(a, b)| format!("{}-{}", layout.id(a), layout.id(b)))
+                    .collect();
+                Error::Usage(format!(
+                    "--gate-pairs: '{}' is not a coupler of layout '{}' (name a coupler by its \
+                     two qubit ids joined by '-', e.g. {})",
+                    echo(n),
+                    echo(&layout.name),
+                    example.join(", ")
+                ))
+            })?;
+            out.push(c);
+        }
+        out.sort_unstable();
+        out.dedup();
+        Ok(Some(out))
+    }
+
+    /// The gate patterns this selection adds on `layout`.
+    pub fn patterns(&self, layout: &Layout) -> Result<Vec<Pattern>> {
+        Ok(match (self, self.couplers(layout)?) {
+            (GateSelection::None, _) => Vec::new(),
+            (_, Some(c)) => patterns::gate_patterns_among(layout, &c),
+            (_, None) => patterns::gate_patterns(layout),
+        })
+    }
 }
 
 impl DesignConfig {
@@ -86,7 +162,7 @@ impl DesignConfig {
             seed,
             kinds: k,
             limits: Limits::DEFAULT,
-            gate_pairs: false,
+            gate_pairs: GateSelection::None,
         })
     }
 
@@ -95,8 +171,8 @@ impl DesignConfig {
         DesignConfig { limits, ..self }
     }
 
-    /// The same configuration with or without the gate-pair and gate-qubit patterns.
-    pub fn with_gate_pairs(self, gate_pairs: bool) -> DesignConfig {
+    /// The same configuration with these gate-pair and gate-qubit patterns.
+    pub fn with_gate_pairs(self, gate_pairs: GateSelection) -> DesignConfig {
         DesignConfig { gate_pairs, ..self }
     }
 
@@ -224,7 +300,7 @@ impl<'a> Blueprint<'a> {
         let limits = cfg.limits;
         let per_pattern = cfg.per_pattern().unwrap_or(u64::MAX);
         let mut least = patterns::min_patterns(layout);
-        if cfg.gate_pairs {
+        if cfg.gate_pairs == GateSelection::All {
             least = least.saturating_add(patterns::min_gate_patterns(layout));
         }
         let at_least = least.saturating_mul(per_pattern);
@@ -239,9 +315,7 @@ impl<'a> Blueprint<'a> {
         }
         let mut patterns = patterns::patterns(layout);
         let standard = patterns.len();
-        if cfg.gate_pairs {
-            patterns.extend(patterns::gate_patterns(layout));
-        }
+        patterns.extend(cfg.gate_pairs.patterns(layout)?);
         let total = (patterns.len() as u64).saturating_mul(per_pattern);
         if limits.enforced && total > Limits::CIRCUITS {
             return Err(Error::Usage(format!(
@@ -482,6 +556,12 @@ fn design_digest(layout: &Layout, cfg: &DesignConfig) -> String {
         "depths {:?}\nsequences {}\nkinds {:?}\nseed {}\n",
         cfg.depths, cfg.sequences, cfg.kinds, cfg.seed
     ));
+    // A design with every gate context or none shares its ids (the gate circuits follow the
+    // standard ones, which stay as they are). A selection of couplers gets ids of its own, so
+    // that counts of one selection's gate circuits are never read as another's.
+    if let Ok(Some(couplers)) = cfg.gate_pairs.couplers(layout) {
+        h.update(format!("gate couplers {couplers:?}\n"));
+    }
     h.finalize().iter().take(DIGEST_CHARS / 2).map(|b| format!("{b:02x}")).collect()
 }
 
@@ -591,6 +671,28 @@ mod tests {
         };
         assert_eq!(find(Context::AllIdle), find(Context::AllActive1q));
         assert!(find(Context::AllIdle) >= 8);
+    }
+
+    #[test]
+    fn gate_selections_parse_resolve_and_get_ids_of_their_own() {
+        assert_eq!(GateSelection::parse("all").unwrap(), GateSelection::All);
+        let sel = GateSelection::parse("q1-q2, q0-q1").unwrap();
+        assert_eq!(sel, GateSelection::Couplers(vec!["q1-q2".into(), "q0-q1".into()]));
+        for bad in ["", "q1", "q1-q2,,q0-q1"] {
+            let err = GateSelection::parse(bad).unwrap_err().to_string();
+            assert!(err.contains("e.g. q5-q6,q9-q10"), "{err}");
+        }
+        let layout = generate::chain(5);
+        assert_eq!(sel.couplers(&layout).unwrap(), Some(vec![0, 1]));
+        let err = GateSelection::parse("q0-q2").unwrap().couplers(&layout).unwrap_err();
+        assert!(err.to_string().contains("'q0-q2' is not a coupler of layout"), "{err}");
+        let cfg = |g: GateSelection| {
+            DesignConfig::new(vec![1], 1, 0, vec![Kind::Randomized]).unwrap().with_gate_pairs(g)
+        };
+        let digest = |g| Blueprint::new(&layout, &cfg(g)).unwrap().digest().to_string();
+        let none = digest(GateSelection::None);
+        assert_eq!(digest(GateSelection::All), none);
+        assert_ne!(digest(GateSelection::parse("q0-q1,q2-q3").unwrap()), none);
     }
 
     #[test]
