@@ -69,7 +69,8 @@ pub struct SequenceArgs {
     /// (gate-qubit); a square grid gets about 180 patterns besides its 47 standard ones. With
     /// a list of couplers (e.g. q5-q6,q9-q10): only the gate pairs whose two couplers are
     /// both listed, and the listed couplers beside their nearby qubits, a targeted follow-up
-    /// after a first audit. The standard circuits stay as they are.
+    /// after a first audit; an item a-b/c-d adds that one gate pair alone (e.g.
+    /// q5-q6/q9-q10: one pattern). The standard circuits stay as they are.
     #[arg(long, num_args = 0..=1, default_missing_value = "all", value_name = "all|COUPLERS")]
     gate_pairs: Option<String>,
 }

@@ -55,24 +55,27 @@ pub enum GateSelection {
     /// Every gate pair and every coupler beside every nearby qubit.
     All,
     /// Only the gate pairs whose two couplers are both listed, and the listed couplers beside
-    /// their nearby qubits ([`patterns::gate_patterns_among`]). Couplers are named `a-b` as
-    /// given; they are resolved against the layout when the design is built.
+    /// their nearby qubits ([`patterns::gate_patterns_among`]); an item `a-b/c-d` lists that
+    /// one gate pair alone (no gate-qubit units). Couplers are named `a-b` as given; they are
+    /// resolved against the layout when the design is built.
     Couplers(Vec<String>),
 }
 
 impl GateSelection {
-    /// Reads `all` or a comma-separated list of couplers `a-b` (the layout is checked later,
-    /// by [`GateSelection::couplers`]).
+    /// Reads `all` or a comma-separated list of couplers `a-b` and gate pairs `a-b/c-d` (the
+    /// layout is checked later, by [`GateSelection::couplers`]).
     pub fn parse(text: &str) -> Result<GateSelection> {
         let text = text.trim();
         if text == "all" {
             return Ok(GateSelection::All);
         }
         let names: Vec<String> = text.split(',').map(|c| c.trim().to_string()).collect();
-        if names.iter().any(|n| n.is_empty() || !n.contains('-')) {
+        let bad = |n: &str| n.split('/').count() > 2 || n.split('/').any(|c| !c.contains('-'));
+        if names.iter().any(|n| bad(n)) {
             return Err(Error::Usage(format!(
                 "--gate-pairs '{}': give 'all' or couplers as two qubit ids joined by '-', comma \
-                 separated (e.g. q5-q6,q9-q10)",
+                 separated (e.g. q5-q6,q9-q10), or single gate pairs as two couplers joined by \
+                 '/' (e.g. q5-q6/q9-q10)",
                 echo(text)
             )));
         }
@@ -84,13 +87,14 @@ impl GateSelection {
         *self != GateSelection::None
     }
 
-    /// The listed couplers as indices into `layout.couplers` (sorted, each once); None for
-    /// `None` and `All`. Fails on a name that is no coupler of the layout.
-    pub fn couplers(&self, layout: &Layout) -> Result<Option<Vec<usize>>> {
+    /// The listed couplers and gate pairs as indices into `layout.couplers` (sorted, each
+    /// once); None for `None` and `All`. Fails on a name that is no coupler of the layout and
+    /// on a listed pair that is no gate pair.
+    #[allow(clippy::type_complexity)]
+    pub fn couplers(&self, layout: &Layout) -> Result<Option<(Vec<usize>, Vec<(usize, usize)>)>> {
         let GateSelection::Couplers(names) = self else { return Ok(None) };
-        let mut out = Vec::with_capacity(names.len());
-        for n in names {
-            let c = patterns::coupler_by_name(layout, n).ok_or_else(|| {
+        let find = |n: &str| {
+            patterns::coupler_by_name(layout, n).ok_or_else(|| {
                 let example: Vec<String> = layout
                     .couplers
                     .iter()
@@ -104,19 +108,40 @@ impl GateSelection {
                     echo(&layout.name),
                     example.join(", ")
                 ))
-            })?;
-            out.push(c);
+            })
+        };
+        let (mut couplers, mut pairs) = (Vec::new(), Vec::new());
+        let near = patterns::gate_pairs(layout);
+        for n in names {
+            match n.split_once('/') {
+                None => couplers.push(find(n)?),
+                Some((x, y)) => {
+                    let (i, j) = (find(x)?, find(y)?);
+                    let pair = (i.min(j), i.max(j));
+                    if !near.contains(&pair) {
+                        return Err(Error::Usage(format!(
+                            "--gate-pairs: '{}' is no gate pair of layout '{}': its couplers \
+                             must share no qubit and have neighbouring ends",
+                            echo(n),
+                            echo(&layout.name)
+                        )));
+                    }
+                    pairs.push(pair);
+                }
+            }
         }
-        out.sort_unstable();
-        out.dedup();
-        Ok(Some(out))
+        couplers.sort_unstable();
+        couplers.dedup();
+        pairs.sort_unstable();
+        pairs.dedup();
+        Ok(Some((couplers, pairs)))
     }
 
     /// The gate patterns this selection adds on `layout`.
     pub fn patterns(&self, layout: &Layout) -> Result<Vec<Pattern>> {
         Ok(match (self, self.couplers(layout)?) {
             (GateSelection::None, _) => Vec::new(),
-            (_, Some(c)) => patterns::gate_patterns_among(layout, &c),
+            (_, Some((c, p))) => patterns::gate_patterns_among(layout, &c, &p),
             (_, None) => patterns::gate_patterns(layout),
         })
     }
@@ -559,8 +584,11 @@ fn design_digest(layout: &Layout, cfg: &DesignConfig) -> String {
     // A design with every gate context or none shares its ids (the gate circuits follow the
     // standard ones, which stay as they are). A selection of couplers gets ids of its own, so
     // that counts of one selection's gate circuits are never read as another's.
-    if let Ok(Some(couplers)) = cfg.gate_pairs.couplers(layout) {
+    if let Ok(Some((couplers, pairs))) = cfg.gate_pairs.couplers(layout) {
         h.update(format!("gate couplers {couplers:?}\n"));
+        if !pairs.is_empty() {
+            h.update(format!("gate pairs {pairs:?}\n"));
+        }
     }
     h.finalize().iter().take(DIGEST_CHARS / 2).map(|b| format!("{b:02x}")).collect()
 }
@@ -678,12 +706,16 @@ mod tests {
         assert_eq!(GateSelection::parse("all").unwrap(), GateSelection::All);
         let sel = GateSelection::parse("q1-q2, q0-q1").unwrap();
         assert_eq!(sel, GateSelection::Couplers(vec!["q1-q2".into(), "q0-q1".into()]));
-        for bad in ["", "q1", "q1-q2,,q0-q1"] {
+        for bad in ["", "q1", "q1-q2,,q0-q1", "q0-q1/q2", "q0-q1/q2-q3/q3-q4"] {
             let err = GateSelection::parse(bad).unwrap_err().to_string();
             assert!(err.contains("e.g. q5-q6,q9-q10"), "{err}");
         }
         let layout = generate::chain(5);
-        assert_eq!(sel.couplers(&layout).unwrap(), Some(vec![0, 1]));
+        assert_eq!(sel.couplers(&layout).unwrap(), Some((vec![0, 1], vec![])));
+        let pair = GateSelection::parse("q3-q4/q1-q2").unwrap();
+        assert_eq!(pair.couplers(&layout).unwrap(), Some((vec![], vec![(1, 3)])));
+        let err = GateSelection::parse("q0-q1/q1-q2").unwrap().couplers(&layout).unwrap_err();
+        assert!(err.to_string().contains("is no gate pair"), "{err}");
         let err = GateSelection::parse("q0-q2").unwrap().couplers(&layout).unwrap_err();
         assert!(err.to_string().contains("'q0-q2' is not a coupler of layout"), "{err}");
         let cfg = |g: GateSelection| {

@@ -418,31 +418,43 @@ pub fn min_gate_patterns(layout: &Layout) -> u64 {
 /// beside each of its [`gate_spectators`] driven. Units are packed like the reference ones,
 /// so the number of patterns depends on the layout's degree, not its size.
 pub fn gate_patterns(layout: &Layout) -> Vec<Pattern> {
-    gate_patterns_where(layout, &vec![true; layout.couplers.len()])
+    gate_patterns_where(layout, &vec![true; layout.couplers.len()], &|_, _| true)
 }
 
-/// The gate patterns of a few couplers (indices into `layout.couplers`): the gate pairs whose
-/// two couplers are both listed, and every listed coupler beside each of its
-/// [`gate_spectators`] driven. A targeted follow-up: on a small chip little packs, so the
-/// full set has many patterns, while a handful of couplers adds a pattern or two per unit.
-pub fn gate_patterns_among(layout: &Layout, couplers: &[usize]) -> Vec<Pattern> {
+/// The gate patterns of a few couplers and gate pairs (indices into `layout.couplers`): the
+/// gate pairs whose two couplers are both in `couplers`, every pair in `pairs`, and every
+/// coupler of `couplers` beside each of its [`gate_spectators`] driven. A targeted follow-up:
+/// on a small chip little packs, so the full set has many patterns, while a handful of
+/// couplers adds a pattern or two per unit and a listed pair one pattern.
+pub fn gate_patterns_among(
+    layout: &Layout,
+    couplers: &[usize],
+    pairs: &[(usize, usize)],
+) -> Vec<Pattern> {
     let mut chosen = vec![false; layout.couplers.len()];
     for &c in couplers {
         if let Some(x) = chosen.get_mut(c) {
             *x = true;
         }
     }
-    gate_patterns_where(layout, &chosen)
+    let pairs: Vec<(usize, usize)> = pairs.iter().map(|&(i, j)| (i.min(j), i.max(j))).collect();
+    gate_patterns_where(layout, &chosen, &|i, j| {
+        (chosen[i] && chosen[j]) || pairs.contains(&(i, j))
+    })
 }
 
-fn gate_patterns_where(layout: &Layout, chosen: &[bool]) -> Vec<Pattern> {
+fn gate_patterns_where(
+    layout: &Layout,
+    chosen: &[bool],
+    pair_chosen: &dyn Fn(usize, usize) -> bool,
+) -> Vec<Pattern> {
     let two = |c: usize| {
         let (a, b) = layout.couplers[c];
         BlockSpec::Two(a, b)
     };
     let mut out = Vec::new();
     let pairs: Vec<(usize, usize)> =
-        gate_pairs(layout).into_iter().filter(|&(i, j)| chosen[i] && chosen[j]).collect();
+        gate_pairs(layout).into_iter().filter(|&(i, j)| pair_chosen(i, j)).collect();
     let units: Vec<Vec<QubitIx>> = pairs
         .iter()
         .map(|&(i, j)| two(i).qubits().into_iter().chain(two(j).qubits()).collect())
@@ -677,7 +689,7 @@ mod tests {
         assert_eq!(coupler_by_name(&layout, "q5-q7"), None);
         assert_eq!(coupler_by_name(&layout, "q5"), None);
         let chosen = [c("q8-q9"), c("q10-q14")];
-        let ps = gate_patterns_among(&layout, &chosen);
+        let ps = gate_patterns_among(&layout, &chosen, &[]);
         let all = gate_patterns(&layout);
         // The one gate pair of the two couplers, and each coupler beside each of its
         // spectators (five each on this grid), every unit in a pattern of its own here.
@@ -705,7 +717,12 @@ mod tests {
         assert!(all.len() > 10 * ps.len(), "{}", all.len());
         // Every coupler selected is the full set.
         let every: Vec<usize> = (0..layout.couplers.len()).collect();
-        assert_eq!(gate_patterns_among(&layout, &every), all);
+        assert_eq!(gate_patterns_among(&layout, &every, &[]), all);
+        // A listed pair alone is one gate-pair pattern and no gate-qubit unit.
+        let one = gate_patterns_among(&layout, &[], &[(c("q10-q14"), c("q8-q9"))]);
+        assert_eq!(one.len(), 1);
+        assert_eq!(one[0].context, Context::GatePair);
+        assert_eq!(gate_units(&layout, &one[0]).len(), 1);
     }
 
     #[test]
