@@ -725,6 +725,35 @@ mod tests {
         assert_eq!(gate_units(&layout, &one[0]).len(), 1);
     }
 
+    /// Pattern counts on square grids of 16, 144 and 1,024 qubits (all of degree 4): they
+    /// depend on the layout's degree, not its size (method.md section 7). Figures quoted in
+    /// DEVELOPERS.md ("Gate contexts"); the greedy colouring can use a few more colours on a
+    /// larger grid, where more units compete, so the test allows a small margin above the
+    /// smallest and a bound far below the unit counts, which grow with the size.
+    #[test]
+    fn pattern_counts_depend_on_degree_not_size() {
+        let mut counts = Vec::new();
+        for n in [4, 12, 32] {
+            let layout = generate::grid(n, n);
+            let standard = patterns(&layout).len();
+            let gates = gate_patterns(&layout);
+            let pairs = gates.iter().filter(|p| p.context == Context::GatePair).count();
+            let units = gate_pairs(&layout).len()
+                + gate_spectators(&layout).iter().map(Vec::len).sum::<usize>();
+            println!(
+                "grid {n}x{n}: {standard} standard patterns, {} gate patterns ({pairs} \
+                 gate-pair, {} gate-qubit) for {units} gate units",
+                gates.len(),
+                gates.len() - pairs
+            );
+            counts.push((standard, gates.len(), units));
+        }
+        let (s12, g12, u12) = counts[1];
+        let (s32, g32, u32_) = counts[2];
+        assert!(s32 <= s12 + 3 && g32 <= g12 + g12 / 10, "{counts:?}");
+        assert!(u32_ > 7 * u12 && g32 * 20 < u32_, "{counts:?}");
+    }
+
     #[test]
     fn bits_behave_as_a_set() {
         let mut b = Bits::empty(10);
