@@ -66,7 +66,8 @@ pub struct SequenceArgs {
     /// Also write circuits for gate-on-gate crosstalk. Alone or with `all`: every two nearby
     /// couplers that share no qubit run two-qubit sequences in the same layers (context
     /// gate-pair), and every coupler runs beside each nearby qubit driven by one-qubit gates
-    /// (gate-qubit); a square grid gets about 180 patterns besides its 47 standard ones. With
+    /// (gate-qubit); a square grid gets 180 (4x4) to 380 (32x32) patterns besides its 39 to
+    /// 47 standard ones. With
     /// a list of couplers (e.g. q5-q6,q9-q10): only the gate pairs whose two couplers are
     /// both listed, and the listed couplers beside their nearby qubits, a targeted follow-up
     /// after a first audit; an item a-b/c-d adds that one gate pair alone (e.g.
