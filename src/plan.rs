@@ -14,16 +14,18 @@ use schemars::JsonSchema;
 use serde::{Deserialize, Serialize};
 
 use crate::audit::{self, AuditConfig, Progress};
-use crate::design::{self, Design, DesignConfig};
+use crate::design::{self, Context, Design, DesignConfig};
 use crate::error::{Error, Result};
 use crate::layout::{Layout, QubitIx};
 use crate::report::{AuditReport, Verdict};
-use crate::simulate::{self, ContextTerm, ErrorSpec, Noise, Role, Rotation, SimConfig};
+use crate::simulate::{
+    self, Aggressor, ContextTerm, ErrorSpec, GateContextTerm, Noise, Role, Rotation, SimConfig,
+};
 use crate::stats::median;
 
 /// Version of the `plan.json` format written by this build (3: an untested sensitivity is the
-/// word "unbounded", no longer null).
-pub const SCHEMA: u32 = 3;
+/// word "unbounded", no longer null; 4: the gate-pair patterns, sensitivities and searches).
+pub const SCHEMA: u32 = 4;
 
 /// Largest depolarizing rate the search injects (beyond it the "error" is a coin flip).
 const MAX_STOCHASTIC: f64 = 0.5;
@@ -132,6 +134,9 @@ pub struct PlanReport {
     pub layout: String,
     /// Circuits in the design (the same for every shot count).
     pub circuits: usize,
+    /// What the design adds for gate-on-gate crosstalk (`--gate-pairs`): patterns and
+    /// circuits (all zero without it).
+    pub gate_design: GateDesign,
     /// The settings of the run.
     pub parameters: PlanParameters,
     /// What was removed from the noise scenario to make the crosstalk-free baseline.
@@ -183,6 +188,17 @@ pub struct RemovedTerms {
     pub readout_crosstalk: usize,
 }
 
+/// The gate-pair part of a design.
+#[derive(Clone, Debug, Default, Serialize, Deserialize, PartialEq, JsonSchema)]
+pub struct GateDesign {
+    /// Patterns in which two nearby couplers run their gates in the same layers.
+    pub gate_pair_patterns: usize,
+    /// Patterns in which a coupler runs beside a driven nearby qubit.
+    pub gate_qubit_patterns: usize,
+    /// Circuits of those patterns.
+    pub circuits: usize,
+}
+
 /// Results at one shot count.
 #[derive(Clone, Debug, Serialize, Deserialize, PartialEq, JsonSchema)]
 pub struct ShotPlan {
@@ -219,6 +235,22 @@ pub struct ShotPlan {
     pub baseline_flagged: Vec<String>,
     /// The searches for the smallest flagged context error, by pair and kind.
     pub searches: Vec<SearchResult>,
+    /// Every gate direction's baseline sensitivity and detection limit (victim and aggressor
+    /// a coupler `a-b` or a qubit; empty when the design has no gate-pair circuits).
+    pub gate_directed: Vec<DirectedLimit>,
+    /// Median over gate-on-gate directions (a coupler's gate beside another's) of the
+    /// baseline sensitivity, TVD per layer (zero when there are none).
+    #[serde(with = "crate::report::special::number")]
+    #[schemars(with = "crate::report::special::Number")]
+    pub gate_sensitivity_median_tvd_per_layer: f64,
+    /// Largest finite gate-on-gate sensitivity, TVD per layer.
+    #[serde(with = "crate::report::special::number")]
+    #[schemars(with = "crate::report::special::Number")]
+    pub gate_sensitivity_worst_tvd_per_layer: f64,
+    /// The searches for the smallest flagged gate-context error (a two-qubit depolarizing
+    /// rate on the victim coupler's gate while the aggressor coupler runs its gate; kind
+    /// `stochastic`), on the gate-on-gate directions of median and worst sensitivity.
+    pub gate_searches: Vec<SearchResult>,
     /// Audits run at this shot count (baseline included).
     pub audits: usize,
     /// Wall-clock seconds spent at this shot count: shown on the terminal, never written to
@@ -343,6 +375,20 @@ struct Search {
 }
 
 impl Search {
+    fn new(pair: usize, kind: ErrorKind, start: f64) -> Search {
+        Search {
+            pair,
+            kind,
+            next: start,
+            lo: None,
+            hi: None,
+            bisected: 0,
+            ladder: 0,
+            steps: Vec::new(),
+            done: false,
+        }
+    }
+
     fn record(&mut self, size: f64, trials_run: usize, flagged: bool, bisection_steps: usize) {
         self.steps.push(SearchStep { size, trials_run, flagged });
         if flagged {
@@ -542,12 +588,26 @@ pub fn plan(
     // The pairs are chosen once, at the first shot count, and searched at every count, so
     // that the minima of different counts are comparable.
     let mut pairs: Option<Vec<Representative>> = None;
+    let mut gate_pairs: Option<Vec<Representative>> = None;
     for (i, &shots) in cfg.shots.iter().enumerate() {
         let bench = Bench { layout, design: &design, base: &base, cfg };
-        let (plan, chosen) = plan_shots(&bench, i, shots, pairs.as_deref(), progress)?;
+        let (plan, chosen, gates) =
+            plan_shots(&bench, i, shots, pairs.as_deref(), gate_pairs.as_deref(), progress)?;
         shot_counts.push(plan);
         pairs.get_or_insert(chosen);
+        gate_pairs.get_or_insert(gates);
     }
+    let count = |c: Context| design.patterns.iter().filter(|p| p.context == c).count();
+    let (gp, gq) = (count(Context::GatePair), count(Context::GateQubit));
+    let gate_design = GateDesign {
+        gate_pair_patterns: gp,
+        gate_qubit_patterns: gq,
+        circuits: design
+            .manifest
+            .iter()
+            .filter(|r| matches!(r.context, Context::GatePair | Context::GateQubit))
+            .count(),
+    };
     let recommendation = recommend(&shot_counts, cfg.target_tvd_per_layer);
     let a = &cfg.audit;
     Ok(PlanReport {
@@ -555,6 +615,7 @@ pub fn plan(
         tool_version: env!("CARGO_PKG_VERSION").to_string(),
         layout: layout.name.clone(),
         circuits: design.circuits.len(),
+        gate_design,
         parameters: PlanParameters {
             depths: cfg.design.depths.clone(),
             sequences: cfg.design.sequences,
@@ -591,8 +652,9 @@ fn plan_shots(
     index: usize,
     shots: u64,
     pairs: Option<&[Representative]>,
+    gate_pairs: Option<&[Representative]>,
     progress: &dyn Progress,
-) -> Result<(ShotPlan, Vec<Representative>)> {
+) -> Result<(ShotPlan, Vec<Representative>, Vec<Representative>)> {
     let Bench { layout, design, base, cfg } = *bench;
     let start = Instant::now();
     let data_seed = |t: usize| derive_seed(cfg.seed, index as u64, t as u64);
@@ -635,96 +697,90 @@ fn plan_shots(
     let mut searches: Vec<Search> = Vec::new();
     for kind in [ErrorKind::Stochastic, ErrorKind::Coherent] {
         for (pair, r) in reps.iter().enumerate() {
-            // Start where the pair's sensitivity says rows would just need slack, or at the
-            // target when that is larger; the ladder corrects either way. (A depolarizing
-            // rate p costs about 2p/3 of TVD on a one-qubit outcome.)
-            let start = (1.5 * r.sensitivity).max(cfg.target_tvd_per_layer).min(0.5);
+            let start = start_size(r.sensitivity, cfg);
             let start = match kind {
                 ErrorKind::Stochastic => start,
                 ErrorKind::Coherent => 2.0 * start.sqrt().min(1.0).asin(),
             };
-            searches.push(Search {
-                pair,
-                kind,
-                next: start,
-                lo: None,
-                hi: None,
-                bisected: 0,
-                ladder: 0,
-                steps: Vec::new(),
-                done: false,
-            });
+            searches.push(Search::new(pair, kind, start));
         }
     }
-    while searches.iter().any(|s| !s.done) {
-        // Greedy groups of searches whose injections can share data sets.
-        let mut groups: Vec<Vec<usize>> = Vec::new();
-        for (k, s) in searches.iter().enumerate().filter(|(_, s)| !s.done) {
-            let fits = |g: &Vec<usize>| {
-                g.iter().all(|&j| compatible(&reps[searches[j].pair], &reps[s.pair]))
-            };
-            match groups.iter_mut().find(|g| fits(g)) {
-                Some(g) => g.push(k),
-                None => groups.push(vec![k]),
-            }
-        }
-        for g in groups {
-            let mut alive: Vec<usize> = g.clone();
-            let mut runs = vec![0usize; searches.len()];
-            for t in 0..cfg.trials {
-                if alive.is_empty() {
-                    break;
-                }
-                let mut noise = base.clone();
-                for &k in &alive {
-                    let s = &searches[k];
-                    let r = &reps[s.pair];
-                    noise = noise.with_context_term(injected_term(
-                        r.victim,
-                        r.aggressor,
-                        s.kind,
-                        s.next,
-                    ))?;
-                }
-                let rep = run(&noise, t)?;
-                for &k in &alive {
-                    runs[k] += 1;
-                }
-                alive.retain(|&k| {
-                    let r = &reps[searches[k].pair];
-                    is_flagged(&rep, layout.id(r.victim), layout.id(r.aggressor))
-                });
-            }
-            for &k in &g {
-                let size = searches[k].next;
-                let flagged = alive.contains(&k);
-                searches[k].record(size, runs[k], flagged, cfg.bisection_steps);
-            }
-        }
-    }
-    let results = searches
-        .into_iter()
-        .map(|s| {
-            let r = &reps[s.pair];
-            let m = s.hi.map(|h| measures(s.kind, h));
-            SearchResult {
-                role: r.role.clone(),
-                victim: layout.id(r.victim).to_string(),
-                aggressor: layout.id(r.aggressor).to_string(),
-                pair_sensitivity_tvd_per_layer: r.sensitivity,
-                kind: s.kind,
-                smallest_flagged: s.hi,
-                largest_unflagged: match (s.lo, s.hi) {
-                    (Some(lo), Some(hi)) if lo < hi => Some(lo),
-                    (lo, None) => lo,
-                    _ => None,
-                },
-                infidelity: m.map(|m| m.0),
-                half_diamond: m.map(|m| m.1),
-                steps: s.steps,
-            }
+    let compatible = |i: usize, j: usize| compatible(&reps[i], &reps[j]);
+    let inject = |noise: &Noise, s: &Search| {
+        let r = &reps[s.pair];
+        noise.with_context_term(injected_term(r.victim, r.aggressor, s.kind, s.next))
+    };
+    let flagged = |rep: &AuditReport, pair: usize| {
+        let r = &reps[pair];
+        is_flagged(rep, layout.id(r.victim), layout.id(r.aggressor))
+    };
+    run_searches(&mut searches, &compatible, &inject, &flagged, &mut run, base, cfg)?;
+    let results = search_results(searches, &|pair| {
+        let r = &reps[pair];
+        (
+            r.role.clone(),
+            layout.id(r.victim).to_string(),
+            layout.id(r.aggressor).to_string(),
+            r.sensitivity,
+        )
+    });
+    // Gate pairs: the same, on the gate-on-gate directions of the design's gate-pair circuits.
+    let gate_directed: Vec<DirectedLimit> = baseline
+        .gates
+        .directed
+        .iter()
+        .map(|d| DirectedLimit {
+            victim: d.victim.clone(),
+            aggressor: d.aggressor.clone(),
+            sensitivity_tvd_per_layer: d.sensitivity_tvd_per_layer,
+            detection_limit_tvd_per_layer: d.detection_limit_tvd_per_layer,
         })
         .collect();
+    let gate_reps = match gate_pairs {
+        Some(p) => p.to_vec(),
+        None => gate_representatives(layout, &baseline),
+    };
+    let on_gates: Vec<f64> =
+        gate_on_gate(layout, &gate_directed).filter_map(|(_, _, v)| finite(v)).collect();
+    let mut gate_searches: Vec<Search> = gate_reps
+        .iter()
+        .enumerate()
+        .map(|(pair, r)| Search::new(pair, ErrorKind::Stochastic, start_size(r.sensitivity, cfg)))
+        .collect();
+    let gate_compatible = |i: usize, j: usize| {
+        let (x, y) = (&gate_reps[i], &gate_reps[j]);
+        x.victim != y.victim && (x.victim, x.aggressor) != (y.aggressor, y.victim)
+    };
+    let gate_inject = |noise: &Noise, s: &Search| {
+        let r = &gate_reps[s.pair];
+        noise.with_gate_context_term(injected_gate_term(layout, r.victim, r.aggressor, s.next))
+    };
+    let gate_flagged = |rep: &AuditReport, pair: usize| {
+        let r = &gate_reps[pair];
+        is_gate_pair_flagged(
+            rep,
+            &coupler_label(layout, r.victim),
+            &coupler_label(layout, r.aggressor),
+        )
+    };
+    run_searches(
+        &mut gate_searches,
+        &gate_compatible,
+        &gate_inject,
+        &gate_flagged,
+        &mut run,
+        base,
+        cfg,
+    )?;
+    let gate_results = search_results(gate_searches, &|pair| {
+        let r = &gate_reps[pair];
+        (
+            r.role.clone(),
+            coupler_label(layout, r.victim),
+            coupler_label(layout, r.aggressor),
+            r.sensitivity,
+        )
+    });
     let plan = ShotPlan {
         shots,
         edge_sensitivity_median_tvd_per_layer: median(
@@ -751,10 +807,197 @@ fn plan_shots(
         edges,
         directed,
         searches: results,
+        gate_sensitivity_median_tvd_per_layer: median(on_gates.clone()).unwrap_or(0.0),
+        gate_sensitivity_worst_tvd_per_layer: on_gates.iter().copied().fold(0.0, f64::max),
+        gate_directed,
+        gate_searches: gate_results,
         audits,
         elapsed_seconds: start.elapsed().as_secs_f64(),
     };
-    Ok((plan, reps))
+    Ok((plan, reps, gate_reps))
+}
+
+/// Where a search starts: where the pair's sensitivity says rows would just need slack, or at
+/// the target when that is larger; the ladder corrects either way.
+fn start_size(sensitivity: f64, cfg: &PlanConfig) -> f64 {
+    (1.5 * sensitivity).max(cfg.target_tvd_per_layer).min(0.5)
+}
+
+/// Runs searches to completion. Each round groups the live searches whose injections can
+/// share a data set (`compatible` on their pair indices), injects each one's current size
+/// (`inject`) into the baseline, and records whether every trial flagged its pair (`flagged`).
+fn run_searches(
+    searches: &mut [Search],
+    compatible: &dyn Fn(usize, usize) -> bool,
+    inject: &dyn Fn(&Noise, &Search) -> Result<Noise>,
+    flagged: &dyn Fn(&AuditReport, usize) -> bool,
+    run: &mut dyn FnMut(&Noise, usize) -> Result<AuditReport>,
+    base: &Noise,
+    cfg: &PlanConfig,
+) -> Result<()> {
+    while searches.iter().any(|s| !s.done) {
+        // Greedy groups of searches whose injections can share data sets.
+        let mut groups: Vec<Vec<usize>> = Vec::new();
+        for (k, s) in searches.iter().enumerate().filter(|(_, s)| !s.done) {
+            let fits = |g: &Vec<usize>| g.iter().all(|&j| compatible(searches[j].pair, s.pair));
+            match groups.iter_mut().find(|g| fits(g)) {
+                Some(g) => g.push(k),
+                None => groups.push(vec![k]),
+            }
+        }
+        for g in groups {
+            let mut alive: Vec<usize> = g.clone();
+            let mut runs = vec![0usize; searches.len()];
+            for t in 0..cfg.trials {
+                if alive.is_empty() {
+                    break;
+                }
+                let mut noise = base.clone();
+                for &k in &alive {
+                    noise = inject(&noise, &searches[k])?;
+                }
+                let rep = run(&noise, t)?;
+                for &k in &alive {
+                    runs[k] += 1;
+                }
+                alive.retain(|&k| flagged(&rep, searches[k].pair));
+            }
+            for &k in &g {
+                let size = searches[k].next;
+                let flagged = alive.contains(&k);
+                searches[k].record(size, runs[k], flagged, cfg.bisection_steps);
+            }
+        }
+    }
+    Ok(())
+}
+
+/// The finished searches as results; `pair` gives a pair's role, victim, aggressor and
+/// sensitivity.
+fn search_results(
+    searches: Vec<Search>,
+    pair: &dyn Fn(usize) -> (String, String, String, f64),
+) -> Vec<SearchResult> {
+    searches
+        .into_iter()
+        .map(|s| {
+            let (role, victim, aggressor, sensitivity) = pair(s.pair);
+            let m = s.hi.map(|h| measures(s.kind, h));
+            SearchResult {
+                role,
+                victim,
+                aggressor,
+                pair_sensitivity_tvd_per_layer: sensitivity,
+                kind: s.kind,
+                smallest_flagged: s.hi,
+                largest_unflagged: match (s.lo, s.hi) {
+                    (Some(lo), Some(hi)) if lo < hi => Some(lo),
+                    (lo, None) => lo,
+                    _ => None,
+                },
+                infidelity: m.map(|m| m.0),
+                half_diamond: m.map(|m| m.1),
+                steps: s.steps,
+            }
+        })
+        .collect()
+}
+
+/// A coupler written `a-b` with layout ids in the layout's order.
+fn coupler_label(layout: &Layout, c: usize) -> String {
+    let (a, b) = layout.couplers[c];
+    format!("{}-{}", layout.id(a), layout.id(b))
+}
+
+/// A unit label of a gate direction as a coupler index, when it names a coupler and no qubit.
+fn as_coupler(layout: &Layout, label: &str) -> Option<usize> {
+    if layout.qubit(label).is_some() {
+        return None;
+    }
+    crate::design::patterns::coupler_by_name(layout, label)
+}
+
+/// The gate-on-gate directions (victim coupler, aggressor coupler, sensitivity) of a list of
+/// gate directions.
+fn gate_on_gate<'a>(
+    layout: &'a Layout,
+    directed: &'a [DirectedLimit],
+) -> impl Iterator<Item = (usize, usize, f64)> + 'a {
+    directed.iter().filter_map(|d| {
+        Some((
+            as_coupler(layout, &d.victim)?,
+            as_coupler(layout, &d.aggressor)?,
+            d.sensitivity_tvd_per_layer,
+        ))
+    })
+}
+
+/// The median and the worst gate-on-gate direction by baseline sensitivity, among those the
+/// design tests and whose pair the baseline did not flag (ties by layout order).
+fn gate_representatives(layout: &Layout, rep: &AuditReport) -> Vec<Representative> {
+    let directed: Vec<DirectedLimit> = rep
+        .gates
+        .directed
+        .iter()
+        .map(|d| DirectedLimit {
+            victim: d.victim.clone(),
+            aggressor: d.aggressor.clone(),
+            sensitivity_tvd_per_layer: d.sensitivity_tvd_per_layer,
+            detection_limit_tvd_per_layer: d.detection_limit_tvd_per_layer,
+        })
+        .collect();
+    let mut pairs: Vec<(f64, usize, usize)> = gate_on_gate(layout, &directed)
+        .filter(|&(v, x, s)| {
+            s.is_finite()
+                && !is_gate_pair_flagged(rep, &coupler_label(layout, v), &coupler_label(layout, x))
+        })
+        .map(|(v, x, s)| (s, v, x))
+        .collect();
+    pairs.sort_by(|x, y| x.0.total_cmp(&y.0).then(x.1.cmp(&y.1)).then(x.2.cmp(&y.2)));
+    let Some(&worst) = pairs.last() else { return Vec::new() };
+    let mid = pairs[(pairs.len() - 1) / 2];
+    let rep = |role: &str, p: (f64, usize, usize)| Representative {
+        role: role.into(),
+        victim: p.1,
+        aggressor: p.2,
+        sensitivity: p.0,
+    };
+    if (mid.1, mid.2) == (worst.1, worst.2) {
+        vec![rep("median+worst", worst)]
+    } else {
+        vec![rep("median", mid), rep("worst", worst)]
+    }
+}
+
+/// The gate-context term that injects a two-qubit depolarizing rate `p` per layer on the
+/// victim coupler's gate while the aggressor coupler runs its gate (couplers by index).
+pub fn injected_gate_term(
+    layout: &Layout,
+    victim: usize,
+    aggressor: usize,
+    p: f64,
+) -> GateContextTerm {
+    let (a, b) = layout.couplers[victim];
+    let (c, d) = layout.couplers[aggressor];
+    let p = p.clamp(0.0, 1.0);
+    let mut error = ErrorSpec::none(2);
+    error.pauli = std::iter::once(1.0 - p).chain(std::iter::repeat_n(p / 15.0, 15)).collect();
+    GateContextTerm {
+        victim: [a, b],
+        aggressor: Aggressor::Coupler(c.min(d), c.max(d)),
+        error,
+        line: 0,
+    }
+}
+
+/// True when the audit flags the gate pair {a, b} (couplers or a qubit and a coupler, as the
+/// report writes them; verdict watch or recalibrate).
+pub fn is_gate_pair_flagged(report: &AuditReport, a: &str, b: &str) -> bool {
+    report
+        .gates
+        .pairs
+        .iter()
+        .any(|e| ((e.a == a && e.b == b) || (e.a == b && e.b == a)) && e.verdict <= Verdict::Watch)
 }
 
 /// The stochastic error the worst searched pair needs before it is flagged, per shot count
@@ -1013,6 +1256,57 @@ pub fn render_terminal(r: &PlanReport, style: crate::report::terminal::Style) ->
         }
     }
     terminal::fitted_table(cols, style, "plan.json", &mut out);
+    let g = &r.gate_design;
+    if g.gate_pair_patterns + g.gate_qubit_patterns > 0 {
+        out.push('\n');
+        out.push_str(&terminal::heading(
+            &format!(
+                "Gate pairs: {} gate-pair and {} gate-qubit patterns, {} of the {} circuits; \
+                 smallest gate-context error the audit flags (two-qubit depolarizing on the \
+                 victim's gate while the aggressor's gate runs)",
+                g.gate_pair_patterns, g.gate_qubit_patterns, g.circuits, r.circuits
+            ),
+            style,
+        ));
+        let mut cols = columns(&[
+            ("shots", 0),
+            ("sensitivity\nmedian/worst", 0),
+            ("pair (victim<-aggressor)", 0),
+            ("stochastic\nx1e-3", 0),
+        ]);
+        for s in &r.shot_counts {
+            let sens = format!(
+                "{}/{}",
+                pm(s.gate_sensitivity_median_tvd_per_layer),
+                pm(s.gate_sensitivity_worst_tvd_per_layer)
+            );
+            if s.gate_searches.is_empty() {
+                let cells = [
+                    number(s.shots.to_string()),
+                    number(sens.clone()),
+                    text("no gate-on-gate direction to search"),
+                    number("-"),
+                ];
+                push_row(&mut cols, cells);
+            }
+            for x in &s.gate_searches {
+                let cells = [
+                    number(s.shots.to_string()),
+                    number(sens.clone()),
+                    text(format!("{}<-{} ({})", x.victim, x.aggressor, x.role)),
+                    number(opt(x.smallest_flagged, &|v| pm(v))),
+                ];
+                push_row(&mut cols, cells);
+            }
+        }
+        terminal::fitted_table(cols, style, "plan.json", &mut out);
+        out.push_str(&wrap(
+            "The recommendation below is for qubit edges; the gate pairs' smallest flagged \
+             rate above is their detection level at each shot count.",
+            style.width,
+            "",
+        ));
+    }
     out.push('\n');
     out.push_str(&wrap(&format!("Recommendation: {}.", r.recommendation.text), style.width, ""));
     out
@@ -1071,6 +1365,10 @@ mod tests {
             edges: Vec::new(),
             directed: Vec::new(),
             baseline_flagged: Vec::new(),
+            gate_directed: Vec::new(),
+            gate_sensitivity_median_tvd_per_layer: 0.0,
+            gate_sensitivity_worst_tvd_per_layer: 0.0,
+            gate_searches: Vec::new(),
             searches: vec![SearchResult {
                 role: "worst".into(),
                 victim: "q0".into(),

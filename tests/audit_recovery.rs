@@ -12,8 +12,8 @@ use slackmap::model::Family;
 use slackmap::report::{AuditReport, Verdict};
 use slackmap::simulate::{self, Noise, SimConfig};
 
-/// The demo chip's noise with every crosstalk term removed (context terms and readout
-/// crosstalk) and the drift blocks replaced by `drift`.
+/// The demo chip's noise with every crosstalk term removed (context and gate-context terms
+/// and readout crosstalk) and the drift blocks replaced by `drift`.
 fn null_noise(drift: &str) -> String {
     let text =
         std::fs::read_to_string(concat!(env!("CARGO_MANIFEST_DIR"), "/demo-data/noise.toml"))
@@ -23,7 +23,10 @@ fn null_noise(drift: &str) -> String {
     for line in text.lines() {
         let t = line.trim();
         if t.starts_with('[') {
-            skipping = matches!(t, "[[context]]" | "[[readout_crosstalk]]" | "[[drift]]");
+            skipping = matches!(
+                t,
+                "[[context]]" | "[[gate_context]]" | "[[readout_crosstalk]]" | "[[drift]]"
+            );
         }
         if !skipping {
             out.push_str(line);

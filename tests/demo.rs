@@ -43,6 +43,8 @@ fn demo_files_regenerate_bit_for_bit() {
         "3",
         "--seed",
         "2026",
+        "--gate-pairs",
+        "q8-q9/q10-q14",
         "--out",
         &t("design"),
     ]);
@@ -91,6 +93,10 @@ fn audit_of(counts: &str, out: &Path) -> Value {
     serde_json::from_str(&std::fs::read_to_string(out.join("audit.json")).unwrap()).unwrap()
 }
 
+fn truth_file() -> Value {
+    serde_json::from_str(&std::fs::read_to_string(demo("truth.json")).unwrap()).unwrap()
+}
+
 fn edge<'a>(a: &'a Value, x: &str, y: &str) -> &'a Value {
     a["edges"].as_array().unwrap().iter().find(|e| e["a"] == x && e["b"] == y).unwrap()
 }
@@ -104,13 +110,18 @@ fn demo_audit_finds_the_injected_edges_in_order_and_nothing_else() {
     // repeated sequences), q12<-q13 dephasing 5e-3, q2<-q3 depolarizing 1.5e-3, and q15's
     // readout flipping when q11 reads 1: unmodelled error that depends on q11's activity, so
     // context slack. Its score rests mostly on one circuit, and the other circuits, each at
-    // its own threshold, corroborate it.
+    // its own threshold, corroborate it; its size as the design sees it depends on how many
+    // shots of q11 read 1, so its rank among the others is not fixed. The three context
+    // terms come in the order of their strength.
     let top: Vec<(String, String)> = edges[..4]
         .iter()
         .map(|e| (e["a"].as_str().unwrap().into(), e["b"].as_str().unwrap().into()))
         .collect();
-    let want = [("q5", "q6"), ("q11", "q15"), ("q12", "q13"), ("q2", "q3")];
-    assert_eq!(top, want.map(|(x, y)| (x.to_string(), y.to_string())));
+    let pair = |x: &str, y: &str| (x.to_string(), y.to_string());
+    let context: Vec<(String, String)> =
+        top.iter().filter(|&p| *p != pair("q11", "q15")).cloned().collect();
+    assert_eq!(context, [pair("q5", "q6"), pair("q12", "q13"), pair("q2", "q3")], "{top:?}");
+    assert!(top.contains(&pair("q11", "q15")), "{top:?}");
     for (i, e) in edges[..4].iter().enumerate() {
         assert_eq!(e["rank"], i + 1);
         assert!(matches!(e["verdict"].as_str(), Some("recalibrate" | "watch")), "{e}");
@@ -120,13 +131,34 @@ fn demo_audit_finds_the_injected_edges_in_order_and_nothing_else() {
         assert_ne!(e["verdict"], "recalibrate", "{}-{}", e["a"], e["b"]);
         assert_ne!(e["verdict"], "watch", "{}-{}", e["a"], e["b"]);
     }
+    // Injected gate-on-gate crosstalk (demo-data/README.md): cz q10-q14 depolarizes at 1.5e-2
+    // while cz q8-q9 runs. It leads the gate pairs in its own direction, and no other gate
+    // pair is flagged.
+    let pairs = a["gates"]["pairs"].as_array().expect("the demo measures gate pairs");
+    let top = &pairs[0];
+    assert_eq!(
+        (top["victim"].as_str(), top["aggressor"].as_str()),
+        (Some("q10-q14"), Some("q8-q9"))
+    );
+    assert_eq!(top["verdict"], "recalibrate", "{top}");
+    for p in &pairs[1..] {
+        assert!(!matches!(p["verdict"].as_str(), Some("recalibrate" | "watch")), "{p}");
+    }
+    // The estimate stays below the injected half-diamond distance per layer (truth.json).
+    let truth_gp = &truth_file()["gate_pairs"][0];
+    assert_eq!(
+        (truth_gp["victim"].as_str(), truth_gp["aggressor"].as_str()),
+        (Some("q10-q14"), Some("q8-q9"))
+    );
+    let hd = truth_gp["error"]["half_diamond"].as_f64().unwrap();
+    let s = top["score_tvd_per_layer"].as_f64().unwrap();
+    assert!(s > 0.0 && s <= hd, "score {s} vs half-diamond {hd}");
     // The drifting qubit q8 needs intrinsic slack and is nobody's flagged victim.
     let sx8 = a["intrinsic"].as_array().unwrap().iter().find(|k| k["kind"] == "sx@q8").unwrap();
     assert!(sx8["slack_tvd_per_occurrence"].as_f64().unwrap() > 0.0);
     // Slack is a lower bound on the injected error per layer (subadditivity; common
     // practice): no injected edge's score exceeds its half-diamond distance from truth.json.
-    let truth: Value =
-        serde_json::from_str(&std::fs::read_to_string(demo("truth.json")).unwrap()).unwrap();
+    let truth = truth_file();
     for (v, r) in [("q5", "q6"), ("q12", "q13"), ("q2", "q3")] {
         let t = truth["pairs"]
             .as_array()
@@ -202,4 +234,30 @@ fn recalibration_improves_the_strong_edge_only() {
             assert_eq!(edge(&after, x, y)["verdict"], "clean", "{x}-{y}");
         }
     }
+}
+
+/// `slackmap demo`, the first command a user runs, shows the injected gate pair in its
+/// terminal report and in report.html (table row and layout arc), with its scheduling rule.
+#[test]
+fn demo_command_shows_the_gate_pair() {
+    let tmp = tempfile::tempdir().unwrap();
+    let out = tmp.path().join("demo");
+    let o = common::slackmap()
+        .args(["demo", "--replicates", "20", "--null-replicates", "20", "-q", "--out"])
+        .arg(&out)
+        .output()
+        .unwrap();
+    assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
+    let text = String::from_utf8_lossy(&o.stdout);
+    assert!(text.contains("Gate pairs with context slack"), "{text}");
+    let row = text.lines().find(|l| l.contains("cz q10-q14")).expect("a gate-pair row");
+    assert!(row.contains("cz q8-q9") && row.contains("recalibrate"), "{row}");
+    assert!(text.contains("Do not schedule in one layer: cz q8-q9 and cz q10-q14"), "{text}");
+    let html = std::fs::read_to_string(out.join("report.html")).unwrap();
+    let section = &html[html.find("<section id=\"gate-pairs\">").expect("gate-pair section")..];
+    let first = &section[section.find("<tr class=\"gate-pair verdict-").unwrap()..];
+    let first = &first[..first.find("</tr>").unwrap()];
+    assert!(first.contains("q10-q14") && first.contains("q8-q9"), "{first}");
+    assert!(first.contains("recalibrate"), "{first}");
+    assert!(html.contains("class=\"gate-pair\" data-victim=\"q10-q14\" data-aggressor=\"q8-q9\""));
 }

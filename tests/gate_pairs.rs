@@ -10,7 +10,7 @@ use std::collections::{BTreeMap, BTreeSet, HashMap};
 use std::path::{Path, PathBuf};
 
 use serde_json::Value;
-use slackmap::design::{design, patterns, Context, DesignConfig, Kind};
+use slackmap::design::{design, patterns, Context, DesignConfig, GateSelection, Kind};
 use slackmap::layout::{read_layout, Layout};
 
 fn grid4() -> PathBuf {
@@ -237,7 +237,7 @@ fn the_standard_design_is_unchanged_by_the_gate_patterns() {
     let layout = read_layout(&grid4()).unwrap();
     let cfg = DesignConfig::new(vec![1, 4], 2, 11, Kind::ALL.to_vec()).unwrap();
     let standard = design(&layout, &cfg).unwrap();
-    let with = design(&layout, &cfg.clone().with_gate_pairs(true)).unwrap();
+    let with = design(&layout, &cfg.clone().with_gate_pairs(GateSelection::All)).unwrap();
     assert!(!standard
         .manifest
         .iter()

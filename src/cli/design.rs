@@ -7,7 +7,7 @@ use std::path::PathBuf;
 use std::sync::atomic::Ordering;
 
 use clap::Args;
-use slackmap::design::{write_blueprint, Blueprint, DesignConfig, Kind};
+use slackmap::design::{write_blueprint, Blueprint, Context, DesignConfig, GateSelection, Kind};
 use slackmap::error::echo;
 use slackmap::files::{size_text, FolderRule, OutputDir};
 
@@ -43,13 +43,6 @@ pub struct DesignArgs {
     /// Seed for every random choice (sequences and run order).
     #[arg(long, default_value_t = 0, value_name = "S")]
     seed: u64,
-    /// Also write circuits for gate-on-gate crosstalk: every two nearby couplers that share
-    /// no qubit run two-qubit sequences in the same layers (context gate-pair), and every
-    /// coupler runs beside each nearby qubit driven by one-qubit gates (gate-qubit). The
-    /// standard circuits stay as they are. Many more patterns: a square grid gets about 360
-    /// to 380 besides its 47 standard ones.
-    #[arg(long)]
-    gate_pairs: bool,
     /// Output folder (must not exist, or be empty).
     #[arg(long, value_name = "DIR")]
     out: PathBuf,
@@ -70,6 +63,17 @@ pub struct SequenceArgs {
     /// (both repeated framings).
     #[arg(long, value_delimiter = ',', default_value = "randomized,repeated", value_name = "LIST")]
     kinds: Vec<String>,
+    /// Also write circuits for gate-on-gate crosstalk. Alone or with `all`: every two nearby
+    /// couplers that share no qubit run two-qubit sequences in the same layers (context
+    /// gate-pair), and every coupler runs beside each nearby qubit driven by one-qubit gates
+    /// (gate-qubit); a square grid gets 180 (4x4) to 380 (32x32) patterns besides its 39 to
+    /// 47 standard ones. With
+    /// a list of couplers (e.g. q5-q6,q9-q10): only the gate pairs whose two couplers are
+    /// both listed, and the listed couplers beside their nearby qubits, a targeted follow-up
+    /// after a first audit; an item a-b/c-d adds that one gate pair alone (e.g.
+    /// q5-q6/q9-q10: one pattern). The standard circuits stay as they are.
+    #[arg(long, num_args = 0..=1, default_missing_value = "all", value_name = "all|COUPLERS")]
+    gate_pairs: Option<String>,
 }
 
 impl SequenceArgs {
@@ -86,23 +90,40 @@ impl SequenceArgs {
             })?;
             kinds.extend(parsed);
         }
+        let gates = match &self.gate_pairs {
+            Some(text) => GateSelection::parse(text)?,
+            None => GateSelection::None,
+        };
         let cfg = DesignConfig::new(self.depths.clone(), self.sequences, seed, kinds)?;
-        Ok(cfg.with_limits(super::limits()))
+        Ok(cfg.with_limits(super::limits()).with_gate_pairs(gates))
     }
 }
 
 /// Runs `slackmap design`: claims the output folder first (so that a bad path fails before
 /// any work), streams the circuits into its staging folder and commits it at the end.
 pub fn run(args: DesignArgs) -> anyhow::Result<()> {
-    let cfg = args.sequences.config(args.seed)?.with_gate_pairs(args.gate_pairs);
+    let cfg = args.sequences.config(args.seed)?;
     let out = OutputDir::claim(&args.out, FolderRule::New)?;
     let layout = slackmap::layout::read_layout(&args.layout)?;
     let blueprint = Blueprint::new(&layout, &cfg)?;
     let stop = super::stop_flag();
     let bytes = write_blueprint(out.staging(), &blueprint, &|| stop.load(Ordering::SeqCst))?;
     out.commit()?;
+    let gate = |c: Context| blueprint.patterns().iter().filter(|p| p.context == c).count();
+    if cfg.gate_pairs.any() && gate(Context::GatePair) == 0 {
+        eprintln!(
+            "warning: no two of the selected couplers form a gate pair (two couplers that share \
+             no qubit and whose ends are neighbours), so no gate-pair circuit was written; only \
+             the selected couplers beside their nearby qubits ({} patterns)",
+            gate(Context::GateQubit)
+        );
+    }
+    let gates = match gate(Context::GatePair) + gate(Context::GateQubit) {
+        0 => String::new(),
+        n => format!(" ({n} of them gate-pair and gate-qubit)"),
+    };
     println!(
-        "{} patterns, {} circuits written to {} ({})",
+        "{} patterns{gates}, {} circuits written to {} ({})",
         blueprint.patterns().len(),
         blueprint.len(),
         args.out.display(),

@@ -21,7 +21,12 @@ crosstalk removed (context, zz and readout crosstalk terms), audits them for eve
 sensitivity (the least estimate its rows could tell from zero), then injects context
 errors of growing size (stochastic: extra depolarizing; coherent: a rotation about X) on
 the pairs with the median and the worst sensitivity until the audit flags them, and
-recommends a shot count for the --target (e.g. --target 0.5m for 0.5e-3 per layer). Progress
+recommends a shot count for the --target (e.g. --target 0.5m for 0.5e-3 per layer). With
+--gate-pairs (the same selection as design: alone, all, or couplers) the design holds gate-pair
+circuits too: the plan counts their patterns and circuits and searches the gate-on-gate
+directions of median and worst sensitivity the same way (a two-qubit depolarizing rate on the
+victim's gate while the aggressor's gate runs), which gives the gate pairs' detection level
+per shot count. Progress
 goes to stderr: a bar on a terminal, a plain line every few seconds otherwise. Writes plan1/plan.json (no wall-clock times in
 it: the same inputs and seed give the same file on any machine and thread count).
 

@@ -41,9 +41,110 @@ pub struct DesignConfig {
     pub kinds: Vec<Kind>,
     /// Size limits (depth, sequences, circuits, bytes of the files); see [`Limits`].
     pub limits: Limits,
-    /// Adds the gate-pair and gate-qubit patterns ([`patterns::gate_patterns`]) after the
-    /// standard ones; the standard circuits stay as they are without it.
-    pub gate_pairs: bool,
+    /// Which gate-pair and gate-qubit patterns ([`patterns::gate_patterns`]) follow the
+    /// standard ones; the standard circuits stay as they are whatever it is.
+    pub gate_pairs: GateSelection,
+}
+
+/// The gate contexts a design adds (`design --gate-pairs`).
+#[derive(Clone, Debug, Default, PartialEq, Eq)]
+pub enum GateSelection {
+    /// None: the standard design.
+    #[default]
+    None,
+    /// Every gate pair and every coupler beside every nearby qubit.
+    All,
+    /// Only the gate pairs whose two couplers are both listed, and the listed couplers beside
+    /// their nearby qubits ([`patterns::gate_patterns_among`]); an item `a-b/c-d` lists that
+    /// one gate pair alone (no gate-qubit units). Couplers are named `a-b` as given; they are
+    /// resolved against the layout when the design is built.
+    Couplers(Vec<String>),
+}
+
+impl GateSelection {
+    /// Reads `all` or a comma-separated list of couplers `a-b` and gate pairs `a-b/c-d` (the
+    /// layout is checked later, by [`GateSelection::couplers`]).
+    pub fn parse(text: &str) -> Result<GateSelection> {
+        let text = text.trim();
+        if text == "all" {
+            return Ok(GateSelection::All);
+        }
+        let names: Vec<String> = text.split(',').map(|c| c.trim().to_string()).collect();
+        let bad = |n: &str| n.split('/').count() > 2 || n.split('/').any(|c| !c.contains('-'));
+        if names.iter().any(|n| bad(n)) {
+            return Err(Error::Usage(format!(
+                "--gate-pairs '{}': give 'all' or couplers as two qubit ids joined by '-', comma \
+                 separated (e.g. q5-q6,q9-q10), or single gate pairs as two couplers joined by \
+                 '/' (e.g. q5-q6/q9-q10)",
+                echo(text)
+            )));
+        }
+        Ok(GateSelection::Couplers(names))
+    }
+
+    /// True when the design adds gate contexts.
+    pub fn any(&self) -> bool {
+        *self != GateSelection::None
+    }
+
+    /// The listed couplers and gate pairs as indices into `layout.couplers` (sorted, each
+    /// once); None for `None` and `All`. Fails on a name that is no coupler of the layout and
+    /// on a listed pair that is no gate pair.
+    #[allow(clippy::type_complexity)]
+    pub fn couplers(&self, layout: &Layout) -> Result<Option<(Vec<usize>, Vec<(usize, usize)>)>> {
+        let GateSelection::Couplers(names) = self else { return Ok(None) };
+        let find = |n: &str| {
+            patterns::coupler_by_name(layout, n).ok_or_else(|| {
+                let example: Vec<String> = layout
+                    .couplers
+                    .iter()
+                    .take(3)
+                    .map(|&(a, b)| format!("{}-{}", layout.id(a), layout.id(b)))
+                    .collect();
+                Error::Usage(format!(
+                    "--gate-pairs: '{}' is not a coupler of layout '{}' (name a coupler by its \
+                     two qubit ids joined by '-', e.g. {})",
+                    echo(n),
+                    echo(&layout.name),
+                    example.join(", ")
+                ))
+            })
+        };
+        let (mut couplers, mut pairs) = (Vec::new(), Vec::new());
+        let near = patterns::gate_pairs(layout);
+        for n in names {
+            match n.split_once('/') {
+                None => couplers.push(find(n)?),
+                Some((x, y)) => {
+                    let (i, j) = (find(x)?, find(y)?);
+                    let pair = (i.min(j), i.max(j));
+                    if !near.contains(&pair) {
+                        return Err(Error::Usage(format!(
+                            "--gate-pairs: '{}' is no gate pair of layout '{}': its couplers \
+                             must share no qubit and have neighbouring ends",
+                            echo(n),
+                            echo(&layout.name)
+                        )));
+                    }
+                    pairs.push(pair);
+                }
+            }
+        }
+        couplers.sort_unstable();
+        couplers.dedup();
+        pairs.sort_unstable();
+        pairs.dedup();
+        Ok(Some((couplers, pairs)))
+    }
+
+    /// The gate patterns this selection adds on `layout`.
+    pub fn patterns(&self, layout: &Layout) -> Result<Vec<Pattern>> {
+        Ok(match (self, self.couplers(layout)?) {
+            (GateSelection::None, _) => Vec::new(),
+            (_, Some((c, p))) => patterns::gate_patterns_among(layout, &c, &p),
+            (_, None) => patterns::gate_patterns(layout),
+        })
+    }
 }
 
 impl DesignConfig {
@@ -86,7 +187,7 @@ impl DesignConfig {
             seed,
             kinds: k,
             limits: Limits::DEFAULT,
-            gate_pairs: false,
+            gate_pairs: GateSelection::None,
         })
     }
 
@@ -95,8 +196,8 @@ impl DesignConfig {
         DesignConfig { limits, ..self }
     }
 
-    /// The same configuration with or without the gate-pair and gate-qubit patterns.
-    pub fn with_gate_pairs(self, gate_pairs: bool) -> DesignConfig {
+    /// The same configuration with these gate-pair and gate-qubit patterns.
+    pub fn with_gate_pairs(self, gate_pairs: GateSelection) -> DesignConfig {
         DesignConfig { gate_pairs, ..self }
     }
 
@@ -224,7 +325,7 @@ impl<'a> Blueprint<'a> {
         let limits = cfg.limits;
         let per_pattern = cfg.per_pattern().unwrap_or(u64::MAX);
         let mut least = patterns::min_patterns(layout);
-        if cfg.gate_pairs {
+        if cfg.gate_pairs == GateSelection::All {
             least = least.saturating_add(patterns::min_gate_patterns(layout));
         }
         let at_least = least.saturating_mul(per_pattern);
@@ -239,9 +340,7 @@ impl<'a> Blueprint<'a> {
         }
         let mut patterns = patterns::patterns(layout);
         let standard = patterns.len();
-        if cfg.gate_pairs {
-            patterns.extend(patterns::gate_patterns(layout));
-        }
+        patterns.extend(cfg.gate_pairs.patterns(layout)?);
         let total = (patterns.len() as u64).saturating_mul(per_pattern);
         if limits.enforced && total > Limits::CIRCUITS {
             return Err(Error::Usage(format!(
@@ -488,6 +587,15 @@ fn design_digest(layout: &Layout, cfg: &DesignConfig) -> String {
         "depths {:?}\nsequences {}\nkinds {:?}\nseed {}\n",
         cfg.depths, cfg.sequences, cfg.kinds, cfg.seed
     ));
+    // A design with every gate context or none shares its ids (the gate circuits follow the
+    // standard ones, which stay as they are). A selection of couplers gets ids of its own, so
+    // that counts of one selection's gate circuits are never read as another's.
+    if let Ok(Some((couplers, pairs))) = cfg.gate_pairs.couplers(layout) {
+        h.update(format!("gate couplers {couplers:?}\n"));
+        if !pairs.is_empty() {
+            h.update(format!("gate pairs {pairs:?}\n"));
+        }
+    }
     h.finalize().iter().take(DIGEST_CHARS / 2).map(|b| format!("{b:02x}")).collect()
 }
 
@@ -597,6 +705,32 @@ mod tests {
         };
         assert_eq!(find(Context::AllIdle), find(Context::AllActive1q));
         assert!(find(Context::AllIdle) >= 8);
+    }
+
+    #[test]
+    fn gate_selections_parse_resolve_and_get_ids_of_their_own() {
+        assert_eq!(GateSelection::parse("all").unwrap(), GateSelection::All);
+        let sel = GateSelection::parse("q1-q2, q0-q1").unwrap();
+        assert_eq!(sel, GateSelection::Couplers(vec!["q1-q2".into(), "q0-q1".into()]));
+        for bad in ["", "q1", "q1-q2,,q0-q1", "q0-q1/q2", "q0-q1/q2-q3/q3-q4"] {
+            let err = GateSelection::parse(bad).unwrap_err().to_string();
+            assert!(err.contains("e.g. q5-q6,q9-q10"), "{err}");
+        }
+        let layout = generate::chain(5);
+        assert_eq!(sel.couplers(&layout).unwrap(), Some((vec![0, 1], vec![])));
+        let pair = GateSelection::parse("q3-q4/q1-q2").unwrap();
+        assert_eq!(pair.couplers(&layout).unwrap(), Some((vec![], vec![(1, 3)])));
+        let err = GateSelection::parse("q0-q1/q1-q2").unwrap().couplers(&layout).unwrap_err();
+        assert!(err.to_string().contains("is no gate pair"), "{err}");
+        let err = GateSelection::parse("q0-q2").unwrap().couplers(&layout).unwrap_err();
+        assert!(err.to_string().contains("'q0-q2' is not a coupler of layout"), "{err}");
+        let cfg = |g: GateSelection| {
+            DesignConfig::new(vec![1], 1, 0, vec![Kind::Randomized]).unwrap().with_gate_pairs(g)
+        };
+        let digest = |g| Blueprint::new(&layout, &cfg(g)).unwrap().digest().to_string();
+        let none = digest(GateSelection::None);
+        assert_eq!(digest(GateSelection::All), none);
+        assert_ne!(digest(GateSelection::parse("q0-q1,q2-q3").unwrap()), none);
     }
 
     #[test]

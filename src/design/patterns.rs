@@ -418,12 +418,43 @@ pub fn min_gate_patterns(layout: &Layout) -> u64 {
 /// beside each of its [`gate_spectators`] driven. Units are packed like the reference ones,
 /// so the number of patterns depends on the layout's degree, not its size.
 pub fn gate_patterns(layout: &Layout) -> Vec<Pattern> {
+    gate_patterns_where(layout, &vec![true; layout.couplers.len()], &|_, _| true)
+}
+
+/// The gate patterns of a few couplers and gate pairs (indices into `layout.couplers`): the
+/// gate pairs whose two couplers are both in `couplers`, every pair in `pairs`, and every
+/// coupler of `couplers` beside each of its [`gate_spectators`] driven. A targeted follow-up:
+/// on a small chip little packs, so the full set has many patterns, while a handful of
+/// couplers adds a pattern or two per unit and a listed pair one pattern.
+pub fn gate_patterns_among(
+    layout: &Layout,
+    couplers: &[usize],
+    pairs: &[(usize, usize)],
+) -> Vec<Pattern> {
+    let mut chosen = vec![false; layout.couplers.len()];
+    for &c in couplers {
+        if let Some(x) = chosen.get_mut(c) {
+            *x = true;
+        }
+    }
+    let pairs: Vec<(usize, usize)> = pairs.iter().map(|&(i, j)| (i.min(j), i.max(j))).collect();
+    gate_patterns_where(layout, &chosen, &|i, j| {
+        (chosen[i] && chosen[j]) || pairs.contains(&(i, j))
+    })
+}
+
+fn gate_patterns_where(
+    layout: &Layout,
+    chosen: &[bool],
+    pair_chosen: &dyn Fn(usize, usize) -> bool,
+) -> Vec<Pattern> {
     let two = |c: usize| {
         let (a, b) = layout.couplers[c];
         BlockSpec::Two(a, b)
     };
     let mut out = Vec::new();
-    let pairs = gate_pairs(layout);
+    let pairs: Vec<(usize, usize)> =
+        gate_pairs(layout).into_iter().filter(|&(i, j)| pair_chosen(i, j)).collect();
     let units: Vec<Vec<QubitIx>> = pairs
         .iter()
         .map(|&(i, j)| two(i).qubits().into_iter().chain(two(j).qubits()).collect())
@@ -435,6 +466,7 @@ pub fn gate_patterns(layout: &Layout) -> Vec<Pattern> {
     let beside: Vec<(usize, QubitIx)> = gate_spectators(layout)
         .into_iter()
         .enumerate()
+        .filter(|&(c, _)| chosen[c])
         .flat_map(|(c, qs)| qs.into_iter().map(move |r| (c, r)))
         .collect();
     let units: Vec<Vec<QubitIx>> =
@@ -445,6 +477,15 @@ pub fn gate_patterns(layout: &Layout) -> Vec<Pattern> {
         out.push(pattern(layout, Context::GateQubit, blocks));
     }
     out
+}
+
+/// Finds a coupler named `a-b` (or `b-a`) by its qubit ids. Ids may themselves hold `-`, so
+/// every split is tried; None when no split names a coupler.
+pub fn coupler_by_name(layout: &Layout, name: &str) -> Option<usize> {
+    name.match_indices('-').find_map(|(i, _)| {
+        let (a, b) = (layout.qubit(&name[..i])?, layout.qubit(&name[i + 1..])?);
+        layout.coupler(a, b)
+    })
 }
 
 #[cfg(test)]
@@ -638,6 +679,79 @@ mod tests {
                 .sum();
             assert_eq!(found, gate_pairs(layout).len());
         }
+    }
+
+    #[test]
+    fn a_selection_keeps_the_pairs_among_its_couplers_and_their_spectators() {
+        let layout = generate::grid(4, 4);
+        let c = |name: &str| coupler_by_name(&layout, name).unwrap();
+        assert_eq!(coupler_by_name(&layout, "q9-q8"), Some(c("q8-q9")));
+        assert_eq!(coupler_by_name(&layout, "q5-q7"), None);
+        assert_eq!(coupler_by_name(&layout, "q5"), None);
+        let chosen = [c("q8-q9"), c("q10-q14")];
+        let ps = gate_patterns_among(&layout, &chosen, &[]);
+        let all = gate_patterns(&layout);
+        // The one gate pair of the two couplers, and each coupler beside each of its
+        // spectators (five each on this grid), every unit in a pattern of its own here.
+        let mut pairs = Vec::new();
+        let mut beside = Vec::new();
+        for p in &ps {
+            for u in gate_units(&layout, p) {
+                if p.context == Context::GatePair {
+                    pairs.push(u);
+                } else {
+                    let k = layout.coupler(u[1], u[2]).unwrap();
+                    assert!(chosen.contains(&k), "{u:?}");
+                    beside.push((k, u[0]));
+                }
+            }
+        }
+        assert_eq!(pairs.len(), 1);
+        let spectators = gate_spectators(&layout);
+        let mut want: Vec<(usize, QubitIx)> =
+            chosen.iter().flat_map(|&k| spectators[k].iter().map(move |&r| (k, r))).collect();
+        want.sort_unstable();
+        beside.sort_unstable();
+        assert_eq!(beside, want);
+        assert_eq!(ps.len(), 11);
+        assert!(all.len() > 10 * ps.len(), "{}", all.len());
+        // Every coupler selected is the full set.
+        let every: Vec<usize> = (0..layout.couplers.len()).collect();
+        assert_eq!(gate_patterns_among(&layout, &every, &[]), all);
+        // A listed pair alone is one gate-pair pattern and no gate-qubit unit.
+        let one = gate_patterns_among(&layout, &[], &[(c("q10-q14"), c("q8-q9"))]);
+        assert_eq!(one.len(), 1);
+        assert_eq!(one[0].context, Context::GatePair);
+        assert_eq!(gate_units(&layout, &one[0]).len(), 1);
+    }
+
+    /// Pattern counts on square grids of 16, 144 and 1,024 qubits (all of degree 4): they
+    /// depend on the layout's degree, not its size (method.md section 7). Figures quoted in
+    /// DEVELOPERS.md ("Gate contexts"); the greedy colouring can use a few more colours on a
+    /// larger grid, where more units compete, so the test allows a small margin above the
+    /// smallest and a bound far below the unit counts, which grow with the size.
+    #[test]
+    fn pattern_counts_depend_on_degree_not_size() {
+        let mut counts = Vec::new();
+        for n in [4, 12, 32] {
+            let layout = generate::grid(n, n);
+            let standard = patterns(&layout).len();
+            let gates = gate_patterns(&layout);
+            let pairs = gates.iter().filter(|p| p.context == Context::GatePair).count();
+            let units = gate_pairs(&layout).len()
+                + gate_spectators(&layout).iter().map(Vec::len).sum::<usize>();
+            println!(
+                "grid {n}x{n}: {standard} standard patterns, {} gate patterns ({pairs} \
+                 gate-pair, {} gate-qubit) for {units} gate units",
+                gates.len(),
+                gates.len() - pairs
+            );
+            counts.push((standard, gates.len(), units));
+        }
+        let (s12, g12, u12) = counts[1];
+        let (s32, g32, u32_) = counts[2];
+        assert!(s32 <= s12 + 3 && g32 <= g12 + g12 / 10, "{counts:?}");
+        assert!(u32_ > 7 * u12 && g32 * 20 < u32_, "{counts:?}");
     }
 
     #[test]

@@ -461,6 +461,35 @@ impl Noise {
         Ok(out)
     }
 
+    /// The same scenario with one more gate-context term (used by `plan`). Fails when the
+    /// victim is not a coupler, the aggressor shares a qubit with it, or the error is not a
+    /// two-qubit Pauli channel (16 probabilities summing to 1) without leakage.
+    pub fn with_gate_context_term(&self, term: GateContextTerm) -> Result<Noise> {
+        let n = self.readout.len();
+        let [a, b] = term.victim;
+        let aggr = term.aggressor.qubits();
+        if a >= n || b >= n || a == b || aggr.iter().any(|&q| q >= n || q == a || q == b) {
+            return Err(Error::Usage(format!(
+                "gate-context term on {a}-{b}: the victim must be two different qubits of the \
+                 {n}-qubit layout and the aggressor must share no qubit with it"
+            )));
+        }
+        let e = &term.error;
+        let pauli_ok = e.pauli.len() == 16
+            && e.pauli.iter().all(|p| (0.0..=1.0).contains(p))
+            && (e.pauli.iter().sum::<f64>() - 1.0).abs() < 1e-9;
+        if !pauli_ok || e.leakage != 0.0 {
+            return Err(Error::Usage(
+                "a gate-context term carries a two-qubit Pauli channel (16 probabilities \
+                 summing to 1), an optional rotation and no leakage"
+                    .into(),
+            ));
+        }
+        let mut out = self.clone();
+        out.gate_context.push(term);
+        Ok(out)
+    }
+
     /// Reads and validates a noise file.
     pub fn read(path: &Path, layout: &Layout) -> Result<Noise> {
         let text = crate::files::read_text_capped(path, MAX_NOISE_FILE_BYTES, "noise file")?;
