@@ -168,8 +168,7 @@ fn weights_in(
     r: QubitIx,
 ) -> (Weights, Weights, Weights) {
     let mut counts: Vec<(usize, KindIx, f64)> = Vec::new();
-    for (j, &i) in p.rows.iter().enumerate() {
-        let _ = j;
+    for &i in &p.rows {
         for &((k, rr), c) in &all[i].context_counts {
             if rr != r {
                 continue;
