@@ -503,10 +503,13 @@ pub fn trial(
 
 /// True when the audit flags the edge {a, b} (verdict watch or recalibrate).
 pub fn is_flagged(report: &AuditReport, a: &str, b: &str) -> bool {
-    report
-        .edges
-        .iter()
-        .any(|e| ((e.a == a && e.b == b) || (e.a == b && e.b == a)) && e.verdict <= Verdict::Watch)
+    report.edges.iter().any(|e| flags(&e.a, &e.b, e.verdict, a, b))
+}
+
+/// True when an entry {ea, eb} with `verdict` is the pair {a, b}, flagged (watch or
+/// recalibrate).
+fn flags(ea: &str, eb: &str, verdict: Verdict, a: &str, b: &str) -> bool {
+    ((ea == a && eb == b) || (ea == b && eb == a)) && verdict <= Verdict::Watch
 }
 
 /// Prefixes every stage name, so that a progress line says which audit of the plan runs.
@@ -531,7 +534,7 @@ impl Progress for Prefixed<'_> {
 /// tests and whose edge the baseline did not flag. Ties are broken by layout order
 /// (victim, then aggressor).
 fn representatives(layout: &Layout, rep: &AuditReport) -> Vec<Representative> {
-    let mut pairs: Vec<(f64, QubitIx, QubitIx)> = rep
+    let pairs: Vec<(f64, QubitIx, QubitIx)> = rep
         .directed
         .iter()
         .filter(|d| d.sensitivity_tvd_per_layer.is_finite())
@@ -544,10 +547,16 @@ fn representatives(layout: &Layout, rep: &AuditReport) -> Vec<Representative> {
             ))
         })
         .collect();
+    median_and_worst(pairs)
+}
+
+/// The median and the worst of (sensitivity, victim, aggressor) triples, ties broken by
+/// victim then aggressor index; one representative when they are the same pair.
+fn median_and_worst(mut pairs: Vec<(f64, usize, usize)>) -> Vec<Representative> {
     pairs.sort_by(|x, y| x.0.total_cmp(&y.0).then(x.1.cmp(&y.1)).then(x.2.cmp(&y.2)));
     let Some(&worst) = pairs.last() else { return Vec::new() };
     let mid = pairs[(pairs.len() - 1) / 2];
-    let rep = |role: &str, p: (f64, QubitIx, QubitIx)| Representative {
+    let rep = |role: &str, p: (f64, usize, usize)| Representative {
         role: role.into(),
         victim: p.1,
         aggressor: p.2,
@@ -946,27 +955,14 @@ fn gate_representatives(layout: &Layout, rep: &AuditReport) -> Vec<Representativ
             detection_limit_tvd_per_layer: d.detection_limit_tvd_per_layer,
         })
         .collect();
-    let mut pairs: Vec<(f64, usize, usize)> = gate_on_gate(layout, &directed)
+    let pairs: Vec<(f64, usize, usize)> = gate_on_gate(layout, &directed)
         .filter(|&(v, x, s)| {
             s.is_finite()
                 && !is_gate_pair_flagged(rep, &coupler_label(layout, v), &coupler_label(layout, x))
         })
         .map(|(v, x, s)| (s, v, x))
         .collect();
-    pairs.sort_by(|x, y| x.0.total_cmp(&y.0).then(x.1.cmp(&y.1)).then(x.2.cmp(&y.2)));
-    let Some(&worst) = pairs.last() else { return Vec::new() };
-    let mid = pairs[(pairs.len() - 1) / 2];
-    let rep = |role: &str, p: (f64, usize, usize)| Representative {
-        role: role.into(),
-        victim: p.1,
-        aggressor: p.2,
-        sensitivity: p.0,
-    };
-    if (mid.1, mid.2) == (worst.1, worst.2) {
-        vec![rep("median+worst", worst)]
-    } else {
-        vec![rep("median", mid), rep("worst", worst)]
-    }
+    median_and_worst(pairs)
 }
 
 /// The gate-context term that injects a two-qubit depolarizing rate `p` per layer on the
@@ -993,11 +989,7 @@ pub fn injected_gate_term(
 /// True when the audit flags the gate pair {a, b} (couplers or a qubit and a coupler, as the
 /// report writes them; verdict watch or recalibrate).
 pub fn is_gate_pair_flagged(report: &AuditReport, a: &str, b: &str) -> bool {
-    report
-        .gates
-        .pairs
-        .iter()
-        .any(|e| ((e.a == a && e.b == b) || (e.a == b && e.b == a)) && e.verdict <= Verdict::Watch)
+    report.gates.pairs.iter().any(|e| flags(&e.a, &e.b, e.verdict, a, b))
 }
 
 /// The stochastic error the worst searched pair needs before it is flagged, per shot count
