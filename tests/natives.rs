@@ -27,6 +27,15 @@ fn layout(dir: &Path, gates: &str) {
     ok(dir, &["layout", "check", "chip.toml"]);
 }
 
+/// `simulate` of the design in d/ under noise.toml on chip.toml, with `rest` (shots, seed,
+/// outputs).
+fn simulate(dir: &Path, rest: &[&str]) {
+    let mut args = vec!["simulate", "--layout", "chip.toml", "--circuits", "d/circuits.json"];
+    args.extend(["--noise", "noise.toml"]);
+    args.extend_from_slice(rest);
+    ok(dir, &args);
+}
+
 /// Design, simulate q4 disturbed by q1 (depolarizing 8e-3 per layer) with a two-qubit
 /// intrinsic error on each of `natives`, and audit. Returns audit.json.
 fn run(dir: &Path, natives: &[&str]) -> serde_json::Value {
@@ -52,24 +61,7 @@ fn run(dir: &Path, natives: &[&str]) -> serde_json::Value {
             "4",
         ],
     );
-    ok(
-        dir,
-        &[
-            "simulate",
-            "--layout",
-            "chip.toml",
-            "--circuits",
-            "d/circuits.json",
-            "--noise",
-            "noise.toml",
-            "--shots",
-            "500",
-            "--seed",
-            "2",
-            "--out",
-            "d/counts.csv",
-        ],
-    );
+    simulate(dir, &["--shots", "500", "--seed", "2", "--out", "d/counts.csv"]);
     ok(
         dir,
         &[
@@ -518,24 +510,7 @@ fn truth_lists_each_couplers_own_natives() {
         dir,
         &["design", "--layout", "chip.toml", "--out", "d", "--depths", "1", "--sequences", "1"],
     );
-    ok(
-        dir,
-        &[
-            "simulate",
-            "--layout",
-            "chip.toml",
-            "--circuits",
-            "d/circuits.json",
-            "--noise",
-            "noise.toml",
-            "--shots",
-            "10",
-            "--out",
-            "counts.csv",
-            "--truth",
-            "truth.json",
-        ],
-    );
+    simulate(dir, &["--shots", "10", "--out", "counts.csv", "--truth", "truth.json"]);
     let truth: serde_json::Value =
         serde_json::from_str(&std::fs::read_to_string(dir.join("truth.json")).unwrap()).unwrap();
     let listed: BTreeMap<String, Vec<String>> = truth["couplers"]
