@@ -157,39 +157,47 @@ pub(crate) struct Assessed {
 pub(crate) type Weights = Vec<(usize, f64)>;
 
 fn weights(a: &Analysis, p: &Problem, r: QubitIx) -> (Weights, Weights, Weights) {
-    weights_in(a, &a.rows.rows, p, r)
+    let counts = context_tallies(&a.rows.rows, p, &[r]).pop().unwrap_or_default();
+    let is_idle = |k: KindIx| a.rows.kinds.get(k).gate == Gate::Id;
+    (
+        normalised(&counts, &|_| true),
+        normalised(&counts, &|k| !is_idle(k)),
+        normalised(&counts, &is_idle),
+    )
 }
 
-/// [`weights`] over rows that share the analysis' kinds but not its programs (a replicate).
-fn weights_in(
-    a: &Analysis,
+/// Per aggressor of `aggressors`, its context occurrences on the rows of `p` over `all` (a
+/// replicate's rows, or the analysis' own): (context variable, kind, count), by variable.
+fn context_tallies(
     all: &[crate::rows::Row],
     p: &Problem,
-    r: QubitIx,
-) -> (Weights, Weights, Weights) {
-    let mut counts: Vec<(usize, KindIx, f64)> = Vec::new();
+    aggressors: &[QubitIx],
+) -> Vec<Vec<(usize, KindIx, f64)>> {
+    let mut counts: Vec<Vec<(usize, KindIx, f64)>> = vec![Vec::new(); aggressors.len()];
     for &i in &p.rows {
-        for &((k, rr), c) in &all[i].context_counts {
-            if rr != r {
-                continue;
-            }
+        for &((k, r), c) in &all[i].context_counts {
+            let Some(slot) = aggressors.iter().position(|&x| x == r) else { continue };
             let v = p.index[&Budget::Context(k, r)];
-            match counts.iter_mut().find(|e| e.0 == v) {
+            let list = &mut counts[slot];
+            match list.iter_mut().find(|e| e.0 == v) {
                 Some(e) => e.2 += c as f64,
-                None => counts.push((v, k, c as f64)),
+                None => list.push((v, k, c as f64)),
             }
         }
     }
-    counts.sort_by_key(|e| e.0);
-    let norm = |sel: &dyn Fn(KindIx) -> bool| -> Weights {
-        let total: f64 = counts.iter().filter(|e| sel(e.1)).map(|e| e.2).sum();
-        if total == 0.0 {
-            return Vec::new();
-        }
-        counts.iter().filter(|e| sel(e.1)).map(|e| (e.0, e.2 / total)).collect()
-    };
-    let is_idle = |k: KindIx| a.rows.kinds.get(k).gate == Gate::Id;
-    (norm(&|_| true), norm(&|k| !is_idle(k)), norm(&is_idle))
+    for list in &mut counts {
+        list.sort_by_key(|e| e.0);
+    }
+    counts
+}
+
+/// The tallies of the kinds `sel` keeps, as weights summing to 1 (none when they are 0).
+fn normalised(counts: &[(usize, KindIx, f64)], sel: &dyn Fn(KindIx) -> bool) -> Weights {
+    let total: f64 = counts.iter().filter(|e| sel(e.1)).map(|e| e.2).sum();
+    if total == 0.0 {
+        return Vec::new();
+    }
+    counts.iter().filter(|e| sel(e.1)).map(|e| (e.0, e.2 / total)).collect()
 }
 
 fn score(sol: &TwoStageSolution, w: &Weights) -> f64 {
@@ -236,8 +244,7 @@ pub(crate) fn pairs(a: &Analysis) -> Vec<(QubitIx, QubitIx)> {
 }
 
 /// The score weights (all kinds) of every directed pair of [`pairs`] on the victims'
-/// problems in `s`, over `all` (a replicate's rows): the first of [`weights_in`]'s three,
-/// found in one pass over each victim's rows rather than one per aggressor.
+/// problems in `s`, over `all` (a replicate's rows): one pass over each victim's rows.
 pub(crate) fn direction_weights(
     a: &Analysis,
     all: &[crate::rows::Row],
@@ -246,28 +253,9 @@ pub(crate) fn direction_weights(
     (0..a.layout.n_qubits())
         .into_par_iter()
         .flat_map_iter(|q| {
-            let (p, _) = &s.qubit[q];
-            let aggressors = a.layout.neighbours(q);
-            let mut counts: Vec<Vec<(usize, KindIx, f64)>> = vec![Vec::new(); aggressors.len()];
-            for &i in &p.rows {
-                for &((k, r), c) in &all[i].context_counts {
-                    let Some(slot) = aggressors.iter().position(|&x| x == r) else { continue };
-                    let v = p.index[&Budget::Context(k, r)];
-                    let list = &mut counts[slot];
-                    match list.iter_mut().find(|e| e.0 == v) {
-                        Some(e) => e.2 += c as f64,
-                        None => list.push((v, k, c as f64)),
-                    }
-                }
-            }
-            counts.into_iter().map(|mut list| {
-                list.sort_by_key(|e| e.0);
-                let total: f64 = list.iter().map(|e| e.2).sum();
-                if total == 0.0 {
-                    return Vec::new();
-                }
-                list.iter().map(|e| (e.0, e.2 / total)).collect()
-            })
+            context_tallies(all, &s.qubit[q].0, a.layout.neighbours(q))
+                .into_iter()
+                .map(|counts| normalised(&counts, &|_| true))
         })
         .collect()
 }
