@@ -419,6 +419,18 @@ pub struct Params {
 /// Default starting point: total error 0.5% per one-qubit kind, 2% per two-qubit kind,
 /// 2% readout error each way (typical magnitudes of the trade: common practice).
 impl Params {
+    /// `given`, or the default starting point for `spec` when none is given (built only
+    /// then: it holds every kind of the chip).
+    pub fn given_or_initial<'a>(
+        given: Option<&'a Params>,
+        spec: &ModelSpec,
+    ) -> Result<std::borrow::Cow<'a, Params>> {
+        Ok(match given {
+            Some(p) => std::borrow::Cow::Borrowed(p),
+            None => std::borrow::Cow::Owned(Params::initial(spec)?),
+        })
+    }
+
     /// The default starting point for `spec`.
     pub fn initial(spec: &ModelSpec) -> Result<Params> {
         let kinds = spec

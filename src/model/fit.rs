@@ -170,10 +170,7 @@ pub fn fit_qubit(
     start: Option<&Params>,
     options: &FitOptions,
 ) -> Result<FitResult> {
-    let base = match start {
-        Some(p) => p.clone(),
-        None => Params::initial(spec)?,
-    };
+    let base = Params::given_or_initial(start, spec)?;
     fit(rows, spec, &base, Free::All, options)
 }
 
@@ -187,15 +184,7 @@ pub fn fit_coupler(
     options: &FitOptions,
 ) -> Result<FitResult> {
     let mut base = fixed_one_qubit.clone();
-    // The default start is built only when none is given: it holds every kind of the chip.
-    let init;
-    let from = match start {
-        Some(p) => p,
-        None => {
-            init = Params::initial(spec)?;
-            &init
-        }
-    };
+    let from = Params::given_or_initial(start, spec)?;
     for (k, &a) in spec.kind_arity.iter().enumerate() {
         if a == 2 {
             if let (Some(dst), Some(src)) = (base.kinds.get_mut(k), from.kinds.get(k)) {

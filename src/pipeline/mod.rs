@@ -296,14 +296,7 @@ fn fit_model(
     let options = FitOptions::default();
     // One default start for every qubit and coupler fit (each would otherwise build it for
     // every kind of the chip: quadratic in its size).
-    let initial;
-    let start = match start {
-        Some(p) => p,
-        None => {
-            initial = Params::initial(spec)?;
-            &initial
-        }
-    };
+    let start = &*Params::given_or_initial(start, spec)?;
     let select = |list: &[usize]| -> (Vec<PreparedRow>, bool) {
         let reference: Vec<PreparedRow> = list
             .iter()
