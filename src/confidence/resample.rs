@@ -41,12 +41,20 @@ pub fn multinomial(n: u64, p: &[f64], rng: &mut ChaCha8Rng) -> Vec<u64> {
 }
 
 /// One circuit's observed outcomes and where each lands in each of its rows' marginals.
+///
+/// Kept outcome by outcome and sparse: outcome j lists only the rows whose marginal index
+/// is not 0 for it (`entries[starts[j]..starts[j + 1]]`, each `4 * row + index`, a row's
+/// block having at most two qubits). A marginal's entry 0 is then the shots left over. On
+/// wide circuits most rows read 0 for most outcomes, so a draw touches a small part of
+/// what a row-by-outcome table would.
 struct CircuitDraw {
     shots: u64,
     freq: Vec<f64>,
-    /// (global row index, marginal index of every distinct outcome).
-    rows: Vec<(usize, Vec<u8>)>,
+    /// Global index of each of the circuit's rows, in row order.
+    rows: Vec<usize>,
     n_outcomes: Vec<usize>,
+    starts: Vec<u32>,
+    entries: Vec<u32>,
 }
 
 /// What stays fixed across replicates: per-circuit draws and circuit groups.
@@ -72,22 +80,12 @@ impl Plan {
                 continue;
             }
             let freq = cc.outcomes.iter().map(|(_, n)| *n as f64 / shots as f64).collect();
-            let mut rows = Vec::new();
-            let mut n_outcomes = Vec::new();
+            let mut rows = Vec::with_capacity(list.len());
+            let mut n_outcomes = Vec::with_capacity(list.len());
             let mut key = vec![a.rows.rows[list[0]].n_timed_layers as u64];
             for &i in list {
                 let r = &a.rows.rows[i];
-                let codes = cc
-                    .outcomes
-                    .iter()
-                    .map(|(o, _)| {
-                        r.positions
-                            .iter()
-                            .enumerate()
-                            .fold(0u8, |acc, (j, &p)| acc | ((o.bit(p) as u8) << j))
-                    })
-                    .collect();
-                rows.push((i, codes));
+                rows.push(i);
                 n_outcomes.push(1usize << r.positions.len());
                 key.push(u64::MAX);
                 key.extend(r.block.iter().map(|&q| q as u64));
@@ -96,8 +94,24 @@ impl Plan {
                     key.extend(v.active_neighbours.iter().map(|&q| q as u64));
                 }
             }
+            let mut starts = Vec::with_capacity(cc.outcomes.len() + 1);
+            let mut entries = Vec::new();
+            starts.push(0u32);
+            for (o, _) in &cc.outcomes {
+                for (slot, &i) in list.iter().enumerate() {
+                    let code = a.rows.rows[i]
+                        .positions
+                        .iter()
+                        .enumerate()
+                        .fold(0u32, |acc, (j, &p)| acc | ((o.bit(p) as u32) << j));
+                    if code != 0 {
+                        entries.push(4 * slot as u32 + code);
+                    }
+                }
+                starts.push(entries.len() as u32);
+            }
             groups.entry(key).or_default().push(c);
-            circuits.insert(c, CircuitDraw { shots, freq, rows, n_outcomes });
+            circuits.insert(c, CircuitDraw { shots, freq, rows, n_outcomes, starts, entries });
         }
         Plan { circuits, groups: groups.into_values().collect() }
     }
@@ -117,16 +131,19 @@ impl Plan {
         out: &mut Resampled,
     ) {
         let tally = multinomial(from.shots, &from.freq, rng);
-        // Outcomes drawn at least once: with as many distinct outcomes as shots (wide
-        // circuits), about a third are drawn none. Counts are whole numbers, so the order
-        // of the sums does not matter.
-        let drawn: Vec<(usize, u64)> =
-            tally.iter().enumerate().filter(|e| *e.1 > 0).map(|(j, &t)| (j, t)).collect();
-        for (((dst, _), (src, codes)), &k) in to.rows.iter().zip(&from.rows).zip(&from.n_outcomes) {
-            let mut m = vec![0u64; k];
-            for &(j, t) in &drawn {
-                m[codes[j] as usize] += t;
+        let mut m: Vec<Vec<u64>> = from.n_outcomes.iter().map(|&k| vec![0u64; k]).collect();
+        // Counts are whole numbers, so the order of the sums does not matter.
+        for (j, &t) in tally.iter().enumerate() {
+            if t == 0 {
+                continue;
             }
+            let span = from.starts[j] as usize..from.starts[j + 1] as usize;
+            for &e in &from.entries[span] {
+                m[(e / 4) as usize][(e % 4) as usize] += t;
+            }
+        }
+        for ((dst, src), mut m) in to.rows.iter().zip(&from.rows).zip(m) {
+            m[0] = from.shots - m[1..].iter().sum::<u64>();
             out.counts[*dst] = Some(m);
             if let Some(s) = out.source.as_mut() {
                 s[*dst] = *src;
