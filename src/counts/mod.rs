@@ -184,21 +184,67 @@ pub fn read_counts_from<R: Read>(
     acc.finish()
 }
 
+/// A hasher for packed outcome words: a multiply-rotate mix per word and a final
+/// avalanche (the finaliser of SplitMix64, Steele, Lea & Flood 2014). The keys are bit
+/// patterns the program itself packed; the maps' order is never read (outcomes are sorted
+/// before use), so a faster hash than the default changes no result.
+#[derive(Clone, Copy, Default)]
+struct WordHasher(u64);
+
+impl WordHasher {
+    #[inline]
+    fn add(&mut self, w: u64) {
+        self.0 = (self.0.rotate_left(5) ^ w).wrapping_mul(0x51_7c_c1_b7_27_22_0a_95);
+    }
+}
+
+impl std::hash::Hasher for WordHasher {
+    fn write(&mut self, bytes: &[u8]) {
+        let mut chunks = bytes.chunks_exact(8);
+        for c in &mut chunks {
+            self.add(u64::from_le_bytes(c.try_into().expect("8 bytes")));
+        }
+        let rest = chunks.remainder();
+        if !rest.is_empty() {
+            let mut b = [0u8; 8];
+            b[..rest.len()].copy_from_slice(rest);
+            self.add(u64::from_le_bytes(b));
+        }
+    }
+
+    fn write_u64(&mut self, w: u64) {
+        self.add(w);
+    }
+
+    fn write_usize(&mut self, w: usize) {
+        self.add(w as u64);
+    }
+
+    fn finish(&self) -> u64 {
+        let mut z = self.0;
+        z = (z ^ (z >> 30)).wrapping_mul(0xbf58_476d_1ce4_e5b9);
+        z = (z ^ (z >> 27)).wrapping_mul(0x94d0_49bb_1331_11eb);
+        z ^ (z >> 31)
+    }
+}
+
+type WordMap<K> = HashMap<K, u64, std::hash::BuildHasherDefault<WordHasher>>;
+
 /// The rows of one circuit while reading, by outcome. Up to 64 measured qubits the key is
 /// the packed word itself: about 20 bytes an entry instead of about 80 for a boxed
 /// [`Outcome`], which is what lets a file with millions of distinct outcomes be read in
 /// memory close to its own size.
 enum OutcomeRows {
-    Packed(HashMap<u64, u64>),
-    Wide(HashMap<Outcome, u64>),
+    Packed(WordMap<u64>),
+    Wide(WordMap<Outcome>),
 }
 
 impl OutcomeRows {
     fn new(n_measured: usize) -> OutcomeRows {
         if n_measured <= 64 {
-            OutcomeRows::Packed(HashMap::new())
+            OutcomeRows::Packed(WordMap::default())
         } else {
-            OutcomeRows::Wide(HashMap::new())
+            OutcomeRows::Wide(WordMap::default())
         }
     }
 
@@ -209,11 +255,7 @@ impl OutcomeRows {
                 let word = bits.enumerate().fold(0u64, |w, (i, b)| w | ((b as u64) << i));
                 m.insert(word, count).is_none()
             }
-            OutcomeRows::Wide(m) => {
-                let mut v = Vec::with_capacity(n);
-                v.extend(bits);
-                m.insert(Outcome::from_bits(&v), count).is_none()
-            }
+            OutcomeRows::Wide(m) => m.insert(packed(bits, n), count).is_none(),
         }
     }
 
@@ -224,11 +266,7 @@ impl OutcomeRows {
                 let word = bits.enumerate().fold(0u64, |w, (i, b)| w | ((b as u64) << i));
                 *m.entry(word).or_default() += 1;
             }
-            OutcomeRows::Wide(m) => {
-                let mut v = Vec::with_capacity(n);
-                v.extend(bits);
-                *m.entry(Outcome::from_bits(&v)).or_default() += 1;
-            }
+            OutcomeRows::Wide(m) => *m.entry(packed(bits, n)).or_default() += 1,
         }
     }
 
@@ -237,9 +275,9 @@ impl OutcomeRows {
     /// `None` when nothing positive is left.
     fn probabilities_to_counts(self, shots: u64) -> Option<OutcomeRows> {
         fn convert<K: std::hash::Hash + Eq>(
-            m: HashMap<K, u64>,
+            m: WordMap<K>,
             shots: u64,
-        ) -> Option<HashMap<K, u64>> {
+        ) -> Option<WordMap<K>> {
             let clipped: Vec<(K, f64)> =
                 m.into_iter().map(|(k, v)| (k, f64::from_bits(v).max(0.0))).collect();
             let total: f64 = clipped.iter().map(|(_, p)| p).sum();
@@ -271,6 +309,15 @@ impl OutcomeRows {
     }
 }
 
+/// The `n` bits as an [`Outcome`], the same as [`Outcome::from_bits`] of them collected.
+fn packed(bits: impl Iterator<Item = bool>, n: usize) -> Outcome {
+    let mut words = vec![0u64; n.div_ceil(64).max(1)];
+    for (i, b) in bits.enumerate() {
+        words[i / 64] |= (b as u64) << (i % 64);
+    }
+    Outcome(words.into_boxed_slice())
+}
+
 /// Collects rows, checking each against its circuit. One `HashMap` per circuit that has
 /// rows, because rows of a circuit may be spread through a file and repeats must be found.
 struct Accumulator<'a> {
@@ -284,6 +331,8 @@ struct Accumulator<'a> {
     totals: Vec<u64>,
     first_line: Vec<Option<usize>>,
     rows: usize,
+    /// The circuit of the row before: a file's rows come grouped by circuit.
+    last: Option<usize>,
 }
 
 impl<'a> Accumulator<'a> {
@@ -298,6 +347,7 @@ impl<'a> Accumulator<'a> {
             totals: vec![0; n],
             first_line: vec![None; n],
             rows: 0,
+            last: None,
         }
     }
 
@@ -307,6 +357,9 @@ impl<'a> Accumulator<'a> {
 
     /// The index of a circuit id, marking it as having counts.
     fn circuit(&mut self, line: Option<usize>, id: &str) -> Result<usize> {
+        if let Some(ci) = self.last.filter(|&ci| self.circuits.circuits[ci].id == id) {
+            return Ok(ci);
+        }
         let Some(ci) = self.circuits.position(id) else {
             let theirs = crate::design::design_of_id(id);
             let ours =
@@ -345,6 +398,7 @@ impl<'a> Accumulator<'a> {
             self.maps[ci] = Some(OutcomeRows::new(self.circuits.circuits[ci].measured.len()));
             self.first_line[ci] = line;
         }
+        self.last = Some(ci);
         Ok(ci)
     }
 
