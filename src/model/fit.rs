@@ -14,7 +14,7 @@
 use nalgebra::{DMatrix, DVector, SymmetricEigen};
 
 use super::channel::{Family, KindIx, KindParams, ModelSpec, Params, Readout};
-use super::predict::{predict_with, Channels, ParamRef, PreparedRow};
+use super::predict::{predict_for_free, Channels, ParamRef, PreparedRow};
 use crate::layout::QubitIx;
 use crate::{Error, Result, Warning};
 
@@ -373,7 +373,9 @@ fn evaluate(rows: &[PreparedRow], params: &Params, coords: &Coords) -> Eval {
     let mut fisher = DMatrix::zeros(n, n);
     let mut row_llr = Vec::with_capacity(rows.len());
     for row in rows {
-        let pred = predict_with(row, params, &ch);
+        let pred = predict_for_free(row, params, &ch, &|k| {
+            coords.kind_start.get(k).is_some_and(Option::is_some)
+        });
         let counts = row.counts();
         let shots = row.shots() as f64;
         for (x, &c) in counts.iter().enumerate() {

@@ -553,7 +553,16 @@ impl IdealGrad {
 
 /// [`ideal_ptm`] over the Pauli paths: q_y = sum over paths of F[y, out] coef prod f^n,
 /// and dq_y / dE[a, a] of a kind from the same products with one factor differentiated.
-fn ideal_paths(c: &Compiled, paths: &[PauliPath], ch: &Channels, want_grad: bool) -> Ideal {
+/// Only the local kinds `wanted` gets a gradient (the others' stay zero): a fit that holds
+/// some kinds fixed never reads theirs, and each entry is summed on its own, so the
+/// wanted ones are the same numbers either way.
+fn ideal_paths(
+    c: &Compiled,
+    paths: &[PauliPath],
+    ch: &Channels,
+    want_grad: bool,
+    wanted: &dyn Fn(usize) -> bool,
+) -> Ideal {
     let k_out = c.functionals.nrows();
     let mut q = vec![0.0; k_out];
     let kdim = |local: usize| ch.get(c.kinds[local]).e.nrows();
@@ -562,6 +571,8 @@ fn ideal_paths(c: &Compiled, paths: &[PauliPath], ch: &Channels, want_grad: bool
     } else {
         Vec::new()
     };
+    let wanted: Vec<bool> =
+        if want_grad { (0..c.kinds.len()).map(wanted).collect() } else { Vec::new() };
     let mut powers: Vec<f64> = Vec::new();
     for path in paths {
         let eig = |f: &(u32, u32, u32)| {
@@ -578,6 +589,9 @@ fn ideal_paths(c: &Compiled, paths: &[PauliPath], ch: &Channels, want_grad: bool
             continue;
         }
         for (j, f) in path.factors.iter().enumerate() {
+            if !wanted[f.0 as usize] {
+                continue;
+            }
             let others: f64 =
                 powers.iter().enumerate().filter(|&(i, _)| i != j).map(|(_, p)| p).product();
             let d = path.coef * others * f.2 as f64 * eig(f).powi(f.2 as i32 - 1);
@@ -591,9 +605,20 @@ fn ideal_paths(c: &Compiled, paths: &[PauliPath], ch: &Channels, want_grad: bool
 }
 
 fn ideal_ptm(c: &Compiled, ch: &Channels, want_grad: bool) -> Ideal {
+    ideal_ptm_for(c, ch, want_grad, &|_| true)
+}
+
+/// [`ideal_ptm`], with gradients needed only for the local kinds `wanted` (see
+/// [`ideal_paths`]; transfer-matrix rows compute them all).
+fn ideal_ptm_for(
+    c: &Compiled,
+    ch: &Channels,
+    want_grad: bool,
+    wanted: &dyn Fn(usize) -> bool,
+) -> Ideal {
     if let Some(paths) = &c.paths {
         if c.kinds.iter().all(|&k| ch.get(k).diagonal) {
-            return ideal_paths(c, paths, ch, want_grad);
+            return ideal_paths(c, paths, ch, want_grad, wanted);
         }
     }
     if !c.matrices {
@@ -802,10 +827,28 @@ pub(crate) fn probabilities_with(row: &PreparedRow, params: &Params, ch: &Channe
 
 /// The prediction of a row with its Jacobian, given prebuilt channels.
 pub(crate) fn predict_with(row: &PreparedRow, params: &Params, ch: &Channels) -> Prediction {
-    predict_path(row, params, ch, uses_counted_path(&row.compiled, params))
+    predict_path(row, params, ch, uses_counted_path(&row.compiled, params), &|_| true)
 }
 
-fn predict_path(row: &PreparedRow, params: &Params, ch: &Channels, counted: bool) -> Prediction {
+/// [`predict_with`] for a fit that moves only the kinds `free`: the Jacobian's columns of
+/// the other kinds may be left zero (their values are never read by such a fit); every
+/// other figure is the same number.
+pub(crate) fn predict_for_free(
+    row: &PreparedRow,
+    params: &Params,
+    ch: &Channels,
+    free: &dyn Fn(KindIx) -> bool,
+) -> Prediction {
+    predict_path(row, params, ch, uses_counted_path(&row.compiled, params), free)
+}
+
+fn predict_path(
+    row: &PreparedRow,
+    params: &Params,
+    ch: &Channels,
+    counted: bool,
+    free: &dyn Fn(KindIx) -> bool,
+) -> Prediction {
     let c = &row.compiled;
     let k_out = 1 << c.n_slots;
     let mut columns = Vec::new();
@@ -832,11 +875,12 @@ fn predict_path(row: &PreparedRow, params: &Params, ch: &Channels, counted: bool
         }
         q
     } else {
-        let ideal = ideal_ptm(c, ch, true);
+        let ideal = ideal_ptm_for(c, ch, true, &|local| free(c.kinds[local]));
         let mut col = 0;
         for (local, &k) in c.kinds.iter().enumerate() {
+            let wanted = free(k);
             for de in &ch.get(k).de {
-                for y in 0..k_out {
+                for y in (0..k_out).filter(|_| wanted) {
                     dq[(y, col)] = ideal.grad.contract(local, y, de);
                 }
                 col += 1;
