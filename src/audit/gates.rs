@@ -76,9 +76,16 @@ fn charged(b: Budget) -> Option<(KindIx, Unit)> {
     }
 }
 
-/// Per circuit, the two-qubit gates as (layer, qubit, coupler), sorted: which coupler's gate
-/// acts on a qubit in a layer.
-pub(crate) struct GateIndex(Vec<Vec<(u32, QubitIx, usize)>>);
+/// Per circuit, the two-qubit gates of each layer as (qubit, coupler), sorted by qubit:
+/// which coupler's gate acts on a qubit in a layer.
+pub(crate) struct GateIndex(Vec<CircuitGates>);
+
+/// One circuit's gates: layer t's are `gates[starts[t]..starts[t + 1]]`; both are empty
+/// when the circuit has no two-qubit gate.
+struct CircuitGates {
+    starts: Vec<u32>,
+    gates: Vec<(QubitIx, usize)>,
+}
 
 impl GateIndex {
     pub fn new(a: &Analysis) -> GateIndex {
@@ -87,25 +94,39 @@ impl GateIndex {
                 .circuits
                 .par_iter()
                 .map(|c| {
-                    let mut v = Vec::new();
-                    for (t, layer) in c.layers.iter().enumerate() {
+                    let mut starts = Vec::with_capacity(c.layers.len() + 1);
+                    let mut gates = Vec::new();
+                    for layer in &c.layers {
+                        starts.push(gates.len() as u32);
+                        let from = gates.len();
                         for op in layer.iter().filter(|op| op.gate.arity() == 2) {
                             let q = op.qubits();
                             if let Some(d) = a.layout.coupler(q[0], q[1]) {
-                                v.extend([(t as u32, q[0], d), (t as u32, q[1], d)]);
+                                gates.extend([(q[0], d), (q[1], d)]);
                             }
                         }
+                        gates[from..].sort_unstable();
                     }
-                    v.sort_unstable();
-                    v
+                    starts.push(gates.len() as u32);
+                    if gates.is_empty() {
+                        starts = Vec::new();
+                    }
+                    CircuitGates { starts, gates }
                 })
                 .collect(),
         )
     }
 
     fn gate_on(&self, circuit: usize, layer: u32, q: QubitIx) -> Option<usize> {
-        let v = &self.0[circuit];
-        v.binary_search_by(|e| (e.0, e.1).cmp(&(layer, q))).ok().map(|i| v[i].2)
+        let c = &self.0[circuit];
+        let t = layer as usize;
+        let v = c.starts.get(t..t + 2).map_or(&[][..], |s| &c.gates[s[0] as usize..s[1] as usize]);
+        v.binary_search_by(|e| e.0.cmp(&q)).ok().map(|i| v[i].1)
+    }
+
+    /// Whether circuit `circuit` has a two-qubit gate on a coupler.
+    fn any(&self, circuit: usize) -> bool {
+        !self.0[circuit].gates.is_empty()
     }
 }
 
@@ -209,7 +230,7 @@ fn measured_apart(a: &Analysis, gates: &GateIndex, victim: Unit) -> BTreeSet<Uni
     let mut listed: BTreeSet<Unit> = BTreeSet::new();
     for &i in victim_rows(a, victim) {
         let row = &a.rows.rows[i];
-        if row.is_reference || gates.0[row.circuit as usize].is_empty() {
+        if row.is_reference || !gates.any(row.circuit as usize) {
             continue;
         }
         // A unit holds at most two qubits, so a row with more distinct aggressors than
