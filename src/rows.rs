@@ -12,8 +12,6 @@
 //! deterministic order (circuit order, then block order) and stored compactly: kinds are
 //! indices into one [`KindTable`].
 
-use std::collections::HashMap;
-
 use rayon::prelude::*;
 
 use crate::circuit::{Circuit, CircuitSet};
@@ -63,7 +61,7 @@ impl OpKind {
 #[derive(Clone, Debug, Default)]
 pub struct KindTable {
     kinds: Vec<OpKind>,
-    index: HashMap<OpKind, KindIx>,
+    index: crate::counts::FastMap<OpKind, KindIx>,
 }
 
 impl KindTable {
@@ -342,10 +340,19 @@ fn circuit_rows(
         .map(|t| if timed[t] { c.active_qubits(layout, t) } else { Vec::new() })
         .collect();
     let n_timed = timed.iter().filter(|&&t| t).count();
+    let n = layout.n_qubits();
+    // Whether qubit q is active in layer t, at t * n + q (a search of the layer's list per
+    // neighbour was a tenth of building the rows).
+    let mut is_active = vec![false; n * c.layers.len()];
+    for (t, list) in active.iter().enumerate() {
+        for &q in list.iter().filter(|&&q| q < n) {
+            is_active[t * n + q] = true;
+        }
+    }
+    let on = |t: usize, q: QubitIx| q < n && is_active[t * n + q];
     // Which op of layer t acts on qubit q, so each block reads only its own ops instead of
     // scanning whole layers (blocks x layer width would dominate on large layouts).
     const NONE: u32 = u32::MAX;
-    let n = layout.n_qubits();
     let mut op_at = vec![NONE; n * c.layers.len()];
     for (t, layer) in c.layers.iter().enumerate() {
         for (i, op) in layer.iter().enumerate() {
@@ -434,11 +441,11 @@ fn circuit_rows(
                 }
                 for (j, &q) in block.iter().enumerate() {
                     for &r in layout.neighbours(q) {
-                        if !block.contains(&r) && active[t].binary_search(&r).is_ok() {
+                        if !block.contains(&r) && on(t, r) {
                             ever_active[j].push(r);
                         }
                     }
-                    if active[t].binary_search(&q).is_ok() {
+                    if on(t, q) {
                         driven_layers[j] += 1;
                     }
                 }
@@ -453,7 +460,7 @@ fn circuit_rows(
                 agg.extend(
                     qs.iter()
                         .flat_map(|&q| layout.neighbours(q).iter().copied())
-                        .filter(|r| !block.contains(r) && active[t].binary_search(r).is_ok()),
+                        .filter(|&r| !block.contains(&r) && on(t, r)),
                 );
                 agg.sort_unstable();
                 agg.dedup();

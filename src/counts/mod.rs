@@ -184,12 +184,13 @@ pub fn read_counts_from<R: Read>(
     acc.finish()
 }
 
-/// A hasher for packed outcome words: a multiply-rotate mix per word and a final
-/// avalanche (the finaliser of SplitMix64, Steele, Lea & Flood 2014). The keys are bit
-/// patterns the program itself packed; the maps' order is never read (outcomes are sorted
-/// before use), so a faster hash than the default changes no result.
+/// A hasher for keys of a few machine words (packed outcomes, operation kinds, layer keys):
+/// a multiply-rotate mix per word and a final avalanche (the finaliser of SplitMix64,
+/// Steele, Lea & Flood 2014). For maps whose keys the program itself made and whose order
+/// is never read (outcomes are sorted before use; the others are only looked up), so a
+/// faster hash than the default changes no result.
 #[derive(Clone, Copy, Default)]
-struct WordHasher(u64);
+pub(crate) struct WordHasher(u64);
 
 impl WordHasher {
     #[inline]
@@ -212,8 +213,24 @@ impl std::hash::Hasher for WordHasher {
         }
     }
 
+    fn write_u8(&mut self, w: u8) {
+        self.add(w as u64);
+    }
+
+    fn write_u16(&mut self, w: u16) {
+        self.add(w as u64);
+    }
+
+    fn write_u32(&mut self, w: u32) {
+        self.add(w as u64);
+    }
+
     fn write_u64(&mut self, w: u64) {
         self.add(w);
+    }
+
+    fn write_isize(&mut self, w: isize) {
+        self.add(w as u64);
     }
 
     fn write_usize(&mut self, w: usize) {
@@ -228,7 +245,10 @@ impl std::hash::Hasher for WordHasher {
     }
 }
 
-type WordMap<K> = HashMap<K, u64, std::hash::BuildHasherDefault<WordHasher>>;
+/// A map hashed with [`WordHasher`].
+pub(crate) type FastMap<K, V> = HashMap<K, V, std::hash::BuildHasherDefault<WordHasher>>;
+
+type WordMap<K> = FastMap<K, u64>;
 
 /// The rows of one circuit while reading, by outcome. Up to 64 measured qubits the key is
 /// the packed word itself: about 20 bytes an entry instead of about 80 for a boxed

@@ -14,7 +14,6 @@
 //! prediction is then a sum of a few products of eigenvalue powers, and the transfer
 //! matrices are not stored at all.
 
-use std::collections::HashMap;
 use std::rc::Rc;
 use std::sync::Arc;
 
@@ -154,8 +153,8 @@ enum LayerKey {
 const LAYER_CACHE_LIMIT: usize = 1 << 14;
 
 thread_local! {
-    static LAYERS: std::cell::RefCell<HashMap<LayerKey, Rc<LayerPtm>>> =
-        std::cell::RefCell::new(HashMap::new());
+    static LAYERS: std::cell::RefCell<crate::counts::FastMap<LayerKey, Rc<LayerPtm>>> =
+        std::cell::RefCell::new(crate::counts::FastMap::default());
 }
 
 /// The cached layer of `key`, built by `build` on first use.
