@@ -531,9 +531,10 @@ struct Ideal {
 enum IdealGrad {
     /// `[local][y]`: the whole matrix (transfer-matrix rows).
     Full(Vec<Vec<Ptm>>),
-    /// `[local][y][a]`: its diagonal, the rest being zero (Pauli paths meet only the
-    /// diagonal of a Pauli channel).
-    Diagonal(Vec<Vec<Vec<f64>>>),
+    /// Its diagonal, the rest being zero (Pauli paths meet only the diagonal of a Pauli
+    /// channel), in one buffer: entry a of (local, y) at `start[local] + y * dim[local] + a`.
+    /// A local kind with `dim` 0 has none (its gradient was not asked for).
+    Diagonal { data: Vec<f64>, start: Vec<usize>, dim: Vec<usize> },
 }
 
 impl IdealGrad {
@@ -543,8 +544,12 @@ impl IdealGrad {
     fn contract(&self, local: usize, y: usize, de: &Ptm) -> f64 {
         match self {
             IdealGrad::Full(g) => de.dot(&g[local][y]),
-            IdealGrad::Diagonal(g) => {
-                g[local][y].iter().enumerate().fold(0.0, |acc, (a, &d)| acc + de[(a, a)] * d)
+            IdealGrad::Diagonal { data, start, dim } => {
+                let from = start[local] + y * dim[local];
+                data[from..from + dim[local]]
+                    .iter()
+                    .enumerate()
+                    .fold(0.0, |acc, (a, &d)| acc + de[(a, a)] * d)
             }
         }
     }
@@ -564,22 +569,28 @@ fn ideal_paths(
 ) -> Ideal {
     let k_out = c.functionals.nrows();
     let mut q = vec![0.0; k_out];
-    let kdim = |local: usize| ch.get(c.kinds[local]).e.nrows();
-    let mut grad: Vec<Vec<Vec<f64>>> = if want_grad {
-        (0..c.kinds.len()).map(|l| vec![vec![0.0; kdim(l)]; k_out]).collect()
-    } else {
-        Vec::new()
-    };
-    let wanted: Vec<bool> =
-        if want_grad { (0..c.kinds.len()).map(wanted).collect() } else { Vec::new() };
+    let (mut start, mut dim) = (Vec::new(), Vec::new());
+    if want_grad {
+        let mut len = 0;
+        for local in 0..c.kinds.len() {
+            let d = if wanted(local) { ch.get(c.kinds[local]).e.nrows() } else { 0 };
+            start.push(len);
+            dim.push(d);
+            len += d * k_out;
+        }
+        start.push(len);
+    }
+    let mut data = vec![0.0; start.last().copied().unwrap_or(0)];
     let mut powers: Vec<f64> = Vec::new();
+    let mut eigs: Vec<f64> = Vec::new();
     for path in paths {
-        let eig = |f: &(u32, u32, u32)| {
+        eigs.clear();
+        eigs.extend(path.factors.iter().map(|f| {
             let a = f.1 as usize;
             ch.get(c.kinds[f.0 as usize]).e[(a, a)]
-        };
+        }));
         powers.clear();
-        powers.extend(path.factors.iter().map(|f| eig(f).powi(f.2 as i32)));
+        powers.extend(path.factors.iter().zip(&eigs).map(|(f, e)| e.powi(f.2 as i32)));
         let value = path.coef * powers.iter().product::<f64>();
         for (y, qy) in q.iter_mut().enumerate() {
             *qy += c.functionals[(y, path.out)] * value;
@@ -588,19 +599,22 @@ fn ideal_paths(
             continue;
         }
         for (j, f) in path.factors.iter().enumerate() {
-            if !wanted[f.0 as usize] {
+            let local = f.0 as usize;
+            let kd = dim[local];
+            if kd == 0 {
                 continue;
             }
             let others: f64 =
                 powers.iter().enumerate().filter(|&(i, _)| i != j).map(|(_, p)| p).product();
-            let d = path.coef * others * f.2 as f64 * eig(f).powi(f.2 as i32 - 1);
+            let d = path.coef * others * f.2 as f64 * eigs[j].powi(f.2 as i32 - 1);
             let a = f.1 as usize;
-            for (y, g) in grad[f.0 as usize].iter_mut().enumerate() {
-                g[a] += c.functionals[(y, path.out)] * d;
+            for y in 0..k_out {
+                data[start[local] + y * kd + a] += c.functionals[(y, path.out)] * d;
             }
         }
     }
-    Ideal { q, grad: IdealGrad::Diagonal(grad) }
+    start.pop();
+    Ideal { q, grad: IdealGrad::Diagonal { data, start, dim } }
 }
 
 fn ideal_ptm(c: &Compiled, ch: &Channels, want_grad: bool) -> Ideal {
