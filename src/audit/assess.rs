@@ -17,7 +17,7 @@ use std::collections::{BTreeSet, HashMap};
 use rayon::prelude::*;
 
 use super::problems::{Budget, Problem};
-use super::{check_cancel, Analysis, AuditConfig, Progress, Solved};
+use super::{check_cancel, Analysis, AuditConfig, PassRows, Progress, Solved};
 use crate::error::Result;
 use crate::gate::Gate;
 use crate::layout::QubitIx;
@@ -157,7 +157,7 @@ pub(crate) struct Assessed {
 pub(crate) type Weights = Vec<(usize, f64)>;
 
 fn weights(a: &Analysis, p: &Problem, r: QubitIx) -> (Weights, Weights, Weights) {
-    let counts = context_tallies(&a.rows.rows, p, &[r]).pop().unwrap_or_default();
+    let counts = context_tallies(PassRows::own(&a.rows.rows), p, &[r]).pop().unwrap_or_default();
     let is_idle = |k: KindIx| a.rows.kinds.get(k).gate == Gate::Id;
     (
         normalised(&counts, &|_| true),
@@ -169,7 +169,7 @@ fn weights(a: &Analysis, p: &Problem, r: QubitIx) -> (Weights, Weights, Weights)
 /// Per aggressor of `aggressors`, its context occurrences on the rows of `p` over `all` (a
 /// replicate's rows, or the analysis' own): (context variable, kind, count), by variable.
 fn context_tallies(
-    all: &[crate::rows::Row],
+    all: PassRows<'_>,
     p: &Problem,
     aggressors: &[QubitIx],
 ) -> Vec<Vec<(usize, KindIx, f64)>> {
@@ -247,7 +247,7 @@ pub(crate) fn pairs(a: &Analysis) -> Vec<(QubitIx, QubitIx)> {
 /// problems in `s`, over `all` (a replicate's rows): one pass over each victim's rows.
 pub(crate) fn direction_weights(
     a: &Analysis,
-    all: &[crate::rows::Row],
+    all: PassRows<'_>,
     s: &Solved,
 ) -> Vec<Weights> {
     (0..a.layout.n_qubits())

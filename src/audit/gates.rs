@@ -24,7 +24,7 @@ use rayon::prelude::*;
 
 use super::assess::{self, Directed, Subject};
 use super::problems::{Budget, Problem};
-use super::{Analysis, AuditConfig, Progress, Solved};
+use super::{Analysis, AuditConfig, PassRows, Progress, Solved};
 use crate::error::Result;
 use crate::gate::Gate;
 use crate::layout::{Layout, QubitIx};
@@ -266,7 +266,7 @@ fn view(
     a: &Analysis,
     gates: &GateIndex,
     victim: Unit,
-    all: &[Row],
+    all: PassRows<'_>,
     source: Option<&[usize]>,
     p: &Problem,
     zero: &[f64],
@@ -329,7 +329,7 @@ pub(crate) fn scores(
     a: &Analysis,
     gates: &GateIndex,
     victims: &[GateVictim],
-    all: &[Row],
+    all: PassRows<'_>,
     source: Option<&[usize]>,
     s: &Solved,
 ) -> Vec<f64> {
@@ -415,7 +415,7 @@ pub(crate) fn assess(
         .map(|gv| -> Result<Vec<GateDirected>> {
             let victim = gv.victim;
             let (p, _) = solved_of(s, victim);
-            let v = view(a, gates, victim, &a.rows.rows, None, p, &zero);
+            let v = view(a, gates, victim, PassRows::own(&a.rows.rows), None, p, &zero);
             let sol = v.lp.solve()?;
             let all_w: Vec<(Weights, Weights, Weights)> =
                 gv.aggressors.iter().map(|&x| weights(a, victim, &v, x)).collect();

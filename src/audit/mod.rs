@@ -20,7 +20,7 @@ mod profile;
 
 pub use crate::pipeline::problems;
 pub(crate) use crate::pipeline::{
-    check_cancel, intrinsic_slack, kind_occurrences, row_slacks, Analysis, Solved,
+    check_cancel, intrinsic_slack, kind_occurrences, row_slacks, Analysis, Solved, PassRows,
 };
 pub use crate::pipeline::{Cancel, Progress, Silent};
 
@@ -121,9 +121,9 @@ pub fn run_parts(
     // (the parametric null, a bootstrap that resamples shots): found once.
     let own_weights = std::sync::OnceLock::new();
     let scorer =
-        &move |a: &Analysis, all: &[crate::rows::Row], source: Option<&[usize]>, s: &Solved| {
+        &move |a: &Analysis, all: PassRows<'_>, source: Option<&[usize]>, s: &Solved| {
             let computed;
-            let weights = if std::ptr::eq(all, a.rows.rows.as_slice()) {
+            let weights = if all.is_own() {
                 own_weights.get_or_init(|| assess::direction_weights(a, all, s))
             } else {
                 computed = assess::direction_weights(a, all, s);

@@ -119,7 +119,46 @@ pub(crate) struct Solved {
 /// (a bootstrap replicate that resamples circuits), so that a scorer can look at the circuit
 /// a row really came from.
 pub(crate) type Scorer =
-    dyn Fn(&Analysis, &[rows::Row], Option<&[usize]>, &Solved) -> Vec<f64> + Sync;
+    dyn Fn(&Analysis, PassRows<'_>, Option<&[usize]>, &Solved) -> Vec<f64> + Sync;
+
+/// The rows of one pass: the analysis' own, or a replicate's, whose row i holds the program
+/// (blocks, kinds, contexts, circuit) of analysis row `source[i]`. Borrowed, never copied:
+/// a replicate owns only its counts.
+#[derive(Clone, Copy)]
+pub(crate) struct PassRows<'a> {
+    rows: &'a [rows::Row],
+    source: Option<&'a [usize]>,
+}
+
+impl<'a> PassRows<'a> {
+    /// The analysis' own rows.
+    pub fn own(rows: &'a [rows::Row]) -> PassRows<'a> {
+        PassRows { rows, source: None }
+    }
+
+    /// Row i is `rows[source[i]]` (every row its own without `source`).
+    pub fn resampled(rows: &'a [rows::Row], source: Option<&'a [usize]>) -> PassRows<'a> {
+        PassRows { rows, source }
+    }
+
+    /// Number of rows.
+    pub fn len(&self) -> usize {
+        self.source.map_or(self.rows.len(), <[usize]>::len)
+    }
+
+    /// True when every row is its own (no row takes another's program).
+    pub fn is_own(&self) -> bool {
+        self.source.is_none()
+    }
+}
+
+impl std::ops::Index<usize> for PassRows<'_> {
+    type Output = rows::Row;
+
+    fn index(&self, i: usize) -> &rows::Row {
+        &self.rows[self.source.map_or(i, |s| s[i])]
+    }
+}
 
 pub(crate) fn check_cancel(p: &dyn Progress) -> Result<()> {
     if p.cancelled() {
@@ -200,7 +239,9 @@ pub(crate) fn analyse<'a>(
     }
 
     let zero = vec![0.0; rows.rows.len()];
-    let template = |list: &Vec<usize>| Problem::build(&rows.rows, list.clone(), &zero, &|_| None);
+    let template = |list: &Vec<usize>| {
+        Problem::build(PassRows::own(&rows.rows), list.clone(), &zero, &|_| None)
+    };
     let templates = Templates {
         qubit: qubit_rows.par_iter().map(template).collect(),
         coupler: coupler_rows.par_iter().map(template).collect(),
@@ -208,7 +249,7 @@ pub(crate) fn analyse<'a>(
 
     let fitted = fit_model(
         layout,
-        &rows.rows,
+        PassRows::own(&rows.rows),
         &prepared,
         &qubit_rows,
         &coupler_rows,
@@ -284,7 +325,7 @@ fn model_row(block: &[QubitIx], row_steps: &[rows::Step], marginal: Vec<u64>) ->
 #[allow(clippy::too_many_arguments)]
 fn fit_model(
     layout: &Layout,
-    rows: &[rows::Row],
+    rows: PassRows<'_>,
     prepared: &[Option<PreparedRow>],
     qubit_rows: &[Vec<usize>],
     coupler_rows: &[Vec<usize>],
@@ -409,14 +450,14 @@ fn prefix(w: Warning, who: &str) -> Warning {
 
 /// Solves the qubit problems, then the coupler problems with the qubit budgets fixed.
 pub(crate) fn solve_all(a: &Analysis, progress: &dyn Progress) -> Result<Solved> {
-    solve_rows(a, &a.rows.rows, &a.requirement, Some(&a.templates), progress)
+    solve_rows(a, PassRows::own(&a.rows.rows), &a.requirement, Some(&a.templates), progress)
 }
 
 /// [`solve_all`] for rows with the analysis' block structure but other programs or
 /// requirements (a bootstrap replicate).
 fn solve_rows(
     a: &Analysis,
-    all: &[rows::Row],
+    all: PassRows<'_>,
     requirement: &[f64],
     templates: Option<&Templates>,
     progress: &dyn Progress,
@@ -464,7 +505,7 @@ fn solve_rows(
 fn solve_each(
     lists: &[Vec<usize>],
     templates: Option<&[Problem]>,
-    all: &[rows::Row],
+    all: PassRows<'_>,
     requirement: &[f64],
     fixed: &(dyn Fn(Budget) -> Option<f64> + Sync),
     progress: &dyn Progress,
@@ -543,18 +584,7 @@ pub(crate) fn rescore(
     let quiet = Nested(progress);
     let n = a.rows.rows.len();
     let src = |i: usize| data.source.as_ref().map_or(i, |s| s[i]);
-    let owned: Option<Vec<rows::Row>> = data.source.as_ref().map(|s| {
-        s.iter()
-            .enumerate()
-            .map(|(i, &j)| {
-                let mut r = a.rows.rows[j].clone();
-                r.circuit = a.rows.rows[i].circuit;
-                r.marginal = data.counts[i].clone();
-                r
-            })
-            .collect()
-    });
-    let all: &[rows::Row] = owned.as_deref().unwrap_or(&a.rows.rows);
+    let all = PassRows::resampled(&a.rows.rows, data.source.as_deref());
     // Without a refit on the original rows the model's predictions are already known, so
     // the rows need no recompiling (the parametric null's case).
     let needs_model = refit || data.source.is_some();
@@ -612,15 +642,14 @@ pub(crate) fn rescore(
 /// solved on `all` under `requirement`.
 fn scores_of(
     a: &Analysis,
-    all: &[rows::Row],
+    all: PassRows<'_>,
     source: Option<&[usize]>,
     requirement: &[f64],
     scorer: &Scorer,
     progress: &dyn Progress,
 ) -> Result<(Vec<f64>, Vec<f64>)> {
     // The point pass's problems hold exactly when the rows are the analysis' own.
-    let own = std::ptr::eq(all.as_ptr(), a.rows.rows.as_ptr()) && all.len() == a.rows.rows.len();
-    let solved = solve_rows(a, all, requirement, own.then_some(&a.templates), progress)?;
+    let solved = solve_rows(a, all, requirement, all.is_own().then_some(&a.templates), progress)?;
     let directed = scorer(a, all, source, &solved);
     let intrinsic =
         (0..a.rows.kinds.len() as u32).map(|k| intrinsic_slack(a, &solved, k)).collect();
@@ -634,7 +663,7 @@ pub(crate) fn estimate(
     scorer: &Scorer,
     progress: &dyn Progress,
 ) -> Result<(Vec<f64>, Vec<f64>)> {
-    scores_of(a, &a.rows.rows, None, &a.deviation, scorer, &Nested(progress))
+    scores_of(a, PassRows::own(&a.rows.rows), None, &a.deviation, scorer, &Nested(progress))
 }
 
 /// Scores of one rescoring: directed scores in `scorer`'s pair order and intrinsic slack

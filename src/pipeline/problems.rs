@@ -7,6 +7,7 @@
 use std::collections::HashMap;
 
 use crate::layout::QubitIx;
+use super::PassRows;
 use crate::rows::{KindIx, Row};
 use crate::slack::lp::{CoveringProblem, Row as CoverRow, TwoStageSolution, VarKind};
 
@@ -85,8 +86,8 @@ fn settled_contexts_as_reference(lp: &mut CoveringProblem) {
 impl Problem {
     /// Builds a problem over `rows` (global indices into `all`), with requirements
     /// `requirement[global index]`; `fixed` gives the value of budgets set elsewhere.
-    pub fn build(
-        all: &[Row],
+    pub(crate) fn build(
+        all: PassRows<'_>,
         rows: Vec<usize>,
         requirement: &[f64],
         fixed: &dyn Fn(Budget) -> Option<f64>,
@@ -96,8 +97,8 @@ impl Problem {
 
     /// [`Problem::build`] with the terms of each row given by `terms(global index, row)`
     /// instead of [`row_budgets`] (the gate view of a victim's rows).
-    pub fn build_with(
-        all: &[Row],
+    pub(crate) fn build_with(
+        all: PassRows<'_>,
         rows: Vec<usize>,
         requirement: &[f64],
         fixed: &dyn Fn(Budget) -> Option<f64>,
