@@ -54,7 +54,38 @@ struct CircuitDraw {
     rows: Vec<usize>,
     n_outcomes: Vec<usize>,
     starts: Vec<u32>,
-    entries: Vec<u32>,
+    entries: Entries,
+}
+
+/// The entries of a [`CircuitDraw`], two bytes each while the circuit has fewer than 2^14
+/// rows (the table is most of the plan's memory: a hundred megabytes on a 144-qubit chip at
+/// four bytes an entry).
+enum Entries {
+    Narrow(Box<[u16]>),
+    Wide(Box<[u32]>),
+}
+
+impl Entries {
+    fn new(entries: Vec<u32>, n_rows: usize) -> Entries {
+        if n_rows < 1 << 14 {
+            Entries::Narrow(entries.into_iter().map(|e| e as u16).collect())
+        } else {
+            Entries::Wide(entries.into_boxed_slice())
+        }
+    }
+}
+
+/// Adds each drawn outcome's shots `tally[j]` to the marginals its entries name.
+fn tally_into<T: Copy + Into<u32>>(m: &mut [Vec<u64>], starts: &[u32], entries: &[T], tally: &[u64]) {
+    for (j, &t) in tally.iter().enumerate() {
+        if t == 0 {
+            continue;
+        }
+        for &e in &entries[starts[j] as usize..starts[j + 1] as usize] {
+            let e: u32 = e.into();
+            m[(e / 4) as usize][(e % 4) as usize] += t;
+        }
+    }
 }
 
 /// What stays fixed across replicates: per-circuit draws and circuit groups.
@@ -111,6 +142,7 @@ impl Plan {
                 starts.push(entries.len() as u32);
             }
             groups.entry(key).or_default().push(c);
+            let entries = Entries::new(entries, list.len());
             circuits.insert(c, CircuitDraw { shots, freq, rows, n_outcomes, starts, entries });
         }
         Plan { circuits, groups: groups.into_values().collect() }
@@ -133,14 +165,9 @@ impl Plan {
         let tally = multinomial(from.shots, &from.freq, rng);
         let mut m: Vec<Vec<u64>> = from.n_outcomes.iter().map(|&k| vec![0u64; k]).collect();
         // Counts are whole numbers, so the order of the sums does not matter.
-        for (j, &t) in tally.iter().enumerate() {
-            if t == 0 {
-                continue;
-            }
-            let span = from.starts[j] as usize..from.starts[j + 1] as usize;
-            for &e in &from.entries[span] {
-                m[(e / 4) as usize][(e % 4) as usize] += t;
-            }
+        match &from.entries {
+            Entries::Narrow(e) => tally_into(&mut m, &from.starts, e, &tally),
+            Entries::Wide(e) => tally_into(&mut m, &from.starts, e, &tally),
         }
         for ((dst, src), mut m) in to.rows.iter().zip(&from.rows).zip(m) {
             m[0] = from.shots - m[1..].iter().sum::<u64>();
