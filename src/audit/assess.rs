@@ -245,11 +245,7 @@ pub(crate) fn pairs(a: &Analysis) -> Vec<(QubitIx, QubitIx)> {
 
 /// The score weights (all kinds) of every directed pair of [`pairs`] on the victims'
 /// problems in `s`, over `all` (a replicate's rows): one pass over each victim's rows.
-pub(crate) fn direction_weights(
-    a: &Analysis,
-    all: PassRows<'_>,
-    s: &Solved,
-) -> Vec<Weights> {
+pub(crate) fn direction_weights(a: &Analysis, all: PassRows<'_>, s: &Solved) -> Vec<Weights> {
     (0..a.layout.n_qubits())
         .into_par_iter()
         .flat_map_iter(|q| {

@@ -20,7 +20,7 @@ mod profile;
 
 pub use crate::pipeline::problems;
 pub(crate) use crate::pipeline::{
-    check_cancel, intrinsic_slack, kind_occurrences, row_slacks, Analysis, Solved, PassRows,
+    check_cancel, intrinsic_slack, kind_occurrences, row_slacks, Analysis, PassRows, Solved,
 };
 pub use crate::pipeline::{Cancel, Progress, Silent};
 
@@ -120,19 +120,18 @@ pub fn run_parts(
     // The weights over the analysis' own rows are the same in every pass that keeps them
     // (the parametric null, a bootstrap that resamples shots): found once.
     let own_weights = std::sync::OnceLock::new();
-    let scorer =
-        &move |a: &Analysis, all: PassRows<'_>, source: Option<&[usize]>, s: &Solved| {
-            let computed;
-            let weights = if all.is_own() {
-                own_weights.get_or_init(|| assess::direction_weights(a, all, s))
-            } else {
-                computed = assess::direction_weights(a, all, s);
-                &computed
-            };
-            let mut v = assess::directed_scores(a, weights, s);
-            v.extend(gates::scores(a, &gate_index, &gate_victims, all, source, s));
-            v
+    let scorer = &move |a: &Analysis, all: PassRows<'_>, source: Option<&[usize]>, s: &Solved| {
+        let computed;
+        let weights = if all.is_own() {
+            own_weights.get_or_init(|| assess::direction_weights(a, all, s))
+        } else {
+            computed = assess::direction_weights(a, all, s);
+            &computed
         };
+        let mut v = assess::directed_scores(a, weights, s);
+        v.extend(gates::scores(a, &gate_index, &gate_victims, all, source, s));
+        v
+    };
     let point: Vec<f64> = assessed
         .directed
         .iter()

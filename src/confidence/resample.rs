@@ -76,7 +76,12 @@ impl Entries {
 }
 
 /// Adds each drawn outcome's shots `tally[j]` to the marginals its entries name.
-fn tally_into<T: Copy + Into<u32>>(m: &mut [Vec<u64>], starts: &[u32], entries: &[T], tally: &[u64]) {
+fn tally_into<T: Copy + Into<u32>>(
+    m: &mut [Vec<u64>],
+    starts: &[u32],
+    entries: &[T],
+    tally: &[u64],
+) {
     for (j, &t) in tally.iter().enumerate() {
         if t == 0 {
             continue;

@@ -294,10 +294,7 @@ impl OutcomeRows {
     /// of a quasi-distribution are set to 0, the rest rescaled to sum 1 and rounded.
     /// `None` when nothing positive is left.
     fn probabilities_to_counts(self, shots: u64) -> Option<OutcomeRows> {
-        fn convert<K: std::hash::Hash + Eq>(
-            m: WordMap<K>,
-            shots: u64,
-        ) -> Option<WordMap<K>> {
+        fn convert<K: std::hash::Hash + Eq>(m: WordMap<K>, shots: u64) -> Option<WordMap<K>> {
             let clipped: Vec<(K, f64)> =
                 m.into_iter().map(|(k, v)| (k, f64::from_bits(v).max(0.0))).collect();
             let total: f64 = clipped.iter().map(|(_, p)| p).sum();

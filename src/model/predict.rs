@@ -1035,8 +1035,20 @@ pub(crate) mod tests {
                     let mut slow = PreparedRow::new(&row, &spec(Family::PauliCoherent)).unwrap();
                     Arc::get_mut(&mut slow.compiled).unwrap().paths = None;
                     let params = random_params(family, &mut rng);
-                    let a = predict_path(&fast, &params, &Channels::new([&fast], &params), false);
-                    let b = predict_path(&slow, &params, &Channels::new([&slow], &params), false);
+                    let a = predict_path(
+                        &fast,
+                        &params,
+                        &Channels::new([&fast], &params),
+                        false,
+                        &|_| true,
+                    );
+                    let b = predict_path(
+                        &slow,
+                        &params,
+                        &Channels::new([&slow], &params),
+                        false,
+                        &|_| true,
+                    );
                     for (x, y) in a.probs.iter().zip(&b.probs) {
                         assert!((x - y).abs() < 1e-13, "{family:?} {n}: {x} vs {y}");
                     }
@@ -1058,7 +1070,7 @@ pub(crate) mod tests {
         let row = PreparedRow::new(&random_row(n, 30, &mut rng), &spec(family)).unwrap();
         let params = random_params(family, &mut rng);
         let ch = Channels::new([&row], &params);
-        let pred = predict_path(&row, &params, &ch, counted);
+        let pred = predict_path(&row, &params, &ch, counted, &|_| true);
         let total: f64 = pred.probs.iter().sum();
         assert!((total - 1.0).abs() < 1e-12);
         for (col, r) in pred.columns.iter().enumerate() {
@@ -1074,8 +1086,8 @@ pub(crate) mod tests {
                     pm.readout[qubit].raw[index] -= h;
                 }
             }
-            let fp = predict_path(&row, &pp, &Channels::new([&row], &pp), counted).probs;
-            let fm = predict_path(&row, &pm, &Channels::new([&row], &pm), counted).probs;
+            let fp = predict_path(&row, &pp, &Channels::new([&row], &pp), counted, &|_| true).probs;
+            let fm = predict_path(&row, &pm, &Channels::new([&row], &pm), counted, &|_| true).probs;
             for x in 0..fp.len() {
                 let fd = (fp[x] - fm[x]) / (2.0 * h);
                 let an = pred.jacobian[(x, col)];
@@ -1098,6 +1110,39 @@ pub(crate) mod tests {
     }
 
     #[test]
+    fn free_kind_columns_are_the_full_prediction_s_to_the_bit() {
+        // A fit holding kinds fixed reads only the free kinds' (and readout) columns: those
+        // must be exactly the numbers of the prediction with every gradient.
+        let mut rng = ChaCha8Rng::seed_from_u64(11);
+        for family in [Family::Depolarizing, Family::Pauli] {
+            for _ in 0..4 {
+                let row = PreparedRow::new(&random_row(2, 30, &mut rng), &spec(family)).unwrap();
+                let params = random_params(family, &mut rng);
+                let ch = Channels::new([&row], &params);
+                let all = predict_with(&row, &params, &ch);
+                let free = |k: KindIx| k == 3;
+                let some = predict_for_free(&row, &params, &ch, &free);
+                assert_eq!(all.probs, some.probs);
+                assert_eq!(all.columns, some.columns);
+                for (c, r) in all.columns.iter().enumerate() {
+                    let kept = match *r {
+                        ParamRef::Kind { kind, .. } => free(kind),
+                        ParamRef::Readout { .. } => true,
+                    };
+                    if kept {
+                        for x in 0..all.probs.len() {
+                            assert_eq!(
+                                all.jacobian[(x, c)].to_bits(),
+                                some.jacobian[(x, c)].to_bits()
+                            );
+                        }
+                    }
+                }
+            }
+        }
+    }
+
+    #[test]
     fn counted_path_equals_transfer_matrix_path() {
         let mut rng = ChaCha8Rng::seed_from_u64(5);
         for _ in 0..5 {
@@ -1105,8 +1150,8 @@ pub(crate) mod tests {
                 .unwrap();
             let params = random_params(Family::Depolarizing, &mut rng);
             let ch = Channels::new([&row], &params);
-            let a = predict_path(&row, &params, &ch, true);
-            let b = predict_path(&row, &params, &ch, false);
+            let a = predict_path(&row, &params, &ch, true, &|_| true);
+            let b = predict_path(&row, &params, &ch, false, &|_| true);
             for x in 0..2 {
                 assert!((a.probs[x] - b.probs[x]).abs() < 1e-12);
             }

@@ -6,8 +6,8 @@
 
 use std::collections::HashMap;
 
-use crate::layout::QubitIx;
 use super::PassRows;
+use crate::layout::QubitIx;
 use crate::rows::{KindIx, Row};
 use crate::slack::lp::{CoveringProblem, Row as CoverRow, TwoStageSolution, VarKind};
 
