@@ -468,13 +468,25 @@ fn circuit_rows(
                 contexts_seen.extend(agg.iter().map(|&r| (k, r)));
                 kinds_seen.push(k);
                 if !agg.is_empty() {
+                    // Layer after layer an occurrence mostly meets the same neighbours as
+                    // one just before it: share that slice of the pool rather than repeat it.
+                    let same = occurrences.iter().rev().take(4).find(|o| {
+                        let s = o.agg_start as usize;
+                        pool[s..s + o.agg_len as usize] == agg[..]
+                    });
+                    let agg_start = match same {
+                        Some(o) => o.agg_start,
+                        None => {
+                            pool.extend_from_slice(&agg);
+                            (pool.len() - agg.len()) as u32
+                        }
+                    };
                     occurrences.push(Occurrence {
                         kind: k,
                         layer: t as u32,
-                        agg_start: pool.len() as u32,
+                        agg_start,
                         agg_len: agg.len() as u32,
                     });
-                    pool.extend_from_slice(&agg);
                 }
             }
         }
