@@ -40,6 +40,7 @@ fn confidence(score: f64, salt: usize) -> Confidence {
         low_tvd_per_layer: score * 0.72,
         high_tvd_per_layer: score * 1.31,
         upper_bound_tvd_per_layer: score * 1.25,
+        lower_bound_tvd_per_layer: score * 0.78,
         median_tvd_per_layer: score * 1.01,
         p_positive: 1.0,
         score_replicates_tvd_per_layer: reps.clone(),
@@ -365,7 +366,7 @@ fn fixtures_are_the_builders_output_and_parse() {
     for (name, built) in fixtures() {
         let path = fixture_dir().join(name);
         let bytes = report::json::AuditJson.render(&built);
-        if std::env::var_os("SLACKMAP_WRITE_FIXTURES").is_some() {
+        if std::env::var_os("SLACKMAP_REGENERATE_FIXTURES").is_some() {
             std::fs::write(&path, &bytes).expect("write fixture");
         }
         let read = report::json::read(&path).expect("fixture parses as an audit");
@@ -373,7 +374,7 @@ fn fixtures_are_the_builders_output_and_parse() {
         let on_disk = std::fs::read(&path).expect("fixture exists");
         assert!(
             on_disk == bytes,
-            "{name} differs from its builder: rerun with SLACKMAP_WRITE_FIXTURES=1"
+            "{name} differs from its builder: rerun with SLACKMAP_REGENERATE_FIXTURES=1"
         );
     }
 }

@@ -56,7 +56,7 @@ fn detected_lead<'d>(
         if !(nulls > 0 && is_detected(d)) {
             continue;
         }
-        let low = d.confidence.as_ref().map_or(0.0, |c| c.low_tvd_per_layer);
+        let low = d.confidence.as_ref().map_or(0.0, |c| c.lower_bound_tvd_per_layer);
         let (v, code, why) = detected_verdict(d.p_value, low, threshold);
         if lead.as_ref().is_none_or(|l| v < l.0) {
             lead = Some((v, code, format!("{}<-{}: {}", d.victim, d.aggressor, why)));

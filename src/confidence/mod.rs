@@ -22,8 +22,9 @@ pub mod resample;
 
 use intervals::{interval, quantile, ranks, Method};
 
-/// The interval reported and used for verdicts: the percentile interval of the replicate
-/// estimates (see [`intervals::REPORTED`] for why, and tests/study.rs for its coverage).
+/// The interval reported and used for verdicts: the bracketed percentile interval of the
+/// replicate estimates (see [`intervals::REPORTED`] for why, and tests/study.rs for its
+/// coverage).
 pub const METHOD: Method = intervals::REPORTED;
 
 /// Level of the rank interval (method.md section 5).
@@ -123,6 +124,13 @@ pub struct ReplicateScores {
     pub directed_estimate_tvd_per_layer: Vec<f64>,
     /// Intrinsic estimates aligned with the report's `intrinsic`, TVD per occurrence.
     pub intrinsic_estimate_tvd_per_occurrence: Vec<f64>,
+    /// The estimates under each row's noncentral need, which set the intervals' upper
+    /// ends ([`intervals::bracketed`]), aligned like `directed_estimate_tvd_per_layer`.
+    #[serde(default)]
+    pub directed_upper_tvd_per_layer: Vec<f64>,
+    /// The same for intrinsic slack, aligned like `intrinsic_estimate_tvd_per_occurrence`.
+    #[serde(default)]
+    pub intrinsic_upper_tvd_per_occurrence: Vec<f64>,
 }
 
 /// Salts that keep the bootstrap's and the parametric null's streams apart.
@@ -175,12 +183,15 @@ pub(crate) fn bootstrap(
                 order.iter().map(|k| k.and_then(|k| v.get(k).copied()).unwrap_or(0.0)).collect()
             };
             let (est_directed, est_intrinsic) = r.estimate.unwrap_or_default();
+            let (up_directed, up_intrinsic) = r.upper.unwrap_or_default();
             Ok(ReplicateScores {
                 index: i,
                 intrinsic_tvd_per_occurrence: aligned(&r.intrinsic),
                 directed_tvd_per_layer: r.directed,
                 intrinsic_estimate_tvd_per_occurrence: aligned(&est_intrinsic),
                 directed_estimate_tvd_per_layer: est_directed,
+                intrinsic_upper_tvd_per_occurrence: aligned(&up_intrinsic),
+                directed_upper_tvd_per_layer: up_directed,
             })
         })
         .collect()
@@ -243,10 +254,38 @@ pub(crate) fn parametric_null(
     ))
 }
 
+/// One score's replicates: the estimates (`reps`), the estimates under the noncentral needs
+/// (`upper`, for the interval's upper end) and the scores.
+struct Draws {
+    reps: Vec<f64>,
+    upper: Vec<f64>,
+    scores: Vec<f64>,
+}
+
+impl Draws {
+    /// Column `at(r)` of every replicate `r`.
+    fn of(
+        reps: &[ReplicateScores],
+        estimate: impl Fn(&ReplicateScores) -> f64,
+        upper: impl Fn(&ReplicateScores) -> f64,
+        score: impl Fn(&ReplicateScores) -> f64,
+    ) -> Draws {
+        Draws {
+            reps: reps.iter().map(&estimate).collect(),
+            upper: reps.iter().map(&upper).collect(),
+            scores: reps.iter().map(&score).collect(),
+        }
+    }
+}
+
 /// The confidence of an unlimited-shot `estimate` from its replicates, with P(score > 0)
 /// from the replicate scores.
-fn summarise(estimate: f64, reps: &[f64], scores: &[f64], level: f64) -> Confidence {
-    let i = interval(estimate, reps, level, METHOD);
+fn summarise(estimate: f64, d: &Draws, level: f64) -> Confidence {
+    let (reps, scores) = (&d.reps, &d.scores);
+    let i = match METHOD {
+        Method::Bracketed => intervals::bracketed(reps, &d.upper, level),
+        m => interval(estimate, reps, level, m),
+    };
     let mut sorted = reps.to_vec();
     sorted.sort_by(f64::total_cmp);
     let median = quantile(&sorted, 0.5);
@@ -256,6 +295,7 @@ fn summarise(estimate: f64, reps: &[f64], scores: &[f64], level: f64) -> Confide
         low_tvd_per_layer: i.low,
         high_tvd_per_layer: i.high,
         upper_bound_tvd_per_layer: i.upper,
+        lower_bound_tvd_per_layer: i.lower,
         median_tvd_per_layer: median,
         p_positive: scores.iter().filter(|&&x| x > 0.0).count() as f64 / scores.len().max(1) as f64,
         replicates_tvd_per_layer: reps.to_vec(),
@@ -284,6 +324,8 @@ pub fn fill(
             || r.intrinsic_tvd_per_occurrence.len() != ni
             || r.directed_estimate_tvd_per_layer.len() != nd
             || r.intrinsic_estimate_tvd_per_occurrence.len() != ni
+            || r.directed_upper_tvd_per_layer.len() != nd
+            || r.intrinsic_upper_tvd_per_occurrence.len() != ni
         {
             return Err(Error::Analysis(format!(
                 "bootstrap replicate {} does not match the report (expected index {i}, {nd} directed pairs, {ni} kinds)",
@@ -293,15 +335,23 @@ pub fn fill(
     }
     let level = cfg.level;
     for (j, d) in report.directed.iter_mut().enumerate() {
-        let v: Vec<f64> = reps.iter().map(|r| r.directed_estimate_tvd_per_layer[j]).collect();
-        let s: Vec<f64> = reps.iter().map(|r| r.directed_tvd_per_layer[j]).collect();
-        d.confidence = Some(summarise(d.estimate_tvd_per_layer, &v, &s, level));
+        let draws = Draws::of(
+            reps,
+            |r| r.directed_estimate_tvd_per_layer[j],
+            |r| r.directed_upper_tvd_per_layer[j],
+            |r| r.directed_tvd_per_layer[j],
+        );
+        d.confidence = Some(summarise(d.estimate_tvd_per_layer, &draws, level));
     }
     fill_gates(report, reps, nq, level);
     for (j, k) in report.intrinsic.iter_mut().enumerate() {
-        let v: Vec<f64> = reps.iter().map(|r| r.intrinsic_estimate_tvd_per_occurrence[j]).collect();
-        let s: Vec<f64> = reps.iter().map(|r| r.intrinsic_tvd_per_occurrence[j]).collect();
-        k.confidence = Some(summarise(k.estimate_tvd_per_occurrence, &v, &s, level).into());
+        let draws = Draws::of(
+            reps,
+            |r| r.intrinsic_estimate_tvd_per_occurrence[j],
+            |r| r.intrinsic_upper_tvd_per_occurrence[j],
+            |r| r.intrinsic_tvd_per_occurrence[j],
+        );
+        k.confidence = Some(summarise(k.estimate_tvd_per_occurrence, &draws, level).into());
     }
     let index: std::collections::HashMap<(&str, &str), usize> = report
         .directed
@@ -321,27 +371,22 @@ pub fn fill(
             }
         }
     }
+    // An edge's replicate is the larger of its two directions' (scores, estimates and upper
+    // ends alike).
+    let larger = |v: &[f64], (ab, ba): (usize, usize)| v[ab].max(v[ba]);
     let edge_reps: Vec<Vec<f64>> = reps
         .iter()
-        .map(|r| {
-            pairs
-                .iter()
-                .map(|&(ab, ba)| r.directed_tvd_per_layer[ab].max(r.directed_tvd_per_layer[ba]))
-                .collect()
-        })
-        .collect();
-    let edge_estimates: Vec<Vec<f64>> = reps
-        .iter()
-        .map(|r| {
-            let d = &r.directed_estimate_tvd_per_layer;
-            pairs.iter().map(|&(ab, ba)| d[ab].max(d[ba])).collect()
-        })
+        .map(|r| pairs.iter().map(|&p| larger(&r.directed_tvd_per_layer, p)).collect())
         .collect();
     let edge_ranks: Vec<Vec<usize>> = edge_reps.iter().map(|s| ranks(s)).collect();
-    for (e, col) in report.edges.iter_mut().zip(0..) {
-        let v: Vec<f64> = edge_estimates.iter().map(|r| r[col]).collect();
-        let s: Vec<f64> = edge_reps.iter().map(|r| r[col]).collect();
-        e.confidence = Some(summarise(e.estimate_tvd_per_layer, &v, &s, level));
+    for (e, (col, &pair)) in report.edges.iter_mut().zip(pairs.iter().enumerate()) {
+        let draws = Draws::of(
+            reps,
+            |r| larger(&r.directed_estimate_tvd_per_layer, pair),
+            |r| larger(&r.directed_upper_tvd_per_layer, pair),
+            |r| larger(&r.directed_tvd_per_layer, pair),
+        );
+        e.confidence = Some(summarise(e.estimate_tvd_per_layer, &draws, level));
         let mut rk: Vec<f64> = edge_ranks.iter().map(|r| r[col] as f64).collect();
         rk.sort_by(f64::total_cmp);
         let a = 1.0 - RANK_LEVEL;
@@ -366,10 +411,13 @@ pub fn fill(
 fn fill_gates(report: &mut AuditReport, reps: &[ReplicateScores], offset: usize, level: f64) {
     let gates = &mut report.gates;
     for (j, d) in gates.directed.iter_mut().enumerate() {
-        let v: Vec<f64> =
-            reps.iter().map(|r| r.directed_estimate_tvd_per_layer[offset + j]).collect();
-        let s: Vec<f64> = reps.iter().map(|r| r.directed_tvd_per_layer[offset + j]).collect();
-        d.confidence = Some(summarise(d.estimate_tvd_per_layer, &v, &s, level));
+        let draws = Draws::of(
+            reps,
+            |r| r.directed_estimate_tvd_per_layer[offset + j],
+            |r| r.directed_upper_tvd_per_layer[offset + j],
+            |r| r.directed_tvd_per_layer[offset + j],
+        );
+        d.confidence = Some(summarise(d.estimate_tvd_per_layer, &draws, level));
     }
     let index: std::collections::HashMap<(&str, &str), usize> = gates
         .directed
@@ -383,9 +431,13 @@ fn fill_gates(report: &mut AuditReport, reps: &[ReplicateScores], offset: usize,
             .filter_map(|k| index.get(k).copied())
             .collect();
         let most = |v: &[f64]| cols.iter().map(|&c| v[c]).fold(0.0, f64::max);
-        let v: Vec<f64> = reps.iter().map(|r| most(&r.directed_estimate_tvd_per_layer)).collect();
-        let s: Vec<f64> = reps.iter().map(|r| most(&r.directed_tvd_per_layer)).collect();
-        e.confidence = Some(summarise(e.estimate_tvd_per_layer, &v, &s, level));
+        let draws = Draws::of(
+            reps,
+            |r| most(&r.directed_estimate_tvd_per_layer),
+            |r| most(&r.directed_upper_tvd_per_layer),
+            |r| most(&r.directed_tvd_per_layer),
+        );
+        e.confidence = Some(summarise(e.estimate_tvd_per_layer, &draws, level));
     }
 }
 
@@ -395,10 +447,11 @@ mod tests {
     use proptest::prelude::*;
 
     proptest! {
-        /// The replicates' median lies in the reported (percentile) interval.
+        /// The replicates' median lies in the reported (bracketed percentile) interval.
         #[test]
         fn median_lies_in_the_interval(est in 0.0f64..1.0, reps in proptest::collection::vec(0.0f64..2.0, 1..60), level in 0.5f64..0.99) {
-            let c = summarise(est, &reps, &reps, level);
+            let draws = Draws { reps: reps.clone(), upper: reps.clone(), scores: reps };
+            let c = summarise(est, &draws, level);
             prop_assert!(c.low_tvd_per_layer <= c.median_tvd_per_layer + 1e-12);
             prop_assert!(c.median_tvd_per_layer <= c.high_tvd_per_layer + 1e-12);
         }

@@ -19,6 +19,7 @@ use crate::layout::{Layout, QubitIx};
 use crate::model::{self, Family, FitOptions, FitResult, ModelSpec, Params, PreparedRow};
 use crate::rows::{self, Rows};
 use crate::slack::lp::TwoStageSolution;
+use crate::slack::requirement::RowNeeds;
 
 pub mod problems;
 
@@ -88,7 +89,7 @@ pub(crate) struct Analysis<'a> {
     pub predictions: Vec<Vec<f64>>,
     pub requirement: Vec<f64>,
     /// Deviation requirements of the unlimited-shot estimate, aligned with `requirement`
-    /// (see [`crate::slack::requirement::requirement_and_deviation`]).
+    /// (`shrunk` of [`crate::slack::requirement::RowNeeds`]).
     pub deviation: Vec<f64>,
     /// 1q rows per qubit and 2q rows per coupler (global indices).
     pub qubit_rows: Vec<Vec<usize>>,
@@ -264,7 +265,9 @@ pub(crate) fn analyse<'a>(
     let marginals: Vec<Option<&Vec<u64>>> =
         rows.rows.iter().map(|r| r.marginal.as_ref().filter(|_| r.shots > 0)).collect();
     let thresholds = crate::stats::RowThresholds::new(alpha, used.len());
-    let (requirement, deviation) = requirements(&marginals, &predictions, &thresholds);
+    let needs = requirements(&marginals, &predictions, &thresholds);
+    let requirement = needs.iter().map(|n| n.score).collect();
+    let deviation = needs.iter().map(|n| n.shrunk).collect();
     Ok(Analysis {
         layout,
         circuits,
@@ -626,16 +629,20 @@ pub(crate) fn rescore(
     };
     let marginals: Vec<Option<&Vec<u64>>> =
         data.counts.iter().map(|m| m.as_ref().filter(|m| m.iter().sum::<u64>() > 0)).collect();
-    let (requirement, deviation) = requirements(&marginals, predictions, &a.thresholds);
+    let needs = requirements(&marginals, predictions, &a.thresholds);
+    let need = |f: fn(&RowNeeds) -> f64| -> Vec<f64> { needs.iter().map(f).collect() };
     let source = data.source.as_deref();
-    let (directed, intrinsic) = scores_of(a, all, source, &requirement, scorer, &quiet)?;
+    let (directed, intrinsic) = scores_of(a, all, source, &need(|n| n.score), scorer, &quiet)?;
     check_cancel(progress)?;
-    let estimate = if with_estimate {
-        Some(scores_of(a, all, source, &deviation, scorer, &quiet)?)
+    let (estimate, upper) = if with_estimate {
+        let estimate = scores_of(a, all, source, &need(|n| n.shrunk), scorer, &quiet)?;
+        check_cancel(progress)?;
+        let upper = scores_of(a, all, source, &need(|n| n.noncentral), scorer, &quiet)?;
+        (Some(estimate), Some(upper))
     } else {
-        None
+        (None, None)
     };
-    Ok(Rescored { directed, intrinsic, estimate })
+    Ok(Rescored { directed, intrinsic, estimate, upper })
 }
 
 /// Directed scores (in `scorer`'s pair order) and intrinsic slack per kind of both stages
@@ -667,31 +674,34 @@ pub(crate) fn estimate(
 }
 
 /// Scores of one rescoring: directed scores in `scorer`'s pair order and intrinsic slack
-/// per kind, and the same for the unlimited-shot estimate when asked for.
+/// per kind, and the same for the unlimited-shot estimate and its interval's upper end
+/// (under the `noncentral` needs of [`RowNeeds`]) when asked for.
 pub(crate) struct Rescored {
     pub directed: Vec<f64>,
     pub intrinsic: Vec<f64>,
     pub estimate: Option<(Vec<f64>, Vec<f64>)>,
+    pub upper: Option<(Vec<f64>, Vec<f64>)>,
 }
 
-/// Row requirements and deviation requirements (method.md section 4 and
-/// [`crate::slack::requirement::requirement_and_deviation`]) of rows with these counts,
-/// under the Bonferroni thresholds `thresholds`; 0 for rows without counts.
+/// Row requirements and deviation requirements ([`RowNeeds`], method.md section 4) of rows
+/// with these counts, under the Bonferroni thresholds `thresholds`; zero for rows without
+/// counts.
 fn requirements(
     marginals: &[Option<&Vec<u64>>],
     predictions: &[Vec<f64>],
     thresholds: &crate::stats::RowThresholds,
-) -> (Vec<f64>, Vec<f64>) {
+) -> Vec<RowNeeds> {
     (0..marginals.len())
         .into_par_iter()
         .map(|i| match marginals[i] {
-            Some(m) => {
-                let t = thresholds.of_outcomes(m.len());
-                crate::slack::requirement::requirement_and_deviation(&predictions[i], m, t)
-            }
-            None => (0.0, 0.0),
+            Some(m) => crate::slack::requirement::row_needs(
+                &predictions[i],
+                m,
+                thresholds.of_outcomes(m.len()),
+            ),
+            None => RowNeeds::default(),
         })
-        .unzip()
+        .collect()
 }
 
 /// Intrinsic slack omega_k of kind `k` in a solution (0 when the kind has no problem).

@@ -44,23 +44,23 @@ fn opt_num(v: Option<f64>) -> String {
 /// `audit.json`), for values in `unit`.
 fn confidence_columns(unit: &str) -> Vec<String> {
     let mut v = vec!["confidence.level".to_string(), "confidence.method".to_string()];
-    for name in ["low", "high", "upper_bound", "median"] {
+    for name in ["low", "high", "upper_bound", "lower_bound", "median"] {
         v.push(format!("confidence.{name}_{unit}"));
     }
     v.push("confidence.p_positive".into());
     v
 }
 
-/// The cells of [`confidence_columns`]: level, method, low, high, upper bound, median,
-/// P(score > 0).
-fn confidence_cells(c: Option<[f64; 5]>, level_method: Option<(f64, &str)>) -> Vec<String> {
+/// The cells of [`confidence_columns`]: level, method, low, high, upper bound, lower bound,
+/// median, P(score > 0).
+fn confidence_cells(c: Option<[f64; 6]>, level_method: Option<(f64, &str)>) -> Vec<String> {
     match (c, level_method) {
         (Some(v), Some((level, method))) => {
             let mut cells = vec![num(level), method.to_string()];
             cells.extend(v.iter().map(|&x| num(x)));
             cells
         }
-        _ => vec![String::new(); 7],
+        _ => vec![String::new(); 8],
     }
 }
 
@@ -71,6 +71,7 @@ fn layer_cells(c: Option<&Confidence>) -> Vec<String> {
                 c.low_tvd_per_layer,
                 c.high_tvd_per_layer,
                 c.upper_bound_tvd_per_layer,
+                c.lower_bound_tvd_per_layer,
                 c.median_tvd_per_layer,
                 c.p_positive,
             ]
@@ -86,6 +87,7 @@ fn occurrence_cells(c: Option<&OccurrenceConfidence>) -> Vec<String> {
                 c.low_tvd_per_occurrence,
                 c.high_tvd_per_occurrence,
                 c.upper_bound_tvd_per_occurrence,
+                c.lower_bound_tvd_per_occurrence,
                 c.median_tvd_per_occurrence,
                 c.p_positive,
             ]

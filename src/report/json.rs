@@ -89,7 +89,15 @@ pub fn read(path: &Path) -> Result<AuditReport> {
                     let Some(c) = k.get_mut("confidence").and_then(|c| c.as_object_mut()) else {
                         continue;
                     };
-                    for name in ["low", "high", "upper_bound", "median", "replicates", "score_replicates"] {
+                    for name in [
+                        "low",
+                        "high",
+                        "upper_bound",
+                        "lower_bound",
+                        "median",
+                        "replicates",
+                        "score_replicates",
+                    ] {
                         if let Some(x) = c.remove(&format!("{name}_tvd_per_layer")) {
                             c.insert(format!("{name}_tvd_per_occurrence"), x);
                         }

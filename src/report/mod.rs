@@ -487,8 +487,13 @@ pub struct Confidence {
     #[serde(with = "special::number")]
     #[schemars(with = "special::Number")]
     pub upper_bound_tvd_per_layer: f64,
-    /// Median of the replicate estimates, TVD per layer. The reported interval is the
-    /// percentile interval of the same replicates, so the estimate can sit outside it when
+    /// One-sided lower bound at `level`, TVD per layer: `recalibrate` needs it above the
+    /// action threshold (a one-sided question: is the error above it?).
+    #[serde(default, with = "special::number")]
+    #[schemars(with = "special::Number")]
+    pub lower_bound_tvd_per_layer: f64,
+    /// Median of the replicate estimates, TVD per layer. The reported interval's lower end is
+    /// a percentile of the same replicates, so the estimate can sit outside the interval when
     /// the replicates run to one side of it: the interval is the statement to act on.
     #[serde(with = "special::number")]
     #[schemars(with = "special::Number")]
@@ -530,6 +535,10 @@ pub struct OccurrenceConfidence {
     #[serde(with = "special::number")]
     #[schemars(with = "special::Number")]
     pub upper_bound_tvd_per_occurrence: f64,
+    /// One-sided lower bound at `level`, TVD per occurrence.
+    #[serde(default, with = "special::number")]
+    #[schemars(with = "special::Number")]
+    pub lower_bound_tvd_per_occurrence: f64,
     /// Median of the replicate estimates, TVD per occurrence.
     #[serde(with = "special::number")]
     #[schemars(with = "special::Number")]
@@ -556,6 +565,7 @@ impl From<Confidence> for OccurrenceConfidence {
             low_tvd_per_occurrence: c.low_tvd_per_layer,
             high_tvd_per_occurrence: c.high_tvd_per_layer,
             upper_bound_tvd_per_occurrence: c.upper_bound_tvd_per_layer,
+            lower_bound_tvd_per_occurrence: c.lower_bound_tvd_per_layer,
             median_tvd_per_occurrence: c.median_tvd_per_layer,
             p_positive: c.p_positive,
             replicates_tvd_per_occurrence: c.replicates_tvd_per_layer,

@@ -23,21 +23,42 @@ pub fn requirement(p: &[f64], n: &[u64], threshold: f64) -> f64 {
     requirement_of(&Weakening::new(p, n), threshold)
 }
 
-/// d_row and the deviation requirement of one row: (d_row, TVD(p, f) (1 - T / LLR(0)) when
-/// d_row > 0, else 0); the second is never below the first.
+/// A row's requirements (method.md section 4): `score` is d_row at the threshold T; the two
+/// deviations are the estimates' per-row needs, zero where d_row is zero, else the whole
+/// deviation TVD(p, f) shrunk by how close LLR(0) sits to T:
+/// - `shrunk` = TVD (1 - T / LLR(0)), the point estimate's, and the lower end of its
+///   interval: zero at the threshold, so a row that only just fails brings almost nothing;
+/// - `noncentral` = TVD sqrt(1 - T / LLR(0)), the upper end's: LLR(0) is about N times a
+///   squared distance, so removing T from it (the noncentrality left when the threshold's
+///   share is taken out; Johnson, Kotz & Balakrishnan, Continuous Univariate Distributions
+///   vol. 2, 2nd ed., 1995, ch. 29) and taking the square root scales the distance.
+///
+/// The second is never below the first, and neither below `score`. Why the estimate keeps
+/// the first and the interval spans both: DEVELOPERS.md, "Intervals".
+#[derive(Clone, Copy, Debug, Default, PartialEq)]
+pub struct RowNeeds {
+    /// d_row, the score's need.
+    pub score: f64,
+    /// TVD (1 - T / LLR(0)), the estimate's need.
+    pub shrunk: f64,
+    /// TVD sqrt(1 - T / LLR(0)), the interval's upper end's need.
+    pub noncentral: f64,
+}
+
+/// The [`RowNeeds`] of a row with prediction `p`, counts `n` and LLR threshold `threshold`.
 ///
 /// # Panics
 /// When `p` and `n` differ in length.
-pub fn requirement_and_deviation(p: &[f64], n: &[u64], threshold: f64) -> (f64, f64) {
+pub fn row_needs(p: &[f64], n: &[u64], threshold: f64) -> RowNeeds {
     let wk = Weakening::new(p, n);
     let d = requirement_of(&wk, threshold);
     if d <= 0.0 {
-        return (0.0, 0.0);
+        return RowNeeds::default();
     }
     let tvd = wk.tvd_to_frequencies();
     let llr0 = wk.llr(0.0);
     let keep = if llr0.is_finite() && llr0 > 0.0 { (1.0 - threshold / llr0).max(0.0) } else { 1.0 };
-    (d, (tvd * keep).max(d))
+    RowNeeds { score: d, shrunk: (tvd * keep).max(d), noncentral: (tvd * keep.sqrt()).max(d) }
 }
 
 /// The least shift `delta` of probability from outcome probability `p_top` to the other
@@ -131,13 +152,17 @@ mod tests {
     #[test]
     fn deviation_requirement_is_the_shrunk_tvd_on_failing_rows_only() {
         let t = 3.841;
-        let (d, full) = requirement_and_deviation(&[0.5, 0.5], &[600, 400], t);
+        let RowNeeds { score: d, shrunk: full, noncentral } =
+            row_needs(&[0.5, 0.5], &[600, 400], t);
         assert!((d - 0.069_411_003_914_4).abs() < 1e-11);
         // TVD 0.1 shrunk by 1 - T / LLR(0), LLR(0) = 2 [600 ln 1.2 + 400 ln 0.8].
         let llr0 = 2.0 * (600.0 * 1.2f64.ln() + 400.0 * 0.8f64.ln());
         assert!((full - 0.1 * (1.0 - t / llr0)).abs() < 1e-12, "{full}");
         assert!(full > d);
-        assert_eq!(requirement_and_deviation(&[0.5, 0.5], &[510, 490], t), (0.0, 0.0));
+        // The upper end's: TVD sqrt(1 - T / LLR(0)).
+        assert!((noncentral - 0.1 * (1.0 - t / llr0).sqrt()).abs() < 1e-12, "{noncentral}");
+        assert!(noncentral > full);
+        assert_eq!(row_needs(&[0.5, 0.5], &[510, 490], t), RowNeeds::default());
     }
 
     #[test]

@@ -131,6 +131,7 @@ impl AuditBuilder {
             low_tvd_per_layer: (2.0 * estimate - q(0.975)).max(0.0),
             high_tvd_per_layer: 2.0 * estimate - q(0.025),
             upper_bound_tvd_per_layer: 2.0 * estimate - q(0.05),
+            lower_bound_tvd_per_layer: (2.0 * estimate - q(0.95)).max(0.0),
             median_tvd_per_layer: q(0.5),
             p_positive: reps.iter().filter(|&&r| r > 0.0).count() as f64 / reps.len() as f64,
             score_replicates_tvd_per_layer: reps.clone(),
