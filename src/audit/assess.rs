@@ -552,8 +552,7 @@ pub(crate) fn assess_direction(a: &Analysis, cfg: &AuditConfig, x: &Subject) -> 
         if !robust {
             if let Some(c) = d.most_influential {
                 let seed = x.corroboration_seed;
-                d.corroboration_p =
-                    Some(corroboration(a, tp, &test, d.exposure_null, w, &strata, c, cfg, seed)?);
+                d.corroboration_p = Some(corroboration(a, tp, &test, &strata, c, cfg, seed));
             }
         }
         d.detected = robust || d.corroboration_p.is_some_and(|pv| pv <= cfg.alpha);
@@ -611,83 +610,71 @@ fn significant(x: f64, null: &[f64], alpha: f64) -> bool {
 /// Salt that keeps the corroboration null's stream apart from the detection null's.
 pub(crate) const CORROBORATION_SALT: u64 = 0x636f_7272_6f62_6f72;
 
+/// Permutations of the corroboration null: it solves no linear program, so it can afford
+/// enough for its p-value to resolve alpha = 0.05 to about 1% whatever `--null-replicates` is.
+const CORROBORATION_REPLICATES: usize = 1999;
+
 /// Whether the victim's other circuits corroborate a score that rests on circuit `c`: the
-/// mid-p value of X(q <- r) on the problem without `c`, each row's requirement recomputed at
-/// its own unadjusted threshold (the chi-squared (1 - alpha) quantile, not the Bonferroni
-/// one), against the permutation null of that same problem.
+/// mid-p value of the total requirement of the rows where r was active, on the rows that can
+/// test r without `c`, each row's requirement recomputed at its own unadjusted threshold (the
+/// chi-squared (1 - alpha) quantile, not the Bonferroni one), against the stratified
+/// permutation of r's activity ([`crate::slack::null::labelled_sum_null`]).
 ///
 /// The Bonferroni threshold is there to find a deviation among all rows; once one circuit
 /// has pointed at the pair, the question is whether the rest lean the same way, and each of
 /// them can show the error only at its own level. A coherent error shows strongly in a few
-/// repeated-gate circuits and weakly in the rest, so leaving out its strongest circuit loses
-/// every row above the Bonferroni threshold while the rows below it still lean with r's
-/// label; a chance outlier leaves rows whose unadjusted excesses are independent of r's
-/// label, and the null then finds them no more often than alpha.
-#[allow(clippy::too_many_arguments)]
+/// repeated-gate circuits and weakly in the rest, and a dephasing error most in the deepest
+/// randomized sequence, so leaving out the strongest circuit loses every row above the
+/// Bonferroni threshold while the rows below it still lean with r's activity. The question
+/// is about many rows at once, so the statistic is their sum: the score's linear program
+/// answers with its largest row, and with few rows per stratum the permutation distribution
+/// of a maximum cannot reach alpha (two rows of which one is labelled give it 1/2 at best).
+/// A chance outlier leaves rows whose excesses are independent of r's activity, and the
+/// null then finds them no more often than alpha.
 fn corroboration(
     a: &Analysis,
     p: &Problem,
     test: &TestProblem,
-    exposure_null: bool,
-    w: &Weights,
     strata: &[u64],
     c: u32,
     cfg: &AuditConfig,
     seed: u64,
-) -> Result<f64> {
+) -> f64 {
     let keep: Vec<usize> =
         (0..p.rows.len()).filter(|&j| a.rows.rows[p.rows[j]].circuit != c).collect();
-    let mut reduced = p.restricted(&keep);
     let mut thresholds: Vec<(usize, f64)> = Vec::new();
-    for (row, &i) in reduced.lp.rows.iter_mut().zip(&reduced.rows) {
-        let pred = &a.predictions[i];
-        let Some(m) = &a.rows.rows[i].marginal else { continue };
-        if pred.len() < 2 {
-            continue;
-        }
-        let dof = pred.len() - 1;
-        let t = match thresholds.iter().find(|e| e.0 == dof) {
-            Some(e) => e.1,
-            None => {
-                let t = crate::stats::chi2_quantile(dof, 1.0 - cfg.alpha);
-                thresholds.push((dof, t));
-                t
+    let values: Vec<f64> = keep
+        .iter()
+        .map(|&j| {
+            let i = p.rows[j];
+            let pred = &a.predictions[i];
+            let Some(m) = &a.rows.rows[i].marginal else { return 0.0 };
+            if pred.len() < 2 {
+                return 0.0;
             }
-        };
-        row.requirement = crate::slack::requirement::requirement(pred, m, t);
-    }
-    let w2 = remap(w, p, &reduced);
-    let r_vars: Vec<usize> = w2.iter().map(|e| e.0).collect();
+            let dof = pred.len() - 1;
+            let t = match thresholds.iter().find(|e| e.0 == dof) {
+                Some(e) => e.1,
+                None => {
+                    let t = crate::stats::chi2_quantile(dof, 1.0 - cfg.alpha);
+                    thresholds.push((dof, t));
+                    t
+                }
+            };
+            crate::slack::requirement::requirement(pred, m, t)
+        })
+        .collect();
+    let labelled: Vec<bool> = keep.iter().map(|&j| test.labelled[j]).collect();
     let sub_strata: Vec<u64> = keep.iter().map(|&j| strata[j]).collect();
-    let observed = score(&reduced.lp.solve()?, &w2);
-    if observed <= 0.0 {
-        return Ok(1.0);
-    }
-    let sub_labels: Vec<Vec<(usize, f64)>> = keep.iter().map(|&j| test.labels[j].clone()).collect();
-    let sub_labelled: Vec<bool> = keep.iter().map(|&j| test.labelled[j]).collect();
-    let null = if exposure_null {
-        crate::slack::null::indicator_null(
-            &reduced.lp,
-            &r_vars,
-            &sub_labels,
-            &sub_labelled,
-            &sub_strata,
-            &w2,
-            cfg.null_replicates,
-            seed,
-        )?
-    } else {
-        crate::slack::null::permutation_null(
-            &reduced.lp,
-            &r_vars,
-            &sub_strata,
-            &w2,
-            cfg.null_replicates,
-            seed,
-        )?
-    };
-    let null: Vec<f64> = null.into_iter().map(clip).collect();
-    Ok(combined_p(observed, &null))
+    let observed: f64 = values.iter().zip(&labelled).filter(|(_, &l)| l).map(|(&v, _)| v).sum();
+    let null = crate::slack::null::labelled_sum_null(
+        &values,
+        &labelled,
+        &sub_strata,
+        CORROBORATION_REPLICATES,
+        seed,
+    );
+    crate::slack::null::p_value(observed, &null)
 }
 
 /// A direction's verdict and the reason (method.md section 6), before edge-level
