@@ -11,11 +11,11 @@ use statrs::distribution::{ContinuousCDF, Normal};
 /// The estimate is a boundary-constrained quantity: slack cannot be negative, and a row's
 /// need is its deviation shrunk toward zero as it nears its threshold
 /// ([`crate::slack::requirement::RowNeeds`]). How much to shrink is not known from one data
-/// set: shrinking to zero at the threshold (the estimate) runs low near the detection level
-/// and by a few per cent far above it; shrinking by the noncentrality's square root runs
-/// closer there but, a maximum over many noisy rows, up to a tenth high far above it. The
-/// interval spans both: its lower end is the percentile of the replicate estimates, its upper
-/// end the percentile of the replicates under the noncentral needs. The basic (2t - q) and
+/// set: shrinking by the noncentrality's square root (the estimate) runs close near the
+/// detection level but, a maximum over many noisy rows, up to a tenth high far above it;
+/// shrinking to zero at the threshold runs low near the detection level. The interval spans
+/// both: its lower end is the percentile of the replicates under the shrunk needs, its upper
+/// end the percentile of the replicate estimates. The basic (2t - q) and
 /// bias-corrected intervals assume the replicates sit as far from t as t sits from the
 /// truth, in the same direction; near the detection level the truth lies above t while the
 /// replicates scatter on both sides, so both reflect the interval the wrong way and miss
@@ -33,7 +33,7 @@ pub enum Method {
     /// Percentile at levels Phi(2 z0 + z_a), z0 = Phi^-1(share of replicates below t)
     /// (Efron 1987, the BC interval without acceleration).
     BiasCorrected,
-    /// [q(a/2) of the estimates, q(1 - a/2) of the upper-end estimates]: see [`bracketed`];
+    /// [q(a/2) of the lower-end replicates, q(1 - a/2) of the estimates]: see [`bracketed`];
     /// with one set of replicates it is the percentile interval.
     Bracketed,
 }
@@ -89,9 +89,7 @@ pub fn interval(estimate: f64, replicates: &[f64], level: f64, method: Method) -
     let a = 1.0 - level;
     let q = |p: f64| quantile(&sorted, p);
     let (low, high, upper, lower) = match method {
-        Method::Percentile | Method::Bracketed => {
-            (q(a / 2.0), q(1.0 - a / 2.0), q(level), q(a))
-        }
+        Method::Percentile | Method::Bracketed => (q(a / 2.0), q(1.0 - a / 2.0), q(level), q(a)),
         Method::Basic => (
             2.0 * estimate - q(1.0 - a / 2.0),
             2.0 * estimate - q(a / 2.0),
@@ -117,10 +115,10 @@ pub fn interval(estimate: f64, replicates: &[f64], level: f64, method: Method) -
 }
 
 /// The bracketed percentile interval at two-sided `level` in (0, 1): the lower end is the
-/// a/2 quantile of `lower` (replicates of the estimate), the upper end the 1 - a/2 quantile
-/// of `upper` (replicates of the estimate under the noncentral row needs; never taken below
-/// the percentile interval's own upper end); the one-sided bounds are the `level` quantile of
-/// `upper` and the 1 - `level` quantile of `lower`. Each end is a percentile end (Davison &
+/// a/2 quantile of `lower` (replicates under the shrunk row needs), the upper end the
+/// 1 - a/2 quantile of `upper` (replicates of the estimate, under the noncentral needs; never
+/// taken below the 1 - a/2 quantile of `lower`); the one-sided bounds are the `level`
+/// quantile of `upper` and the 1 - `level` quantile of `lower`. Each end is a percentile end (Davison &
 /// Hinkley 1997, eq. 5.18) of an estimator that brackets the row needs from one side.
 pub fn bracketed(lower: &[f64], upper: &[f64], level: f64) -> Interval {
     let sort = |v: &[f64]| {

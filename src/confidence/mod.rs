@@ -124,13 +124,13 @@ pub struct ReplicateScores {
     pub directed_estimate_tvd_per_layer: Vec<f64>,
     /// Intrinsic estimates aligned with the report's `intrinsic`, TVD per occurrence.
     pub intrinsic_estimate_tvd_per_occurrence: Vec<f64>,
-    /// The estimates under each row's noncentral need, which set the intervals' upper
-    /// ends ([`intervals::bracketed`]), aligned like `directed_estimate_tvd_per_layer`.
+    /// The estimates under each row's shrunk need, which set the intervals' lower ends
+    /// ([`intervals::bracketed`]), aligned like `directed_estimate_tvd_per_layer`.
     #[serde(default)]
-    pub directed_upper_tvd_per_layer: Vec<f64>,
+    pub directed_lower_tvd_per_layer: Vec<f64>,
     /// The same for intrinsic slack, aligned like `intrinsic_estimate_tvd_per_occurrence`.
     #[serde(default)]
-    pub intrinsic_upper_tvd_per_occurrence: Vec<f64>,
+    pub intrinsic_lower_tvd_per_occurrence: Vec<f64>,
 }
 
 /// Salts that keep the bootstrap's and the parametric null's streams apart.
@@ -183,15 +183,15 @@ pub(crate) fn bootstrap(
                 order.iter().map(|k| k.and_then(|k| v.get(k).copied()).unwrap_or(0.0)).collect()
             };
             let (est_directed, est_intrinsic) = r.estimate.unwrap_or_default();
-            let (up_directed, up_intrinsic) = r.upper.unwrap_or_default();
+            let (low_directed, low_intrinsic) = r.lower.unwrap_or_default();
             Ok(ReplicateScores {
                 index: i,
                 intrinsic_tvd_per_occurrence: aligned(&r.intrinsic),
                 directed_tvd_per_layer: r.directed,
                 intrinsic_estimate_tvd_per_occurrence: aligned(&est_intrinsic),
                 directed_estimate_tvd_per_layer: est_directed,
-                intrinsic_upper_tvd_per_occurrence: aligned(&up_intrinsic),
-                directed_upper_tvd_per_layer: up_directed,
+                intrinsic_lower_tvd_per_occurrence: aligned(&low_intrinsic),
+                directed_lower_tvd_per_layer: low_directed,
             })
         })
         .collect()
@@ -254,11 +254,11 @@ pub(crate) fn parametric_null(
     ))
 }
 
-/// One score's replicates: the estimates (`reps`), the estimates under the noncentral needs
-/// (`upper`, for the interval's upper end) and the scores.
+/// One score's replicates: the estimates (`reps`), the estimates under the shrunk needs
+/// (`lower`, for the interval's lower end) and the scores.
 struct Draws {
     reps: Vec<f64>,
-    upper: Vec<f64>,
+    lower: Vec<f64>,
     scores: Vec<f64>,
 }
 
@@ -267,12 +267,12 @@ impl Draws {
     fn of(
         reps: &[ReplicateScores],
         estimate: impl Fn(&ReplicateScores) -> f64,
-        upper: impl Fn(&ReplicateScores) -> f64,
+        lower: impl Fn(&ReplicateScores) -> f64,
         score: impl Fn(&ReplicateScores) -> f64,
     ) -> Draws {
         Draws {
             reps: reps.iter().map(&estimate).collect(),
-            upper: reps.iter().map(&upper).collect(),
+            lower: reps.iter().map(&lower).collect(),
             scores: reps.iter().map(&score).collect(),
         }
     }
@@ -283,7 +283,7 @@ impl Draws {
 fn summarise(estimate: f64, d: &Draws, level: f64) -> Confidence {
     let (reps, scores) = (&d.reps, &d.scores);
     let i = match METHOD {
-        Method::Bracketed => intervals::bracketed(reps, &d.upper, level),
+        Method::Bracketed => intervals::bracketed(&d.lower, reps, level),
         m => interval(estimate, reps, level, m),
     };
     let mut sorted = reps.to_vec();
@@ -324,8 +324,8 @@ pub fn fill(
             || r.intrinsic_tvd_per_occurrence.len() != ni
             || r.directed_estimate_tvd_per_layer.len() != nd
             || r.intrinsic_estimate_tvd_per_occurrence.len() != ni
-            || r.directed_upper_tvd_per_layer.len() != nd
-            || r.intrinsic_upper_tvd_per_occurrence.len() != ni
+            || r.directed_lower_tvd_per_layer.len() != nd
+            || r.intrinsic_lower_tvd_per_occurrence.len() != ni
         {
             return Err(Error::Analysis(format!(
                 "bootstrap replicate {} does not match the report (expected index {i}, {nd} directed pairs, {ni} kinds)",
@@ -338,7 +338,7 @@ pub fn fill(
         let draws = Draws::of(
             reps,
             |r| r.directed_estimate_tvd_per_layer[j],
-            |r| r.directed_upper_tvd_per_layer[j],
+            |r| r.directed_lower_tvd_per_layer[j],
             |r| r.directed_tvd_per_layer[j],
         );
         d.confidence = Some(summarise(d.estimate_tvd_per_layer, &draws, level));
@@ -348,7 +348,7 @@ pub fn fill(
         let draws = Draws::of(
             reps,
             |r| r.intrinsic_estimate_tvd_per_occurrence[j],
-            |r| r.intrinsic_upper_tvd_per_occurrence[j],
+            |r| r.intrinsic_lower_tvd_per_occurrence[j],
             |r| r.intrinsic_tvd_per_occurrence[j],
         );
         k.confidence = Some(summarise(k.estimate_tvd_per_occurrence, &draws, level).into());
@@ -371,7 +371,7 @@ pub fn fill(
             }
         }
     }
-    // An edge's replicate is the larger of its two directions' (scores, estimates and upper
+    // An edge's replicate is the larger of its two directions' (scores, estimates and lower
     // ends alike).
     let larger = |v: &[f64], (ab, ba): (usize, usize)| v[ab].max(v[ba]);
     let edge_reps: Vec<Vec<f64>> = reps
@@ -383,7 +383,7 @@ pub fn fill(
         let draws = Draws::of(
             reps,
             |r| larger(&r.directed_estimate_tvd_per_layer, pair),
-            |r| larger(&r.directed_upper_tvd_per_layer, pair),
+            |r| larger(&r.directed_lower_tvd_per_layer, pair),
             |r| larger(&r.directed_tvd_per_layer, pair),
         );
         e.confidence = Some(summarise(e.estimate_tvd_per_layer, &draws, level));
@@ -414,7 +414,7 @@ fn fill_gates(report: &mut AuditReport, reps: &[ReplicateScores], offset: usize,
         let draws = Draws::of(
             reps,
             |r| r.directed_estimate_tvd_per_layer[offset + j],
-            |r| r.directed_upper_tvd_per_layer[offset + j],
+            |r| r.directed_lower_tvd_per_layer[offset + j],
             |r| r.directed_tvd_per_layer[offset + j],
         );
         d.confidence = Some(summarise(d.estimate_tvd_per_layer, &draws, level));
@@ -434,7 +434,7 @@ fn fill_gates(report: &mut AuditReport, reps: &[ReplicateScores], offset: usize,
         let draws = Draws::of(
             reps,
             |r| most(&r.directed_estimate_tvd_per_layer),
-            |r| most(&r.directed_upper_tvd_per_layer),
+            |r| most(&r.directed_lower_tvd_per_layer),
             |r| most(&r.directed_tvd_per_layer),
         );
         e.confidence = Some(summarise(e.estimate_tvd_per_layer, &draws, level));
@@ -450,7 +450,7 @@ mod tests {
         /// The replicates' median lies in the reported (bracketed percentile) interval.
         #[test]
         fn median_lies_in_the_interval(est in 0.0f64..1.0, reps in proptest::collection::vec(0.0f64..2.0, 1..60), level in 0.5f64..0.99) {
-            let draws = Draws { reps: reps.clone(), upper: reps.clone(), scores: reps };
+            let draws = Draws { reps: reps.clone(), lower: reps.clone(), scores: reps };
             let c = summarise(est, &draws, level);
             prop_assert!(c.low_tvd_per_layer <= c.median_tvd_per_layer + 1e-12);
             prop_assert!(c.median_tvd_per_layer <= c.high_tvd_per_layer + 1e-12);

@@ -89,7 +89,7 @@ pub(crate) struct Analysis<'a> {
     pub predictions: Vec<Vec<f64>>,
     pub requirement: Vec<f64>,
     /// Deviation requirements of the unlimited-shot estimate, aligned with `requirement`
-    /// (`shrunk` of [`crate::slack::requirement::RowNeeds`]).
+    /// (`noncentral` of [`crate::slack::requirement::RowNeeds`]).
     pub deviation: Vec<f64>,
     /// 1q rows per qubit and 2q rows per coupler (global indices).
     pub qubit_rows: Vec<Vec<usize>>,
@@ -267,7 +267,7 @@ pub(crate) fn analyse<'a>(
     let thresholds = crate::stats::RowThresholds::new(alpha, used.len());
     let needs = requirements(&marginals, &predictions, &thresholds);
     let requirement = needs.iter().map(|n| n.score).collect();
-    let deviation = needs.iter().map(|n| n.shrunk).collect();
+    let deviation = needs.iter().map(|n| n.noncentral).collect();
     Ok(Analysis {
         layout,
         circuits,
@@ -634,15 +634,15 @@ pub(crate) fn rescore(
     let source = data.source.as_deref();
     let (directed, intrinsic) = scores_of(a, all, source, &need(|n| n.score), scorer, &quiet)?;
     check_cancel(progress)?;
-    let (estimate, upper) = if with_estimate {
-        let estimate = scores_of(a, all, source, &need(|n| n.shrunk), scorer, &quiet)?;
+    let (estimate, lower) = if with_estimate {
+        let estimate = scores_of(a, all, source, &need(|n| n.noncentral), scorer, &quiet)?;
         check_cancel(progress)?;
-        let upper = scores_of(a, all, source, &need(|n| n.noncentral), scorer, &quiet)?;
-        (Some(estimate), Some(upper))
+        let lower = scores_of(a, all, source, &need(|n| n.shrunk), scorer, &quiet)?;
+        (Some(estimate), Some(lower))
     } else {
         (None, None)
     };
-    Ok(Rescored { directed, intrinsic, estimate, upper })
+    Ok(Rescored { directed, intrinsic, estimate, lower })
 }
 
 /// Directed scores (in `scorer`'s pair order) and intrinsic slack per kind of both stages
@@ -674,13 +674,13 @@ pub(crate) fn estimate(
 }
 
 /// Scores of one rescoring: directed scores in `scorer`'s pair order and intrinsic slack
-/// per kind, and the same for the unlimited-shot estimate and its interval's upper end
-/// (under the `noncentral` needs of [`RowNeeds`]) when asked for.
+/// per kind, and the same for the unlimited-shot estimate (under the `noncentral` needs of
+/// [`RowNeeds`]) and its interval's lower end (under the `shrunk` needs) when asked for.
 pub(crate) struct Rescored {
     pub directed: Vec<f64>,
     pub intrinsic: Vec<f64>,
     pub estimate: Option<(Vec<f64>, Vec<f64>)>,
-    pub upper: Option<(Vec<f64>, Vec<f64>)>,
+    pub lower: Option<(Vec<f64>, Vec<f64>)>,
 }
 
 /// Row requirements and deviation requirements ([`RowNeeds`], method.md section 4) of rows

@@ -26,22 +26,23 @@ pub fn requirement(p: &[f64], n: &[u64], threshold: f64) -> f64 {
 /// A row's requirements (method.md section 4): `score` is d_row at the threshold T; the two
 /// deviations are the estimates' per-row needs, zero where d_row is zero, else the whole
 /// deviation TVD(p, f) shrunk by how close LLR(0) sits to T:
-/// - `shrunk` = TVD (1 - T / LLR(0)), the point estimate's, and the lower end of its
-///   interval: zero at the threshold, so a row that only just fails brings almost nothing;
-/// - `noncentral` = TVD sqrt(1 - T / LLR(0)), the upper end's: LLR(0) is about N times a
-///   squared distance, so removing T from it (the noncentrality left when the threshold's
-///   share is taken out; Johnson, Kotz & Balakrishnan, Continuous Univariate Distributions
-///   vol. 2, 2nd ed., 1995, ch. 29) and taking the square root scales the distance.
+/// - `noncentral` = TVD sqrt(1 - T / LLR(0)), the point estimate's: LLR(0) is about N times
+///   a squared distance, signal and shot noise adding, so removing T from it (the
+///   noncentrality left when the threshold's share is taken out; Johnson, Kotz &
+///   Balakrishnan, Continuous Univariate Distributions vol. 2, 2nd ed., 1995, ch. 29) and
+///   taking the square root scales the distance;
+/// - `shrunk` = TVD (1 - T / LLR(0)), the interval's lower end's: zero at the threshold, so
+///   a row that only just fails brings almost nothing.
 ///
-/// The second is never below the first, and neither below `score`. Why the estimate keeps
+/// The first is never below the second, and neither below `score`. Why the estimate takes
 /// the first and the interval spans both: DEVELOPERS.md, "Intervals".
 #[derive(Clone, Copy, Debug, Default, PartialEq)]
 pub struct RowNeeds {
     /// d_row, the score's need.
     pub score: f64,
-    /// TVD (1 - T / LLR(0)), the estimate's need.
+    /// TVD (1 - T / LLR(0)), the need of the interval's lower end.
     pub shrunk: f64,
-    /// TVD sqrt(1 - T / LLR(0)), the interval's upper end's need.
+    /// TVD sqrt(1 - T / LLR(0)), the estimate's need.
     pub noncentral: f64,
 }
 
