@@ -26,7 +26,7 @@ fn median(v: &mut [u64]) -> u64 {
 
 /// Revisits the verdicts of detected directions once the bootstrap intervals are in
 /// (`pairs`: each edge's (a<-b, b<-a) positions in `report.directed`): `recalibrate` then
-/// needs the interval's lower end above the action threshold. [`report`] used the
+/// needs the one-sided lower bound above the action threshold. [`report`] used the
 /// attribution minimum or leave-one-out; the same rule as `direction_verdict` decides
 /// "detected". Orders the edges afterwards.
 pub(crate) fn revisit_verdicts(report: &mut AuditReport, pairs: &[(usize, usize)]) {

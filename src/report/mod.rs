@@ -379,9 +379,10 @@ pub enum ReasonCode {
     InNull,
     /// Without its most influential circuit the score falls to the detection limit.
     OneCircuit,
-    /// Detected, and the lower end of its interval is above the action threshold.
+    /// Detected, and the one-sided lower bound of its estimate is above the action threshold.
     AboveThreshold,
-    /// Detected, but the lower end of its interval is not above the action threshold.
+    /// Detected, but the one-sided lower bound of its estimate is not above the action
+    /// threshold.
     BelowThreshold,
 }
 
@@ -439,10 +440,10 @@ impl ReasonCode {
                 "rests on one circuit: without it within the null, and the others do not lean"
             }
             ReasonCode::AboveThreshold => {
-                "detected; the interval's lower end is above the action threshold"
+                "detected; the estimate's lower bound is above the action threshold"
             }
             ReasonCode::BelowThreshold => {
-                "detected; the interval's lower end is not above the action threshold"
+                "detected; the estimate's lower bound is not above the action threshold"
             }
         }
     }
@@ -492,9 +493,9 @@ pub struct Confidence {
     #[serde(default, with = "special::number")]
     #[schemars(with = "special::Number")]
     pub lower_bound_tvd_per_layer: f64,
-    /// Median of the replicate estimates, TVD per layer. The reported interval's lower end is
-    /// a percentile of the same replicates, so the estimate can sit outside the interval when
-    /// the replicates run to one side of it: the interval is the statement to act on.
+    /// Median of the replicate estimates, TVD per layer. The interval's ends are percentiles
+    /// of the replicates, so the estimate can sit outside the interval when the replicates
+    /// run to one side of it: the interval is the statement to act on.
     #[serde(with = "special::number")]
     #[schemars(with = "special::Number")]
     pub median_tvd_per_layer: f64,
@@ -646,8 +647,9 @@ pub struct DirectedReport {
     #[serde(default)]
     pub detected: bool,
     /// When the score falls into the null without its most influential circuit: the mid-p
-    /// value of the other circuits' evidence, each row judged at its own unadjusted
-    /// threshold, against the same permutation null; absent otherwise.
+    /// value of the other circuits' evidence (the total requirement, each row judged at its
+    /// own unadjusted threshold, of the rows where the aggressor was active) against
+    /// shuffling the aggressor's activity within strata; absent otherwise.
     #[serde(default, skip_serializing_if = "Option::is_none")]
     pub corroboration_p_value: Option<f64>,
     /// Binding rows with positive coefficient on this pair's variables.
