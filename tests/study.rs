@@ -329,6 +329,8 @@ struct Record {
     by_tie: bool,
     /// Detected only because the other circuits corroborate it.
     by_corroboration: bool,
+    /// The lead direction's corroboration p-value, when its score rests on one circuit.
+    corroboration_p: Option<f64>,
 }
 
 /// Flags on edges that carry no injection, over all study chips: (flags, edges).
@@ -365,6 +367,7 @@ fn chip(
                 ),
                 _ => (false, false),
             };
+            let corroboration_p = lead.and_then(|d| d.corroboration_p_value);
             Record {
                 layout: layout.name.clone(),
                 kind: e.kind,
@@ -379,6 +382,7 @@ fn chip(
                 reason: got.reason_code,
                 by_tie,
                 by_corroboration,
+                corroboration_p,
             }
         })
         .collect();
@@ -565,10 +569,11 @@ fn null_chips(s: &Settings, layout: &Layout, circuits: &CircuitSet) -> (usize, u
         let r = audit(layout, circuits, &counts, seed, s.nulls, 0);
         let flags: Vec<_> = r.edges.iter().filter(|e| flagged(e.verdict)).collect();
         for e in &flags {
-            let corroborated = r.directed.iter().any(|d| {
-                e.reason.starts_with(&format!("{}<-{}:", d.victim, d.aggressor))
-                    && d.corroboration_p_value.is_some()
-            });
+            let corroborated = r
+                .directed
+                .iter()
+                .find(|d| e.reason.starts_with(&format!("{}<-{}:", d.victim, d.aggressor)))
+                .and_then(|d| d.corroboration_p_value);
             eprintln!(
                 "null chip {i} (drift on q{}): {}-{} {:?} ({}{})",
                 5 + (i % 6),
@@ -576,7 +581,7 @@ fn null_chips(s: &Settings, layout: &Layout, circuits: &CircuitSet) -> (usize, u
                 e.b,
                 e.verdict,
                 e.reason,
-                if corroborated { ", by corroboration" } else { "" }
+                corroborated.map_or(String::new(), |p| format!(", by corroboration p = {p:.4}"))
             );
         }
         flagged_chips += usize::from(!flags.is_empty());
@@ -647,11 +652,11 @@ fn run_study(s: &Settings) -> (Vec<Record>, (usize, usize), OtherFlags) {
     let nulls = null_chips(s, &small, &small_circuits);
     if let Ok(path) = std::env::var("SLACKMAP_STUDY_CSV") {
         let mut text = String::from(
-            "layout,kind,multiple,strength,reference,estimate,low,high,verdict,reason,by_tie,by_corroboration,replicates\n",
+            "layout,kind,multiple,strength,reference,estimate,low,high,verdict,reason,by_tie,by_corroboration,corroboration_p,replicates\n",
         );
         for r in &records {
             text.push_str(&format!(
-                "{},{},{},{:e},{:e},{:e},{:e},{:e},{},{},{},{},{}\n",
+                "{},{},{},{:e},{:e},{:e},{:e},{:e},{},{},{},{},{},{}\n",
                 r.layout,
                 r.kind.name(),
                 r.multiple,
@@ -664,6 +669,7 @@ fn run_study(s: &Settings) -> (Vec<Record>, (usize, usize), OtherFlags) {
                 r.reason.code(),
                 r.by_tie,
                 r.by_corroboration,
+                r.corroboration_p.map_or(String::new(), |p| format!("{p:e}")),
                 r.replicates.iter().map(|x| format!("{x:e}")).collect::<Vec<_>>().join(";")
             ));
         }

@@ -64,8 +64,10 @@ pub(crate) struct Directed {
     pub detected: bool,
     /// When leaving out the most influential circuit drops the score to the null: the mid-p
     /// value of the other circuits' evidence, each row judged at its own (unadjusted)
-    /// threshold, against the same permutation null. None when not needed.
+    /// threshold, against shuffling r's activity within strata. None when not needed.
     pub corroboration_p: Option<f64>,
+    /// The level `corroboration_p` must reach ([`corroboration_level`]); 0 when not needed.
+    pub corroboration_level: f64,
     /// Sensitivity of the pair's own circuits (reference rows and rows where r is the
     /// victim's only active neighbour); infinite when there are none.
     pub isolated_sensitivity: f64,
@@ -285,7 +287,7 @@ pub(crate) fn assess(
     let directed: Vec<Directed> = pairs
         .par_iter()
         .map(|&(q, r)| {
-            let d = assess_pair(a, s, cfg, q, r, &ranges[q]);
+            let d = assess_pair(a, s, cfg, q, r, &ranges[q], pairs.len());
             progress.advance(1);
             if progress.cancelled() {
                 return Err(crate::Error::Interrupted);
@@ -304,6 +306,7 @@ fn assess_pair(
     q: QubitIx,
     r: QubitIx,
     ranges: &HashMap<QubitIx, (f64, f64)>,
+    family: usize,
 ) -> Result<Directed> {
     let (p, sol) = &s.qubit[q];
     let w = weights(a, p, r);
@@ -342,6 +345,7 @@ fn assess_pair(
         count: &count,
         seed: pair_seed(cfg.seed, q, r),
         corroboration_seed: pair_seed(cfg.seed ^ CORROBORATION_SALT, q, r),
+        family,
     };
     let mut d = assess_direction(a, cfg, &subject)?;
     d.victim = q;
@@ -384,6 +388,9 @@ pub(crate) struct Subject<'s> {
     /// Seeds of the detection null and the corroboration null.
     pub seed: u64,
     pub corroboration_seed: u64,
+    /// How many directions the audit tests alongside this one (it sets the corroboration's
+    /// level, [`corroboration_level`]).
+    pub family: usize,
 }
 
 /// Scores, attribution, permutation null, isolated evidence, supporting rows and
@@ -552,10 +559,12 @@ pub(crate) fn assess_direction(a: &Analysis, cfg: &AuditConfig, x: &Subject) -> 
         if !robust {
             if let Some(c) = d.most_influential {
                 let seed = x.corroboration_seed;
-                d.corroboration_p = Some(corroboration(a, tp, &test, &strata, c, cfg, seed));
+                d.corroboration_level = corroboration_level(cfg.alpha, x.family);
+                let level = d.corroboration_level;
+                d.corroboration_p = Some(corroboration(a, tp, &test, &strata, c, cfg, level, seed));
             }
         }
-        d.detected = robust || d.corroboration_p.is_some_and(|pv| pv <= cfg.alpha);
+        d.detected = robust || d.corroboration_p.is_some_and(|pv| pv <= d.corroboration_level);
     }
     Ok(d)
 }
@@ -610,9 +619,25 @@ fn significant(x: f64, null: &[f64], alpha: f64) -> bool {
 /// Salt that keeps the corroboration null's stream apart from the detection null's.
 pub(crate) const CORROBORATION_SALT: u64 = 0x636f_7272_6f62_6f72;
 
-/// Permutations of the corroboration null: it solves no linear program, so it can afford
-/// enough for its p-value to resolve alpha = 0.05 to about 1% whatever `--null-replicates` is.
+/// Least permutations of the corroboration null: it solves no linear program, so it can
+/// afford enough to resolve its level finely whatever `--null-replicates` is (20 per unit of
+/// 1 / level, at least this many).
 const CORROBORATION_REPLICATES: usize = 1999;
+
+/// The level a corroboration p-value must reach, when the audit tests `family` directions
+/// at `alpha` each: min(alpha, 1 / family).
+///
+/// Corroboration rescues a score that rests on one circuit, which is what a chance detection
+/// looks like; with `family` directions tested at alpha, about family x alpha chance
+/// detections reach this step on a chip with no crosstalk at all. Tested at level c, they add
+/// about family x alpha x c false flags per chip (the two tests see nearly disjoint rows), so
+/// c = 1 / family keeps that at alpha. At alpha itself, 2 of 20 simulated chips with two
+/// drifting qubits (tests/audit_recovery.rs) got a `watch` this way (p = 0.023 and 0.047,
+/// family 48), while the real context errors of tests/study.rs that needed corroboration
+/// reached p <= 0.0043.
+pub(crate) fn corroboration_level(alpha: f64, family: usize) -> f64 {
+    alpha.min(1.0 / family.max(1) as f64)
+}
 
 /// Whether the victim's other circuits corroborate a score that rests on circuit `c`: the
 /// mid-p value of the total requirement of the rows where r was active, on the rows that can
@@ -631,6 +656,7 @@ const CORROBORATION_REPLICATES: usize = 1999;
 /// of a maximum cannot reach alpha (two rows of which one is labelled give it 1/2 at best).
 /// A chance outlier leaves rows whose excesses are independent of r's activity, and the
 /// null then finds them no more often than alpha.
+#[allow(clippy::too_many_arguments)]
 fn corroboration(
     a: &Analysis,
     p: &Problem,
@@ -638,6 +664,7 @@ fn corroboration(
     strata: &[u64],
     c: u32,
     cfg: &AuditConfig,
+    level: f64,
     seed: u64,
 ) -> f64 {
     let keep: Vec<usize> =
@@ -671,7 +698,7 @@ fn corroboration(
         &values,
         &labelled,
         &sub_strata,
-        CORROBORATION_REPLICATES,
+        CORROBORATION_REPLICATES.max((20.0 / level).ceil() as usize),
         seed,
     );
     crate::slack::null::p_value(observed, &null)
@@ -783,10 +810,11 @@ pub(crate) fn direction_verdict(d: &Directed, cfg: &AuditConfig) -> (Verdict, Re
             Verdict::Clean,
             ReasonCode::OneCircuit,
             format!(
-                "rests on one circuit: without it the score falls to {} (limit {}), and the other circuits, each judged at its own level, do not lean with this aggressor (mid-p {:.3})",
+                "rests on one circuit: without it the score falls to {} (limit {}), and the other circuits, each judged at its own level, do not lean with this aggressor (mid-p {:.4}, needs {:.4})",
                 pm(d.test_loo),
                 pm(d.limit),
-                d.corroboration_p.unwrap_or(1.0)
+                d.corroboration_p.unwrap_or(1.0),
+                d.corroboration_level
             ),
         );
     }
@@ -1069,5 +1097,16 @@ mod tests {
         d.corroboration_p = Some(0.01);
         let (v, _, _) = direction_verdict(&d, &cfg(39));
         assert!(matches!(v, Verdict::Watch | Verdict::Recalibrate));
+    }
+
+    #[test]
+    fn corroboration_level_keeps_the_expected_false_flags_per_chip_at_alpha() {
+        // family x alpha chance detections, each passing at the level: at most alpha of them.
+        for family in [1, 4, 20, 48, 528, 4000] {
+            let c = corroboration_level(0.05, family);
+            assert!(c <= 0.05 && family as f64 * 0.05 * c <= 0.05 + 1e-15, "{family}: {c}");
+        }
+        assert_eq!(corroboration_level(0.05, 48), 1.0 / 48.0);
+        assert_eq!(corroboration_level(0.05, 0), 0.05);
     }
 }

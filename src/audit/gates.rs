@@ -464,6 +464,7 @@ pub(crate) fn assess(
                         ids.0,
                         ids.1,
                     ),
+                    family: n,
                 };
                 let d = assess::assess_direction(a, cfg, &subject)?;
                 let mut co: BTreeSet<Unit> = BTreeSet::new();
