@@ -261,19 +261,21 @@ fn measured_apart(a: &Analysis, gates: &GateIndex, victim: Unit) -> BTreeSet<Uni
 }
 
 /// The gate view of one victim, built over `all` (row i holds the program of analysis row
-/// `source[i]`) with the requirements and fixed budgets of the victim's solved problem `p`.
+/// `source[i]`) with the requirements and fixed budgets of the victim's solved problem
+/// `(p, sol)`. The fixed budgets' values are read from the solution: a replicate's problem
+/// may be the template it shares, which marks them fixed without their values.
 fn view(
     a: &Analysis,
     gates: &GateIndex,
     victim: Unit,
     all: PassRows<'_>,
     source: Option<&[usize]>,
-    p: &Problem,
+    (p, sol): (&Problem, &TwoStageSolution),
     zero: &[f64],
 ) -> Problem {
     let fixed = |b: Budget| -> Option<f64> {
         let &v = p.index.get(&b)?;
-        p.lp.fixed.get(v).copied().flatten()
+        p.lp.fixed.get(v).copied().flatten().map(|_| sol.values[v])
     };
     let circuit = |i: usize| -> usize {
         let j = source.map_or(i, |s| s[i]);
@@ -288,11 +290,12 @@ fn view(
 }
 
 /// The victim's solved problem in `s`.
-fn solved_of(s: &Solved, victim: Unit) -> &(Problem, TwoStageSolution) {
-    match victim {
+fn solved_of<'s>(s: &'s Solved, victim: Unit) -> (&'s Problem, &'s TwoStageSolution) {
+    let (p, sol) = match victim {
         Unit::Qubit(q) => &s.qubit[q],
         Unit::Coupler(c) => &s.coupler[c],
-    }
+    };
+    (p, sol)
 }
 
 type Weights = Vec<(usize, f64)>;
@@ -340,8 +343,7 @@ pub(crate) fn scores(
     victims
         .par_iter()
         .map(|gv| {
-            let (p, _) = solved_of(s, gv.victim);
-            let v = view(a, gates, gv.victim, all, source, p, &zero);
+            let v = view(a, gates, gv.victim, all, source, solved_of(s, gv.victim), &zero);
             // A view that cannot be solved scores zero, as a pair the rows never test.
             let sol = v.lp.solve().ok();
             gv.aggressors
@@ -414,8 +416,8 @@ pub(crate) fn assess(
         .par_iter()
         .map(|gv| -> Result<Vec<GateDirected>> {
             let victim = gv.victim;
-            let (p, _) = solved_of(s, victim);
-            let v = view(a, gates, victim, PassRows::own(&a.rows.rows), None, p, &zero);
+            let own_rows = PassRows::own(&a.rows.rows);
+            let v = view(a, gates, victim, own_rows, None, solved_of(s, victim), &zero);
             let sol = v.lp.solve()?;
             let all_w: Vec<(Weights, Weights, Weights)> =
                 gv.aggressors.iter().map(|&x| weights(a, victim, &v, x)).collect();

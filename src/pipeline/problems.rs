@@ -152,6 +152,23 @@ impl Problem {
         p
     }
 
+    /// The solution of [`Problem::with_requirements`]`(requirement, fixed)` without building
+    /// that problem, when none of its rows requires anything: this problem, built with zero
+    /// requirements and budgets fixed where `fixed` fixes them (as the coupler templates
+    /// are), then stands for it, and the fixed values are in the solution. None otherwise
+    /// ([`CoveringProblem::solve_unrequired`]).
+    pub fn solve_unrequired(
+        &self,
+        requirement: &[f64],
+        fixed: &dyn Fn(Budget) -> Option<f64>,
+    ) -> Option<TwoStageSolution> {
+        if self.rows.iter().any(|&i| requirement[i] != 0.0) {
+            return None;
+        }
+        let values: Vec<Option<f64>> = self.vars.iter().map(|&b| fixed(b)).collect();
+        self.lp.solve_unrequired(&values)
+    }
+
     /// The same problem without the rows of one circuit (for leave-one-out).
     pub fn without_circuit(&self, all: &[Row], circuit: u32) -> Problem {
         let keep: Vec<usize> =
