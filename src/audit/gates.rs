@@ -183,6 +183,9 @@ fn view_terms(
 pub(crate) struct GateVictim {
     pub victim: Unit,
     pub aggressors: Vec<Unit>,
+    /// The victim's gate view over the analysis' own rows, built on first use by a pass
+    /// over them: such passes change only its requirements and fixed values.
+    own_view: std::sync::OnceLock<Problem>,
 }
 
 /// The analysis rows of a victim (its one-qubit rows, or its coupler's two-qubit rows).
@@ -218,7 +221,11 @@ pub(crate) fn victims(a: &Analysis, gates: &GateIndex) -> Vec<GateVictim> {
         .filter_map(|(victim, xs)| {
             let aggressors: Vec<Unit> =
                 xs.into_iter().filter(|&x| both.contains(&(x, victim))).collect();
-            (!aggressors.is_empty()).then_some(GateVictim { victim, aggressors })
+            (!aggressors.is_empty()).then_some(GateVictim {
+                victim,
+                aggressors,
+                own_view: std::sync::OnceLock::new(),
+            })
         })
         .collect()
 }
@@ -273,10 +280,7 @@ fn view(
     (p, sol): (&Problem, &TwoStageSolution),
     zero: &[f64],
 ) -> Problem {
-    let fixed = |b: Budget| -> Option<f64> {
-        let &v = p.index.get(&b)?;
-        p.lp.fixed.get(v).copied().flatten().map(|_| sol.values[v])
-    };
+    let fixed = view_fixed((p, sol));
     let circuit = |i: usize| -> usize {
         let j = source.map_or(i, |s| s[i]);
         a.rows.rows[j].circuit as usize
@@ -287,6 +291,17 @@ fn view(
         row.requirement = src.requirement;
     }
     v
+}
+
+/// The fixed budgets of a gate view: those of the victim's solved problem `(p, sol)`, with
+/// their values from the solution.
+fn view_fixed<'s>(
+    (p, sol): (&'s Problem, &'s TwoStageSolution),
+) -> impl Fn(Budget) -> Option<f64> + 's {
+    move |b: Budget| -> Option<f64> {
+        let &v = p.index.get(&b)?;
+        p.lp.fixed.get(v).copied().flatten().map(|_| sol.values[v])
+    }
 }
 
 /// The victim's solved problem in `s`.
@@ -343,7 +358,21 @@ pub(crate) fn scores(
     victims
         .par_iter()
         .map(|gv| {
-            let v = view(a, gates, gv.victim, all, source, solved_of(s, gv.victim), &zero);
+            let solved = solved_of(s, gv.victim);
+            let fresh = || view(a, gates, gv.victim, all, source, solved, &zero);
+            let v = if all.is_own() {
+                // The view's rows and terms are the same in every pass over the own rows.
+                let shared = gv.own_view.get_or_init(fresh);
+                let fixed = view_fixed(solved);
+                if shared.fixes_as(&fixed) {
+                    let (p, _) = solved;
+                    shared.renewed(&|j| p.lp.rows[j].requirement, &fixed)
+                } else {
+                    fresh()
+                }
+            } else {
+                fresh()
+            };
             // A view that cannot be solved scores zero, as a pair the rows never test.
             let sol = v.lp.solve().ok();
             gv.aggressors
