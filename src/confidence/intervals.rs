@@ -89,7 +89,9 @@ pub fn interval(estimate: f64, replicates: &[f64], level: f64, method: Method) -
     let a = 1.0 - level;
     let q = |p: f64| quantile(&sorted, p);
     let (low, high, upper, lower) = match method {
-        Method::Percentile | Method::Bracketed => (q(a / 2.0), q(1.0 - a / 2.0), q(level), q(a)),
+        Method::Percentile | Method::Bracketed => {
+            (q(a / 2.0), q(1.0 - a / 2.0), q(level), q(a))
+        }
         Method::Basic => (
             2.0 * estimate - q(1.0 - a / 2.0),
             2.0 * estimate - q(a / 2.0),
