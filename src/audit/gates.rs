@@ -183,6 +183,9 @@ fn view_terms(
 pub(crate) struct GateVictim {
     pub victim: Unit,
     pub aggressors: Vec<Unit>,
+    /// The victim's gate view over the analysis' own rows, built on first use by a pass
+    /// over them: such passes change only its requirements and fixed values.
+    own_view: std::sync::OnceLock<Problem>,
 }
 
 /// The analysis rows of a victim (its one-qubit rows, or its coupler's two-qubit rows).
@@ -218,7 +221,11 @@ pub(crate) fn victims(a: &Analysis, gates: &GateIndex) -> Vec<GateVictim> {
         .filter_map(|(victim, xs)| {
             let aggressors: Vec<Unit> =
                 xs.into_iter().filter(|&x| both.contains(&(x, victim))).collect();
-            (!aggressors.is_empty()).then_some(GateVictim { victim, aggressors })
+            (!aggressors.is_empty()).then_some(GateVictim {
+                victim,
+                aggressors,
+                own_view: std::sync::OnceLock::new(),
+            })
         })
         .collect()
 }
@@ -261,20 +268,19 @@ fn measured_apart(a: &Analysis, gates: &GateIndex, victim: Unit) -> BTreeSet<Uni
 }
 
 /// The gate view of one victim, built over `all` (row i holds the program of analysis row
-/// `source[i]`) with the requirements and fixed budgets of the victim's solved problem `p`.
+/// `source[i]`) with the requirements and fixed budgets of the victim's solved problem
+/// `(p, sol)`. The fixed budgets' values are read from the solution: a replicate's problem
+/// may be the template it shares, which marks them fixed without their values.
 fn view(
     a: &Analysis,
     gates: &GateIndex,
     victim: Unit,
     all: PassRows<'_>,
     source: Option<&[usize]>,
-    p: &Problem,
+    (p, sol): (&Problem, &TwoStageSolution),
     zero: &[f64],
 ) -> Problem {
-    let fixed = |b: Budget| -> Option<f64> {
-        let &v = p.index.get(&b)?;
-        p.lp.fixed.get(v).copied().flatten()
-    };
+    let fixed = view_fixed((p, sol));
     let circuit = |i: usize| -> usize {
         let j = source.map_or(i, |s| s[i]);
         a.rows.rows[j].circuit as usize
@@ -287,12 +293,24 @@ fn view(
     v
 }
 
+/// The fixed budgets of a gate view: those of the victim's solved problem `(p, sol)`, with
+/// their values from the solution.
+fn view_fixed<'s>(
+    (p, sol): (&'s Problem, &'s TwoStageSolution),
+) -> impl Fn(Budget) -> Option<f64> + 's {
+    move |b: Budget| -> Option<f64> {
+        let &v = p.index.get(&b)?;
+        p.lp.fixed.get(v).copied().flatten().map(|_| sol.values[v])
+    }
+}
+
 /// The victim's solved problem in `s`.
-fn solved_of(s: &Solved, victim: Unit) -> &(Problem, TwoStageSolution) {
-    match victim {
+fn solved_of<'s>(s: &'s Solved, victim: Unit) -> (&'s Problem, &'s TwoStageSolution) {
+    let (p, sol) = match victim {
         Unit::Qubit(q) => &s.qubit[q],
         Unit::Coupler(c) => &s.coupler[c],
-    }
+    };
+    (p, sol)
 }
 
 type Weights = Vec<(usize, f64)>;
@@ -340,8 +358,21 @@ pub(crate) fn scores(
     victims
         .par_iter()
         .map(|gv| {
-            let (p, _) = solved_of(s, gv.victim);
-            let v = view(a, gates, gv.victim, all, source, p, &zero);
+            let solved = solved_of(s, gv.victim);
+            let fresh = || view(a, gates, gv.victim, all, source, solved, &zero);
+            let v = if all.is_own() {
+                // The view's rows and terms are the same in every pass over the own rows.
+                let shared = gv.own_view.get_or_init(fresh);
+                let fixed = view_fixed(solved);
+                if shared.fixes_as(&fixed) {
+                    let (p, _) = solved;
+                    shared.renewed(&|j| p.lp.rows[j].requirement, &fixed)
+                } else {
+                    fresh()
+                }
+            } else {
+                fresh()
+            };
             // A view that cannot be solved scores zero, as a pair the rows never test.
             let sol = v.lp.solve().ok();
             gv.aggressors
@@ -414,8 +445,8 @@ pub(crate) fn assess(
         .par_iter()
         .map(|gv| -> Result<Vec<GateDirected>> {
             let victim = gv.victim;
-            let (p, _) = solved_of(s, victim);
-            let v = view(a, gates, victim, PassRows::own(&a.rows.rows), None, p, &zero);
+            let own_rows = PassRows::own(&a.rows.rows);
+            let v = view(a, gates, victim, own_rows, None, solved_of(s, victim), &zero);
             let sol = v.lp.solve()?;
             let all_w: Vec<(Weights, Weights, Weights)> =
                 gv.aggressors.iter().map(|&x| weights(a, victim, &v, x)).collect();

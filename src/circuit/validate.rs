@@ -157,26 +157,45 @@ pub fn validate_circuit(c: &Circuit, layout: &Layout, allow_non_native: bool) ->
 /// Checks every circuit of a set; the first problem, in circuit order, is returned.
 /// A recorded delay must name a layer of its circuit where its qubit idles explicitly.
 pub fn validate(set: &CircuitSet, layout: &Layout, allow_non_native: bool) -> Result<()> {
-    for (i, c) in set.circuits.iter().enumerate() {
-        validate_circuit(c, layout, allow_non_native)?;
-        for d in set.delays_of(i) {
-            let idles = c.layers.get(d.layer).is_some_and(|l| {
-                l.iter().any(|op| op.gate == Gate::Id && op.operands[0] == d.qubit)
-            });
-            if !idles {
-                return Err(Error::circuit(
-                    &c.id,
-                    format!(
-                        "delay[{}] on {} names layer {}, which has no explicit idle (`id`) of {} \
-                         (a delay is an idle of its qubit in a layer of 0 to {})",
-                        crate::error::echo(&d.duration),
-                        layout.id(d.qubit),
-                        d.layer,
-                        layout.id(d.qubit),
-                        c.layers.len().saturating_sub(1)
-                    ),
-                ));
-            }
+    use rayon::prelude::*;
+    // Circuits are checked in parallel; the error reported is the first circuit's in file
+    // order, as a check one circuit after another would report.
+    let first = set
+        .circuits
+        .par_iter()
+        .enumerate()
+        .map(|(i, c)| validate_one(set, i, c, layout, allow_non_native))
+        .find_map_first(Result::err);
+    first.map_or(Ok(()), Err)
+}
+
+/// [`validate`] for circuit `i` of `set`: its operations and its delays.
+fn validate_one(
+    set: &CircuitSet,
+    i: usize,
+    c: &Circuit,
+    layout: &Layout,
+    allow_non_native: bool,
+) -> Result<()> {
+    validate_circuit(c, layout, allow_non_native)?;
+    for d in set.delays_of(i) {
+        let idles = c
+            .layers
+            .get(d.layer)
+            .is_some_and(|l| l.iter().any(|op| op.gate == Gate::Id && op.operands[0] == d.qubit));
+        if !idles {
+            return Err(Error::circuit(
+                &c.id,
+                format!(
+                    "delay[{}] on {} names layer {}, which has no explicit idle (`id`) of {} \
+                     (a delay is an idle of its qubit in a layer of 0 to {})",
+                    crate::error::echo(&d.duration),
+                    layout.id(d.qubit),
+                    d.layer,
+                    layout.id(d.qubit),
+                    c.layers.len().saturating_sub(1)
+                ),
+            ));
         }
     }
     Ok(())
@@ -216,7 +235,12 @@ pub fn read_circuits(path: &Path, layout: &Layout, opts: &ReadOptions) -> Result
         if files.is_empty() {
             return Err(Error::input(path, None, "folder holds no .qasm files"));
         }
-        let circuits = files.iter().map(|p| read_qasm(p)).collect::<Result<Vec<_>>>()?;
+        // Files are read in parallel; the error reported is the first file's in name order.
+        let read: Vec<Result<_>> = {
+            use rayon::prelude::*;
+            files.par_iter().map(|p| read_qasm(p)).collect()
+        };
+        let circuits = read.into_iter().collect::<Result<Vec<_>>>()?;
         return with_delays(circuits, path);
     }
     match ext.as_deref() {

@@ -187,6 +187,8 @@ const DEMO_COUNTS: &[u8] = include_bytes!("../../demo-data/counts.csv");
 pub fn run(args: AuditArgs) -> anyhow::Result<()> {
     let out = OutputDir::claim(&args.analysis.out, FolderRule::Update)?;
     check_analysis(&args.analysis)?;
+    // Before reading: the readers already work in parallel.
+    start_threads(args.analysis.threads)?;
     let loaded = args.inputs.load(Some(&args.counts))?;
     run_audit(loaded, args.inputs.bit_order.label(), &args.analysis, out)
 }
@@ -212,6 +214,7 @@ pub fn demo(args: DemoArgs) -> anyhow::Result<()> {
         timings: false,
     };
     check_analysis(&analysis)?;
+    start_threads(analysis.threads)?;
     let loaded = match &args.data {
         Some(d) => {
             eprintln!("slackmap demo: auditing the scenario in {}", d.display());
@@ -299,7 +302,6 @@ fn run_audit(
     a: &AnalysisArgs,
     out: OutputDir,
 ) -> anyhow::Result<()> {
-    start_threads(a.threads)?;
     let counts = loaded.counts.as_ref().context("counts were not read")?;
     loaded.require_agreement()?;
     let cfg = AuditConfig {

@@ -7,6 +7,7 @@
 //! programs, the thresholds and the LP structure of the point pass reused. `audit` and
 //! `confidence` sit above this module and never call each other for it.
 
+use std::borrow::Cow;
 use std::collections::HashMap;
 use std::sync::atomic::{AtomicBool, Ordering};
 
@@ -102,16 +103,20 @@ pub(crate) struct Analysis<'a> {
 }
 
 /// Covering problems built once, aligned with [`Analysis::qubit_rows`] and
-/// [`Analysis::coupler_rows`].
+/// [`Analysis::coupler_rows`], with zero requirements. A coupler's template marks fixed
+/// (at 0) the budgets its qubits' problems set, as every pass over these rows fixes them,
+/// so that a pass in which none of its rows requires anything can share it
+/// ([`Problem::solve_unrequired`]).
 pub(crate) struct Templates {
     pub qubit: Vec<Problem>,
     pub coupler: Vec<Problem>,
 }
 
-/// The LP solutions of one audit.
-pub(crate) struct Solved {
-    pub qubit: Vec<(Problem, TwoStageSolution)>,
-    pub coupler: Vec<(Problem, TwoStageSolution)>,
+/// The LP solutions of one audit. A replicate's problem in which no row requires anything
+/// is its template, shared: its fixed budgets' values are those of the solution.
+pub(crate) struct Solved<'t> {
+    pub qubit: Vec<(Cow<'t, Problem>, TwoStageSolution)>,
+    pub coupler: Vec<(Cow<'t, Problem>, TwoStageSolution)>,
 }
 
 /// Directed scores of a solved pass, in the audit's pair order: supplied by the audit, so
@@ -240,13 +245,16 @@ pub(crate) fn analyse<'a>(
     }
 
     let zero = vec![0.0; rows.rows.len()];
-    let template = |list: &Vec<usize>| {
-        Problem::build(PassRows::own(&rows.rows), list.clone(), &zero, &|_| None)
+    let template = |list: &Vec<usize>, fixed: &(dyn Fn(Budget) -> Option<f64> + Sync)| {
+        Problem::build(PassRows::own(&rows.rows), list.clone(), &zero, fixed)
     };
-    let templates = Templates {
-        qubit: qubit_rows.par_iter().map(template).collect(),
-        coupler: coupler_rows.par_iter().map(template).collect(),
+    let qubit: Vec<Problem> = qubit_rows.par_iter().map(|l| template(l, &|_| None)).collect();
+    let set_by_qubits = |b: Budget| -> Option<f64> {
+        let q = budget_owner(&rows.kinds, b)?;
+        qubit[q].index.contains_key(&b).then_some(0.0)
     };
+    let coupler = coupler_rows.par_iter().map(|l| template(l, &set_by_qubits)).collect();
+    let templates = Templates { qubit, coupler };
 
     let fitted = fit_model(
         layout,
@@ -452,48 +460,63 @@ fn prefix(w: Warning, who: &str) -> Warning {
 }
 
 /// Solves the qubit problems, then the coupler problems with the qubit budgets fixed.
-pub(crate) fn solve_all(a: &Analysis, progress: &dyn Progress) -> Result<Solved> {
-    solve_rows(a, PassRows::own(&a.rows.rows), &a.requirement, Some(&a.templates), progress)
+pub(crate) fn solve_all<'t>(a: &'t Analysis, progress: &dyn Progress) -> Result<Solved<'t>> {
+    let own = PassRows::own(&a.rows.rows);
+    solve_rows(a, own, &a.requirement, Some((&a.templates, Share::Never)), progress)
+}
+
+/// Whether a pass may share a template for a problem in which no row requires anything.
+#[derive(Clone, Copy, PartialEq)]
+enum Share {
+    /// The point pass: every problem is its own, fixed values included (the assessment
+    /// builds nulls and leave-one-out problems from them).
+    Never,
+    /// A replicate or the estimate: only solutions and row structure are read.
+    Unrequired,
+}
+
+/// The qubit whose problem sets budget `b`: a readout's, or a one-qubit kind's (None for a
+/// two-qubit kind's budgets, which a coupler's problem sets).
+fn budget_owner(kinds: &rows::KindTable, b: Budget) -> Option<QubitIx> {
+    match b {
+        Budget::Readout(q) => Some(q),
+        Budget::Intrinsic(k) | Budget::Context(k, _) | Budget::GateContext(k, _) => {
+            let kind = kinds.get(k);
+            (kind.gate.arity() == 1).then_some(kind.qubits[0])
+        }
+    }
 }
 
 /// [`solve_all`] for rows with the analysis' block structure but other programs or
 /// requirements (a bootstrap replicate).
-fn solve_rows(
+fn solve_rows<'t>(
     a: &Analysis,
     all: PassRows<'_>,
     requirement: &[f64],
-    templates: Option<&Templates>,
+    templates: Option<(&'t Templates, Share)>,
     progress: &dyn Progress,
-) -> Result<Solved> {
+) -> Result<Solved<'t>> {
     progress.stage("solving qubit budgets", a.qubit_rows.len() as u64);
     let none = |_: Budget| None;
+    let share = templates.map_or(Share::Never, |t| t.1);
     let qubit = solve_each(
         &a.qubit_rows,
-        templates.map(|t| &t.qubit[..]),
+        templates.map(|t| (&t.0.qubit[..], share)),
         all,
         requirement,
         &none,
         progress,
     )?;
     let kinds = &a.rows.kinds;
-    let owner = |b: Budget| -> Option<QubitIx> {
-        match b {
-            Budget::Readout(q) => Some(q),
-            Budget::Intrinsic(k) | Budget::Context(k, _) | Budget::GateContext(k, _) => {
-                let kind = kinds.get(k);
-                (kind.gate.arity() == 1).then_some(kind.qubits[0])
-            }
-        }
-    };
     let fixed = |b: Budget| -> Option<f64> {
-        let q = owner(b)?;
+        let q = budget_owner(kinds, b)?;
         let (p, s) = &qubit[q];
         p.index.get(&b).map(|&v| s.values[v])
     };
     progress.stage("solving coupler budgets", a.coupler_rows.len() as u64);
     let coupler = solve_each(
         &a.coupler_rows,
-        templates.map(|t| &t.coupler[..]),
+        templates.map(|t| (&t.0.coupler[..], share)),
         all,
         requirement,
         &fixed,
@@ -503,27 +526,39 @@ fn solve_rows(
 }
 
 /// One covering problem per row list, solved in parallel: from its template when there is one
-/// (a replicate changes only the requirements), else built afresh. `fixed` gives the budgets
-/// already solved in an earlier stage.
-fn solve_each(
+/// (a replicate changes only the requirements; one in which no row requires anything shares
+/// the template when `Share` allows), else built afresh. `fixed` gives the budgets already
+/// solved in an earlier stage.
+fn solve_each<'t>(
     lists: &[Vec<usize>],
-    templates: Option<&[Problem]>,
+    templates: Option<(&'t [Problem], Share)>,
     all: PassRows<'_>,
     requirement: &[f64],
     fixed: &(dyn Fn(Budget) -> Option<f64> + Sync),
     progress: &dyn Progress,
-) -> Result<Vec<(Problem, TwoStageSolution)>> {
+) -> Result<Vec<(Cow<'t, Problem>, TwoStageSolution)>> {
     lists
         .par_iter()
         .enumerate()
         .map(|(i, list)| {
-            let p = match templates {
-                Some(t) => t[i].with_requirements(requirement, fixed),
-                None => Problem::build(all, list.clone(), requirement, fixed),
+            let shared = match templates {
+                Some((t, Share::Unrequired)) => {
+                    t[i].solve_unrequired(requirement, fixed).map(|s| (Cow::Borrowed(&t[i]), s))
+                }
+                _ => None,
             };
-            let s = p.lp.solve();
+            let out = match shared {
+                Some(done) => Ok(done),
+                None => {
+                    let p = match templates {
+                        Some((t, _)) => t[i].with_requirements(requirement, fixed),
+                        None => Problem::build(all, list.clone(), requirement, fixed),
+                    };
+                    p.lp.solve().map(|s| (Cow::Owned(p), s))
+                }
+            };
             progress.advance(1);
-            s.map(|s| (p, s))
+            out
         })
         .collect()
 }
@@ -656,7 +691,8 @@ fn scores_of(
     progress: &dyn Progress,
 ) -> Result<(Vec<f64>, Vec<f64>)> {
     // The point pass's problems hold exactly when the rows are the analysis' own.
-    let solved = solve_rows(a, all, requirement, all.is_own().then_some(&a.templates), progress)?;
+    let templates = all.is_own().then_some((&a.templates, Share::Unrequired));
+    let solved = solve_rows(a, all, requirement, templates, progress)?;
     let directed = scorer(a, all, source, &solved);
     let intrinsic =
         (0..a.rows.kinds.len() as u32).map(|k| intrinsic_slack(a, &solved, k)).collect();

@@ -141,15 +141,52 @@ impl Problem {
         requirement: &[f64],
         fixed: &dyn Fn(Budget) -> Option<f64>,
     ) -> Problem {
+        self.renewed(&|j| requirement[self.rows[j]], fixed)
+    }
+
+    /// The same problem with row j's requirement `requirement(j)` (j a position into
+    /// `rows`) and fixed budgets from `fixed`: what [`Problem::build_with`] gives on the same
+    /// rows and terms when `fixed` fixes the budgets this problem was built with fixed (or
+    /// none were), without building the variables and terms again.
+    pub fn renewed(
+        &self,
+        requirement: &dyn Fn(usize) -> f64,
+        fixed: &dyn Fn(Budget) -> Option<f64>,
+    ) -> Problem {
         let mut p = self.clone();
-        for (row, &i) in p.lp.rows.iter_mut().zip(&p.rows) {
-            row.requirement = requirement[i];
+        for (j, row) in p.lp.rows.iter_mut().enumerate() {
+            row.requirement = requirement(j);
         }
         let fixed_values: Vec<Option<f64>> = p.vars.iter().map(|&b| fixed(b)).collect();
         p.lp.fixed =
             if fixed_values.iter().any(Option::is_some) { fixed_values } else { Vec::new() };
         settled_contexts_as_reference(&mut p.lp);
         p
+    }
+
+    /// True when `fixed` fixes exactly the budgets this problem holds fixed.
+    pub fn fixes_as(&self, fixed: &dyn Fn(Budget) -> Option<f64>) -> bool {
+        self.vars
+            .iter()
+            .enumerate()
+            .all(|(v, &b)| self.lp.fixed.get(v).copied().flatten().is_some() == fixed(b).is_some())
+    }
+
+    /// The solution of [`Problem::with_requirements`]`(requirement, fixed)` without building
+    /// that problem, when none of its rows requires anything: this problem, built with zero
+    /// requirements and budgets fixed where `fixed` fixes them (as the coupler templates
+    /// are), then stands for it, and the fixed values are in the solution. None otherwise
+    /// ([`CoveringProblem::solve_unrequired`]).
+    pub fn solve_unrequired(
+        &self,
+        requirement: &[f64],
+        fixed: &dyn Fn(Budget) -> Option<f64>,
+    ) -> Option<TwoStageSolution> {
+        if self.rows.iter().any(|&i| requirement[i] != 0.0) {
+            return None;
+        }
+        let values: Vec<Option<f64>> = self.vars.iter().map(|&b| fixed(b)).collect();
+        self.lp.solve_unrequired(&values)
     }
 
     /// The same problem without the rows of one circuit (for leave-one-out).

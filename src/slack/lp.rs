@@ -334,6 +334,44 @@ impl CoveringProblem {
         })
     }
 
+    /// [`Self::solve`] for a problem none of whose rows requires anything, with `fixed` in
+    /// place of [`Self::fixed`]'s values: every row is met at zero, so both stages drop every
+    /// row and solve nothing, and the free variables are zero. Most problems of a replicate
+    /// are such (a row needs slack only where the data depart from the model).
+    ///
+    /// None (solve it instead) unless every requirement is 0, `fixed` fixes exactly the
+    /// variables [`Self::fixed`] fixes, to finite values >= 0, and the problem is valid;
+    /// otherwise the result is the one [`Self::solve`] gives with these fixed values.
+    pub fn solve_unrequired(&self, fixed: &[Option<f64>]) -> Option<TwoStageSolution> {
+        let n = self.n_vars();
+        let given = |v: usize| fixed.get(v).copied().flatten();
+        let same_fixed = fixed.len() <= n
+            && (0..n).all(|v| match (self.fixed_value(v), given(v)) {
+                (None, None) => true,
+                (Some(_), Some(x)) => x.is_finite() && x >= 0.0,
+                _ => false,
+            });
+        if !same_fixed || self.rows.iter().any(|r| r.requirement != 0.0) {
+            return None;
+        }
+        self.validate().ok()?;
+        // What `solve` finds: a zero requirement less fixed slack is at most 0, so every row
+        // is dropped in both stages, no column is left and no row binds.
+        let reference = self.rows.iter().filter(|r| r.reference).count();
+        let all = self.rows.len();
+        let dropped =
+            |rows: usize| Presolve { rows_in: rows, dropped_zero: rows, merged: 0, constraints: 0 };
+        let nothing_free = || std::iter::empty::<f64>().sum::<f64>();
+        Some(TwoStageSolution {
+            values: (0..n).map(|v| given(v).unwrap_or(0.0)).collect(),
+            stage1_objective: nothing_free(),
+            stage2_objective: nothing_free(),
+            binding: Vec::new(),
+            stage1_presolve: dropped(reference),
+            stage2_presolve: dropped(all),
+        })
+    }
+
     /// Rows with positive requirement whose slack at `values` meets it within
     /// [`BINDING_TOLERANCE`].
     pub fn binding_rows(&self, values: &[f64]) -> Vec<usize> {
@@ -572,6 +610,34 @@ mod tests {
             rows: vec![row(&[(3, 1.0)], f64::NAN, true)],
         };
         assert!(p.validate().is_err());
+    }
+
+    /// Without requirements the shortcut gives `solve`'s solution to the bit, fixed values,
+    /// presolve counts and all, and declines what it does not cover.
+    #[test]
+    fn unrequired_problem_shortcut_is_the_solve() {
+        let mut p = small();
+        p.rows.iter_mut().for_each(|r| r.requirement = 0.0);
+        assert_eq!(p.solve_unrequired(&[]), Some(p.solve().unwrap()));
+        p.rows[2].reference = true; // a reference row with a free context term: invalid
+        assert_eq!(p.solve_unrequired(&[]), None);
+        p.rows[2].reference = false;
+        // Fixed variables: the given values stand in for the problem's own.
+        p.fixed = vec![Some(0.0), None, Some(0.0)];
+        let given = [Some(0.004), None, Some(0.25)];
+        let mut q = p.clone();
+        q.fixed = given.to_vec();
+        let sol = p.solve_unrequired(&given).unwrap();
+        assert_eq!(sol, q.solve().unwrap());
+        assert_eq!(sol.values, vec![0.004, 0.0, 0.25]);
+        assert_eq!(sol.stage1_presolve.rows_in, 2);
+        assert_eq!(sol.stage2_presolve.dropped_zero, 5);
+        // Another fixed pattern, a bad value or a requirement: solve instead.
+        assert_eq!(p.solve_unrequired(&[Some(0.004), Some(0.0), Some(0.25)]), None);
+        assert_eq!(p.solve_unrequired(&[Some(0.004), None, None]), None);
+        assert_eq!(p.solve_unrequired(&[Some(f64::NAN), None, Some(0.25)]), None);
+        p.rows[3].requirement = 1e-300;
+        assert_eq!(p.solve_unrequired(&given), None);
     }
 
     #[test]
