@@ -1035,20 +1035,10 @@ pub(crate) mod tests {
                     let mut slow = PreparedRow::new(&row, &spec(Family::PauliCoherent)).unwrap();
                     Arc::get_mut(&mut slow.compiled).unwrap().paths = None;
                     let params = random_params(family, &mut rng);
-                    let a = predict_path(
-                        &fast,
-                        &params,
-                        &Channels::new([&fast], &params),
-                        false,
-                        &|_| true,
-                    );
-                    let b = predict_path(
-                        &slow,
-                        &params,
-                        &Channels::new([&slow], &params),
-                        false,
-                        &|_| true,
-                    );
+                    let run = |r: &PreparedRow| {
+                        predict_path(r, &params, &Channels::new([r], &params), false, &|_| true)
+                    };
+                    let (a, b) = (run(&fast), run(&slow));
                     for (x, y) in a.probs.iter().zip(&b.probs) {
                         assert!((x - y).abs() < 1e-13, "{family:?} {n}: {x} vs {y}");
                     }
