@@ -53,6 +53,7 @@ pub struct AnalysisArgs {
     pub alpha: f64,
     /// Context slack per layer above which a detected edge is worth recalibrating: raw TVD
     /// (0.001, 1e-3) or in the tables' unit of 1e-3 with suffix m (1m = 0.001); at most 0.5.
+    /// `recalibrate` needs the estimate's one-sided lower bound at --level above it.
     #[arg(long, default_value = "1e-3", value_name = "TVD", value_parser = super::units::tvd_per_layer)]
     pub action_threshold: f64,
     /// Replicates of the context-permutation null per directed pair, and as many of the
@@ -74,7 +75,8 @@ pub struct AnalysisArgs {
     /// groups of the same pattern and depth and then their shots.
     #[arg(long, value_enum, default_value = "shots")]
     pub resample: ResampleArg,
-    /// Two-sided level of the bootstrap intervals.
+    /// Level of the bootstrap intervals: two-sided for the [low..high] interval, one-sided for
+    /// the lower bound that `recalibrate` rests on (0.95: the 5% quantile of the replicates).
     #[arg(long, default_value_t = 0.95)]
     pub level: f64,
     /// The k of each edge's probability of ranking in the top k.
