@@ -32,7 +32,7 @@ use slackmap::counts::{CircuitCounts, Counts, Outcome};
 use slackmap::design::{self, DesignConfig, Kind};
 use slackmap::layout::{generate, Layout};
 use slackmap::model::Family;
-use slackmap::report::{AuditReport, EdgeReport, ReasonCode, Verdict};
+use slackmap::report::{AuditReport, DirectedReport, EdgeReport, ReasonCode, Verdict};
 use slackmap::simulate::{self, Noise, SimConfig};
 use slackmap::stats::median;
 
@@ -305,6 +305,11 @@ fn edge<'r>(r: &'r AuditReport, layout: &Layout, a: usize, b: usize) -> &'r Edge
     r.edges.iter().find(|e| (e.a == a && e.b == b) || (e.a == b && e.b == a)).unwrap()
 }
 
+/// The direction whose verdict the edge's `reason` quotes ("victim<-aggressor: ...").
+fn lead<'r>(r: &'r AuditReport, e: &EdgeReport) -> Option<&'r DirectedReport> {
+    r.directed.iter().find(|d| e.reason.starts_with(&format!("{}<-{}:", d.victim, d.aggressor)))
+}
+
 fn flagged(v: Verdict) -> bool {
     matches!(v, Verdict::Recalibrate | Verdict::Watch)
 }
@@ -327,10 +332,15 @@ struct Record {
     reason: ReasonCode,
     /// Detected only because a tie with the limit counts half (score not above the limit).
     by_tie: bool,
-    /// Detected only because the other circuits corroborate it.
-    by_corroboration: bool,
     /// The lead direction's corroboration p-value, when its score rests on one circuit.
     corroboration_p: Option<f64>,
+}
+
+impl Record {
+    /// Detected only because the other circuits corroborate it.
+    fn by_corroboration(&self) -> bool {
+        flagged(self.verdict) && self.corroboration_p.is_some()
+    }
 }
 
 /// Flags on edges that carry no injection, over all study chips: (flags, edges).
@@ -356,17 +366,10 @@ fn chip(
             let got = edge(&r, layout, e.victim, e.aggressor);
             let reference = edge(&big, layout, e.victim, e.aggressor).estimate_tvd_per_layer;
             let c = got.confidence.as_ref().expect("replicates were run");
-            let lead = r
-                .directed
-                .iter()
-                .find(|d| got.reason.starts_with(&format!("{}<-{}:", d.victim, d.aggressor)));
-            let (by_tie, by_corroboration) = match lead {
-                Some(d) if flagged(got.verdict) => (
-                    d.score_tvd_per_layer <= d.detection_limit_tvd_per_layer,
-                    d.corroboration_p_value.is_some(),
-                ),
-                _ => (false, false),
-            };
+            let lead = lead(&r, got);
+            let by_tie = lead.is_some_and(|d| {
+                flagged(got.verdict) && d.score_tvd_per_layer <= d.detection_limit_tvd_per_layer
+            });
             let corroboration_p = lead.and_then(|d| d.corroboration_p_value);
             Record {
                 layout: layout.name.clone(),
@@ -381,7 +384,6 @@ fn chip(
                 verdict: got.verdict,
                 reason: got.reason_code,
                 by_tie,
-                by_corroboration,
                 corroboration_p,
             }
         })
@@ -521,7 +523,7 @@ fn figures(records: &[Record]) -> Figures {
     f.recalibrate_above = count(&|r| r.reference >= 1.5 * ACTION_THRESHOLD);
     f.recalibrate_below = count(&|r| r.reference <= 0.5 * ACTION_THRESHOLD);
     f.by_tie = records.iter().filter(|r| r.by_tie).count();
-    f.by_corroboration = records.iter().filter(|r| r.by_corroboration).count();
+    f.by_corroboration = records.iter().filter(|r| r.by_corroboration()).count();
     for code in ReasonCode::ALL {
         let n = records.iter().filter(|r| r.reason == code).count();
         if n > 0 {
@@ -569,11 +571,7 @@ fn null_chips(s: &Settings, layout: &Layout, circuits: &CircuitSet) -> (usize, u
         let r = audit(layout, circuits, &counts, seed, s.nulls, 0);
         let flags: Vec<_> = r.edges.iter().filter(|e| flagged(e.verdict)).collect();
         for e in &flags {
-            let corroborated = r
-                .directed
-                .iter()
-                .find(|d| e.reason.starts_with(&format!("{}<-{}:", d.victim, d.aggressor)))
-                .and_then(|d| d.corroboration_p_value);
+            let corroborated = lead(&r, e).and_then(|d| d.corroboration_p_value);
             eprintln!(
                 "null chip {i} (drift on q{}): {}-{} {:?} ({}{})",
                 5 + (i % 6),
@@ -668,7 +666,7 @@ fn run_study(s: &Settings) -> (Vec<Record>, (usize, usize), OtherFlags) {
                 r.verdict.word(),
                 r.reason.code(),
                 r.by_tie,
-                r.by_corroboration,
+                r.by_corroboration(),
                 r.corroboration_p.map_or(String::new(), |p| format!("{p:e}")),
                 r.replicates.iter().map(|x| format!("{x:e}")).collect::<Vec<_>>().join(";")
             ));

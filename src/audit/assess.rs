@@ -669,31 +669,26 @@ fn corroboration(
 ) -> f64 {
     let keep: Vec<usize> =
         (0..p.rows.len()).filter(|&j| a.rows.rows[p.rows[j]].circuit != c).collect();
-    let mut thresholds: Vec<(usize, f64)> = Vec::new();
+    // Each row at its own level: the Bonferroni thresholds of a family of one row.
+    let thresholds = crate::stats::RowThresholds::new(cfg.alpha, 1);
     let values: Vec<f64> = keep
         .iter()
         .map(|&j| {
             let i = p.rows[j];
             let pred = &a.predictions[i];
-            let Some(m) = &a.rows.rows[i].marginal else { return 0.0 };
-            if pred.len() < 2 {
-                return 0.0;
+            match &a.rows.rows[i].marginal {
+                Some(m) if pred.len() >= 2 => crate::slack::requirement::requirement(
+                    pred,
+                    m,
+                    thresholds.of_outcomes(pred.len()),
+                ),
+                _ => 0.0,
             }
-            let dof = pred.len() - 1;
-            let t = match thresholds.iter().find(|e| e.0 == dof) {
-                Some(e) => e.1,
-                None => {
-                    let t = crate::stats::chi2_quantile(dof, 1.0 - cfg.alpha);
-                    thresholds.push((dof, t));
-                    t
-                }
-            };
-            crate::slack::requirement::requirement(pred, m, t)
         })
         .collect();
     let labelled: Vec<bool> = keep.iter().map(|&j| test.labelled[j]).collect();
     let sub_strata: Vec<u64> = keep.iter().map(|&j| strata[j]).collect();
-    let observed: f64 = values.iter().zip(&labelled).filter(|(_, &l)| l).map(|(&v, _)| v).sum();
+    let observed = crate::slack::null::labelled_sum(&values, &labelled);
     let null = crate::slack::null::labelled_sum_null(
         &values,
         &labelled,

@@ -118,8 +118,9 @@ pub fn interval(estimate: f64, replicates: &[f64], level: f64, method: Method) -
 /// a/2 quantile of `lower` (replicates under the shrunk row needs), the upper end the
 /// 1 - a/2 quantile of `upper` (replicates of the estimate, under the noncentral needs; never
 /// taken below the 1 - a/2 quantile of `lower`); the one-sided bounds are the `level`
-/// quantile of `upper` and the 1 - `level` quantile of `lower`. Each end is a percentile end (Davison &
-/// Hinkley 1997, eq. 5.18) of an estimator that brackets the row needs from one side.
+/// quantile of `upper` and the 1 - `level` quantile of `lower`. Each end is a percentile end
+/// (Davison & Hinkley 1997, eq. 5.18) of an estimator that brackets the row needs from one
+/// side.
 pub fn bracketed(lower: &[f64], upper: &[f64], level: f64) -> Interval {
     let sort = |v: &[f64]| {
         let mut s = v.to_vec();

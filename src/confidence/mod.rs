@@ -263,7 +263,7 @@ struct Draws {
 }
 
 impl Draws {
-    /// Column `at(r)` of every replicate `r`.
+    /// The estimate, lower-end and score columns of every replicate.
     fn of(
         reps: &[ReplicateScores],
         estimate: impl Fn(&ReplicateScores) -> f64,
@@ -380,12 +380,11 @@ pub fn fill(
         .collect();
     let edge_ranks: Vec<Vec<usize>> = edge_reps.iter().map(|s| ranks(s)).collect();
     for (e, (col, &pair)) in report.edges.iter_mut().zip(pairs.iter().enumerate()) {
-        let draws = Draws::of(
-            reps,
-            |r| larger(&r.directed_estimate_tvd_per_layer, pair),
-            |r| larger(&r.directed_lower_tvd_per_layer, pair),
-            |r| larger(&r.directed_tvd_per_layer, pair),
-        );
+        let draws = Draws {
+            reps: reps.iter().map(|r| larger(&r.directed_estimate_tvd_per_layer, pair)).collect(),
+            lower: reps.iter().map(|r| larger(&r.directed_lower_tvd_per_layer, pair)).collect(),
+            scores: edge_reps.iter().map(|r| r[col]).collect(),
+        };
         e.confidence = Some(summarise(e.estimate_tvd_per_layer, &draws, level));
         let mut rk: Vec<f64> = edge_ranks.iter().map(|r| r[col] as f64).collect();
         rk.sort_by(f64::total_cmp);

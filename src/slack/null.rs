@@ -185,9 +185,15 @@ pub fn labelled_sum_null(
                     on[j] = l;
                 }
             }
-            values.iter().zip(&on).filter(|(_, &l)| l).map(|(&v, _)| v).sum()
+            labelled_sum(values, &on)
         })
         .collect()
+}
+
+/// The statistic of [`labelled_sum_null`]: `values` summed over the rows `labelled`, in row
+/// order.
+pub fn labelled_sum(values: &[f64], labelled: &[bool]) -> f64 {
+    values.iter().zip(labelled).filter(|(_, &l)| l).map(|(&v, _)| v).sum()
 }
 
 /// Rows grouped by stratum, groups of one left out (permuting them changes nothing).

@@ -160,7 +160,7 @@ mod tests {
         let llr0 = 2.0 * (600.0 * 1.2f64.ln() + 400.0 * 0.8f64.ln());
         assert!((full - 0.1 * (1.0 - t / llr0)).abs() < 1e-12, "{full}");
         assert!(full > d);
-        // The upper end's: TVD sqrt(1 - T / LLR(0)).
+        // The estimate's: TVD sqrt(1 - T / LLR(0)).
         assert!((noncentral - 0.1 * (1.0 - t / llr0).sqrt()).abs() < 1e-12, "{noncentral}");
         assert!(noncentral > full);
         assert_eq!(row_needs(&[0.5, 0.5], &[510, 490], t), RowNeeds::default());
