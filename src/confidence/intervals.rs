@@ -11,12 +11,12 @@ use statrs::distribution::{ContinuousCDF, Normal};
 /// The estimate is a boundary-constrained quantity: slack cannot be negative, and a row's
 /// need is its deviation shrunk toward zero as it nears its threshold
 /// ([`crate::slack::requirement::RowNeeds`]). How much to shrink is not known from one data
-/// set: shrinking by the noncentrality's square root (the estimate) runs close near the
-/// detection level but, a maximum over many noisy rows, up to a tenth high far above it;
-/// shrinking to zero at the threshold runs low near the detection level. The interval spans
-/// both: its lower end is the percentile of the replicates under the shrunk needs, its upper
-/// end the percentile of the replicate estimates. The basic (2t - q) and
-/// bias-corrected intervals assume the replicates sit as far from t as t sits from the
+/// set: the estimate's conditional noncentrality runs close from a few times the detection
+/// level but, a maximum over many noisy rows, up to a third high far above it for a
+/// depolarizing error; shrinking to zero at the threshold runs low near the detection
+/// level. The interval spans both: its lower end is the percentile of the replicates under
+/// the shrunk needs, its upper end the percentile of the replicate estimates. The basic
+/// (2t - q) and bias-corrected intervals assume the replicates sit as far from t as t sits from the
 /// truth, in the same direction; near the detection level the truth lies above t while the
 /// replicates scatter on both sides, so both reflect the interval the wrong way and miss
 /// high. Measured coverage and widths: DEVELOPERS.md, "Intervals" (tests/study.rs).

@@ -90,7 +90,7 @@ pub(crate) struct Analysis<'a> {
     pub predictions: Vec<Vec<f64>>,
     pub requirement: Vec<f64>,
     /// Deviation requirements of the unlimited-shot estimate, aligned with `requirement`
-    /// (`noncentral` of [`crate::slack::requirement::RowNeeds`]).
+    /// (`conditional` of [`crate::slack::requirement::RowNeeds`]).
     pub deviation: Vec<f64>,
     /// 1q rows per qubit and 2q rows per coupler (global indices).
     pub qubit_rows: Vec<Vec<usize>>,
@@ -275,7 +275,7 @@ pub(crate) fn analyse<'a>(
     let thresholds = crate::stats::RowThresholds::new(alpha, used.len());
     let needs = requirements(&marginals, &predictions, &thresholds);
     let requirement = needs.iter().map(|n| n.score).collect();
-    let deviation = needs.iter().map(|n| n.noncentral).collect();
+    let deviation = needs.iter().map(|n| n.conditional).collect();
     Ok(Analysis {
         layout,
         circuits,
@@ -710,8 +710,9 @@ pub(crate) fn estimate(
 }
 
 /// Scores of one rescoring: directed scores in `scorer`'s pair order and intrinsic slack
-/// per kind, and the same for the unlimited-shot estimate (under the `noncentral` needs of
-/// [`RowNeeds`]) and its interval's lower end (under the `shrunk` needs) when asked for.
+/// per kind, and the same for the interval's upper end (under the `noncentral` needs of
+/// [`RowNeeds`]; the point estimate's `conditional` needs run wider in replicates, see
+/// DEVELOPERS.md, "Intervals") and its lower end (under the `shrunk` needs) when asked for.
 pub(crate) struct Rescored {
     pub directed: Vec<f64>,
     pub intrinsic: Vec<f64>,

@@ -493,9 +493,11 @@ pub struct Confidence {
     #[serde(default, with = "special::number")]
     #[schemars(with = "special::Number")]
     pub lower_bound_tvd_per_layer: f64,
-    /// Median of the replicate estimates, TVD per layer. The interval's ends are percentiles
-    /// of the replicates, so the estimate can sit outside the interval when the replicates
-    /// run to one side of it: the interval is the statement to act on.
+    /// Median of the replicate estimates, TVD per layer. The replicates shrink each row's
+    /// shot noise by the threshold's whole share, as the interval's upper end does, and
+    /// resampling adds noise of its own; the point estimate takes out only what selecting
+    /// the row put in. So this median is not the point estimate's, and the estimate can sit
+    /// outside the interval: the interval is the statement to act on.
     #[serde(with = "special::number")]
     #[schemars(with = "special::Number")]
     pub median_tvd_per_layer: f64,
@@ -503,7 +505,8 @@ pub struct Confidence {
     #[serde(with = "special::number")]
     #[schemars(with = "special::Number")]
     pub p_positive: f64,
-    /// Every replicate estimate in replicate order, TVD per layer (for comparing).
+    /// Every replicate estimate in replicate order, TVD per layer (for comparing), under
+    /// the upper end's shrinking (see `median_tvd_per_layer`).
     #[serde(with = "special::numbers")]
     #[schemars(with = "Vec<special::Number>")]
     pub replicates_tvd_per_layer: Vec<f64>,

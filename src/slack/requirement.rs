@@ -23,27 +23,33 @@ pub fn requirement(p: &[f64], n: &[u64], threshold: f64) -> f64 {
     requirement_of(&Weakening::new(p, n), threshold)
 }
 
-/// A row's requirements (method.md section 4): `score` is d_row at the threshold T; the two
-/// deviations are the estimates' per-row needs, zero where d_row is zero, else the whole
-/// deviation TVD(p, f) shrunk by how close LLR(0) sits to T:
-/// - `noncentral` = TVD sqrt(1 - T / LLR(0)), the point estimate's: LLR(0) is about N times
-///   a squared distance, signal and shot noise adding, so removing T from it (the
-///   noncentrality left when the threshold's share is taken out; Johnson, Kotz &
-///   Balakrishnan, Continuous Univariate Distributions vol. 2, 2nd ed., 1995, ch. 29) and
-///   taking the square root scales the distance;
-/// - `shrunk` = TVD (1 - T / LLR(0)), the interval's lower end's: zero at the threshold, so
-///   a row that only just fails brings almost nothing.
+/// A row's requirements (method.md section 4): `score` is d_row at the threshold T; the
+/// three deviations are the estimates' per-row needs, zero where d_row is zero, else the
+/// whole deviation TVD(p, f) scaled to the share of it thought to be signal. LLR(0) is about
+/// N times a squared distance, signal (the noncentrality lambda) and shot noise adding, so a
+/// distance scales as the square root of the signal's share of LLR(0):
+/// - `conditional` = TVD sqrt(lambda / LLR(0)), the point estimate's, with lambda the
+///   noncentrality's maximum-likelihood estimate conditional on the row having passed T
+///   ([`crate::stats::truncated_noncentrality`]): a row is asked for slack only because it
+///   passed, so near T its LLR(0) is mostly selected noise (lambda is zero at T), while far
+///   above T the selection no longer matters (lambda reaches LLR(0));
+/// - `noncentral` = TVD sqrt(1 - T / LLR(0)), the interval's upper end's: the threshold's
+///   whole share taken out, zero at T and still shrinking rows well above it;
+/// - `shrunk` = TVD (1 - T / LLR(0)), the interval's lower end's: shrinking harder still.
 ///
-/// The first is never below the second, and neither below `score`. Why the estimate takes
-/// the first and the interval spans both: DEVELOPERS.md, "Intervals".
+/// Each is at least `score`, and `shrunk <= noncentral <= conditional` when the
+/// conditional lambda reaches LLR(0) - T (it does from a little above T). Why the estimate
+/// and the interval's two ends take different needs: DEVELOPERS.md, "Intervals".
 #[derive(Clone, Copy, Debug, Default, PartialEq)]
 pub struct RowNeeds {
     /// d_row, the score's need.
     pub score: f64,
     /// TVD (1 - T / LLR(0)), the need of the interval's lower end.
     pub shrunk: f64,
-    /// TVD sqrt(1 - T / LLR(0)), the estimate's need.
+    /// TVD sqrt(1 - T / LLR(0)), the need of the interval's upper end.
     pub noncentral: f64,
+    /// TVD sqrt(lambda / LLR(0)), lambda conditional on passing T: the estimate's need.
+    pub conditional: f64,
 }
 
 /// The [`RowNeeds`] of a row with prediction `p`, counts `n` and LLR threshold `threshold`.
@@ -58,8 +64,18 @@ pub fn row_needs(p: &[f64], n: &[u64], threshold: f64) -> RowNeeds {
     }
     let tvd = wk.tvd_to_frequencies();
     let llr0 = wk.llr(0.0);
-    let keep = if llr0.is_finite() && llr0 > 0.0 { (1.0 - threshold / llr0).max(0.0) } else { 1.0 };
-    RowNeeds { score: d, shrunk: (tvd * keep).max(d), noncentral: (tvd * keep.sqrt()).max(d) }
+    let (keep, signal) = if llr0.is_finite() && llr0 > 0.0 {
+        let lambda = crate::stats::truncated_noncentrality(llr0, p.len() - 1, threshold);
+        ((1.0 - threshold / llr0).max(0.0), (lambda / llr0).min(1.0))
+    } else {
+        (1.0, 1.0)
+    };
+    RowNeeds {
+        score: d,
+        shrunk: (tvd * keep).max(d),
+        noncentral: (tvd * keep.sqrt()).max(d),
+        conditional: (tvd * signal.sqrt()).max(d),
+    }
 }
 
 /// The least shift `delta` of probability from outcome probability `p_top` to the other
@@ -153,16 +169,20 @@ mod tests {
     #[test]
     fn deviation_requirement_is_the_shrunk_tvd_on_failing_rows_only() {
         let t = 3.841;
-        let RowNeeds { score: d, shrunk: full, noncentral } =
+        let RowNeeds { score: d, shrunk: full, noncentral, conditional } =
             row_needs(&[0.5, 0.5], &[600, 400], t);
         assert!((d - 0.069_411_003_914_4).abs() < 1e-11);
         // TVD 0.1 shrunk by 1 - T / LLR(0), LLR(0) = 2 [600 ln 1.2 + 400 ln 0.8].
         let llr0 = 2.0 * (600.0 * 1.2f64.ln() + 400.0 * 0.8f64.ln());
         assert!((full - 0.1 * (1.0 - t / llr0)).abs() < 1e-12, "{full}");
         assert!(full > d);
-        // The estimate's: TVD sqrt(1 - T / LLR(0)).
+        // The upper end's: TVD sqrt(1 - T / LLR(0)).
         assert!((noncentral - 0.1 * (1.0 - t / llr0).sqrt()).abs() < 1e-12, "{noncentral}");
         assert!(noncentral > full);
+        // The estimate's: TVD sqrt(lambda / LLR(0)); LLR(0) = 40.3 is far above T = 3.84,
+        // where the selection no longer matters and lambda is LLR(0) itself.
+        assert!((conditional - 0.1).abs() < 1e-6, "{conditional}");
+        assert!(conditional > noncentral);
         assert_eq!(row_needs(&[0.5, 0.5], &[510, 490], t), RowNeeds::default());
     }
 
