@@ -481,9 +481,20 @@ fn detection_levels(s: &Settings, layout: &Layout, circuits: &CircuitSet) -> [f6
     levels
 }
 
-/// One kind's figures: (kind, edges, covered, median width, median ratio estimate / 100x,
-/// recall at 3x the detection level as (flagged, edges)).
-type KindFigures = (ErrorKind, usize, usize, f64, f64, (usize, usize));
+/// One kind's figures.
+#[derive(Debug)]
+struct KindFigures {
+    kind: ErrorKind,
+    edges: usize,
+    /// Edges whose interval holds the 100x estimate.
+    covered: usize,
+    width: f64,
+    /// Median ratio estimate / 100x estimate, over all edges and per multiple.
+    ratio: f64,
+    ratio_by_multiple: Vec<(f64, f64)>,
+    /// Recall at 3x the detection level: (flagged, edges).
+    recall: (usize, usize),
+}
 
 /// The study's figures.
 #[derive(Debug, Default)]
@@ -511,9 +522,27 @@ fn figures(records: &[Record]) -> Figures {
             rs.iter().filter(|r| r.reference > 0.0).map(|r| r.estimate / r.reference).collect(),
         )
         .unwrap_or(f64::NAN);
+        let mut multiples: Vec<f64> = MULTIPLES.to_vec();
+        multiples.dedup();
+        let ratio_by_multiple = multiples
+            .into_iter()
+            .filter_map(|m| {
+                let at = rs.iter().filter(|r| r.multiple == m && r.reference > 0.0);
+                median(at.map(|r| r.estimate / r.reference).collect()).map(|x| (m, x))
+            })
+            .collect();
         let at3: Vec<&&Record> = rs.iter().filter(|r| r.multiple == 3.0).collect();
         let recall = (at3.iter().filter(|r| flagged(r.verdict)).count(), at3.len());
-        f.per_kind.push((kind, rs.len(), covered, width, ratio, recall));
+        let edges = rs.len();
+        f.per_kind.push(KindFigures {
+            kind,
+            edges,
+            covered,
+            width,
+            ratio,
+            ratio_by_multiple,
+            recall,
+        });
     }
     let count = |sel: &dyn Fn(&Record) -> bool| {
         let n = records.iter().filter(|r| sel(r)).count();
@@ -536,14 +565,19 @@ fn figures(records: &[Record]) -> Figures {
 fn print(f: &Figures, nulls: (usize, usize), others: OtherFlags) {
     let pct =
         |(a, b): (usize, usize)| format!("{a}/{b} ({:.0}%)", 100.0 * a as f64 / b.max(1) as f64);
-    for (kind, n, covered, width, ratio, recall) in &f.per_kind {
+    for k in &f.per_kind {
         eprintln!(
-            "{:>12}: {n} edges; 95% interval holds the 100x estimate {}; median width {:.3} x1e-3; median estimate/100x {ratio:.3}; recall at 3x {}",
-            kind.name(),
-            pct((*covered, *n)),
-            width * 1e3,
-            pct(*recall)
+            "{:>12}: {} edges; 95% interval holds the 100x estimate {}; median width {:.3} x1e-3; median estimate/100x {:.3}; recall at 3x {}",
+            k.kind.name(),
+            k.edges,
+            pct((k.covered, k.edges)),
+            k.width * 1e3,
+            k.ratio,
+            pct(k.recall)
         );
+        let by: Vec<String> =
+            k.ratio_by_multiple.iter().map(|(m, x)| format!("{m}x {x:.2}")).collect();
+        eprintln!("{:>12}  median estimate/100x by multiple: {}", "", by.join(", "));
     }
     eprintln!(
         "recalibrate where 100x >= 1.5x threshold: {}; where 100x <= 0.5x threshold: {}",
@@ -717,7 +751,7 @@ fn study_machinery_runs_on_a_tiny_chip() {
     }
     assert_eq!(others.1, layout.neighbour_pairs().len() - 2);
     let f = figures(&records);
-    assert_eq!(f.per_kind.iter().map(|k| k.1).sum::<usize>(), 2);
+    assert_eq!(f.per_kind.iter().map(|k| k.edges).sum::<usize>(), 2);
     print(&f, (0, 0), others);
 
     // Block-sampled counts: each block's marginal frequencies within 5 binomial standard
