@@ -71,6 +71,69 @@ impl CircuitCounts {
         }
         m
     }
+
+    /// [`CircuitCounts::marginal`] of several lists of positions at once (`None` entries get
+    /// none), from one pass over the outcomes that adds each outcome's shots to the
+    /// positions whose bit is set (and to the lists of two positions that have both set):
+    /// the other entries follow by subtraction, in whole numbers, so they are exactly the
+    /// sums [`CircuitCounts::marginal`] forms. Longer lists are summed as it sums them.
+    pub fn marginals(&self, lists: &[Option<&[usize]>]) -> Vec<Option<Vec<u64>>> {
+        let width = lists.iter().flatten().flat_map(|p| p.iter()).max().map_or(0, |&p| p + 1);
+        let pairs: Vec<(usize, usize, usize)> = lists
+            .iter()
+            .enumerate()
+            .filter_map(|(i, p)| match p {
+                Some([a, b]) => Some((i, *a, *b)),
+                _ => None,
+            })
+            .collect();
+        let mut ones = vec![0u64; width];
+        let mut both = vec![0u64; pairs.len()];
+        let mut total = 0u64;
+        for (o, n) in &self.outcomes {
+            let n = *n;
+            total += n;
+            for (wi, &word) in o.0.iter().enumerate() {
+                let mut w = word;
+                while w != 0 {
+                    let p = wi * 64 + w.trailing_zeros() as usize;
+                    if p < width {
+                        ones[p] += n;
+                    }
+                    w &= w - 1;
+                }
+            }
+            for (k, &(_, a, b)) in pairs.iter().enumerate() {
+                if o.bit(a) && o.bit(b) {
+                    both[k] += n;
+                }
+            }
+        }
+        let mut pair_of = pairs.iter().zip(&both).map(|(&(i, _, _), &n)| (i, n)).peekable();
+        lists
+            .iter()
+            .enumerate()
+            .map(|(i, p)| {
+                let p = (*p)?;
+                let joint = match pair_of.peek() {
+                    Some(&(j, n)) if j == i => {
+                        pair_of.next();
+                        n
+                    }
+                    _ => 0,
+                };
+                Some(match *p {
+                    [a] => vec![total - ones[a], ones[a]],
+                    [a, b] if a == b => vec![total - ones[a], 0, 0, ones[a]],
+                    [a, b] => {
+                        let (only_a, only_b) = (ones[a] - joint, ones[b] - joint);
+                        vec![total - only_a - only_b - joint, only_a, only_b, joint]
+                    }
+                    _ => self.marginal(p),
+                })
+            })
+            .collect()
+    }
 }
 
 /// Counts for a circuit set: `per_circuit[i]` belongs to circuit i of the set; `None`
@@ -1347,6 +1410,46 @@ mod tests {
             for (bytes, f) in [(csv, CountsFormat::Csv), (json, CountsFormat::Json)] {
                 let (back, _) = read_counts_from(&bytes[..], f, Path::new("x"), &set, &opts).unwrap();
                 prop_assert_eq!(&back.per_circuit, &counts.per_circuit);
+            }
+        }
+    }
+
+    /// The marginals of many position lists at once are, entry for entry, those formed one
+    /// list at a time, for outcomes of one word and of several, lists of one, two (also
+    /// a position twice), none and three positions, and lists left out.
+    #[test]
+    fn marginals_at_once_are_the_marginals_one_at_a_time() {
+        let mut seed = 0x2545_f491_4f6c_dd1du64;
+        let mut next = move || {
+            seed ^= seed << 13;
+            seed ^= seed >> 7;
+            seed ^= seed << 17;
+            seed
+        };
+        for width in [1usize, 5, 64, 65, 130] {
+            let mut outcomes: Vec<(Outcome, u64)> = (0..300)
+                .map(|_| {
+                    let bits: Vec<bool> = (0..width).map(|_| next() % 5 == 0).collect();
+                    (Outcome::from_bits(&bits), 1 + next() % 40)
+                })
+                .collect();
+            outcomes.sort();
+            outcomes.dedup_by(|a, b| a.0 == b.0);
+            let cc = CircuitCounts { outcomes };
+            let at = |r: u64| (r % width as u64) as usize;
+            let mut lists: Vec<Option<Vec<usize>>> = vec![Some(vec![]), None];
+            for _ in 0..40 {
+                let (a, b, c) = (at(next()), at(next()), at(next()));
+                lists.push(Some(vec![a]));
+                lists.push(Some(vec![a, b]));
+                lists.push(Some(vec![b, b]));
+                lists.push(Some(vec![c, a, b]));
+                lists.push(None);
+            }
+            let borrowed: Vec<Option<&[usize]>> = lists.iter().map(|l| l.as_deref()).collect();
+            let got = cc.marginals(&borrowed);
+            for (l, m) in lists.iter().zip(&got) {
+                assert_eq!(m, &l.as_ref().map(|p| cc.marginal(p)), "width {width}, list {l:?}");
             }
         }
     }
