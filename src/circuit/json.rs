@@ -204,7 +204,7 @@ fn read_split(path: &Path, layout: &Layout, block: usize) -> Option<Parsed> {
     let mut file = std::fs::File::open(path).ok()?;
     let mut buf = Vec::new();
     // The header is looked for in the first 4 KiB at least.
-    read_block(&mut file, &mut buf, block.max(1 << 12))?;
+    crate::files::read_block(&mut file, &mut buf, block.max(1 << 12))?;
     let (schema, body) = split_header(&buf)?;
     let mut cut =
         Splitter { depth: 0, in_string: false, escaped: false, start: 0, expect: Next::FirstOrEnd };
@@ -237,28 +237,10 @@ fn read_split(path: &Path, layout: &Layout, block: usize) -> Option<Parsed> {
         buf.drain(..keep);
         cut.start -= keep.min(cut.start);
         pos = buf.len();
-        if read_block(&mut file, &mut buf, block)? == 0 {
+        if crate::files::read_block(&mut file, &mut buf, block)? == 0 {
             return None;
         }
     }
-}
-
-/// Appends up to `block` bytes of `file` to `buf`: how many (0 at the end of the file).
-fn read_block(file: &mut std::fs::File, buf: &mut Vec<u8>, block: usize) -> Option<usize> {
-    use std::io::Read;
-    let at = buf.len();
-    buf.resize(at + block, 0);
-    let mut got = 0;
-    while got < block {
-        match file.read(&mut buf[at + got..]) {
-            Ok(0) => break,
-            Ok(n) => got += n,
-            Err(e) if e.kind() == std::io::ErrorKind::Interrupted => {}
-            Err(_) => return None,
-        }
-    }
-    buf.truncate(at + got);
-    Some(got)
 }
 
 /// One circuit parsed on its own: the circuit, its delays and its first fault.
