@@ -168,6 +168,28 @@ impl<R: Read> Read for LineCapped<R> {
     }
 }
 
+/// Appends up to `block` bytes of `file` to `buf`: how many (0 at the end of the file);
+/// `None` on a read error (the callers then read the file again their ordinary way, which
+/// reports it).
+pub(crate) fn read_block(file: &mut File, buf: &mut Vec<u8>, block: usize) -> Option<usize> {
+    let at = buf.len();
+    buf.resize(at + block, 0);
+    let mut got = 0;
+    while got < block {
+        match file.read(&mut buf[at + got..]) {
+            Ok(0) => break,
+            Ok(n) => got += n,
+            Err(e) if e.kind() == std::io::ErrorKind::Interrupted => {}
+            Err(_) => {
+                buf.truncate(at + got);
+                return None;
+            }
+        }
+    }
+    buf.truncate(at + got);
+    Some(got)
+}
+
 /// A byte count for messages: `64 MiB`, `16 GiB`, `512 bytes`.
 pub fn size_text(bytes: u64) -> String {
     const UNITS: [(&str, u64); 3] = [("GiB", 1 << 30), ("MiB", 1 << 20), ("KiB", 1 << 10)];

@@ -378,17 +378,29 @@ fn circuit_rows(
     let mut kinds_seen: Vec<KindIx> = Vec::new();
     let mut contexts_seen: Vec<(KindIx, QubitIx)> = Vec::new();
     let mut agg: Vec<QubitIx> = Vec::new();
-    for block in c.blocks() {
-        let positions: Vec<usize> = block
-            .iter()
-            .map(|&q| measured_at.get(q).copied().filter(|&p| p != usize::MAX))
-            .collect::<Option<_>>()
-            .ok_or_else(|| {
-                Error::circuit(
-                    &c.id,
-                    "a two-qubit gate joins a measured qubit to an unmeasured one",
-                )
-            })?;
+    let blocks = c.blocks();
+    let mut positions_of: Vec<Option<Vec<usize>>> = blocks
+        .iter()
+        .map(|block| {
+            block
+                .iter()
+                .map(|&q| measured_at.get(q).copied().filter(|&p| p != usize::MAX))
+                .collect()
+        })
+        .collect();
+    // Every block's marginal in one pass over the circuit's outcomes (a pass per block read
+    // each outcome once per block), and the shots once per circuit.
+    let mut marginals = match counts {
+        Some(k) => k.marginals(
+            &positions_of.iter().map(|p| p.as_deref().filter(|p| p.len() <= 2)).collect::<Vec<_>>(),
+        ),
+        None => vec![None; blocks.len()],
+    };
+    let shots = counts.map_or(0, |k| k.shots());
+    for (bi, block) in blocks.into_iter().enumerate() {
+        let positions: Vec<usize> = positions_of[bi].take().ok_or_else(|| {
+            Error::circuit(&c.id, "a two-qubit gate joins a measured qubit to an unmeasured one")
+        })?;
         if block.len() > 2 {
             let ids: Vec<&str> = block.iter().map(|&q| layout.id(q)).collect();
             return Err(Error::circuit(
@@ -441,7 +453,7 @@ fn circuit_rows(
                 }
                 for (j, &q) in block.iter().enumerate() {
                     for &r in layout.neighbours(q) {
-                        if !block.contains(&r) && on(t, r) {
+                        if !block.contains(&r) && on(t, r) && !ever_active[j].contains(&r) {
                             ever_active[j].push(r);
                         }
                     }
@@ -505,7 +517,7 @@ fn circuit_rows(
                 }
             })
             .collect();
-        let marginal = counts.map(|k| k.marginal(&positions));
+        let marginal = marginals[bi].take();
         let row = Row {
             circuit: ci as u32,
             is_reference: !any_context,
@@ -516,7 +528,7 @@ fn circuit_rows(
             kind_counts: tally(&mut kinds_seen),
             context_counts: tally(&mut contexts_seen),
             marginal,
-            shots: counts.map_or(0, |k| k.shots()),
+            shots,
             n_timed_layers: n_timed as u32,
             victims,
         };

@@ -142,7 +142,36 @@ use crate::gate::Gate;
 /// qubit ids looked up in place (no string is kept per operation), so memory is that of the
 /// circuits themselves. Problems are reported as [`from_wire`] reports them for the whole
 /// document: a JSON error anywhere first, then the schema, then the first circuit's fault.
+///
+/// A file laid out as this tool writes it (`{"schema": N, "circuits": [...]}`, any
+/// whitespace) is cut at circuit boundaries a block at a time and its circuits parsed in
+/// parallel ([`read_split`]); anything that reading does not accept, error or not, is read
+/// again one token after another, so that every message (its line and column included) is
+/// the streamed reader's.
 pub fn read_json(path: &Path, layout: &Layout) -> Result<CircuitSet> {
+    let parsed = match read_split(path, layout, SPLIT_BLOCK) {
+        Some(parsed) => parsed,
+        None => read_streamed(path, layout)?,
+    };
+    checked(parsed, path, layout)
+}
+
+/// A file as read, checked in the order the streamed reader reports: the schema, then the
+/// first circuit's fault, then duplicate ids.
+fn checked((schema, circuits, fault): Parsed, path: &Path, layout: &Layout) -> Result<CircuitSet> {
+    check_schema(schema, path)?;
+    if let Some((circuit, fault)) = fault {
+        return Err(fault.error(path, layout, &circuit));
+    }
+    into_set(circuits, path)
+}
+
+/// A whole file as read, before it is checked: its schema, its circuits with their delays,
+/// and the first circuit fault in file order with its circuit's id.
+type Parsed = (u32, Vec<(Circuit, Vec<Delay>)>, Option<(String, Fault)>);
+
+/// The whole file through one streaming parser.
+fn read_streamed(path: &Path, layout: &Layout) -> Result<Parsed> {
     let file = std::fs::File::open(path).map_err(|e| Error::io(path, e))?;
     let reader = std::io::BufReader::with_capacity(1 << 16, file);
     let mut de = serde_json::Deserializer::from_reader(reader);
@@ -153,11 +182,184 @@ pub fn read_json(path: &Path, layout: &Layout) -> Result<CircuitSet> {
             let line = (e.line() > 0).then_some(e.line());
             Error::input(path, line, format!("not a valid slackmap circuit file: {e}"))
         })?;
-    check_schema(schema, path)?;
-    if let Some((circuit, fault)) = state.fault.into_inner() {
-        return Err(fault.error(path, layout, &circuit));
+    Ok((schema, circuits, state.fault.into_inner()))
+}
+
+/// How much of a circuit file [`read_split`] reads at a time (a circuit longer than this
+/// is carried over whole into the next block).
+const SPLIT_BLOCK: usize = 1 << 24;
+
+/// Reads a circuit file a block of `block` bytes at a time, cuts each block's complete
+/// circuits out of the `circuits` array and parses them in parallel (in file order, so the
+/// first fault is the one a single pass meets). `None` when anything is not as a valid file
+/// laid out as the tool writes it: the header is not `{"schema": N, "circuits": [` (with any
+/// whitespace), a circuit does not parse on its own, anything but whitespace and one comma
+/// lies between circuits, or the array is not followed by `}` and the end of the file.
+/// Every circuit is then a complete JSON value parsed by the streamed reader's own seeds,
+/// and the bytes between them are what a single pass accepts, so whatever is returned is
+/// what the streamed reader returns.
+fn read_split(path: &Path, layout: &Layout, block: usize) -> Option<Parsed> {
+    use rayon::prelude::*;
+    use std::io::Read;
+    let mut file = std::fs::File::open(path).ok()?;
+    let mut buf = Vec::new();
+    // The header is looked for in the first 4 KiB at least.
+    crate::files::read_block(&mut file, &mut buf, block.max(1 << 12))?;
+    let (schema, body) = split_header(&buf)?;
+    let mut cut =
+        Splitter { depth: 0, in_string: false, escaped: false, start: 0, expect: Next::FirstOrEnd };
+    let (mut pos, mut circuits, mut fault) = (body, Vec::new(), None);
+    loop {
+        let mut spans = Vec::new();
+        let closed = cut.scan(&buf, pos, &mut spans)?;
+        let parsed: Vec<Option<ParsedCircuit>> =
+            spans.par_iter().map(|&(s, e)| parse_circuit(&buf[s..e], layout)).collect();
+        for one in parsed {
+            let (circuit, delays, f) = one?;
+            if let (None, Some(f)) = (&fault, f) {
+                fault = Some((circuit.id.clone(), f));
+            }
+            circuits.push((circuit, delays));
+        }
+        if let Some(end) = closed {
+            let mut rest = buf.split_off(end);
+            drop(buf);
+            file.read_to_end(&mut rest).ok()?;
+            let mut i = skip_ws(&rest, 0);
+            if rest.get(i) != Some(&b'}') {
+                return None;
+            }
+            i = skip_ws(&rest, i + 1);
+            return (i == rest.len()).then_some((schema, circuits, fault));
+        }
+        // Keep only the circuit being cut, if any.
+        let keep = if cut.depth > 0 { cut.start } else { buf.len() };
+        buf.drain(..keep);
+        cut.start -= keep.min(cut.start);
+        pos = buf.len();
+        if crate::files::read_block(&mut file, &mut buf, block)? == 0 {
+            return None;
+        }
     }
-    into_set(circuits, path)
+}
+
+/// One circuit parsed on its own: the circuit, its delays and its first fault.
+type ParsedCircuit = (Circuit, Vec<Delay>, Option<Fault>);
+
+fn parse_circuit(bytes: &[u8], layout: &Layout) -> Option<ParsedCircuit> {
+    let state = Stream { layout, fault: std::cell::RefCell::new(None) };
+    let mut de = serde_json::Deserializer::from_slice(bytes);
+    let (circuit, delays) =
+        serde::de::DeserializeSeed::deserialize(CircuitSeed(&state), &mut de).ok()?;
+    de.end().ok()?;
+    Some((circuit, delays, state.fault.into_inner().map(|(_, f)| f)))
+}
+
+fn is_ws(b: u8) -> bool {
+    matches!(b, b' ' | b'\t' | b'\n' | b'\r')
+}
+
+fn skip_ws(b: &[u8], mut i: usize) -> usize {
+    while i < b.len() && is_ws(b[i]) {
+        i += 1;
+    }
+    i
+}
+
+/// `{"schema": N, "circuits": [` at the start of `b`: N and where the array's body starts.
+fn split_header(b: &[u8]) -> Option<(u32, usize)> {
+    let token = |i: usize, t: &[u8]| -> Option<usize> {
+        let i = skip_ws(b, i);
+        (b.get(i..i + t.len())? == t).then_some(i + t.len())
+    };
+    let i = token(0, b"{")?;
+    let i = token(i, b"\"schema\"")?;
+    let from = skip_ws(b, token(i, b":")?);
+    let mut to = from;
+    while to < b.len() && b[to].is_ascii_digit() {
+        to += 1;
+    }
+    let schema: u32 = serde_json::from_slice(&b[from..to]).ok()?;
+    let i = token(to, b",")?;
+    let i = token(i, b"\"circuits\"")?;
+    let i = token(i, b":")?;
+    Some((schema, token(i, b"[")?))
+}
+
+/// What may come next between the circuits of the array.
+#[derive(Clone, Copy)]
+enum Next {
+    /// Right after `[`: a circuit or `]`.
+    FirstOrEnd,
+    /// After a comma: a circuit.
+    Circuit,
+    /// After a circuit: a comma or `]`.
+    CommaOrEnd,
+}
+
+/// Finds where each circuit of the array begins and ends: it follows strings (and their
+/// escapes) and the nesting of brackets, nothing else; each piece it cuts is parsed in full.
+struct Splitter {
+    /// Nesting inside the circuit being cut; 0 between circuits.
+    depth: usize,
+    in_string: bool,
+    escaped: bool,
+    /// Where the circuit being cut starts.
+    start: usize,
+    expect: Next,
+}
+
+impl Splitter {
+    /// Scans `buf` from `from`, adding each complete circuit's span to `spans`: `Some(None)`
+    /// when the block ends inside the array, `Some(Some(end))` just after its `]`, `None`
+    /// when something other than whitespace, a comma, `]` or an object lies between circuits.
+    fn scan(
+        &mut self,
+        buf: &[u8],
+        from: usize,
+        spans: &mut Vec<(usize, usize)>,
+    ) -> Option<Option<usize>> {
+        let mut i = from;
+        while i < buf.len() {
+            let b = buf[i];
+            if self.depth > 0 {
+                if self.in_string {
+                    if self.escaped {
+                        self.escaped = false;
+                    } else if b == b'\\' {
+                        self.escaped = true;
+                    } else if b == b'"' {
+                        self.in_string = false;
+                    }
+                } else {
+                    match b {
+                        b'"' => self.in_string = true,
+                        b'{' | b'[' => self.depth += 1,
+                        b'}' | b']' => {
+                            self.depth -= 1;
+                            if self.depth == 0 {
+                                spans.push((self.start, i + 1));
+                                self.expect = Next::CommaOrEnd;
+                            }
+                        }
+                        _ => {}
+                    }
+                }
+            } else if !is_ws(b) {
+                match (self.expect, b) {
+                    (Next::FirstOrEnd | Next::Circuit, b'{') => {
+                        self.start = i;
+                        self.depth = 1;
+                    }
+                    (Next::FirstOrEnd | Next::CommaOrEnd, b']') => return Some(Some(i + 1)),
+                    (Next::CommaOrEnd, b',') => self.expect = Next::Circuit,
+                    _ => return None,
+                }
+            }
+            i += 1;
+        }
+        Some(None)
+    }
 }
 
 fn check_schema(schema: u32, path: &Path) -> Result<()> {
@@ -695,5 +897,74 @@ mod tests {
         );
         let m = read_json(&dir.path().join(format!("c{}.json", docs.len() - 2)), &l).unwrap_err();
         assert!(m.to_string().contains("qubit 'q99' is not in layout"), "{m}");
+    }
+
+    /// The circuits of a file cut at circuit boundaries and parsed in parallel are those of
+    /// the streamed reading, and so are the messages, at any block size (so circuits that
+    /// straddle blocks are carried over), with brackets, braces and escaped quotes inside
+    /// strings; what it does not accept is left to the streamed reader.
+    #[test]
+    fn split_reading_is_the_streamed_reading() {
+        let l = grid(2, 3);
+        let one = |i: usize| {
+            format!(
+                r#"{{"id":"c{i}-\"]}}{{[","measured":["q0","q1"],"layers":[[{{"gate":"sx","qubits":["q0"]}},{{"gate":"rz","params":[0.{i}],"qubits":["q1"]}}],[{{"gate":"cz","qubits":["q1","q0"]}}]]}}"#
+            )
+        };
+        let many: Vec<String> = (0..60).map(one).collect();
+        let long = format!("{{\"schema\": 1, \"circuits\": [\n{}\n]}}\n", many.join(",\n"));
+        let pretty = format!(
+            " \r\n{{\t\"schema\" :\n1 ,\"circuits\"\n:\t[ {} ] \n}}  ",
+            many[..3].join(" ,\n\t")
+        );
+        // (document, whether the split reading takes it)
+        let docs = [
+            (long.clone(), true),
+            (pretty.clone(), true),
+            ("{\"schema\": 1, \"circuits\": []}".to_string(), true),
+            (long.replace("\"sx\"", "\"sqx\""), true),
+            (long.replace("\"schema\": 1", "\"schema\": 2"), true),
+            (long.replace("\"id\":\"c7-", "\"id\":\"c6-"), true),
+            (long.replace("[0.5]", "[0.5, 1.0]"), true),
+            (long.replace("[\"q1\",\"q0\"]", "[\"q1\",\"q0\",\"q9\"]"), true),
+            (long.replace("\"id\":\"c9-", "\"id\":9,\"x\":\"c9-"), false),
+            (long.replace("]]}", "]]"), false),
+            (long.replace("]]},\n{", "]]}\n{"), false),
+            (long.replace("]]},\n{", "]]},,\n{"), false),
+            (long.replace("]]},\n{\"id\":\"c3", "]]}]}\n{\"id\":\"c3"), false),
+            (format!("{long} trailing"), false),
+            (long.replace("\n]}", "\n]"), false),
+            (long.replace("\"schema\": 1", "\"schema\": 1.0"), false),
+            (long.replace("{\"schema\": 1, \"circuits\"", "{\"circuits\""), false),
+            (format!("\u{feff}{long}"), false),
+        ];
+        let dir = tempfile::tempdir().unwrap();
+        for (i, (doc, split)) in docs.iter().enumerate() {
+            let path = dir.path().join(format!("s{i}.json"));
+            std::fs::write(&path, doc).unwrap();
+            let whole = via_wire(doc, &path, &l);
+            for block in [1 << 20, 333, 7] {
+                let parsed = read_split(&path, &l, block);
+                assert_eq!(parsed.is_some(), *split, "document {i}, block {block}");
+                let read = match parsed {
+                    Some(p) => checked(p, &path, &l),
+                    None => read_json(&path, &l),
+                };
+                match (read, &whole) {
+                    (Ok(a), Ok(b)) => {
+                        assert_eq!(a.circuits, b.circuits, "document {i}, block {block}");
+                        assert_eq!(
+                            a.all_delays().collect::<Vec<_>>(),
+                            b.all_delays().collect::<Vec<_>>()
+                        );
+                    }
+                    (Err(a), Err(b)) => {
+                        assert_eq!(a.to_string(), b.to_string(), "document {i}, block {block}")
+                    }
+                    (a, b) => panic!("document {i}, block {block}: split {a:?}, whole {b:?}"),
+                }
+            }
+        }
+        assert_eq!(read_json(&dir.path().join("s0.json"), &l).unwrap().circuits.len(), 60);
     }
 }

@@ -167,8 +167,11 @@ impl Circuit {
     /// two-qubit gate joins to a measured qubit are included even if unmeasured, so a
     /// caller can reject such blocks.
     pub fn blocks(&self) -> Vec<Vec<QubitIx>> {
-        let mut parent: HashMap<QubitIx, QubitIx> = HashMap::new();
-        fn find(p: &mut HashMap<QubitIx, QubitIx>, x: QubitIx) -> QubitIx {
+        // Maps keyed by qubit index with a word hash: only looked up, never iterated in an
+        // order that shows (the blocks are sorted by their first measured qubit at the end).
+        type Map<V> = crate::counts::FastMap<QubitIx, V>;
+        let mut parent: Map<QubitIx> = Map::default();
+        fn find(p: &mut crate::counts::FastMap<QubitIx, QubitIx>, x: QubitIx) -> QubitIx {
             let mut r = x;
             while let Some(&up) = p.get(&r) {
                 if up == r {
@@ -194,7 +197,7 @@ impl Circuit {
                 parent.insert(ra.max(rb), ra.min(rb));
             }
         }
-        let mut groups: HashMap<QubitIx, Vec<QubitIx>> = HashMap::new();
+        let mut groups: Map<Vec<QubitIx>> = Map::default();
         let keys: Vec<QubitIx> = parent.keys().copied().collect();
         for q in keys {
             let r = find(&mut parent, q);
@@ -206,7 +209,8 @@ impl Circuit {
         }
         // Each qubit's first position in the measured list, looked up once: searching the
         // list per comparison made this quadratic in the qubits measured.
-        let mut at: HashMap<QubitIx, usize> = HashMap::with_capacity(self.measured.len());
+        let mut at: Map<usize> = Map::default();
+        at.reserve(self.measured.len());
         for (i, &m) in self.measured.iter().enumerate() {
             at.entry(m).or_insert(i);
         }

@@ -5,7 +5,6 @@
 //! layer are disjoint, two-qubit gates sit on couplers, blocks have one or two qubits and
 //! never reach an unmeasured qubit, and each circuit measures each qubit at most once.
 
-use std::collections::HashSet;
 use std::path::{Path, PathBuf};
 
 use super::qasm::{self, QubitMap};
@@ -46,8 +45,10 @@ pub fn validate_circuit(c: &Circuit, layout: &Layout, allow_non_native: bool) ->
         }
         measured[q] = true;
     }
+    // The layer in which each qubit was last acted on (one table for the whole circuit
+    // instead of a set per layer).
+    let mut used_in = vec![usize::MAX; n];
     for (t, layer) in c.layers.iter().enumerate() {
-        let mut used = HashSet::new();
         for op in layer {
             let qs = op.qubits();
             if let Some(&q) = qs.iter().find(|&&q| q >= n) {
@@ -65,7 +66,7 @@ pub fn validate_circuit(c: &Circuit, layout: &Layout, allow_non_native: bool) ->
                 ));
             }
             for &q in qs {
-                if !used.insert(q) {
+                if std::mem::replace(&mut used_in[q], t) == t {
                     return fail(format!(
                         "layer {t}: two operations act on qubit {} (operations in a layer must act on disjoint qubits)",
                         name(q)

@@ -130,58 +130,104 @@ struct Sums {
 
 /// Computes the agreement of `counts` (aligned with `set`) with the ideal circuits.
 pub fn agreement(layout: &Layout, set: &CircuitSet, counts: &Counts) -> Agreement {
-    let mut slot = vec![(u32::MAX, 0u8); layout.n_qubits()];
+    use rayon::prelude::*;
+    // Each circuit's terms are found in parallel; they are summed here in circuit order,
+    // then block order, as a single pass adds them.
+    let n = layout.n_qubits();
+    let terms: Vec<Vec<[Sums; 2]>> = set
+        .circuits
+        .par_iter()
+        .zip(counts.per_circuit.par_iter())
+        .map_init(
+            || (vec![(u32::MAX, 0u8); n], vec![usize::MAX; n]),
+            |(slot, at), (c, cc)| circuit_terms(c, cc.as_ref(), slot, at),
+        )
+        .collect();
     let (mut fwd, mut rev) = (Sums::default(), Sums::default());
     let mut informative = 0;
-    for (c, cc) in set.circuits.iter().zip(&counts.per_circuit) {
-        let Some(cc) = cc else { continue };
-        let shots = cc.shots();
-        if shots == 0 {
-            continue;
-        }
-        let blocks = c.blocks();
-        for (b, qs) in blocks.iter().enumerate() {
-            for (j, &q) in qs.iter().enumerate() {
-                slot[q] = (b as u32, j as u8);
-            }
-        }
-        let states = ideal_states(c, &blocks, &slot);
-        let n = c.measured.len();
-        for (qs, (amp, driven)) in blocks.iter().zip(&states) {
-            if !driven {
-                continue;
-            }
-            let d = 1usize << qs.len();
-            let p: Vec<f64> = amp[..d].iter().map(|a| a.norm_sqr()).collect();
-            let best = p.iter().map(|x| x * x).sum::<f64>() - 1.0 / d as f64;
-            if best < 1e-9 {
-                continue;
-            }
-            let Some(pos) = qs
-                .iter()
-                .map(|q| c.measured.iter().position(|m| m == q))
-                .collect::<Option<Vec<usize>>>()
-            else {
-                continue;
-            };
-            informative += 1;
-            let back: Vec<usize> = pos.iter().map(|&i| n - 1 - i).collect();
-            for (positions, sums) in [(&pos, &mut fwd), (&back, &mut rev)] {
-                let m = cc.marginal(positions);
-                let dot: f64 =
-                    m.iter().zip(&p).map(|(&k, &py)| k as f64 * py).sum::<f64>() / shots as f64;
-                sums.overlap += dot - 1.0 / d as f64;
-                sums.best += best;
-            }
-        }
-        for qs in &blocks {
-            for &q in qs {
-                slot[q] = (u32::MAX, 0);
-            }
+    for [f, r] in terms.iter().flatten() {
+        informative += 1;
+        for (sums, t) in [(&mut fwd, f), (&mut rev, r)] {
+            sums.overlap += t.overlap;
+            sums.best += t.best;
         }
     }
     let ratio = |s: Sums| if s.best > 0.0 { s.overlap / s.best } else { 1.0 };
     Agreement { as_read: ratio(fwd), reversed: ratio(rev), informative_blocks: informative }
+}
+
+/// One circuit's terms: per informative block, in block order, its overlap above chance and
+/// its best overlap as read and reversed. `slot` (per qubit) and `at` (per qubit, its first
+/// position in the measured list) are scratch of the layout's size, left as they came.
+fn circuit_terms(
+    c: &crate::circuit::Circuit,
+    cc: Option<&super::CircuitCounts>,
+    slot: &mut [(u32, u8)],
+    at: &mut [usize],
+) -> Vec<[Sums; 2]> {
+    let Some(cc) = cc else { return Vec::new() };
+    let shots = cc.shots();
+    if shots == 0 {
+        return Vec::new();
+    }
+    let blocks = c.blocks();
+    for (b, qs) in blocks.iter().enumerate() {
+        for (j, &q) in qs.iter().enumerate() {
+            slot[q] = (b as u32, j as u8);
+        }
+    }
+    for (i, &m) in c.measured.iter().enumerate().rev() {
+        at[m] = i;
+    }
+    let states = ideal_states(c, &blocks, slot);
+    let n = c.measured.len();
+    // (ideal distribution, its best overlap, positions as read, positions reversed)
+    let mut informative = Vec::new();
+    for (qs, (amp, driven)) in blocks.iter().zip(&states) {
+        if !driven {
+            continue;
+        }
+        let d = 1usize << qs.len();
+        let p: Vec<f64> = amp[..d].iter().map(|a| a.norm_sqr()).collect();
+        let best = p.iter().map(|x| x * x).sum::<f64>() - 1.0 / d as f64;
+        if best < 1e-9 {
+            continue;
+        }
+        let Some(pos) = qs
+            .iter()
+            .map(|&q| Some(at[q]).filter(|&i| i != usize::MAX))
+            .collect::<Option<Vec<usize>>>()
+        else {
+            continue;
+        };
+        let back: Vec<usize> = pos.iter().map(|&i| n - 1 - i).collect();
+        informative.push((p, best, pos, back));
+    }
+    let lists: Vec<Option<&[usize]>> = informative
+        .iter()
+        .flat_map(|(_, _, pos, back)| [Some(pos.as_slice()), Some(back.as_slice())])
+        .collect();
+    let marginals = cc.marginals(&lists);
+    let term = |m: &Option<Vec<u64>>, p: &[f64], best: f64| {
+        let m = m.as_deref().unwrap_or_default();
+        let d = p.len();
+        let dot: f64 = m.iter().zip(p).map(|(&k, &py)| k as f64 * py).sum::<f64>() / shots as f64;
+        Sums { overlap: dot - 1.0 / d as f64, best }
+    };
+    let out = informative
+        .iter()
+        .zip(marginals.chunks(2))
+        .map(|((p, best, _, _), m)| [term(&m[0], p, *best), term(&m[1], p, *best)])
+        .collect();
+    for qs in &blocks {
+        for &q in qs {
+            slot[q] = (u32::MAX, 0);
+        }
+    }
+    for &m in &c.measured {
+        at[m] = usize::MAX;
+    }
+    out
 }
 
 /// The ideal state vector of each block (local index = bit(block qubit 0) + 2 bit(qubit 1)),

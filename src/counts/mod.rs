@@ -71,6 +71,69 @@ impl CircuitCounts {
         }
         m
     }
+
+    /// [`CircuitCounts::marginal`] of several lists of positions at once (`None` entries get
+    /// none), from one pass over the outcomes that adds each outcome's shots to the
+    /// positions whose bit is set (and to the lists of two positions that have both set):
+    /// the other entries follow by subtraction, in whole numbers, so they are exactly the
+    /// sums [`CircuitCounts::marginal`] forms. Longer lists are summed as it sums them.
+    pub fn marginals(&self, lists: &[Option<&[usize]>]) -> Vec<Option<Vec<u64>>> {
+        let width = lists.iter().flatten().flat_map(|p| p.iter()).max().map_or(0, |&p| p + 1);
+        let pairs: Vec<(usize, usize, usize)> = lists
+            .iter()
+            .enumerate()
+            .filter_map(|(i, p)| match p {
+                Some([a, b]) => Some((i, *a, *b)),
+                _ => None,
+            })
+            .collect();
+        let mut ones = vec![0u64; width];
+        let mut both = vec![0u64; pairs.len()];
+        let mut total = 0u64;
+        for (o, n) in &self.outcomes {
+            let n = *n;
+            total += n;
+            for (wi, &word) in o.0.iter().enumerate() {
+                let mut w = word;
+                while w != 0 {
+                    let p = wi * 64 + w.trailing_zeros() as usize;
+                    if p < width {
+                        ones[p] += n;
+                    }
+                    w &= w - 1;
+                }
+            }
+            for (k, &(_, a, b)) in pairs.iter().enumerate() {
+                if o.bit(a) && o.bit(b) {
+                    both[k] += n;
+                }
+            }
+        }
+        let mut pair_of = pairs.iter().zip(&both).map(|(&(i, _, _), &n)| (i, n)).peekable();
+        lists
+            .iter()
+            .enumerate()
+            .map(|(i, p)| {
+                let p = (*p)?;
+                let joint = match pair_of.peek() {
+                    Some(&(j, n)) if j == i => {
+                        pair_of.next();
+                        n
+                    }
+                    _ => 0,
+                };
+                Some(match *p {
+                    [a] => vec![total - ones[a], ones[a]],
+                    [a, b] if a == b => vec![total - ones[a], 0, 0, ones[a]],
+                    [a, b] => {
+                        let (only_a, only_b) = (ones[a] - joint, ones[b] - joint);
+                        vec![total - only_a - only_b - joint, only_a, only_b, joint]
+                    }
+                    _ => self.marginal(p),
+                })
+            })
+            .collect()
+    }
 }
 
 /// Counts for a circuit set: `per_circuit[i]` belongs to circuit i of the set; `None`
@@ -137,8 +200,111 @@ pub fn read_counts(
     opts: &CountsOptions,
 ) -> Result<(Counts, Vec<Warning>)> {
     let format = CountsFormat::from_path(path)?;
+    if format == CountsFormat::Csv {
+        if let Some(read) = read_csv_split(path, circuits, opts, SPLIT_BLOCK) {
+            return read;
+        }
+    }
     let file = std::fs::File::open(path).map_err(|e| Error::io(path, e))?;
     read_counts_from(file, format, path, circuits, opts)
+}
+
+/// How much of a CSV counts file [`read_csv_split`] reads at a time.
+const SPLIT_BLOCK: usize = 1 << 24;
+
+/// One data line of a CSV counts file, checked and packed away from the reader's state.
+enum Prepared {
+    /// Only separators and spaces.
+    Blank,
+    /// An outcome of circuit `ci` with its stored value.
+    Row { line: usize, ci: usize, key: Key, value: u64 },
+}
+
+/// An outcome packed as [`OutcomeRows`] keys it.
+enum Key {
+    Packed(u64),
+    Wide(Outcome),
+}
+
+/// Reads a CSV counts file `block` bytes at a time (up to the last whole line), checks and packs each block's
+/// lines in parallel, and adds them to the counts in file order. `None` whenever the file is
+/// not one this reading is sure to read as [`read_csv`] does (a quote or a carriage return
+/// anywhere, a line that is not UTF-8 or is longer than [`MAX_CSV_LINE_BYTES`], a header
+/// other than `circuit,outcome,count`) and whenever any line would be an error: the file is
+/// then read again one record after another, which gives every message. A line's fields are
+/// what the CSV reader splits it into when no field is quoted: the text between commas.
+fn read_csv_split(
+    path: &Path,
+    circuits: &CircuitSet,
+    opts: &CountsOptions,
+    block: usize,
+) -> Option<Result<(Counts, Vec<Warning>)>> {
+    use rayon::prelude::*;
+    let mut file = std::fs::File::open(path).ok()?;
+    let mut acc = Accumulator::new(path, circuits, opts);
+    let mut buf: Vec<u8> = Vec::new();
+    let (mut lines_before, mut header_seen, mut first) = (0usize, false, true);
+    loop {
+        let got = crate::files::read_block(&mut file, &mut buf, block)?;
+        if first {
+            first = false;
+            if buf.starts_with(b"\xEF\xBB\xBF") {
+                buf.drain(..3);
+            }
+            if buf.is_empty() {
+                return None;
+            }
+        }
+        let end = if got == 0 {
+            buf.len()
+        } else {
+            match buf.iter().rposition(|&b| b == b'\n') {
+                Some(i) => i + 1,
+                None if buf.len() as u64 > MAX_CSV_LINE_BYTES => return None,
+                None => continue,
+            }
+        };
+        let chunk = &buf[..end];
+        if chunk.iter().any(|&b| b == b'"' || b == b'\r') {
+            return None;
+        }
+        let mut lines: Vec<&[u8]> = chunk.split(|&b| b == b'\n').collect();
+        if chunk.last() == Some(&b'\n') {
+            lines.pop();
+        }
+        if lines.iter().any(|l| l.len() as u64 > MAX_CSV_LINE_BYTES) {
+            return None;
+        }
+        let mut from = 0;
+        while !header_seen && from < lines.len() {
+            let text = std::str::from_utf8(lines[from]).ok()?;
+            from += 1;
+            if text.split(',').all(|f| f.trim().is_empty()) {
+                continue;
+            }
+            let fields: Vec<&str> = text.split(',').map(str::trim).collect();
+            if fields != HEADER {
+                return None;
+            }
+            header_seen = true;
+        }
+        let prepared: Vec<Option<Prepared>> = lines[from..]
+            .par_iter()
+            .enumerate()
+            .map(|(i, l)| acc.prepare(lines_before + from + i + 1, l))
+            .collect();
+        for p in prepared {
+            if let Prepared::Row { line, ci, key, value } = p? {
+                acc.commit(line, ci, key, value)?;
+            }
+        }
+        lines_before += lines.len();
+        buf.drain(..end);
+        if got == 0 {
+            break;
+        }
+    }
+    (header_seen && acc.rows > 0).then(|| acc.finish())
 }
 
 /// The longest line of a CSV counts file.
@@ -372,6 +538,68 @@ impl<'a> Accumulator<'a> {
         Error::input(self.path, line, message)
     }
 
+    /// One data line of a CSV counts file checked and packed as [`read_csv`] and
+    /// [`Accumulator::add`] would take it, without the reader's state; `None` where either
+    /// would fail or where the line's circuit has more than one row per shot to add.
+    fn prepare(&self, line: usize, bytes: &[u8]) -> Option<Prepared> {
+        let text = std::str::from_utf8(bytes).ok()?;
+        let mut fields = text.split(',');
+        let (Some(id), Some(outcome), Some(count), None) =
+            (fields.next(), fields.next(), fields.next(), fields.next())
+        else {
+            return text.split(',').all(|f| f.trim().is_empty()).then_some(Prepared::Blank);
+        };
+        if [id, outcome, count].iter().all(|f| f.trim().is_empty()) {
+            return Some(Prepared::Blank);
+        }
+        let value = parse_value(count.trim()).and_then(|v| self.stored(v)).ok()?;
+        let ci = self.circuits.position(id.trim())?;
+        let n = self.circuits.circuits[ci].measured.len();
+        let outcome = outcome.trim();
+        let expanded = expand_outcome(outcome, n).ok()?;
+        let bytes = expanded.as_deref().unwrap_or(outcome).as_bytes();
+        if bytes.len() != n || bytes.iter().any(|&b| b != b'0' && b != b'1') {
+            return None;
+        }
+        let reversed = self.reversed;
+        let bits = (0..n).map(|i| bytes[if reversed { n - 1 - i } else { i }] == b'1');
+        let key = if n <= 64 {
+            Key::Packed(bits.enumerate().fold(0u64, |w, (i, b)| w | ((b as u64) << i)))
+        } else {
+            Key::Wide(packed(bits, n))
+        };
+        Some(Prepared::Row { line, ci, key, value })
+    }
+
+    /// Adds a prepared row as [`Accumulator::circuit`] and [`Accumulator::add`] do; `None`
+    /// where they would fail (a repeated outcome, a total past 64 bits).
+    fn commit(&mut self, line: usize, ci: usize, key: Key, value: u64) -> Option<()> {
+        self.mark(Some(line), ci);
+        let rows = self.maps[ci].as_mut()?;
+        let fresh = match (rows, key) {
+            (OutcomeRows::Packed(m), Key::Packed(w)) => m.insert(w, value).is_none(),
+            (OutcomeRows::Wide(m), Key::Wide(o)) => m.insert(o, value).is_none(),
+            _ => return None,
+        };
+        if !fresh {
+            return None;
+        }
+        if self.shots.is_none() {
+            self.totals[ci] = self.totals[ci].checked_add(value)?;
+        }
+        self.rows += 1;
+        Some(())
+    }
+
+    /// Marks circuit `ci` as having counts, first met on `line`.
+    fn mark(&mut self, line: Option<usize>, ci: usize) {
+        if self.maps[ci].is_none() {
+            self.maps[ci] = Some(OutcomeRows::new(self.circuits.circuits[ci].measured.len()));
+            self.first_line[ci] = line;
+        }
+        self.last = Some(ci);
+    }
+
     /// The index of a circuit id, marking it as having counts.
     fn circuit(&mut self, line: Option<usize>, id: &str) -> Result<usize> {
         if let Some(ci) = self.last.filter(|&ci| self.circuits.circuits[ci].id == id) {
@@ -411,11 +639,7 @@ impl<'a> Accumulator<'a> {
                 ),
             ));
         };
-        if self.maps[ci].is_none() {
-            self.maps[ci] = Some(OutcomeRows::new(self.circuits.circuits[ci].measured.len()));
-            self.first_line[ci] = line;
-        }
-        self.last = Some(ci);
+        self.mark(line, ci);
         Ok(ci)
     }
 
@@ -1348,6 +1572,129 @@ mod tests {
                 let (back, _) = read_counts_from(&bytes[..], f, Path::new("x"), &set, &opts).unwrap();
                 prop_assert_eq!(&back.per_circuit, &counts.per_circuit);
             }
+        }
+    }
+
+    /// The marginals of many position lists at once are, entry for entry, those formed one
+    /// list at a time, for outcomes of one word and of several, lists of one, two (also
+    /// a position twice), none and three positions, and lists left out.
+    #[test]
+    fn marginals_at_once_are_the_marginals_one_at_a_time() {
+        let mut seed = 0x2545_f491_4f6c_dd1du64;
+        let mut next = move || {
+            seed ^= seed << 13;
+            seed ^= seed >> 7;
+            seed ^= seed << 17;
+            seed
+        };
+        for width in [1usize, 5, 64, 65, 130] {
+            let mut outcomes: Vec<(Outcome, u64)> = (0..300)
+                .map(|_| {
+                    let bits: Vec<bool> = (0..width).map(|_| next() % 5 == 0).collect();
+                    (Outcome::from_bits(&bits), 1 + next() % 40)
+                })
+                .collect();
+            outcomes.sort();
+            outcomes.dedup_by(|a, b| a.0 == b.0);
+            let cc = CircuitCounts { outcomes };
+            let at = |r: u64| (r % width as u64) as usize;
+            let mut lists: Vec<Option<Vec<usize>>> = vec![Some(vec![]), None];
+            for _ in 0..40 {
+                let (a, b, c) = (at(next()), at(next()), at(next()));
+                lists.push(Some(vec![a]));
+                lists.push(Some(vec![a, b]));
+                lists.push(Some(vec![b, b]));
+                lists.push(Some(vec![c, a, b]));
+                lists.push(None);
+            }
+            let borrowed: Vec<Option<&[usize]>> = lists.iter().map(|l| l.as_deref()).collect();
+            let got = cc.marginals(&borrowed);
+            for (l, m) in lists.iter().zip(&got) {
+                assert_eq!(m, &l.as_ref().map(|p| cc.marginal(p)), "width {width}, list {l:?}");
+            }
+        }
+    }
+
+    /// The block-parallel CSV reading gives the counts, warnings and messages of the
+    /// record-by-record reading, at any block size, on one-word and wide outcomes, blank
+    /// lines, hex and grouped outcomes, probabilities and the reversed bit order; what it
+    /// does not take (quotes, carriage returns, per-shot files, any line in error) it leaves
+    /// to that reading.
+    #[test]
+    fn split_csv_reading_is_the_record_reading() {
+        use crate::circuit::Circuit;
+        let set = CircuitSet::new(vec![
+            Circuit { id: "a".into(), layers: vec![], measured: vec![0, 1, 2] },
+            Circuit { id: "b".into(), layers: vec![], measured: (0..70).collect() },
+            Circuit { id: "c".into(), layers: vec![], measured: vec![5] },
+        ])
+        .unwrap();
+        let wide = |k: usize| {
+            (0..70)
+                .map(|i| if (i * 7 + k).is_multiple_of(5) { '1' } else { '0' })
+                .collect::<String>()
+        };
+        let good = format!(
+            "circuit,outcome,count\na,000,5\na,101,7\n\nb,{},3\n , ,\na,0x3,2\nb,{},4\na, 0 1 0 ,1\n",
+            wide(0),
+            wide(1)
+        );
+        let counts = CountsOptions::default();
+        let reversed = CountsOptions { bit_order: BitOrder::Reversed, shots: None };
+        let probs = CountsOptions { bit_order: BitOrder::AsMeasured, shots: Some(100) };
+        // (document, options, whether the split reading takes it)
+        let docs = [
+            (good.clone(), &counts, true),
+            (good.trim_end().to_string(), &counts, true),
+            (format!("\u{feff}{good}"), &counts, true),
+            (format!("\n , \n{good}"), &counts, true),
+            (good.clone(), &reversed, true),
+            (good.replace(",7\n", ",7.0\n"), &counts, true),
+            (
+                good.replace(",5\n", ",0\n")
+                    .replace(",7\n", ",0\n")
+                    .replace(",2\n", ",0\n")
+                    .replace(",1\n", ",0\n"),
+                &counts,
+                true,
+            ),
+            ("circuit,outcome,count\na,000,0.25\na,111,0.75\n".to_string(), &probs, true),
+            (good.replace('\n', "\r\n"), &counts, false),
+            (good.replace("a,101", "\"a\",101"), &counts, false),
+            (good.replace("a,101", "a,000"), &counts, false),
+            (good.replace("a,101", "zz,101"), &counts, false),
+            (good.replace("a,101", "a,1011"), &counts, false),
+            (good.replace("a,101", "a,1x1"), &counts, false),
+            (good.replace(",7\n", ",2.5\n"), &counts, false),
+            (good.replace(",7\n", ",7,9\n"), &counts, false),
+            (good.replace("circuit,outcome,count", "circuit,outcome"), &counts, false),
+            (good.replace("circuit,outcome,count", "circ,outcome,count"), &counts, false),
+            (format!("circuit,outcome,count\na,000,{}\na,001,{}\n", u64::MAX, 1), &counts, false),
+            ("circuit,outcome,count\n".to_string(), &counts, false),
+            (String::new(), &counts, false),
+        ];
+        let dir = tempfile::tempdir().unwrap();
+        for (i, (doc, opts, split)) in docs.iter().enumerate() {
+            let path = dir.path().join(format!("c{i}.csv"));
+            std::fs::write(&path, doc).unwrap();
+            let file = std::fs::File::open(&path).unwrap();
+            let whole = read_counts_from(file, CountsFormat::Csv, &path, &set, opts);
+            let same = |got: Result<(Counts, Vec<Warning>)>, at: &str| match (got, &whole) {
+                (Ok(a), Ok(b)) => {
+                    assert_eq!(a.0.per_circuit, b.0.per_circuit, "document {i}, {at}");
+                    assert_eq!(format!("{:?}", a.1), format!("{:?}", b.1), "document {i}, {at}");
+                }
+                (Err(a), Err(b)) => assert_eq!(a.to_string(), b.to_string(), "document {i}, {at}"),
+                (a, b) => panic!("document {i}, {at}: split {a:?}, whole {b:?}"),
+            };
+            for block in [1 << 20, 64, 5] {
+                let got = read_csv_split(&path, &set, opts, block);
+                assert_eq!(got.is_some(), *split, "document {i}, block {block}");
+                if let Some(got) = got {
+                    same(got, &format!("block {block}"));
+                }
+            }
+            same(read_counts(&path, &set, opts), "read_counts");
         }
     }
 }
