@@ -170,8 +170,20 @@ pub fn fit_qubit(
     start: Option<&Params>,
     options: &FitOptions,
 ) -> Result<FitResult> {
+    fit_qubit_checked(rows, spec, start, options, None)
+}
+
+/// [`fit_qubit`] with a known identifiability check (see [`fit_checked`]); `start_check`
+/// of the same rows, `start` and [`Free::All`] makes one.
+pub fn fit_qubit_checked(
+    rows: &[PreparedRow],
+    spec: &ModelSpec,
+    start: Option<&Params>,
+    options: &FitOptions,
+    known: Option<&StartCheck>,
+) -> Result<FitResult> {
     let base = Params::given_or_initial(start, spec)?;
-    fit(rows, spec, &base, Free::All, options)
+    fit_checked(rows, spec, &base, Free::All, options, known)
 }
 
 /// Fits a coupler's two-qubit kind(s) to its two-qubit rows with the one-qubit channels and
@@ -431,6 +443,72 @@ fn sorted_eigen(m: &DMatrix<f64>) -> (Vec<f64>, DMatrix<f64>) {
     (vals, vecs)
 }
 
+/// The identifiability check of a fit: the eigen-decomposition of the expected information
+/// in natural coordinates at the isotropic, incoherent projection of the start point. The
+/// expected information reads each row's program and shots, never how its shots fall, so
+/// a fit from the same start on the same programs with the same shots per row (a bootstrap
+/// replicate that resamples each circuit's shots) has the same check to the last bit.
+#[derive(Clone, Debug)]
+pub struct StartCheck {
+    /// Eigenvalues, largest first.
+    eigenvalues: Vec<f64>,
+    /// The identified directions (columns), in natural coordinates.
+    basis: DMatrix<f64>,
+    /// Per free raw coordinate: whether the data identify it.
+    identified: Vec<bool>,
+    /// Number of identified directions.
+    rank: usize,
+    /// Shots of each row the check was made on.
+    shots: Vec<u64>,
+}
+
+impl StartCheck {
+    /// True when `rows` have the shots of the rows this check was made on. The caller
+    /// answers for the rest: the same programs, start point and free coordinates.
+    fn holds_for(&self, rows: &[PreparedRow]) -> bool {
+        self.shots.len() == rows.len() && rows.iter().zip(&self.shots).all(|(r, &n)| r.shots() == n)
+    }
+}
+
+/// The [`StartCheck`] of fitting the free coordinates (per `free`) of `base` to `rows`.
+pub fn start_check(
+    rows: &[PreparedRow],
+    base: &Params,
+    free: Free,
+    options: &FitOptions,
+) -> Result<StartCheck> {
+    check_start(rows, base, &Coords::new(rows, base, free), options)
+}
+
+fn check_start(
+    rows: &[PreparedRow],
+    base: &Params,
+    coords: &Coords,
+    options: &FitOptions,
+) -> Result<StartCheck> {
+    let n = coords.refs.len();
+    let mut probe = base.clone();
+    for &k in &coords.kinds {
+        probe.kinds[k] = probe.kinds[k].isotropic();
+    }
+    let e0 = evaluate(rows, &probe, coords);
+    let s0 = coords.natural_jacobian(&probe);
+    let (f0, _, _) = to_natural(&e0.fisher, &e0.grad, &s0).ok_or_else(|| {
+        Error::Analysis("a channel parameter sits on its boundary at the start".into())
+    })?;
+    let (eigenvalues, vec0) = sorted_eigen(&f0);
+    let top = eigenvalues.first().copied().unwrap_or(0.0).max(0.0);
+    let rank = eigenvalues
+        .iter()
+        .filter(|&&l| top > 0.0 && l > options.identifiability_rel_tol * top)
+        .count();
+    let basis = vec0.columns(0, rank).into_owned();
+    let null = vec0.columns(rank, n - rank).into_owned();
+    let identified: Vec<bool> = (0..n).map(|i| null.row(i).norm_squared() < 0.01).collect();
+    let shots = rows.iter().map(PreparedRow::shots).collect();
+    Ok(StartCheck { eigenvalues, basis, identified, rank, shots })
+}
+
 /// Fits the free coordinates (per `free`) of `base` to `rows`; all other coordinates of
 /// `base` stay as they are.
 pub fn fit(
@@ -439,6 +517,20 @@ pub fn fit(
     base: &Params,
     free: Free,
     options: &FitOptions,
+) -> Result<FitResult> {
+    fit_checked(rows, spec, base, free, options, None)
+}
+
+/// [`fit`] with the identifiability check `known` of the same programs, start and free
+/// coordinates when there is one (it is made afresh when the rows' shots differ from the
+/// ones it was made on).
+pub fn fit_checked(
+    rows: &[PreparedRow],
+    spec: &ModelSpec,
+    base: &Params,
+    free: Free,
+    options: &FitOptions,
+    known: Option<&StartCheck>,
 ) -> Result<FitResult> {
     if !base.matches(spec) {
         return Err(Error::Analysis(
@@ -456,23 +548,15 @@ pub fn fit(
     let mut params = base.clone();
     let mut warnings = Vec::new();
 
-    // Identifiability at the isotropic, incoherent projection of the start point.
-    let mut probe = params.clone();
-    for &k in &coords.kinds {
-        probe.kinds[k] = probe.kinds[k].isotropic();
-    }
-    let e0 = evaluate(rows, &probe, &coords);
-    let s0 = coords.natural_jacobian(&probe);
-    let (f0, _, _) = to_natural(&e0.fisher, &e0.grad, &s0).ok_or_else(|| {
-        Error::Analysis("a channel parameter sits on its boundary at the start".into())
-    })?;
-    let (eig0, vec0) = sorted_eigen(&f0);
-    let top = eig0.first().copied().unwrap_or(0.0).max(0.0);
-    let rank =
-        eig0.iter().filter(|&&l| top > 0.0 && l > options.identifiability_rel_tol * top).count();
-    let basis = vec0.columns(0, rank).into_owned();
-    let null = vec0.columns(rank, n - rank).into_owned();
-    let identified: Vec<bool> = (0..n).map(|i| null.row(i).norm_squared() < 0.01).collect();
+    let computed;
+    let check = match known.filter(|c| c.holds_for(rows)) {
+        Some(c) => c,
+        None => {
+            computed = check_start(rows, base, &coords, options)?;
+            &computed
+        }
+    };
+    let StartCheck { eigenvalues: eig0, basis, identified, rank, .. } = check.clone();
 
     let mut x = coords.get(&params);
     let mut cur = evaluate(rows, &params, &coords);
