@@ -19,7 +19,8 @@ use crate::counts::Counts;
 use crate::error::{Error, Result, Warning};
 use crate::layout::{Layout, QubitIx};
 use crate::model::{
-    self, Family, FitOptions, FitResult, Free, ModelSpec, Params, PreparedRow, StartCheck,
+    self, Family, FitOptions, FitResult, Free, KindParams, ModelSpec, Params, PreparedRow, Readout,
+    StartCheck,
 };
 use crate::rows::{self, Rows};
 use crate::slack::lp::TwoStageSolution;
@@ -68,6 +69,8 @@ impl<P: Progress> Progress for Cancel<'_, P> {
 /// The fitted crosstalk-free model and its diagnostics.
 pub(crate) struct Fitted {
     pub params: Params,
+    /// Each qubit's and coupler's fit, its fitted values taken into `params`: the fits'
+    /// own parameter tables are left empty (each held every kind of the chip).
     pub qubit_fits: Vec<Option<FitResult>>,
     pub coupler_fits: Vec<Option<FitResult>>,
     /// Qubits and couplers fitted on all their rows for want of reference rows.
@@ -419,11 +422,14 @@ fn fit_model(
         },
         progress,
         spread,
+        true,
     )?;
     let mut params = start.clone();
     for (q, (fit, all)) in qubit_fits.iter().enumerate() {
         let Some(fit) = fit else { continue };
-        params.readout[q] = fit.params.readout[q];
+        if let Some(r) = fit.readout {
+            params.readout[q] = r;
+        }
         let who = format!("qubit {}", layout.id(q));
         let hint = "add circuits where this qubit runs while every neighbour idles";
         absorb(&mut params, fit, *all, &who, "its model", hint, warnings);
@@ -436,6 +442,7 @@ fn fit_model(
         &|_, sel| model::fit_coupler(sel, spec, &params, Some(start), &options),
         progress,
         spread,
+        false,
     )?;
     for (c, (fit, all)) in coupler_fits.iter().enumerate() {
         let Some(fit) = fit else { continue };
@@ -446,10 +453,11 @@ fn fit_model(
     }
     let fitted_on_all_rows_qubits = qubit_fits.iter().map(|f| f.1).collect();
     let fitted_on_all_rows_couplers = coupler_fits.iter().map(|f| f.1).collect();
+    let result = |x: (Option<Slim>, bool)| x.0.map(|s| s.fit);
     Ok(Fitted {
         params,
-        qubit_fits: qubit_fits.into_iter().map(|x| x.0).collect(),
-        coupler_fits: coupler_fits.into_iter().map(|x| x.0).collect(),
+        qubit_fits: qubit_fits.into_iter().map(result).collect(),
+        coupler_fits: coupler_fits.into_iter().map(result).collect(),
         fitted_on_all_rows_qubits,
         fitted_on_all_rows_couplers,
     })
@@ -459,19 +467,43 @@ fn fit_model(
 /// reference rows.
 type Select<'a> = dyn Fn(&[usize]) -> Result<(Vec<PreparedRow>, bool)> + Sync + 'a;
 
-/// One fit per row list (a qubit's or a coupler's; `fit` is given the list's position).
+/// A fit with its fitted values taken out of its parameter table, and the table emptied:
+/// it holds every kind of the chip, so keeping one per qubit and coupler fit grew with the
+/// square of the chip.
+struct Slim {
+    fit: FitResult,
+    /// The fitted kinds' channels, aligned with `fit.kinds`.
+    values: Vec<KindParams>,
+    /// The fitted readout of a qubit's own qubit.
+    readout: Option<Readout>,
+}
+
+impl Slim {
+    fn new(mut fit: FitResult, own_readout: Option<QubitIx>) -> Slim {
+        let values = fit.kinds.iter().map(|kf| fit.params.kinds[kf.kind].clone()).collect();
+        let readout = own_readout.and_then(|q| fit.params.readout.get(q).copied());
+        fit.params.kinds = Vec::new();
+        fit.params.readout = Vec::new();
+        Slim { fit, values, readout }
+    }
+}
+
+/// One fit per row list (a qubit's or a coupler's; `fit` is given the list's position,
+/// which is the qubit whose readout the fit sets when `qubits`).
 fn fit_each(
     lists: &[Vec<usize>],
     select: &Select,
     fit: &(dyn Fn(usize, &[PreparedRow]) -> Result<FitResult> + Sync),
     progress: &dyn Progress,
     spread: Spread,
-) -> Result<Vec<(Option<FitResult>, bool)>> {
+    qubits: bool,
+) -> Result<Vec<(Option<Slim>, bool)>> {
     map_each(lists, spread, |at, list| {
         let out = if list.is_empty() {
             Ok((None, false))
         } else {
-            select(list).and_then(|(sel, all)| fit(at, &sel).map(|f| (Some(f), all)))
+            let slim = |f| Slim::new(f, qubits.then_some(at));
+            select(list).and_then(|(sel, all)| fit(at, &sel).map(|f| (Some(slim(f)), all)))
         };
         progress.advance(1);
         out
@@ -484,15 +516,16 @@ fn fit_each(
 /// loudly when it had to be fitted on all its rows (method.md section 3).
 fn absorb(
     params: &mut Params,
-    fit: &FitResult,
+    slim: &Slim,
     all_rows: bool,
     who: &str,
     what: &str,
     hint: &str,
     warnings: &mut Vec<Warning>,
 ) {
-    for kf in &fit.kinds {
-        params.kinds[kf.kind] = fit.params.kinds[kf.kind].clone();
+    let fit = &slim.fit;
+    for (kf, v) in fit.kinds.iter().zip(&slim.values) {
+        params.kinds[kf.kind] = v.clone();
     }
     if all_rows {
         warnings.push(Warning::new(
