@@ -719,3 +719,76 @@ pub fn fit_checked(
         warnings,
     })
 }
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::model::predict::tests::{random_params, random_row, spec};
+    use crate::model::predict::{predict_all, PreparedRow};
+    use rand::{RngExt, SeedableRng};
+    use rand_chacha::ChaCha8Rng;
+
+    /// `rows` with `shots` shots each drawn from their predictions under `truth`.
+    fn drawn(
+        rows: &[PreparedRow],
+        truth: &Params,
+        shots: u64,
+        rng: &mut ChaCha8Rng,
+    ) -> Vec<PreparedRow> {
+        let probs = predict_all(rows, truth);
+        rows.iter()
+            .zip(&probs)
+            .map(|(r, p)| {
+                let mut counts = vec![0u64; p.len()];
+                for _ in 0..shots {
+                    let u: f64 = rng.random();
+                    let mut acc = 0.0;
+                    let x = (0..p.len()).find(|&x| {
+                        acc += p[x];
+                        u < acc
+                    });
+                    counts[x.unwrap_or(p.len() - 1)] += 1;
+                }
+                r.with_counts(counts).unwrap()
+            })
+            .collect()
+    }
+
+    /// A check made on rows with other counts but the same shots stands for the fit's own
+    /// (the expected information reads only programs and shots: Fisher's scoring method);
+    /// one made on other shots is not used.
+    #[test]
+    fn start_check_of_same_shots_gives_the_same_fit() {
+        let mut rng = ChaCha8Rng::seed_from_u64(11);
+        for family in [Family::Depolarizing, Family::Pauli] {
+            let s = spec(family);
+            let truth = random_params(family, &mut rng);
+            let rows: Vec<PreparedRow> = (0..30)
+                .map(|_| {
+                    let layers = rng.random_range(2..12);
+                    PreparedRow::new(&random_row(1, layers, &mut rng), &s).unwrap()
+                })
+                .collect();
+            let data = drawn(&rows, &truth, 1000, &mut rng);
+            let options = FitOptions::default();
+            let point = fit_qubit(&data, &s, None, &options).unwrap();
+            let start = Some(&point.params);
+            let one = drawn(&rows, &truth, 1000, &mut rng);
+            let other = drawn(&rows, &truth, 1000, &mut rng);
+            let check = start_check(&one, &point.params, Free::All, &options).unwrap();
+            let with = fit_qubit_checked(&other, &s, start, &options, Some(&check)).unwrap();
+            let without = fit_qubit(&other, &s, start, &options).unwrap();
+            assert_eq!(with.params, without.params, "{}", family.name());
+            assert_eq!(with.fisher_eigenvalues, without.fisher_eigenvalues);
+            assert_eq!(with.llr.to_bits(), without.llr.to_bits());
+            assert_eq!(with.n_identified, without.n_identified);
+
+            let fewer = drawn(&rows, &truth, 300, &mut rng);
+            assert!(!check.holds_for(&fewer));
+            let with = fit_qubit_checked(&fewer, &s, start, &options, Some(&check)).unwrap();
+            let without = fit_qubit(&fewer, &s, start, &options).unwrap();
+            assert_eq!(with.params, without.params);
+            assert_eq!(with.fisher_eigenvalues, without.fisher_eigenvalues);
+        }
+    }
+}
