@@ -698,10 +698,11 @@ pub(crate) struct Resampled {
 /// Directed scores (in `scorer`'s pair order) and intrinsic slack per kind (indexed by
 /// kind) of a resampled data set: refit from the point estimate when `refit` (a few
 /// Newton steps; PreparedRow programs are reused), recompute requirements, solve both
-/// stages. Runs on the calling thread: replicates run in parallel with each other.
+/// stages. Runs on the calling thread: replicates run in parallel with each other. The
+/// data set is dropped once the requirements are known.
 pub(crate) fn rescore(
     a: &Analysis,
-    data: &Resampled,
+    data: Resampled,
     refit: bool,
     with_estimate: bool,
     scorer: &Scorer,
@@ -720,7 +721,7 @@ pub(crate) fn rescore(
     // A predicted distribution reads a row's program, not its counts: every analysis row
     // is predicted once under the pass's model, and a row that takes another's program
     // takes its prediction. Without a refit the model is the point estimate's.
-    let computed: Vec<Vec<f64>>;
+    let mut computed: Vec<Vec<f64>> = Vec::new();
     let predictions: &[Vec<f64>] = if refit {
         // Shot resampling keeps every row's program and shots: the qubits' identifiability
         // checks are those of the first such replicate.
@@ -749,8 +750,15 @@ pub(crate) fn rescore(
     let marginals: Vec<Option<&Vec<u64>>> =
         data.counts.iter().map(|m| m.as_ref().filter(|m| m.iter().sum::<u64>() > 0)).collect();
     let needs = requirements(&marginals, &|i| &predictions[src(i)], &a.thresholds, Spread::InOrder);
+    // The counts and predictions are not read again: the covering problems that follow
+    // need the memory more.
+    drop(marginals);
+    drop(computed);
+    let Resampled { source, counts } = data;
+    drop(counts);
+    let source = source.as_deref();
+    let all = PassRows::resampled(&a.rows.rows, source);
     let need = |f: fn(&RowNeeds) -> f64| -> Vec<f64> { needs.iter().map(f).collect() };
-    let source = data.source.as_deref();
     let in_order = Spread::InOrder;
     let (directed, intrinsic) =
         scores_of(a, all, source, &need(|n| n.score), scorer, &quiet, in_order)?;
