@@ -179,7 +179,7 @@ pub(crate) fn bootstrap(
             }
             let mut rng = replicate_rng(seed, BOOTSTRAP_SALT, i);
             let data = plan.draw(a, b.resample == Resample::Circuits, &mut rng);
-            let r = pipeline::rescore(a, &data, true, true, scorer, progress)?;
+            let r = pipeline::rescore(a, data, true, true, scorer, progress)?;
             progress.advance(1);
             let aligned = |v: &[f64]| -> Vec<f64> {
                 order.iter().map(|k| k.and_then(|k| v.get(k).copied()).unwrap_or(0.0)).collect()
@@ -236,7 +236,7 @@ pub(crate) fn parametric_null(
             let mut rng = replicate_rng(cfg.seed, PARAMETRIC_SALT, i);
             let data = resample::draw_from_model(a, &mut rng);
             let out =
-                pipeline::rescore(a, &data, false, false, scorer, progress).map(|r| r.directed);
+                pipeline::rescore(a, data, false, false, scorer, progress).map(|r| r.directed);
             progress.advance(1);
             out
         })

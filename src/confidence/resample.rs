@@ -10,6 +10,7 @@ use rand::RngExt;
 use rand_chacha::ChaCha8Rng;
 use rand_distr::{Binomial, Distribution};
 
+use crate::counts::CircuitCounts;
 use crate::pipeline::{Analysis, Resampled};
 
 /// Counts of `n` shots over outcomes of probabilities `p`, by sequential conditional
@@ -40,19 +41,22 @@ pub fn multinomial(n: u64, p: &[f64], rng: &mut ChaCha8Rng) -> Vec<u64> {
     out
 }
 
-/// One circuit's observed outcomes and where each lands in each of its rows' marginals.
+/// Where each of one circuit's observed outcomes lands in each of its rows' marginals.
 ///
-/// Kept outcome by outcome and sparse: outcome j lists only the rows whose marginal index
-/// is not 0 for it (`entries[starts[j]..starts[j + 1]]`, each `4 * row + index`, a row's
-/// block having at most two qubits). A marginal's entry 0 is then the shots left over. On
-/// wide circuits most rows read 0 for most outcomes, so a draw touches a small part of
-/// what a row-by-outcome table would.
+/// Kept outcome by outcome and sparse: each row has a usual marginal index (the one most of
+/// the circuit's shots give it), and outcome j lists only the rows it gives another index
+/// (`entries[starts[j]..starts[j + 1]]`, each `4 * row + index`, a row's block having at
+/// most two qubits). A marginal's usual entry is then the shots left over. An outcome of a
+/// wide circuit differs from the usual reading in a few rows (those where an error struck),
+/// so a draw touches a small part of what a row-by-outcome table would. The outcome
+/// frequencies are read from the counts when drawing.
 struct CircuitDraw {
     shots: u64,
-    freq: Vec<f64>,
     /// Global index of each of the circuit's rows, in row order.
     rows: Vec<usize>,
-    n_outcomes: Vec<usize>,
+    n_outcomes: Vec<u8>,
+    /// Each row's usual marginal index.
+    usual: Vec<u8>,
     starts: Vec<u32>,
     entries: Entries,
 }
@@ -75,9 +79,12 @@ impl Entries {
     }
 }
 
-/// Adds each drawn outcome's shots `tally[j]` to the marginals its entries name.
+/// Moves each drawn outcome's shots `tally[j]` from the usual entry of the marginals its
+/// entries name to the entry they name (every marginal starts with all shots on its usual
+/// entry, so no entry goes below zero).
 fn tally_into<T: Copy + Into<u32>>(
     m: &mut [Vec<u64>],
+    usual: &[u8],
     starts: &[u32],
     entries: &[T],
     tally: &[u64],
@@ -88,7 +95,9 @@ fn tally_into<T: Copy + Into<u32>>(
         }
         for &e in &entries[starts[j] as usize..starts[j + 1] as usize] {
             let e: u32 = e.into();
-            m[(e / 4) as usize][(e % 4) as usize] += t;
+            let row = (e / 4) as usize;
+            m[row][usual[row] as usize] -= t;
+            m[row][(e % 4) as usize] += t;
         }
     }
 }
@@ -115,14 +124,13 @@ impl Plan {
             if shots == 0 {
                 continue;
             }
-            let freq = cc.outcomes.iter().map(|(_, n)| *n as f64 / shots as f64).collect();
             let mut rows = Vec::with_capacity(list.len());
             let mut n_outcomes = Vec::with_capacity(list.len());
             let mut key = vec![a.rows.rows[list[0]].n_timed_layers as u64];
             for &i in list {
                 let r = &a.rows.rows[i];
                 rows.push(i);
-                n_outcomes.push(1usize << r.positions.len());
+                n_outcomes.push(1u8 << r.positions.len());
                 key.push(u64::MAX);
                 key.extend(r.block.iter().map(|&q| q as u64));
                 for v in &r.victims {
@@ -130,25 +138,44 @@ impl Plan {
                     key.extend(v.active_neighbours.iter().map(|&q| q as u64));
                 }
             }
+            // Each outcome's marginal index in each row, and each row's usual index.
+            let codes: Vec<u8> = cc
+                .outcomes
+                .iter()
+                .flat_map(|(o, _)| {
+                    list.iter().map(move |&i| {
+                        a.rows.rows[i]
+                            .positions
+                            .iter()
+                            .enumerate()
+                            .fold(0u8, |acc, (j, &p)| acc | ((o.bit(p) as u8) << j))
+                    })
+                })
+                .collect();
+            let mut shots_by_code = vec![[0u64; 4]; list.len()];
+            for (row_codes, (_, n)) in codes.chunks_exact(list.len()).zip(&cc.outcomes) {
+                for (by_code, &code) in shots_by_code.iter_mut().zip(row_codes) {
+                    by_code[code as usize] += n;
+                }
+            }
+            let usual: Vec<u8> = shots_by_code
+                .iter()
+                .map(|by_code| (0..4u8).rev().max_by_key(|&x| by_code[x as usize]).unwrap_or(0))
+                .collect();
             let mut starts = Vec::with_capacity(cc.outcomes.len() + 1);
             let mut entries = Vec::new();
             starts.push(0u32);
-            for (o, _) in &cc.outcomes {
-                for (slot, &i) in list.iter().enumerate() {
-                    let code = a.rows.rows[i]
-                        .positions
-                        .iter()
-                        .enumerate()
-                        .fold(0u32, |acc, (j, &p)| acc | ((o.bit(p) as u32) << j));
-                    if code != 0 {
-                        entries.push(4 * slot as u32 + code);
+            for row_codes in codes.chunks_exact(list.len()) {
+                for (slot, (&code, &u)) in row_codes.iter().zip(&usual).enumerate() {
+                    if code != u {
+                        entries.push(4 * slot as u32 + code as u32);
                     }
                 }
                 starts.push(entries.len() as u32);
             }
             groups.entry(key).or_default().push(c);
             let entries = Entries::new(entries, list.len());
-            circuits.insert(c, CircuitDraw { shots, freq, rows, n_outcomes, starts, entries });
+            circuits.insert(c, CircuitDraw { shots, rows, n_outcomes, usual, starts, entries });
         }
         Plan { circuits, groups: groups.into_values().collect() }
     }
@@ -158,24 +185,33 @@ impl Plan {
         self.groups.len()
     }
 
-    /// Resampled shots of circuit `from`, marginalised onto the rows of circuit `to`
-    /// (the same circuit, or one of its group with the same blocks in the same order).
+    /// Resampled shots of circuit `from` (whose counts are `counts`), marginalised onto
+    /// the rows of circuit `to` (the same circuit, or one of its group with the same blocks
+    /// in the same order).
     fn draw_shots(
         &self,
         from: &CircuitDraw,
+        counts: &CircuitCounts,
         to: &CircuitDraw,
         rng: &mut ChaCha8Rng,
         out: &mut Resampled,
     ) {
-        let tally = multinomial(from.shots, &from.freq, rng);
-        let mut m: Vec<Vec<u64>> = from.n_outcomes.iter().map(|&k| vec![0u64; k]).collect();
+        let freq: Vec<f64> =
+            counts.outcomes.iter().map(|(_, n)| *n as f64 / from.shots as f64).collect();
+        let tally = multinomial(from.shots, &freq, rng);
+        let mut m: Vec<Vec<u64>> = (from.n_outcomes.iter().zip(&from.usual))
+            .map(|(&k, &u)| {
+                let mut m = vec![0u64; k as usize];
+                m[u as usize] = from.shots;
+                m
+            })
+            .collect();
         // Counts are whole numbers, so the order of the sums does not matter.
         match &from.entries {
-            Entries::Narrow(e) => tally_into(&mut m, &from.starts, e, &tally),
-            Entries::Wide(e) => tally_into(&mut m, &from.starts, e, &tally),
+            Entries::Narrow(e) => tally_into(&mut m, &from.usual, &from.starts, e, &tally),
+            Entries::Wide(e) => tally_into(&mut m, &from.usual, &from.starts, e, &tally),
         }
-        for ((dst, src), mut m) in to.rows.iter().zip(&from.rows).zip(m) {
-            m[0] = from.shots - m[1..].iter().sum::<u64>();
+        for ((dst, src), m) in to.rows.iter().zip(&from.rows).zip(m) {
             out.counts[*dst] = Some(m);
             if let Some(s) = out.source.as_mut() {
                 s[*dst] = *src;
@@ -189,16 +225,20 @@ impl Plan {
         let n = a.rows.rows.len();
         let mut out =
             Resampled { source: circuits.then(|| (0..n).collect()), counts: vec![None; n] };
+        let counts = |c: u32| {
+            a.counts.per_circuit[c as usize].as_ref().expect("a planned circuit has counts")
+        };
         if circuits {
             for g in &self.groups {
                 for &c in g {
                     let pick = g[rng.random_range(0..g.len())];
-                    self.draw_shots(&self.circuits[&pick], &self.circuits[&c], rng, &mut out);
+                    let (from, to) = (&self.circuits[&pick], &self.circuits[&c]);
+                    self.draw_shots(from, counts(pick), to, rng, &mut out);
                 }
             }
         } else {
-            for cd in self.circuits.values() {
-                self.draw_shots(cd, cd, rng, &mut out);
+            for (&c, cd) in &self.circuits {
+                self.draw_shots(cd, counts(c), cd, rng, &mut out);
             }
         }
         out

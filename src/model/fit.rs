@@ -170,8 +170,20 @@ pub fn fit_qubit(
     start: Option<&Params>,
     options: &FitOptions,
 ) -> Result<FitResult> {
+    fit_qubit_checked(rows, spec, start, options, None)
+}
+
+/// [`fit_qubit`] with a known identifiability check (see [`fit_checked`]); `start_check`
+/// of the same rows, `start` and [`Free::All`] makes one.
+pub fn fit_qubit_checked(
+    rows: &[PreparedRow],
+    spec: &ModelSpec,
+    start: Option<&Params>,
+    options: &FitOptions,
+    known: Option<&StartCheck>,
+) -> Result<FitResult> {
     let base = Params::given_or_initial(start, spec)?;
-    fit(rows, spec, &base, Free::All, options)
+    fit_checked(rows, spec, &base, Free::All, options, known)
 }
 
 /// Fits a coupler's two-qubit kind(s) to its two-qubit rows with the one-qubit channels and
@@ -431,6 +443,72 @@ fn sorted_eigen(m: &DMatrix<f64>) -> (Vec<f64>, DMatrix<f64>) {
     (vals, vecs)
 }
 
+/// The identifiability check of a fit: the eigen-decomposition of the expected information
+/// in natural coordinates at the isotropic, incoherent projection of the start point. The
+/// expected information reads each row's program and shots, never how its shots fall, so
+/// a fit from the same start on the same programs with the same shots per row (a bootstrap
+/// replicate that resamples each circuit's shots) has the same check to the last bit.
+#[derive(Clone, Debug)]
+pub struct StartCheck {
+    /// Eigenvalues, largest first.
+    eigenvalues: Vec<f64>,
+    /// The identified directions (columns), in natural coordinates.
+    basis: DMatrix<f64>,
+    /// Per free raw coordinate: whether the data identify it.
+    identified: Vec<bool>,
+    /// Number of identified directions.
+    rank: usize,
+    /// Shots of each row the check was made on.
+    shots: Vec<u64>,
+}
+
+impl StartCheck {
+    /// True when `rows` have the shots of the rows this check was made on. The caller
+    /// answers for the rest: the same programs, start point and free coordinates.
+    fn holds_for(&self, rows: &[PreparedRow]) -> bool {
+        self.shots.len() == rows.len() && rows.iter().zip(&self.shots).all(|(r, &n)| r.shots() == n)
+    }
+}
+
+/// The [`StartCheck`] of fitting the free coordinates (per `free`) of `base` to `rows`.
+pub fn start_check(
+    rows: &[PreparedRow],
+    base: &Params,
+    free: Free,
+    options: &FitOptions,
+) -> Result<StartCheck> {
+    check_start(rows, base, &Coords::new(rows, base, free), options)
+}
+
+fn check_start(
+    rows: &[PreparedRow],
+    base: &Params,
+    coords: &Coords,
+    options: &FitOptions,
+) -> Result<StartCheck> {
+    let n = coords.refs.len();
+    let mut probe = base.clone();
+    for &k in &coords.kinds {
+        probe.kinds[k] = probe.kinds[k].isotropic();
+    }
+    let e0 = evaluate(rows, &probe, coords);
+    let s0 = coords.natural_jacobian(&probe);
+    let (f0, _, _) = to_natural(&e0.fisher, &e0.grad, &s0).ok_or_else(|| {
+        Error::Analysis("a channel parameter sits on its boundary at the start".into())
+    })?;
+    let (eigenvalues, vec0) = sorted_eigen(&f0);
+    let top = eigenvalues.first().copied().unwrap_or(0.0).max(0.0);
+    let rank = eigenvalues
+        .iter()
+        .filter(|&&l| top > 0.0 && l > options.identifiability_rel_tol * top)
+        .count();
+    let basis = vec0.columns(0, rank).into_owned();
+    let null = vec0.columns(rank, n - rank).into_owned();
+    let identified: Vec<bool> = (0..n).map(|i| null.row(i).norm_squared() < 0.01).collect();
+    let shots = rows.iter().map(PreparedRow::shots).collect();
+    Ok(StartCheck { eigenvalues, basis, identified, rank, shots })
+}
+
 /// Fits the free coordinates (per `free`) of `base` to `rows`; all other coordinates of
 /// `base` stay as they are.
 pub fn fit(
@@ -439,6 +517,20 @@ pub fn fit(
     base: &Params,
     free: Free,
     options: &FitOptions,
+) -> Result<FitResult> {
+    fit_checked(rows, spec, base, free, options, None)
+}
+
+/// [`fit`] with the identifiability check `known` of the same programs, start and free
+/// coordinates when there is one (it is made afresh when the rows' shots differ from the
+/// ones it was made on).
+pub fn fit_checked(
+    rows: &[PreparedRow],
+    spec: &ModelSpec,
+    base: &Params,
+    free: Free,
+    options: &FitOptions,
+    known: Option<&StartCheck>,
 ) -> Result<FitResult> {
     if !base.matches(spec) {
         return Err(Error::Analysis(
@@ -456,23 +548,15 @@ pub fn fit(
     let mut params = base.clone();
     let mut warnings = Vec::new();
 
-    // Identifiability at the isotropic, incoherent projection of the start point.
-    let mut probe = params.clone();
-    for &k in &coords.kinds {
-        probe.kinds[k] = probe.kinds[k].isotropic();
-    }
-    let e0 = evaluate(rows, &probe, &coords);
-    let s0 = coords.natural_jacobian(&probe);
-    let (f0, _, _) = to_natural(&e0.fisher, &e0.grad, &s0).ok_or_else(|| {
-        Error::Analysis("a channel parameter sits on its boundary at the start".into())
-    })?;
-    let (eig0, vec0) = sorted_eigen(&f0);
-    let top = eig0.first().copied().unwrap_or(0.0).max(0.0);
-    let rank =
-        eig0.iter().filter(|&&l| top > 0.0 && l > options.identifiability_rel_tol * top).count();
-    let basis = vec0.columns(0, rank).into_owned();
-    let null = vec0.columns(rank, n - rank).into_owned();
-    let identified: Vec<bool> = (0..n).map(|i| null.row(i).norm_squared() < 0.01).collect();
+    let computed;
+    let check = match known.filter(|c| c.holds_for(rows)) {
+        Some(c) => c,
+        None => {
+            computed = check_start(rows, base, &coords, options)?;
+            &computed
+        }
+    };
+    let StartCheck { eigenvalues: eig0, basis, identified, rank, .. } = check.clone();
 
     let mut x = coords.get(&params);
     let mut cur = evaluate(rows, &params, &coords);
@@ -634,4 +718,77 @@ pub fn fit(
         converged,
         warnings,
     })
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::model::predict::tests::{random_params, random_row, spec};
+    use crate::model::predict::{predict_all, PreparedRow};
+    use rand::{RngExt, SeedableRng};
+    use rand_chacha::ChaCha8Rng;
+
+    /// `rows` with `shots` shots each drawn from their predictions under `truth`.
+    fn drawn(
+        rows: &[PreparedRow],
+        truth: &Params,
+        shots: u64,
+        rng: &mut ChaCha8Rng,
+    ) -> Vec<PreparedRow> {
+        let probs = predict_all(rows, truth);
+        rows.iter()
+            .zip(&probs)
+            .map(|(r, p)| {
+                let mut counts = vec![0u64; p.len()];
+                for _ in 0..shots {
+                    let u: f64 = rng.random();
+                    let mut acc = 0.0;
+                    let x = (0..p.len()).find(|&x| {
+                        acc += p[x];
+                        u < acc
+                    });
+                    counts[x.unwrap_or(p.len() - 1)] += 1;
+                }
+                r.with_counts(counts).unwrap()
+            })
+            .collect()
+    }
+
+    /// A check made on rows with other counts but the same shots stands for the fit's own
+    /// (the expected information reads only programs and shots: Fisher's scoring method);
+    /// one made on other shots is not used.
+    #[test]
+    fn start_check_of_same_shots_gives_the_same_fit() {
+        let mut rng = ChaCha8Rng::seed_from_u64(11);
+        for family in [Family::Depolarizing, Family::Pauli] {
+            let s = spec(family);
+            let truth = random_params(family, &mut rng);
+            let rows: Vec<PreparedRow> = (0..30)
+                .map(|_| {
+                    let layers = rng.random_range(2..12);
+                    PreparedRow::new(&random_row(1, layers, &mut rng), &s).unwrap()
+                })
+                .collect();
+            let data = drawn(&rows, &truth, 1000, &mut rng);
+            let options = FitOptions::default();
+            let point = fit_qubit(&data, &s, None, &options).unwrap();
+            let start = Some(&point.params);
+            let one = drawn(&rows, &truth, 1000, &mut rng);
+            let other = drawn(&rows, &truth, 1000, &mut rng);
+            let check = start_check(&one, &point.params, Free::All, &options).unwrap();
+            let with = fit_qubit_checked(&other, &s, start, &options, Some(&check)).unwrap();
+            let without = fit_qubit(&other, &s, start, &options).unwrap();
+            assert_eq!(with.params, without.params, "{}", family.name());
+            assert_eq!(with.fisher_eigenvalues, without.fisher_eigenvalues);
+            assert_eq!(with.llr.to_bits(), without.llr.to_bits());
+            assert_eq!(with.n_identified, without.n_identified);
+
+            let fewer = drawn(&rows, &truth, 300, &mut rng);
+            assert!(!check.holds_for(&fewer));
+            let with = fit_qubit_checked(&fewer, &s, start, &options, Some(&check)).unwrap();
+            let without = fit_qubit(&fewer, &s, start, &options).unwrap();
+            assert_eq!(with.params, without.params);
+            assert_eq!(with.fisher_eigenvalues, without.fisher_eigenvalues);
+        }
+    }
 }

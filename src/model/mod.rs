@@ -11,7 +11,10 @@ pub mod predict;
 pub mod ptm;
 
 pub use channel::{Family, KindIx, KindParams, ModelSpec, Params, Readout};
-pub use fit::{fit, fit_coupler, fit_qubit, FitOptions, FitResult, Free, KindFit, ReadoutFit};
+pub use fit::{
+    fit, fit_checked, fit_coupler, fit_qubit, fit_qubit_checked, start_check, FitOptions,
+    FitResult, Free, KindFit, ReadoutFit, StartCheck,
+};
 pub use predict::{predict, predict_all, ParamRef, Prediction, PreparedRow};
 
 use crate::gate::Gate;

@@ -936,11 +936,27 @@ pub fn predict(row: &PreparedRow, params: &Params) -> Prediction {
 /// Outcome distributions of rows that may be missing (empty for a missing row), in
 /// parallel, with every channel built once; same precondition as [`predict`].
 pub fn predict_rows(rows: &[Option<PreparedRow>], params: &Params) -> Vec<Vec<f64>> {
+    predict_each(rows, params, true)
+}
+
+/// [`predict_rows`], in parallel or, when `parallel` is false, in order on the calling
+/// thread (for work that already runs in parallel with other work of its kind). The same
+/// numbers either way.
+pub fn predict_each(
+    rows: &[Option<PreparedRow>],
+    params: &Params,
+    parallel: bool,
+) -> Vec<Vec<f64>> {
     use rayon::prelude::*;
     let ch = Channels::new(rows.iter().flatten(), params);
-    rows.par_iter()
-        .map(|r| r.as_ref().map(|r| probabilities_with(r, params, &ch)).unwrap_or_default())
-        .collect()
+    let one = |r: &Option<PreparedRow>| {
+        r.as_ref().map(|r| probabilities_with(r, params, &ch)).unwrap_or_default()
+    };
+    if parallel {
+        rows.par_iter().map(one).collect()
+    } else {
+        rows.iter().map(one).collect()
+    }
 }
 
 /// Outcome distributions of every row (reference and context rows alike); same

@@ -10,6 +10,7 @@
 use std::borrow::Cow;
 use std::collections::HashMap;
 use std::sync::atomic::{AtomicBool, Ordering};
+use std::sync::OnceLock;
 
 use rayon::prelude::*;
 
@@ -17,7 +18,10 @@ use crate::circuit::CircuitSet;
 use crate::counts::Counts;
 use crate::error::{Error, Result, Warning};
 use crate::layout::{Layout, QubitIx};
-use crate::model::{self, Family, FitOptions, FitResult, ModelSpec, Params, PreparedRow};
+use crate::model::{
+    self, Family, FitOptions, FitResult, Free, KindParams, ModelSpec, Params, PreparedRow, Readout,
+    StartCheck,
+};
 use crate::rows::{self, Rows};
 use crate::slack::lp::TwoStageSolution;
 use crate::slack::requirement::RowNeeds;
@@ -65,6 +69,8 @@ impl<P: Progress> Progress for Cancel<'_, P> {
 /// The fitted crosstalk-free model and its diagnostics.
 pub(crate) struct Fitted {
     pub params: Params,
+    /// Each qubit's and coupler's fit, its fitted values taken into `params`: the fits'
+    /// own parameter tables are left empty (each held every kind of the chip).
     pub qubit_fits: Vec<Option<FitResult>>,
     pub coupler_fits: Vec<Option<FitResult>>,
     /// Qubits and couplers fitted on all their rows for want of reference rows.
@@ -100,6 +106,11 @@ pub(crate) struct Analysis<'a> {
     /// The covering problems of `qubit_rows` and `coupler_rows` with zero requirements:
     /// a pass over these rows only sets requirements and fixed budgets.
     pub templates: Templates,
+    /// Per qubit, the identifiability check of its refit from the point estimate, made by
+    /// the first replicate that keeps every row's program and shots and shared by the others
+    /// (it does not depend on how the shots fall; see [`model::StartCheck`]). `None` inside
+    /// when the check failed: each such refit then makes it afresh and reports the failure.
+    pub refit_checks: Vec<OnceLock<Option<StartCheck>>>,
 }
 
 /// Covering problems built once, aligned with [`Analysis::qubit_rows`] and
@@ -259,13 +270,15 @@ pub(crate) fn analyse<'a>(
     let fitted = fit_model(
         layout,
         PassRows::own(&rows.rows),
-        &prepared,
+        &|i| Ok(prepared[i].clone()),
         &qubit_rows,
         &coupler_rows,
         &spec,
         progress,
         &mut warnings,
         None,
+        None,
+        Spread::Parallel,
     )?;
     check_cancel(progress)?;
 
@@ -273,7 +286,7 @@ pub(crate) fn analyse<'a>(
     let marginals: Vec<Option<&Vec<u64>>> =
         rows.rows.iter().map(|r| r.marginal.as_ref().filter(|_| r.shots > 0)).collect();
     let thresholds = crate::stats::RowThresholds::new(alpha, used.len());
-    let needs = requirements(&marginals, &predictions, &thresholds);
+    let needs = requirements(&marginals, &|i| &predictions[i], &thresholds, Spread::Parallel);
     let requirement = needs.iter().map(|n| n.score).collect();
     let deviation = needs.iter().map(|n| n.conditional).collect();
     Ok(Analysis {
@@ -294,6 +307,7 @@ pub(crate) fn analyse<'a>(
         fitted,
         warnings,
         templates,
+        refit_checks: (0..n_qubits).map(|_| OnceLock::new()).collect(),
     })
 }
 
@@ -333,45 +347,89 @@ fn model_row(block: &[QubitIx], row_steps: &[rows::Step], marginal: Vec<u64>) ->
     model::Row { steps, readout: block.to_vec(), counts: marginal }
 }
 
+/// Row i of a pass with the pass's counts (None for a row without counts).
+type RowOf<'a> = dyn Fn(usize) -> Result<Option<PreparedRow>> + Sync + 'a;
+
+/// How a pass spreads its work over the worker threads.
+#[derive(Clone, Copy, PartialEq)]
+enum Spread {
+    /// Over every worker thread (the point pass).
+    Parallel,
+    /// In order on the calling thread: replicates already run in parallel with each other,
+    /// and a replicate that waited for its own parallel parts would let its thread start
+    /// another replicate meanwhile, holding the buffers of both.
+    InOrder,
+}
+
+/// `f` of every item, in item order, spread as `spread` says.
+fn map_each<T: Sync, R: Send>(
+    items: &[T],
+    spread: Spread,
+    f: impl Fn(usize, &T) -> R + Sync + Send,
+) -> Vec<R> {
+    match spread {
+        Spread::Parallel => items.par_iter().enumerate().map(|(i, x)| f(i, x)).collect(),
+        Spread::InOrder => items.iter().enumerate().map(|(i, x)| f(i, x)).collect(),
+    }
+}
+
+/// Fits every qubit, then every coupler, on the rows `row` gives. `refit_checks`, when
+/// given, holds per qubit the identifiability check of its fit, shared by every pass with
+/// the same programs and shots per row.
 #[allow(clippy::too_many_arguments)]
 fn fit_model(
     layout: &Layout,
     rows: PassRows<'_>,
-    prepared: &[Option<PreparedRow>],
+    row: &RowOf,
     qubit_rows: &[Vec<usize>],
     coupler_rows: &[Vec<usize>],
     spec: &ModelSpec,
     progress: &dyn Progress,
     warnings: &mut Vec<Warning>,
     start: Option<&Params>,
+    refit_checks: Option<&[OnceLock<Option<StartCheck>>]>,
+    spread: Spread,
 ) -> Result<Fitted> {
     let options = FitOptions::default();
     // One default start for every qubit and coupler fit (each would otherwise build it for
     // every kind of the chip: quadratic in its size).
     let start = &*Params::given_or_initial(start, spec)?;
-    let select = |list: &[usize]| -> (Vec<PreparedRow>, bool) {
-        let reference: Vec<PreparedRow> = list
-            .iter()
-            .filter(|&&i| rows[i].is_reference)
-            .filter_map(|&i| prepared[i].clone())
-            .collect();
+    let select = |list: &[usize]| -> Result<(Vec<PreparedRow>, bool)> {
+        let mut reference = Vec::new();
+        for &i in list.iter().filter(|&&i| rows[i].is_reference) {
+            reference.extend(row(i)?);
+        }
         if reference.is_empty() {
-            (list.iter().filter_map(|&i| prepared[i].clone()).collect(), true)
+            let mut all = Vec::new();
+            for &i in list {
+                all.extend(row(i)?);
+            }
+            Ok((all, true))
         } else {
-            (reference, false)
+            Ok((reference, false))
         }
     };
     progress.stage("fitting qubits", qubit_rows.len() as u64);
     let qubit_fits = fit_each(
         qubit_rows,
         &select,
-        &|sel| model::fit_qubit(sel, spec, Some(start), &options),
+        &|q, sel| {
+            let known = refit_checks.and_then(|c| {
+                c[q].get_or_init(|| model::start_check(sel, start, Free::All, &options).ok())
+                    .as_ref()
+            });
+            model::fit_qubit_checked(sel, spec, Some(start), &options, known)
+        },
         progress,
+        spread,
+        true,
     )?;
     let mut params = start.clone();
     for (q, (fit, all)) in qubit_fits.iter().enumerate() {
         let Some(fit) = fit else { continue };
-        params.readout[q] = fit.params.readout[q];
+        if let Some(r) = fit.readout {
+            params.readout[q] = r;
+        }
         let who = format!("qubit {}", layout.id(q));
         let hint = "add circuits where this qubit runs while every neighbour idles";
         absorb(&mut params, fit, *all, &who, "its model", hint, warnings);
@@ -381,8 +439,10 @@ fn fit_model(
     let coupler_fits = fit_each(
         coupler_rows,
         &select,
-        &|sel| model::fit_coupler(sel, spec, &params, Some(start), &options),
+        &|_, sel| model::fit_coupler(sel, spec, &params, Some(start), &options),
         progress,
+        spread,
+        false,
     )?;
     for (c, (fit, all)) in coupler_fits.iter().enumerate() {
         let Some(fit) = fit else { continue };
@@ -393,10 +453,11 @@ fn fit_model(
     }
     let fitted_on_all_rows_qubits = qubit_fits.iter().map(|f| f.1).collect();
     let fitted_on_all_rows_couplers = coupler_fits.iter().map(|f| f.1).collect();
+    let result = |x: (Option<Slim>, bool)| x.0.map(|s| s.fit);
     Ok(Fitted {
         params,
-        qubit_fits: qubit_fits.into_iter().map(|x| x.0).collect(),
-        coupler_fits: coupler_fits.into_iter().map(|x| x.0).collect(),
+        qubit_fits: qubit_fits.into_iter().map(result).collect(),
+        coupler_fits: coupler_fits.into_iter().map(result).collect(),
         fitted_on_all_rows_qubits,
         fitted_on_all_rows_couplers,
     })
@@ -404,43 +465,67 @@ fn fit_model(
 
 /// Picks the rows to fit from a row list, and says whether they are all its rows for want of
 /// reference rows.
-type Select<'a> = dyn Fn(&[usize]) -> (Vec<PreparedRow>, bool) + Sync + 'a;
+type Select<'a> = dyn Fn(&[usize]) -> Result<(Vec<PreparedRow>, bool)> + Sync + 'a;
 
-/// One fit per row list (a qubit's or a coupler's), in parallel.
+/// A fit with its fitted values taken out of its parameter table, and the table emptied:
+/// it holds every kind of the chip, so keeping one per qubit and coupler fit grew with the
+/// square of the chip.
+struct Slim {
+    fit: FitResult,
+    /// The fitted kinds' channels, aligned with `fit.kinds`.
+    values: Vec<KindParams>,
+    /// The fitted readout of a qubit's own qubit.
+    readout: Option<Readout>,
+}
+
+impl Slim {
+    fn new(mut fit: FitResult, own_readout: Option<QubitIx>) -> Slim {
+        let values = fit.kinds.iter().map(|kf| fit.params.kinds[kf.kind].clone()).collect();
+        let readout = own_readout.and_then(|q| fit.params.readout.get(q).copied());
+        fit.params.kinds = Vec::new();
+        fit.params.readout = Vec::new();
+        Slim { fit, values, readout }
+    }
+}
+
+/// One fit per row list (a qubit's or a coupler's; `fit` is given the list's position,
+/// which is the qubit whose readout the fit sets when `qubits`).
 fn fit_each(
     lists: &[Vec<usize>],
     select: &Select,
-    fit: &(dyn Fn(&[PreparedRow]) -> Result<FitResult> + Sync),
+    fit: &(dyn Fn(usize, &[PreparedRow]) -> Result<FitResult> + Sync),
     progress: &dyn Progress,
-) -> Result<Vec<(Option<FitResult>, bool)>> {
-    lists
-        .par_iter()
-        .map(|list| {
-            let out = if list.is_empty() {
-                Ok((None, false))
-            } else {
-                let (sel, all) = select(list);
-                fit(&sel).map(|f| (Some(f), all))
-            };
-            progress.advance(1);
-            out
-        })
-        .collect()
+    spread: Spread,
+    qubits: bool,
+) -> Result<Vec<(Option<Slim>, bool)>> {
+    map_each(lists, spread, |at, list| {
+        let out = if list.is_empty() {
+            Ok((None, false))
+        } else {
+            let slim = |f| Slim::new(f, qubits.then_some(at));
+            select(list).and_then(|(sel, all)| fit(at, &sel).map(|f| (Some(slim(f)), all)))
+        };
+        progress.advance(1);
+        out
+    })
+    .into_iter()
+    .collect()
 }
 
 /// Takes a qubit's or a coupler's fitted kinds into the model and records its warnings,
 /// loudly when it had to be fitted on all its rows (method.md section 3).
 fn absorb(
     params: &mut Params,
-    fit: &FitResult,
+    slim: &Slim,
     all_rows: bool,
     who: &str,
     what: &str,
     hint: &str,
     warnings: &mut Vec<Warning>,
 ) {
-    for kf in &fit.kinds {
-        params.kinds[kf.kind] = fit.params.kinds[kf.kind].clone();
+    let fit = &slim.fit;
+    for (kf, v) in fit.kinds.iter().zip(&slim.values) {
+        params.kinds[kf.kind] = v.clone();
     }
     if all_rows {
         warnings.push(Warning::new(
@@ -462,7 +547,8 @@ fn prefix(w: Warning, who: &str) -> Warning {
 /// Solves the qubit problems, then the coupler problems with the qubit budgets fixed.
 pub(crate) fn solve_all<'t>(a: &'t Analysis, progress: &dyn Progress) -> Result<Solved<'t>> {
     let own = PassRows::own(&a.rows.rows);
-    solve_rows(a, own, &a.requirement, Some((&a.templates, Share::Never)), progress)
+    let templates = Some((&a.templates, Share::Never));
+    solve_rows(a, own, &a.requirement, templates, progress, Spread::Parallel)
 }
 
 /// Whether a pass may share a template for a problem in which no row requires anything.
@@ -495,6 +581,7 @@ fn solve_rows<'t>(
     requirement: &[f64],
     templates: Option<(&'t Templates, Share)>,
     progress: &dyn Progress,
+    spread: Spread,
 ) -> Result<Solved<'t>> {
     progress.stage("solving qubit budgets", a.qubit_rows.len() as u64);
     let none = |_: Budget| None;
@@ -506,6 +593,7 @@ fn solve_rows<'t>(
         requirement,
         &none,
         progress,
+        spread,
     )?;
     let kinds = &a.rows.kinds;
     let fixed = |b: Budget| -> Option<f64> {
@@ -521,6 +609,7 @@ fn solve_rows<'t>(
         requirement,
         &fixed,
         progress,
+        spread,
     )?;
     Ok(Solved { qubit, coupler })
 }
@@ -536,31 +625,30 @@ fn solve_each<'t>(
     requirement: &[f64],
     fixed: &(dyn Fn(Budget) -> Option<f64> + Sync),
     progress: &dyn Progress,
+    spread: Spread,
 ) -> Result<Vec<(Cow<'t, Problem>, TwoStageSolution)>> {
-    lists
-        .par_iter()
-        .enumerate()
-        .map(|(i, list)| {
-            let shared = match templates {
-                Some((t, Share::Unrequired)) => {
-                    t[i].solve_unrequired(requirement, fixed).map(|s| (Cow::Borrowed(&t[i]), s))
-                }
-                _ => None,
-            };
-            let out = match shared {
-                Some(done) => Ok(done),
-                None => {
-                    let p = match templates {
-                        Some((t, _)) => t[i].with_requirements(requirement, fixed),
-                        None => Problem::build(all, list.clone(), requirement, fixed),
-                    };
-                    p.lp.solve().map(|s| (Cow::Owned(p), s))
-                }
-            };
-            progress.advance(1);
-            out
-        })
-        .collect()
+    map_each(lists, spread, |i, list| {
+        let shared = match templates {
+            Some((t, Share::Unrequired)) => {
+                t[i].solve_unrequired(requirement, fixed).map(|s| (Cow::Borrowed(&t[i]), s))
+            }
+            _ => None,
+        };
+        let out = match shared {
+            Some(done) => Ok(done),
+            None => {
+                let p = match templates {
+                    Some((t, _)) => t[i].with_requirements(requirement, fixed),
+                    None => Problem::build(all, list.clone(), requirement, fixed),
+                };
+                p.lp.solve().map(|s| (Cow::Owned(p), s))
+            }
+        };
+        progress.advance(1);
+        out
+    })
+    .into_iter()
+    .collect()
 }
 
 /// Row slack of every analysis row under the solved budgets (0 for rows without counts).
@@ -610,69 +698,76 @@ pub(crate) struct Resampled {
 /// Directed scores (in `scorer`'s pair order) and intrinsic slack per kind (indexed by
 /// kind) of a resampled data set: refit from the point estimate when `refit` (a few
 /// Newton steps; PreparedRow programs are reused), recompute requirements, solve both
-/// stages.
+/// stages. Runs on the calling thread: replicates run in parallel with each other. The
+/// data set is dropped once the requirements are known.
 pub(crate) fn rescore(
     a: &Analysis,
-    data: &Resampled,
+    data: Resampled,
     refit: bool,
     with_estimate: bool,
     scorer: &Scorer,
     progress: &dyn Progress,
 ) -> Result<Rescored> {
     let quiet = Nested(progress);
-    let n = a.rows.rows.len();
     let src = |i: usize| data.source.as_ref().map_or(i, |s| s[i]);
     let all = PassRows::resampled(&a.rows.rows, data.source.as_deref());
-    // Without a refit on the original rows the model's predictions are already known, so
-    // the rows need no recompiling (the parametric null's case).
-    let needs_model = refit || data.source.is_some();
-    let prepared: Vec<Option<PreparedRow>> = if needs_model {
-        (0..n)
-            .into_par_iter()
-            .map(|i| match (&data.counts[i], &a.prepared[src(i)]) {
-                (Some(c), Some(p)) => p.with_counts(c.clone()).map(Some),
-                _ => Ok(None),
-            })
-            .collect::<Result<_>>()?
-    } else {
-        Vec::new()
+    // Row i with the replicate's counts, made only for the rows a fit reads.
+    let row = |i: usize| -> Result<Option<PreparedRow>> {
+        match (&data.counts[i], &a.prepared[src(i)]) {
+            (Some(c), Some(p)) => p.with_counts(c.clone()).map(Some),
+            _ => Ok(None),
+        }
     };
-    let params = if refit {
+    // A predicted distribution reads a row's program, not its counts: every analysis row
+    // is predicted once under the pass's model, and a row that takes another's program
+    // takes its prediction. Without a refit the model is the point estimate's.
+    let mut computed: Vec<Vec<f64>> = Vec::new();
+    let predictions: &[Vec<f64>] = if refit {
+        // Shot resampling keeps every row's program and shots: the qubits' identifiability
+        // checks are those of the first such replicate.
+        let checks = data.source.is_none().then_some(&a.refit_checks[..]);
         let mut ignored = Vec::new();
-        fit_model(
+        let params = fit_model(
             a.layout,
             all,
-            &prepared,
+            &row,
             &a.qubit_rows,
             &a.coupler_rows,
             &a.spec,
             &quiet,
             &mut ignored,
             Some(&a.fitted.params),
+            checks,
+            Spread::InOrder,
         )?
-        .params
-    } else {
-        a.fitted.params.clone()
-    };
-    check_cancel(progress)?;
-    let computed: Vec<Vec<f64>>;
-    let predictions: &[Vec<f64>] = if !needs_model {
-        &a.predictions
-    } else {
-        computed = model::predict::predict_rows(&prepared, &params);
+        .params;
+        check_cancel(progress)?;
+        computed = model::predict::predict_each(&a.prepared, &params, false);
         &computed
+    } else {
+        &a.predictions
     };
     let marginals: Vec<Option<&Vec<u64>>> =
         data.counts.iter().map(|m| m.as_ref().filter(|m| m.iter().sum::<u64>() > 0)).collect();
-    let needs = requirements(&marginals, predictions, &a.thresholds);
+    let needs = requirements(&marginals, &|i| &predictions[src(i)], &a.thresholds, Spread::InOrder);
+    // The counts and predictions are not read again: the covering problems that follow
+    // need the memory more.
+    drop(marginals);
+    drop(computed);
+    let Resampled { source, counts } = data;
+    drop(counts);
+    let source = source.as_deref();
+    let all = PassRows::resampled(&a.rows.rows, source);
     let need = |f: fn(&RowNeeds) -> f64| -> Vec<f64> { needs.iter().map(f).collect() };
-    let source = data.source.as_deref();
-    let (directed, intrinsic) = scores_of(a, all, source, &need(|n| n.score), scorer, &quiet)?;
+    let in_order = Spread::InOrder;
+    let (directed, intrinsic) =
+        scores_of(a, all, source, &need(|n| n.score), scorer, &quiet, in_order)?;
     check_cancel(progress)?;
     let (estimate, lower) = if with_estimate {
-        let estimate = scores_of(a, all, source, &need(|n| n.noncentral), scorer, &quiet)?;
+        let estimate =
+            scores_of(a, all, source, &need(|n| n.noncentral), scorer, &quiet, in_order)?;
         check_cancel(progress)?;
-        let lower = scores_of(a, all, source, &need(|n| n.shrunk), scorer, &quiet)?;
+        let lower = scores_of(a, all, source, &need(|n| n.shrunk), scorer, &quiet, in_order)?;
         (Some(estimate), Some(lower))
     } else {
         (None, None)
@@ -689,10 +784,11 @@ fn scores_of(
     requirement: &[f64],
     scorer: &Scorer,
     progress: &dyn Progress,
+    spread: Spread,
 ) -> Result<(Vec<f64>, Vec<f64>)> {
     // The point pass's problems hold exactly when the rows are the analysis' own.
     let templates = all.is_own().then_some((&a.templates, Share::Unrequired));
-    let solved = solve_rows(a, all, requirement, templates, progress)?;
+    let solved = solve_rows(a, all, requirement, templates, progress, spread)?;
     let directed = scorer(a, all, source, &solved);
     let intrinsic =
         (0..a.rows.kinds.len() as u32).map(|k| intrinsic_slack(a, &solved, k)).collect();
@@ -706,7 +802,8 @@ pub(crate) fn estimate(
     scorer: &Scorer,
     progress: &dyn Progress,
 ) -> Result<(Vec<f64>, Vec<f64>)> {
-    scores_of(a, PassRows::own(&a.rows.rows), None, &a.deviation, scorer, &Nested(progress))
+    let own = PassRows::own(&a.rows.rows);
+    scores_of(a, own, None, &a.deviation, scorer, &Nested(progress), Spread::Parallel)
 }
 
 /// Scores of one rescoring: directed scores in `scorer`'s pair order and intrinsic slack
@@ -721,24 +818,20 @@ pub(crate) struct Rescored {
 }
 
 /// Row requirements and deviation requirements ([`RowNeeds`], method.md section 4) of rows
-/// with these counts, under the Bonferroni thresholds `thresholds`; zero for rows without
-/// counts.
-fn requirements(
+/// with these counts and predictions `prediction(i)`, under the Bonferroni thresholds
+/// `thresholds`; zero for rows without counts.
+fn requirements<'p>(
     marginals: &[Option<&Vec<u64>>],
-    predictions: &[Vec<f64>],
+    prediction: &(dyn Fn(usize) -> &'p Vec<f64> + Sync),
     thresholds: &crate::stats::RowThresholds,
+    spread: Spread,
 ) -> Vec<RowNeeds> {
-    (0..marginals.len())
-        .into_par_iter()
-        .map(|i| match marginals[i] {
-            Some(m) => crate::slack::requirement::row_needs(
-                &predictions[i],
-                m,
-                thresholds.of_outcomes(m.len()),
-            ),
-            None => RowNeeds::default(),
-        })
-        .collect()
+    map_each(marginals, spread, |i, m| match m {
+        Some(m) => {
+            crate::slack::requirement::row_needs(prediction(i), m, thresholds.of_outcomes(m.len()))
+        }
+        None => RowNeeds::default(),
+    })
 }
 
 /// Intrinsic slack omega_k of kind `k` in a solution (0 when the kind has no problem).
