@@ -255,16 +255,50 @@ fn measured_apart(a: &Analysis, gates: &GateIndex, victim: Unit) -> BTreeSet<Uni
         if !few {
             continue;
         }
-        let terms = view_terms(a, gates, victim, row, row.circuit as usize);
-        let present = row_aggressors(&terms);
-        for (k, x) in terms.iter().filter_map(|&(b, _)| charged(b)) {
+        let (present, mine) = charged_units(a, gates, victim, row);
+        for &x in &mine {
             let wanted = !matches!((victim, x), (Unit::Qubit(_), Unit::Qubit(_)));
-            if wanted && own(a, victim, k) && present.iter().all(|&y| x.holds(y, a.layout)) {
+            if wanted && present.iter().all(|&y| x.holds(y, a.layout)) {
                 listed.insert(x);
             }
         }
     }
     listed
+}
+
+/// The units that [`view_terms`] charges in `row` (its program from the row's own circuit):
+/// every charged unit, and those charged on the victim's own operations. The same sets as
+/// the terms give, without building them: [`measured_apart`] reads nothing else, and it
+/// looks at every occurrence of every row once.
+fn charged_units(
+    a: &Analysis,
+    gates: &GateIndex,
+    victim: Unit,
+    row: &Row,
+) -> (Vec<Unit>, Vec<Unit>) {
+    let add = |set: &mut Vec<Unit>, u: Unit| {
+        if !set.contains(&u) {
+            set.push(u);
+        }
+    };
+    let mut present: Vec<Unit> = Vec::new();
+    let mut mine: Vec<Unit> = Vec::new();
+    for &((k, r), _) in &row.context_counts {
+        if !own(a, victim, k) {
+            add(&mut present, Unit::Qubit(r));
+        }
+    }
+    for o in row.occurrences.iter().filter(|o| own(a, victim, o.kind)) {
+        for &r in row.aggressors(o) {
+            let u = match gates.gate_on(row.circuit as usize, o.layer, r) {
+                Some(d) => Unit::Coupler(d),
+                None => Unit::Qubit(r),
+            };
+            add(&mut present, u);
+            add(&mut mine, u);
+        }
+    }
+    (present, mine)
 }
 
 /// The gate view of one victim, built over `all` (row i holds the program of analysis row
