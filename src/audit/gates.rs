@@ -159,20 +159,28 @@ fn view_terms(
             .filter(|e| !own(a, victim, e.0 .0))
             .map(|&((k, r), c)| (Budget::Context(k, r), c as f64)),
     );
-    let mut mine: BTreeMap<Budget, u32> = BTreeMap::new();
+    // A row charges few distinct (kind, unit) budgets: a short list searched in place, sorted
+    // at the end (the order a map would give), instead of a tree per row.
+    let mut mine: Vec<(Budget, u32)> = Vec::new();
+    let mut add = |b: Budget| match mine.iter_mut().find(|e| e.0 == b) {
+        Some(e) => e.1 += 1,
+        None => mine.push((b, 1)),
+    };
+    let mut seen: Vec<usize> = Vec::new();
     for o in row.occurrences.iter().filter(|o| own(a, victim, o.kind)) {
-        let mut seen: Vec<usize> = Vec::new();
+        seen.clear();
         for &r in row.aggressors(o) {
             match gates.gate_on(circuit, o.layer, r) {
                 Some(d) if !seen.contains(&d) => {
                     seen.push(d);
-                    *mine.entry(Budget::GateContext(o.kind, d)).or_default() += 1;
+                    add(Budget::GateContext(o.kind, d));
                 }
                 Some(_) => {}
-                None => *mine.entry(Budget::Context(o.kind, r)).or_default() += 1,
+                None => add(Budget::Context(o.kind, r)),
             }
         }
     }
+    mine.sort_unstable_by_key(|x| x.0);
     t.extend(mine.into_iter().map(|(b, c)| (b, c as f64)));
     t
 }
