@@ -122,7 +122,7 @@ pub struct ReplicateScores {
     pub intrinsic_tvd_per_occurrence: Vec<f64>,
     /// Unlimited-shot estimates aligned with the report's `directed`, TVD per layer, under
     /// each row's `noncentral` need, which sets the intervals' upper ends (the point estimate
-    /// takes the `conditional` need: [`crate::slack::requirement::RowNeeds`]).
+    /// takes the conditional need: [`crate::slack::requirement::conditional_need`]).
     pub directed_estimate_tvd_per_layer: Vec<f64>,
     /// Intrinsic estimates aligned with the report's `intrinsic`, TVD per occurrence.
     pub intrinsic_estimate_tvd_per_occurrence: Vec<f64>,

@@ -96,7 +96,7 @@ pub(crate) struct Analysis<'a> {
     pub predictions: Vec<Vec<f64>>,
     pub requirement: Vec<f64>,
     /// Deviation requirements of the unlimited-shot estimate, aligned with `requirement`
-    /// (`conditional` of [`crate::slack::requirement::RowNeeds`]).
+    /// ([`crate::slack::requirement::conditional_need`]).
     pub deviation: Vec<f64>,
     /// 1q rows per qubit and 2q rows per coupler (global indices).
     pub qubit_rows: Vec<Vec<usize>>,
@@ -288,7 +288,18 @@ pub(crate) fn analyse<'a>(
     let thresholds = crate::stats::RowThresholds::new(alpha, used.len());
     let needs = requirements(&marginals, &|i| &predictions[i], &thresholds, Spread::Parallel);
     let requirement = needs.iter().map(|n| n.score).collect();
-    let deviation = needs.iter().map(|n| n.conditional).collect();
+    let deviation = (0..rows.rows.len())
+        .into_par_iter()
+        .map(|i| match marginals[i] {
+            Some(m) => crate::slack::requirement::conditional_need(
+                &predictions[i],
+                m,
+                thresholds.of_outcomes(m.len()),
+                needs[i].score,
+            ),
+            None => 0.0,
+        })
+        .collect();
     Ok(Analysis {
         layout,
         circuits,
@@ -808,7 +819,7 @@ pub(crate) fn estimate(
 
 /// Scores of one rescoring: directed scores in `scorer`'s pair order and intrinsic slack
 /// per kind, and the same for the interval's upper end (under the `noncentral` needs of
-/// [`RowNeeds`]; the point estimate's `conditional` needs run wider in replicates, see
+/// [`RowNeeds`]; the point estimate's conditional needs run wider in replicates, see
 /// DEVELOPERS.md, "Intervals") and its lower end (under the `shrunk` needs) when asked for.
 pub(crate) struct Rescored {
     pub directed: Vec<f64>,

@@ -24,22 +24,17 @@ pub fn requirement(p: &[f64], n: &[u64], threshold: f64) -> f64 {
 }
 
 /// A row's requirements (method.md section 4): `score` is d_row at the threshold T; the
-/// three deviations are the estimates' per-row needs, zero where d_row is zero, else the
-/// whole deviation TVD(p, f) scaled to the share of it thought to be signal. LLR(0) is about
-/// N times a squared distance, signal (the noncentrality lambda) and shot noise adding, so a
+/// deviations are the estimates' per-row needs, zero where d_row is zero, else the whole
+/// deviation TVD(p, f) scaled to the share of it thought to be signal. LLR(0) is about N
+/// times a squared distance, signal (the noncentrality lambda) and shot noise adding, so a
 /// distance scales as the square root of the signal's share of LLR(0):
-/// - `conditional` = TVD sqrt(lambda / LLR(0)), the point estimate's, with lambda the
-///   noncentrality's maximum-likelihood estimate conditional on the row having passed T
-///   ([`crate::stats::truncated_noncentrality`]): a row is asked for slack only because it
-///   passed, so near T its LLR(0) is mostly selected noise (lambda is zero at T), while far
-///   above T the selection no longer matters (lambda reaches LLR(0));
 /// - `noncentral` = TVD sqrt(1 - T / LLR(0)), the interval's upper end's: the threshold's
 ///   whole share taken out, zero at T and still shrinking rows well above it;
 /// - `shrunk` = TVD (1 - T / LLR(0)), the interval's lower end's: shrinking harder still.
 ///
-/// Each is at least `score`, and `shrunk <= noncentral <= conditional` when the
-/// conditional lambda reaches LLR(0) - T (it does from a little above T). Why the estimate
-/// and the interval's two ends take different needs: DEVELOPERS.md, "Intervals".
+/// The point estimate's need, [`conditional_need`], is made only in the point pass. Each is
+/// at least `score`. Why the estimate and the interval's two ends take different needs:
+/// DEVELOPERS.md, "Intervals".
 #[derive(Clone, Copy, Debug, Default, PartialEq)]
 pub struct RowNeeds {
     /// d_row, the score's need.
@@ -48,8 +43,6 @@ pub struct RowNeeds {
     pub shrunk: f64,
     /// TVD sqrt(1 - T / LLR(0)), the need of the interval's upper end.
     pub noncentral: f64,
-    /// TVD sqrt(lambda / LLR(0)), lambda conditional on passing T: the estimate's need.
-    pub conditional: f64,
 }
 
 /// The [`RowNeeds`] of a row with prediction `p`, counts `n` and LLR threshold `threshold`.
@@ -62,20 +55,35 @@ pub fn row_needs(p: &[f64], n: &[u64], threshold: f64) -> RowNeeds {
     if d <= 0.0 {
         return RowNeeds::default();
     }
-    let tvd = wk.tvd_to_frequencies();
-    let llr0 = wk.llr(0.0);
-    let (keep, signal) = if llr0.is_finite() && llr0 > 0.0 {
-        let lambda = crate::stats::truncated_noncentrality(llr0, p.len() - 1, threshold);
-        ((1.0 - threshold / llr0).max(0.0), (lambda / llr0).min(1.0))
-    } else {
-        (1.0, 1.0)
-    };
-    RowNeeds {
-        score: d,
-        shrunk: (tvd * keep).max(d),
-        noncentral: (tvd * keep.sqrt()).max(d),
-        conditional: (tvd * signal.sqrt()).max(d),
+    let (tvd, llr0) = deviation(&wk);
+    let keep = llr0.map_or(1.0, |l| (1.0 - threshold / l).max(0.0));
+    RowNeeds { score: d, shrunk: (tvd * keep).max(d), noncentral: (tvd * keep.sqrt()).max(d) }
+}
+
+/// The point estimate's need of a row whose score need is `score` (its [`RowNeeds`] at the
+/// same `threshold`): TVD sqrt(lambda / LLR(0)), with lambda the noncentrality's maximum-
+/// likelihood estimate conditional on the row having passed T
+/// ([`crate::stats::truncated_noncentrality`]). A row is asked for slack only because it
+/// passed, so near T its LLR(0) is mostly selected noise (lambda is zero at T), while far
+/// above T the selection no longer matters (lambda reaches LLR(0)). Zero where `score` is.
+///
+/// # Panics
+/// When `p` and `n` differ in length.
+pub fn conditional_need(p: &[f64], n: &[u64], threshold: f64, score: f64) -> f64 {
+    if score <= 0.0 {
+        return 0.0;
     }
+    let (tvd, llr0) = deviation(&Weakening::new(p, n));
+    let signal = llr0.map_or(1.0, |l| {
+        (crate::stats::truncated_noncentrality(l, p.len() - 1, threshold) / l).min(1.0)
+    });
+    (tvd * signal.sqrt()).max(score)
+}
+
+/// TVD(p, f) of a row and its LLR(0) where that is finite and positive.
+fn deviation(wk: &Weakening) -> (f64, Option<f64>) {
+    let llr0 = wk.llr(0.0);
+    (wk.tvd_to_frequencies(), (llr0.is_finite() && llr0 > 0.0).then_some(llr0))
 }
 
 /// The least shift `delta` of probability from outcome probability `p_top` to the other
@@ -169,8 +177,9 @@ mod tests {
     #[test]
     fn deviation_requirement_is_the_shrunk_tvd_on_failing_rows_only() {
         let t = 3.841;
-        let RowNeeds { score: d, shrunk: full, noncentral, conditional } =
+        let RowNeeds { score: d, shrunk: full, noncentral } =
             row_needs(&[0.5, 0.5], &[600, 400], t);
+        let conditional = conditional_need(&[0.5, 0.5], &[600, 400], t, d);
         assert!((d - 0.069_411_003_914_4).abs() < 1e-11);
         // TVD 0.1 shrunk by 1 - T / LLR(0), LLR(0) = 2 [600 ln 1.2 + 400 ln 0.8].
         let llr0 = 2.0 * (600.0 * 1.2f64.ln() + 400.0 * 0.8f64.ln());
