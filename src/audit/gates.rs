@@ -162,10 +162,26 @@ fn view_terms(
     // A row charges few distinct (kind, unit) budgets: a short list searched in place, sorted
     // at the end (the order a map would give), instead of a tree per row.
     let mut mine: Vec<(Budget, u32)> = Vec::new();
-    let mut add = |b: Budget| match mine.iter_mut().find(|e| e.0 == b) {
+    own_charges(a, gates, victim, row, circuit, |b| match mine.iter_mut().find(|e| e.0 == b) {
         Some(e) => e.1 += 1,
         None => mine.push((b, 1)),
-    };
+    });
+    mine.sort_unstable_by_key(|x| x.0);
+    t.extend(mine.into_iter().map(|(b, c)| (b, c as f64)));
+    t
+}
+
+/// Each budget that an occurrence of the victim's own operations in `row` charges (program
+/// of circuit `circuit`): per aggressor, the gate it runs in that layer (once per gate and
+/// occurrence), or the aggressor qubit itself.
+fn own_charges(
+    a: &Analysis,
+    gates: &GateIndex,
+    victim: Unit,
+    row: &Row,
+    circuit: usize,
+    mut charge: impl FnMut(Budget),
+) {
     let mut seen: Vec<usize> = Vec::new();
     for o in row.occurrences.iter().filter(|o| own(a, victim, o.kind)) {
         seen.clear();
@@ -173,16 +189,13 @@ fn view_terms(
             match gates.gate_on(circuit, o.layer, r) {
                 Some(d) if !seen.contains(&d) => {
                     seen.push(d);
-                    add(Budget::GateContext(o.kind, d));
+                    charge(Budget::GateContext(o.kind, d));
                 }
                 Some(_) => {}
-                None => add(Budget::Context(o.kind, r)),
+                None => charge(Budget::Context(o.kind, r)),
             }
         }
     }
-    mine.sort_unstable_by_key(|x| x.0);
-    t.extend(mine.into_iter().map(|(b, c)| (b, c as f64)));
-    t
 }
 
 /// A victim whose gate view lists some direction, and the aggressors listed, sorted
@@ -296,16 +309,11 @@ fn charged_units(
             add(&mut present, Unit::Qubit(r));
         }
     }
-    for o in row.occurrences.iter().filter(|o| own(a, victim, o.kind)) {
-        for &r in row.aggressors(o) {
-            let u = match gates.gate_on(row.circuit as usize, o.layer, r) {
-                Some(d) => Unit::Coupler(d),
-                None => Unit::Qubit(r),
-            };
-            add(&mut present, u);
-            add(&mut mine, u);
-        }
-    }
+    own_charges(a, gates, victim, row, row.circuit as usize, |b| {
+        let (_, u) = charged(b).expect("own charges are context budgets");
+        add(&mut present, u);
+        add(&mut mine, u);
+    });
     (present, mine)
 }
 
