@@ -556,7 +556,8 @@ pub fn fit_checked(
             &computed
         }
     };
-    let StartCheck { eigenvalues: eig0, basis, identified, rank, .. } = check.clone();
+    let StartCheck { eigenvalues: eig0, basis, identified, rank, .. } = check;
+    let rank = *rank;
 
     let mut x = coords.get(&params);
     let mut cur = evaluate(rows, &params, &coords);
@@ -581,8 +582,8 @@ pub fn fit_checked(
         // outward gradient on the active rates, small Newton decrement elsewhere.
         let active: Vec<usize> =
             (0..n).filter(|&i| coords.bounded[i] && x[i] <= AT_BOUND && g[i] <= 0.0).collect();
-        let z = free_directions(&basis, &active);
-        let a = z.transpose() * basis.transpose() * &f * &basis * &z;
+        let z = free_directions(basis, &active);
+        let a = z.transpose() * basis.transpose() * &f * basis * &z;
         let b = z.transpose() * basis.transpose() * &g;
         let (av, avec) = sorted_eigen(&a);
         let amax = av.first().copied().unwrap_or(0.0).max(f64::MIN_POSITIVE);
@@ -590,7 +591,7 @@ pub fn fit_checked(
             .filter(|&i| av[i] > 1e-14 * amax)
             .map(|i| avec.column(i).dot(&b).powi(2) / av[i])
             .sum();
-        last_info = Some(basis.transpose() * &f * &basis);
+        last_info = Some(basis.transpose() * &f * basis);
         if 0.5 * decrement < options.tolerance {
             converged = true;
             break;
@@ -609,7 +610,7 @@ pub fn fit_checked(
             };
             // The trial point is built in natural coordinates: a linearised raw step
             // near a bound would change a rate only by a constant factor per step.
-            let step_nat = &basis * (&z * step_red);
+            let step_nat = basis * (&z * step_red);
             let Some(trial) = coords.with_natural(&params, &(&natural + step_nat)) else {
                 mu *= 10.0;
                 if mu > 1e12 {
@@ -654,14 +655,14 @@ pub fn fit_checked(
     // Standard errors on the identified directions at the final point.
     let s = coords.natural_jacobian(&params);
     let info = match to_natural(&cur.fisher, &cur.grad, &s) {
-        Some((f, _, _)) => basis.transpose() * f * &basis,
+        Some((f, _, _)) => basis.transpose() * f * basis,
         None => last_info.unwrap_or_else(|| DMatrix::zeros(rank, rank)),
     };
     let cov_red = info
         .clone()
         .pseudo_inverse(1e-14 * info.amax().max(f64::MIN_POSITIVE))
         .unwrap_or_else(|_| DMatrix::zeros(rank, rank));
-    let cov = &basis * cov_red * basis.transpose();
+    let cov = basis * cov_red * basis.transpose();
     let se = |i: usize| identified[i].then(|| cov[(i, i)].max(0.0).sqrt());
 
     let mut kinds = Vec::new();
@@ -713,7 +714,7 @@ pub fn fit_checked(
         log_likelihood: cur.ll,
         n_free: n,
         n_identified: rank,
-        fisher_eigenvalues: eig0,
+        fisher_eigenvalues: eig0.clone(),
         iterations,
         converged,
         warnings,
