@@ -172,22 +172,7 @@ impl<R: Read> Read for LineCapped<R> {
 /// `None` on a read error (the callers then read the file again their ordinary way, which
 /// reports it).
 pub(crate) fn read_block(file: &mut File, buf: &mut Vec<u8>, block: usize) -> Option<usize> {
-    let at = buf.len();
-    buf.resize(at + block, 0);
-    let mut got = 0;
-    while got < block {
-        match file.read(&mut buf[at + got..]) {
-            Ok(0) => break,
-            Ok(n) => got += n,
-            Err(e) if e.kind() == std::io::ErrorKind::Interrupted => {}
-            Err(_) => {
-                buf.truncate(at + got);
-                return None;
-            }
-        }
-    }
-    buf.truncate(at + got);
-    Some(got)
+    file.take(block as u64).read_to_end(buf).ok()
 }
 
 /// A byte count for messages: `64 MiB`, `16 GiB`, `512 bytes`.

@@ -220,12 +220,6 @@ enum Prepared {
     Row { line: usize, ci: usize, key: Key, value: u64 },
 }
 
-/// An outcome packed as [`OutcomeRows`] keys it.
-enum Key {
-    Packed(u64),
-    Wide(Outcome),
-}
-
 /// Reads a CSV counts file `block` bytes at a time (up to the last whole line), checks and packs each block's
 /// lines in parallel, and adds them to the counts in file order. `None` whenever the file is
 /// not one this reading is sure to read as [`read_csv`] does (a quote or a carriage return
@@ -425,6 +419,23 @@ enum OutcomeRows {
     Wide(WordMap<Outcome>),
 }
 
+/// An outcome packed as [`OutcomeRows`] keys it: the word itself up to 64 measured qubits.
+enum Key {
+    Packed(u64),
+    Wide(Outcome),
+}
+
+impl Key {
+    /// The key of an outcome of `n` measured qubits, bit i the i-th of `bits`.
+    fn of(bits: impl Iterator<Item = bool>, n: usize) -> Key {
+        if n <= 64 {
+            Key::Packed(bits.enumerate().fold(0u64, |w, (i, b)| w | ((b as u64) << i)))
+        } else {
+            Key::Wide(packed(bits, n))
+        }
+    }
+}
+
 impl OutcomeRows {
     fn new(n_measured: usize) -> OutcomeRows {
         if n_measured <= 64 {
@@ -435,24 +446,20 @@ impl OutcomeRows {
     }
 
     /// Inserts; false when the outcome was already there.
-    fn insert(&mut self, bits: impl Iterator<Item = bool>, n: usize, count: u64) -> bool {
-        match self {
-            OutcomeRows::Packed(m) => {
-                let word = bits.enumerate().fold(0u64, |w, (i, b)| w | ((b as u64) << i));
-                m.insert(word, count).is_none()
-            }
-            OutcomeRows::Wide(m) => m.insert(packed(bits, n), count).is_none(),
+    fn insert(&mut self, key: Key, count: u64) -> bool {
+        match (self, key) {
+            (OutcomeRows::Packed(m), Key::Packed(w)) => m.insert(w, count).is_none(),
+            (OutcomeRows::Wide(m), Key::Wide(o)) => m.insert(o, count).is_none(),
+            _ => unreachable!("a key is packed for its circuit's width"),
         }
     }
 
     /// Adds one to an outcome's count.
-    fn increment(&mut self, bits: impl Iterator<Item = bool>, n: usize) {
-        match self {
-            OutcomeRows::Packed(m) => {
-                let word = bits.enumerate().fold(0u64, |w, (i, b)| w | ((b as u64) << i));
-                *m.entry(word).or_default() += 1;
-            }
-            OutcomeRows::Wide(m) => *m.entry(packed(bits, n)).or_default() += 1,
+    fn increment(&mut self, key: Key) {
+        match (self, key) {
+            (OutcomeRows::Packed(m), Key::Packed(w)) => *m.entry(w).or_default() += 1,
+            (OutcomeRows::Wide(m), Key::Wide(o)) => *m.entry(o).or_default() += 1,
+            _ => unreachable!("a key is packed for its circuit's width"),
         }
     }
 
@@ -538,6 +545,13 @@ impl<'a> Accumulator<'a> {
         Error::input(self.path, line, message)
     }
 
+    /// The key of a checked bitstring (one byte per measured qubit), in the file's bit order.
+    fn key(&self, bytes: &[u8]) -> Key {
+        let n = bytes.len();
+        let reversed = self.reversed;
+        Key::of((0..n).map(|i| bytes[if reversed { n - 1 - i } else { i }] == b'1'), n)
+    }
+
     /// One data line of a CSV counts file checked and packed as [`read_csv`] and
     /// [`Accumulator::add`] would take it, without the reader's state; `None` where either
     /// would fail or where the line's circuit has more than one row per shot to add.
@@ -561,27 +575,14 @@ impl<'a> Accumulator<'a> {
         if bytes.len() != n || bytes.iter().any(|&b| b != b'0' && b != b'1') {
             return None;
         }
-        let reversed = self.reversed;
-        let bits = (0..n).map(|i| bytes[if reversed { n - 1 - i } else { i }] == b'1');
-        let key = if n <= 64 {
-            Key::Packed(bits.enumerate().fold(0u64, |w, (i, b)| w | ((b as u64) << i)))
-        } else {
-            Key::Wide(packed(bits, n))
-        };
-        Some(Prepared::Row { line, ci, key, value })
+        Some(Prepared::Row { line, ci, key: self.key(bytes), value })
     }
 
     /// Adds a prepared row as [`Accumulator::circuit`] and [`Accumulator::add`] do; `None`
     /// where they would fail (a repeated outcome, a total past 64 bits).
     fn commit(&mut self, line: usize, ci: usize, key: Key, value: u64) -> Option<()> {
         self.mark(Some(line), ci);
-        let rows = self.maps[ci].as_mut()?;
-        let fresh = match (rows, key) {
-            (OutcomeRows::Packed(m), Key::Packed(w)) => m.insert(w, value).is_none(),
-            (OutcomeRows::Wide(m), Key::Wide(o)) => m.insert(o, value).is_none(),
-            _ => return None,
-        };
-        if !fresh {
+        if !self.maps[ci].as_mut()?.insert(key, value) {
             return None;
         }
         if self.shots.is_none() {
@@ -695,12 +696,11 @@ impl<'a> Accumulator<'a> {
                 ),
             ));
         }
-        let reversed = self.reversed;
-        let bit = |i: usize| bytes[if reversed { n - 1 - i } else { i }] == b'1';
+        let key = self.key(bytes);
         let rows = self.maps[ci].get_or_insert_with(|| OutcomeRows::new(n));
         if accumulate {
-            rows.increment((0..n).map(bit), n);
-        } else if !rows.insert((0..n).map(bit), n, count) {
+            rows.increment(key);
+        } else if !rows.insert(key, count) {
             return Err(Error::input(
                 self.path,
                 line,
