@@ -370,7 +370,6 @@ fn circuit_rows(
             measured_at[q] = i;
         }
     }
-    let mut rows = Vec::new();
     // Scratch reused across the circuit's blocks; each row keeps exact-size copies.
     let mut steps: Vec<Step> = Vec::new();
     let mut occurrences: Vec<Occurrence> = Vec::new();
@@ -397,6 +396,7 @@ fn circuit_rows(
         None => vec![None; blocks.len()],
     };
     let shots = counts.map_or(0, |k| k.shots());
+    let mut rows = Vec::with_capacity(blocks.len());
     for (bi, block) in blocks.into_iter().enumerate() {
         let positions: Vec<usize> = positions_of[bi].take().ok_or_else(|| {
             Error::circuit(&c.id, "a two-qubit gate joins a measured qubit to an unmeasured one")

@@ -290,9 +290,12 @@ impl PreparedRow {
         // The ideal layers in time order; segment i (the layers before error channel i, and
         // after the last one) starts at bounds[i]. Multiplied out only when the row cannot
         // be kept as Pauli paths.
-        let mut segs: Vec<(usize, Place)> = Vec::new();
-        let mut layers: Vec<Rc<LayerPtm>> = Vec::new();
-        let mut bounds: Vec<usize> = vec![0];
+        // Sized once: these grew one push at a time, a twentieth of preparing the rows.
+        let steps = row.steps.len();
+        let mut segs: Vec<(usize, Place)> = Vec::with_capacity(2 * steps);
+        let mut layers: Vec<Rc<LayerPtm>> = Vec::with_capacity(steps);
+        let mut bounds: Vec<usize> = Vec::with_capacity(2 * steps + 1);
+        bounds.push(0);
         let (mut ideal, mut next) = (r0.clone(), DVector::zeros(dim));
         let mut push = |k: KindIx, place: Place, at: usize, segs: &mut Vec<(usize, Place)>| {
             let local = match kinds.iter().position(|&x| x == k) {
