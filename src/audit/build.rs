@@ -305,18 +305,14 @@ pub(crate) fn report(
     }
     dof_all -= n_ident as f64;
 
-    let mut shots: Vec<u64> = a
-        .circuits
-        .circuits
-        .iter()
-        .enumerate()
-        .filter_map(|(c, _)| {
-            a.used
-                .iter()
-                .find(|&&i| a.rows.rows[i].circuit as usize == c)
-                .map(|&i| a.rows.rows[i].shots)
-        })
-        .collect();
+    // Per circuit, the shots of its first used row (one pass: a search of the used rows
+    // per circuit was quadratic, seconds on a thousand-qubit chip).
+    let mut first_used: Vec<Option<u64>> = vec![None; a.circuits.circuits.len()];
+    for &i in &a.used {
+        let row = &a.rows.rows[i];
+        first_used[row.circuit as usize].get_or_insert(row.shots);
+    }
+    let mut shots: Vec<u64> = first_used.into_iter().flatten().collect();
     let circuits_with_counts = shots.len();
     let shots_total = shots.iter().sum();
     let shots_min = shots.iter().copied().min().unwrap_or(0);
