@@ -76,15 +76,22 @@ fn charged(b: Budget) -> Option<(KindIx, Unit)> {
     }
 }
 
-/// Per circuit, the two-qubit gates of each layer as (qubit, coupler), sorted by qubit:
-/// which coupler's gate acts on a qubit in a layer.
+/// Per circuit, the two-qubit gates each qubit runs: which coupler's gate acts on a qubit
+/// in a layer.
 pub(crate) struct GateIndex(Vec<CircuitGates>);
 
-/// One circuit's gates: layer t's are `gates[starts[t]..starts[t + 1]]`; both are empty
-/// when the circuit has no two-qubit gate.
-struct CircuitGates {
-    starts: Vec<u32>,
-    gates: Vec<(QubitIx, usize)>,
+/// One circuit's two-qubit gates as (qubit, layer, coupler), sorted: a qubit's gates are
+/// one run, in layer order. Empty when the circuit has no two-qubit gate.
+struct CircuitGates(Vec<(u32, u32, u32)>);
+
+impl CircuitGates {
+    /// Qubit q's gates as (qubit, layer, coupler), in layer order.
+    fn of(&self, q: QubitIx) -> &[(u32, u32, u32)] {
+        let q = q as u32;
+        let from = self.0.partition_point(|e| e.0 < q);
+        let to = from + self.0[from..].partition_point(|e| e.0 == q);
+        &self.0[from..to]
+    }
 }
 
 impl GateIndex {
@@ -94,39 +101,62 @@ impl GateIndex {
                 .circuits
                 .par_iter()
                 .map(|c| {
-                    let mut starts = Vec::with_capacity(c.layers.len() + 1);
                     let mut gates = Vec::new();
-                    for layer in &c.layers {
-                        starts.push(gates.len() as u32);
-                        let from = gates.len();
+                    for (t, layer) in c.layers.iter().enumerate() {
                         for op in layer.iter().filter(|op| op.gate.arity() == 2) {
                             let q = op.qubits();
                             if let Some(d) = a.layout.coupler(q[0], q[1]) {
-                                gates.extend([(q[0], d), (q[1], d)]);
+                                let (t, d) = (t as u32, d as u32);
+                                gates.extend([(q[0] as u32, t, d), (q[1] as u32, t, d)]);
                             }
                         }
-                        gates[from..].sort_unstable();
                     }
-                    starts.push(gates.len() as u32);
-                    if gates.is_empty() {
-                        starts = Vec::new();
-                    }
-                    CircuitGates { starts, gates }
+                    gates.sort_unstable();
+                    CircuitGates(gates)
                 })
                 .collect(),
         )
     }
 
-    fn gate_on(&self, circuit: usize, layer: u32, q: QubitIx) -> Option<usize> {
-        let c = &self.0[circuit];
-        let t = layer as usize;
-        let v = c.starts.get(t..t + 2).map_or(&[][..], |s| &c.gates[s[0] as usize..s[1] as usize]);
-        v.binary_search_by(|e| e.0.cmp(&q)).ok().map(|i| v[i].1)
-    }
-
     /// Whether circuit `circuit` has a two-qubit gate on a coupler.
     fn any(&self, circuit: usize) -> bool {
-        !self.0[circuit].gates.is_empty()
+        !self.0[circuit].0.is_empty()
+    }
+}
+
+/// The gate each aggressor of one row runs in a layer, for layers asked in time order (a
+/// row's occurrences are): each aggressor's gates are read once per row, instead of a
+/// search of the layer's gates per occurrence and aggressor (most of listing the gate
+/// victims on a large chip). A layer earlier than the last one asked starts that
+/// aggressor's reading again, so any order gives the right answer.
+struct RowGates<'g> {
+    circuit: &'g CircuitGates,
+    /// Per aggressor met so far: the qubit, its gates, and how far they have been read.
+    cursors: Vec<(QubitIx, &'g [(u32, u32, u32)], usize)>,
+}
+
+impl<'g> RowGates<'g> {
+    fn new(gates: &'g GateIndex, circuit: usize) -> RowGates<'g> {
+        RowGates { circuit: &gates.0[circuit], cursors: Vec::new() }
+    }
+
+    /// The coupler whose gate acts on qubit `q` in layer `layer`, if any.
+    fn gate_on(&mut self, layer: u32, q: QubitIx) -> Option<usize> {
+        let i = match self.cursors.iter().position(|c| c.0 == q) {
+            Some(i) => i,
+            None => {
+                self.cursors.push((q, self.circuit.of(q), 0));
+                self.cursors.len() - 1
+            }
+        };
+        let (_, list, at) = &mut self.cursors[i];
+        if *at > 0 && list[*at - 1].1 >= layer {
+            *at = 0;
+        }
+        while *at < list.len() && list[*at].1 < layer {
+            *at += 1;
+        }
+        list.get(*at).filter(|e| e.1 == layer).map(|e| e.2 as usize)
     }
 }
 
@@ -183,10 +213,11 @@ fn own_charges(
     mut charge: impl FnMut(Budget),
 ) {
     let mut seen: Vec<usize> = Vec::new();
+    let mut gates = RowGates::new(gates, circuit);
     for o in row.occurrences.iter().filter(|o| own(a, victim, o.kind)) {
         seen.clear();
         for &r in row.aggressors(o) {
-            match gates.gate_on(circuit, o.layer, r) {
+            match gates.gate_on(o.layer, r) {
                 Some(d) if !seen.contains(&d) => {
                     seen.push(d);
                     charge(Budget::GateContext(o.kind, d));
@@ -583,4 +614,46 @@ fn unit_seed(victim: Unit, aggressor: Unit) -> (QubitIx, QubitIx) {
 /// Aggressors of each listed direction, by (victim, aggressor).
 pub(crate) fn index(directed: &[GateDirected]) -> HashMap<(Unit, Unit), usize> {
     directed.iter().enumerate().map(|(i, g)| ((g.victim, g.aggressor), i)).collect()
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use rand::{RngExt, SeedableRng};
+    use rand_chacha::ChaCha8Rng;
+
+    /// The row reader answers as a search of the circuit's gates does, for queries in time
+    /// order (as a row's occurrences ask) and out of it.
+    #[test]
+    fn row_gates_answer_as_a_search_does() {
+        let mut rng = ChaCha8Rng::seed_from_u64(5);
+        for _ in 0..200 {
+            let (n, layers) = (rng.random_range(2..9usize), rng.random_range(1..12u32));
+            let mut gates = Vec::new();
+            for t in 0..layers {
+                let mut free: Vec<u32> = (0..n as u32).collect();
+                while free.len() >= 2 && rng.random_bool(0.6) {
+                    let a = free.swap_remove(rng.random_range(0..free.len()));
+                    let b = free.swap_remove(rng.random_range(0..free.len()));
+                    let d = rng.random_range(0..20u32);
+                    gates.extend([(a, t, d), (b, t, d)]);
+                }
+            }
+            gates.sort_unstable();
+            let index = GateIndex(vec![CircuitGates(gates.clone())]);
+            let search = |t: u32, q: QubitIx| {
+                gates.iter().find(|e| e.0 == q as u32 && e.1 == t).map(|e| e.2 as usize)
+            };
+            let mut asks: Vec<(u32, QubitIx)> = (0..30)
+                .map(|_| (rng.random_range(0..layers + 1), rng.random_range(0..n + 1)))
+                .collect();
+            if rng.random_bool(0.5) {
+                asks.sort_unstable();
+            }
+            let mut row = RowGates::new(&index, 0);
+            for (t, q) in asks {
+                assert_eq!(row.gate_on(t, q), search(t, q), "layer {t}, qubit {q}");
+            }
+        }
+    }
 }
