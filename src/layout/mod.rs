@@ -5,7 +5,9 @@
 //! index qubits by [`QubitIx`] without re-checking. The TOML file format is documented in
 //! the README ("Layout files").
 
-use std::collections::{BTreeSet, HashMap};
+use std::collections::BTreeSet;
+
+use crate::counts::FastMap;
 
 pub mod generate;
 pub mod toml;
@@ -154,8 +156,10 @@ pub struct Layout {
     pub gates: NativeGates,
     /// The neighbourhood definition.
     pub neighbourhood: NeighbourhoodSpec,
-    index: HashMap<String, QubitIx>,
-    coupler_index: HashMap<(QubitIx, QubitIx), usize>,
+    /// Looked up for every qubit a circuit or a count names, and for every two-qubit gate:
+    /// hashed with the crate's fast word hasher (these keys are not chosen by an attacker).
+    index: FastMap<String, QubitIx>,
+    coupler_index: FastMap<(QubitIx, QubitIx), usize>,
     /// The two-qubit natives of each coupler, by coupler index (never empty).
     coupler_natives: Vec<Vec<Native2>>,
     /// Per coupler index: true when the file writes it (higher index, lower index), so a
@@ -221,7 +225,7 @@ impl Layout {
         if qubits.is_empty() {
             return Err("a layout needs at least one qubit".into());
         }
-        let mut index = HashMap::new();
+        let mut index = FastMap::default();
         for (i, q) in qubits.iter().enumerate() {
             if q.id.is_empty() || q.id.chars().any(|c| c.is_whitespace() || c == ',') {
                 return Err(format!(
@@ -257,7 +261,7 @@ impl Layout {
         }
         let couplers: Vec<(QubitIx, QubitIx)> = set.into_iter().collect();
         let written_reversed: Vec<bool> = couplers.iter().map(|c| reversed.contains(c)).collect();
-        let coupler_index: HashMap<(QubitIx, QubitIx), usize> =
+        let coupler_index: FastMap<(QubitIx, QubitIx), usize> =
             couplers.iter().enumerate().map(|(i, &c)| (c, i)).collect();
         let check_list = |list: &[Native2], whose: &str| -> std::result::Result<(), String> {
             for (i, n) in list.iter().enumerate() {
