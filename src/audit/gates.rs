@@ -101,7 +101,9 @@ impl GateIndex {
                 .circuits
                 .par_iter()
                 .map(|c| {
-                    let mut gates = Vec::new();
+                    let n: usize =
+                        c.layers.iter().flatten().filter(|op| op.gate.arity() == 2).count();
+                    let mut gates = Vec::with_capacity(2 * n);
                     for (t, layer) in c.layers.iter().enumerate() {
                         for op in layer.iter().filter(|op| op.gate.arity() == 2) {
                             let q = op.qubits();

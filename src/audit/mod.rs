@@ -169,5 +169,7 @@ pub fn run_parts(
         scorer,
         progress,
     )?;
+    drop((gate_directed, assessed, solved));
+    analysis.free();
     Ok((report, replicates))
 }
