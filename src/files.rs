@@ -175,6 +175,74 @@ pub(crate) fn read_block(file: &mut File, buf: &mut Vec<u8>, block: usize) -> Op
     file.take(block as u64).read_to_end(buf).ok()
 }
 
+/// What [`read_ahead`]'s `cut` makes of the bytes buffered so far.
+pub(crate) enum Cut<P> {
+    /// A piece taken out of the buffer, ready for the caller.
+    Piece(P),
+    /// Nothing yet: read more.
+    More,
+    /// The file is not one this reading takes.
+    Refuse,
+}
+
+/// Reads `file` `block` bytes at a time on a thread of its own, a piece ahead of the caller,
+/// so that reading and cutting the next block overlap the caller's work on this one (a
+/// reader's serial share: the parsing is parallel already). The buffer starts as `start`;
+/// after each read, `cut` gets it and whether the file has ended, and takes out of it what
+/// is ready. `each` gets the pieces in file order. `None` when the file cannot be read, when
+/// `cut` refuses it or when `each` gives up (the callers then read the file their ordinary
+/// way, which gives every message); the reading thread stops with the caller.
+pub(crate) fn read_ahead<P: Send>(
+    mut file: File,
+    start: Vec<u8>,
+    block: usize,
+    mut cut: impl FnMut(&mut Vec<u8>, bool) -> Cut<P> + Send,
+    mut each: impl FnMut(P) -> Option<()>,
+) -> Option<()> {
+    // One piece in the channel and one being cut: memory is about three blocks.
+    let (tx, rx) = std::sync::mpsc::sync_channel::<Option<P>>(1);
+    std::thread::scope(|scope| {
+        scope.spawn(move || {
+            let mut buf = start;
+            loop {
+                buf.reserve(block);
+                let Some(got) = read_block(&mut file, &mut buf, block) else {
+                    let _ = tx.send(None);
+                    return;
+                };
+                let ended = got == 0;
+                match cut(&mut buf, ended) {
+                    Cut::Refuse => {
+                        let _ = tx.send(None);
+                        return;
+                    }
+                    Cut::Piece(p) => {
+                        // The caller has given up when its end is gone.
+                        if tx.send(Some(p)).is_err() {
+                            return;
+                        }
+                    }
+                    Cut::More => {}
+                }
+                if ended {
+                    return;
+                }
+            }
+        });
+        for piece in rx {
+            each(piece?)?;
+        }
+        Some(())
+    })
+}
+
+/// Takes the first `end` bytes out of `buf` without copying them (the rest, a part record,
+/// is copied into a new buffer).
+pub(crate) fn take_front(buf: &mut Vec<u8>, end: usize) -> Vec<u8> {
+    let rest = buf.split_off(end);
+    std::mem::replace(buf, rest)
+}
+
 /// A byte count for messages: `64 MiB`, `16 GiB`, `512 bytes`.
 pub fn size_text(bytes: u64) -> String {
     const UNITS: [(&str, u64); 3] = [("GiB", 1 << 30), ("MiB", 1 << 20), ("KiB", 1 << 10)];

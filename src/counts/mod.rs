@@ -233,45 +233,55 @@ fn read_csv_split(
     opts: &CountsOptions,
     block: usize,
 ) -> Option<Result<(Counts, Vec<Warning>)>> {
+    use crate::files::Cut;
     use rayon::prelude::*;
-    let mut file = std::fs::File::open(path).ok()?;
+    let file = std::fs::File::open(path).ok()?;
     let mut acc = Accumulator::new(path, circuits, opts);
-    let mut buf: Vec<u8> = Vec::new();
-    let (mut lines_before, mut header_seen, mut first) = (0usize, false, true);
-    loop {
-        let got = crate::files::read_block(&mut file, &mut buf, block)?;
+    // Cut on the reading thread: whole lines, split, each line's span.
+    let mut first = true;
+    let cut = move |buf: &mut Vec<u8>, ended: bool| {
         if first {
             first = false;
             if buf.starts_with(b"\xEF\xBB\xBF") {
                 buf.drain(..3);
             }
             if buf.is_empty() {
-                return None;
+                return Cut::Refuse;
             }
         }
-        let end = if got == 0 {
+        let end = if ended {
             buf.len()
         } else {
             match buf.iter().rposition(|&b| b == b'\n') {
                 Some(i) => i + 1,
-                None if buf.len() as u64 > MAX_CSV_LINE_BYTES => return None,
-                None => continue,
+                None if buf.len() as u64 > MAX_CSV_LINE_BYTES => return Cut::Refuse,
+                None => return Cut::More,
             }
         };
-        let chunk = &buf[..end];
+        let chunk = crate::files::take_front(buf, end);
         if chunk.iter().any(|&b| b == b'"' || b == b'\r') {
-            return None;
+            return Cut::Refuse;
         }
-        let mut lines: Vec<&[u8]> = chunk.split(|&b| b == b'\n').collect();
-        if chunk.last() == Some(&b'\n') {
-            lines.pop();
-        }
-        if lines.iter().any(|l| l.len() as u64 > MAX_CSV_LINE_BYTES) {
-            return None;
-        }
+        let mut lines: Vec<(usize, usize)> = Vec::new();
         let mut from = 0;
-        while !header_seen && from < lines.len() {
-            let text = std::str::from_utf8(lines[from]).ok()?;
+        for (i, _) in chunk.iter().enumerate().filter(|&(_, &b)| b == b'\n') {
+            lines.push((from, i));
+            from = i + 1;
+        }
+        if chunk.last() != Some(&b'\n') {
+            lines.push((from, chunk.len()));
+        }
+        if lines.iter().any(|&(a, b)| (b - a) as u64 > MAX_CSV_LINE_BYTES) {
+            return Cut::Refuse;
+        }
+        Cut::Piece((chunk, lines))
+    };
+    let (mut lines_before, mut header_seen) = (0usize, false);
+    let each = |(chunk, spans): (Vec<u8>, Vec<(usize, usize)>)| -> Option<()> {
+        let line = |i: usize| &chunk[spans[i].0..spans[i].1];
+        let mut from = 0;
+        while !header_seen && from < spans.len() {
+            let text = std::str::from_utf8(line(from)).ok()?;
             from += 1;
             if text.split(',').all(|f| f.trim().is_empty()) {
                 continue;
@@ -282,22 +292,19 @@ fn read_csv_split(
             }
             header_seen = true;
         }
-        let prepared: Vec<Option<Prepared>> = lines[from..]
-            .par_iter()
-            .enumerate()
-            .map(|(i, l)| acc.prepare(lines_before + from + i + 1, l))
+        let prepared: Vec<Option<Prepared>> = (from..spans.len())
+            .into_par_iter()
+            .map(|i| acc.prepare(lines_before + i + 1, line(i)))
             .collect();
         for p in prepared {
             if let Prepared::Row { line, ci, key, value } = p? {
                 acc.commit(line, ci, key, value)?;
             }
         }
-        lines_before += lines.len();
-        buf.drain(..end);
-        if got == 0 {
-            break;
-        }
-    }
+        lines_before += spans.len();
+        Some(())
+    };
+    crate::files::read_ahead(file, Vec::new(), block, cut, each)?;
     (header_seen && acc.rows > 0).then(|| acc.finish())
 }
 
