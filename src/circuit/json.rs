@@ -199,21 +199,57 @@ const SPLIT_BLOCK: usize = 1 << 24;
 /// and the bytes between them are what a single pass accepts, so whatever is returned is
 /// what the streamed reader returns.
 fn read_split(path: &Path, layout: &Layout, block: usize) -> Option<Parsed> {
+    use crate::files::{take_front, Cut};
     use rayon::prelude::*;
-    use std::io::Read;
     let mut file = std::fs::File::open(path).ok()?;
     let mut buf = Vec::new();
     // The header is looked for in the first 4 KiB at least.
     crate::files::read_block(&mut file, &mut buf, block.max(1 << 12))?;
     let (schema, body) = split_header(&buf)?;
-    let mut cut =
+    // Cut on the reading thread: each piece holds whole circuits and their spans; the
+    // circuit being cut when a block ends is carried into the next piece.
+    let mut sp =
         Splitter { depth: 0, in_string: false, escaped: false, start: 0, expect: Next::FirstOrEnd };
-    let (mut pos, mut circuits, mut fault) = (body, Vec::new(), None);
-    loop {
+    // Both move into `cut`, which alone reads them.
+    let (mut scanned, mut closed) = (body, false);
+    // After the array: whitespace, `}`, whitespace and the end of the file.
+    let tail_ok = |rest: &[u8]| {
+        let i = skip_ws(rest, 0);
+        rest.get(i) == Some(&b'}') && skip_ws(rest, i + 1) == rest.len()
+    };
+    let cut = move |buf: &mut Vec<u8>, ended: bool| {
+        if closed {
+            return if !ended || tail_ok(buf) { Cut::More } else { Cut::Refuse };
+        }
         let mut spans = Vec::new();
-        let closed = cut.scan(&buf, pos, &mut spans)?;
+        let Some(closed_at) = sp.scan(buf, scanned, &mut spans) else {
+            return Cut::Refuse;
+        };
+        let chunk = match closed_at {
+            Some(end) => {
+                closed = true;
+                let chunk = take_front(buf, end);
+                if ended && !tail_ok(buf) {
+                    return Cut::Refuse;
+                }
+                chunk
+            }
+            None if ended => return Cut::Refuse,
+            None => {
+                // Keep only the circuit being cut, if any.
+                let keep = if sp.depth > 0 { sp.start } else { buf.len() };
+                let chunk = take_front(buf, keep);
+                sp.start -= keep.min(sp.start);
+                scanned = buf.len();
+                chunk
+            }
+        };
+        Cut::Piece((chunk, spans))
+    };
+    let (mut circuits, mut fault) = (Vec::new(), None);
+    let each = |(chunk, spans): (Vec<u8>, Vec<(usize, usize)>)| -> Option<()> {
         let parsed: Vec<Option<ParsedCircuit>> =
-            spans.par_iter().map(|&(s, e)| parse_circuit(&buf[s..e], layout)).collect();
+            spans.par_iter().map(|&(s, e)| parse_circuit(&chunk[s..e], layout)).collect();
         for one in parsed {
             let (circuit, delays, f) = one?;
             if let (None, Some(f)) = (&fault, f) {
@@ -221,26 +257,11 @@ fn read_split(path: &Path, layout: &Layout, block: usize) -> Option<Parsed> {
             }
             circuits.push((circuit, delays));
         }
-        if let Some(end) = closed {
-            let mut rest = buf.split_off(end);
-            drop(buf);
-            file.read_to_end(&mut rest).ok()?;
-            let mut i = skip_ws(&rest, 0);
-            if rest.get(i) != Some(&b'}') {
-                return None;
-            }
-            i = skip_ws(&rest, i + 1);
-            return (i == rest.len()).then_some((schema, circuits, fault));
-        }
-        // Keep only the circuit being cut, if any.
-        let keep = if cut.depth > 0 { cut.start } else { buf.len() };
-        buf.drain(..keep);
-        cut.start -= keep.min(cut.start);
-        pos = buf.len();
-        if crate::files::read_block(&mut file, &mut buf, block)? == 0 {
-            return None;
-        }
-    }
+        Some(())
+    };
+    // The reading refuses a file that ends before the array closes or has more after it.
+    crate::files::read_ahead(file, buf, block, cut, each)?;
+    Some((schema, circuits, fault))
 }
 
 /// One circuit parsed on its own: the circuit, its delays and its first fault.
