@@ -80,13 +80,16 @@ fn charged(b: Budget) -> Option<(KindIx, Unit)> {
 /// in a layer.
 pub(crate) struct GateIndex(Vec<CircuitGates>);
 
-/// One circuit's two-qubit gates as (qubit, layer, coupler), sorted: a qubit's gates are
-/// one run, in layer order. Empty when the circuit has no two-qubit gate.
-struct CircuitGates(Vec<(u32, u32, u32)>);
+/// A two-qubit gate as one of its qubits sees it: (qubit, layer, coupler).
+type QubitGate = (u32, u32, u32);
+
+/// One circuit's two-qubit gates, sorted: a qubit's gates are one run, in layer order.
+/// Empty when the circuit has no two-qubit gate.
+struct CircuitGates(Vec<QubitGate>);
 
 impl CircuitGates {
-    /// Qubit q's gates as (qubit, layer, coupler), in layer order.
-    fn of(&self, q: QubitIx) -> &[(u32, u32, u32)] {
+    /// Qubit q's gates, in layer order.
+    fn of(&self, q: QubitIx) -> &[QubitGate] {
         let q = q as u32;
         let from = self.0.partition_point(|e| e.0 < q);
         let to = from + self.0[from..].partition_point(|e| e.0 == q);
@@ -134,7 +137,7 @@ impl GateIndex {
 struct RowGates<'g> {
     circuit: &'g CircuitGates,
     /// Per aggressor met so far: the qubit, its gates, and how far they have been read.
-    cursors: Vec<(QubitIx, &'g [(u32, u32, u32)], usize)>,
+    cursors: Vec<(QubitIx, &'g [QubitGate], usize)>,
 }
 
 impl<'g> RowGates<'g> {
