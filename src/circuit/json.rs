@@ -342,6 +342,21 @@ impl Splitter {
     ) -> Option<Option<usize>> {
         let mut i = from;
         while i < buf.len() {
+            if self.depth > 0 && !self.escaped {
+                // Jump to the next byte that can change the state: a quote or a backslash
+                // in a string, a quote or a bracket outside (a tight search; the state
+                // machine below then takes that one byte).
+                let rest = &buf[i..];
+                let next = if self.in_string {
+                    rest.iter().position(|&b| b == b'"' || b == b'\\')
+                } else {
+                    rest.iter().position(|&b| matches!(b, b'"' | b'{' | b'[' | b'}' | b']'))
+                };
+                match next {
+                    Some(k) => i += k,
+                    None => break,
+                }
+            }
             let b = buf[i];
             if self.depth > 0 {
                 if self.in_string {
