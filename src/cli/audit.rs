@@ -64,7 +64,8 @@ pub struct AnalysisArgs {
     /// Seed of every random draw; the same seed gives the same numbers on any thread count.
     #[arg(long, default_value_t = 0)]
     pub seed: u64,
-    /// Worker threads (default: all cores; at most 1024 unless --no-limits).
+    /// Worker threads (default: all cores; at most 1024 unless --no-limits). Reading the
+    /// inputs adds two light threads of its own beside them (file reads, digests).
     #[arg(long)]
     pub threads: Option<usize>,
     /// Bootstrap replicates for intervals, ranks and verdicts (0 turns the bootstrap off;
