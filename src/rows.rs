@@ -365,11 +365,7 @@ fn circuit_rows(
     }
     // Position of each qubit in the measured list (the first, as a search would find).
     let mut measured_at = vec![usize::MAX; n];
-    for (i, &q) in c.measured.iter().enumerate().rev() {
-        if q < n {
-            measured_at[q] = i;
-        }
-    }
+    c.first_positions(&mut measured_at);
     // Scratch reused across the circuit's blocks; each row keeps exact-size copies.
     let mut steps: Vec<Step> = Vec::new();
     let mut occurrences: Vec<Occurrence> = Vec::new();

@@ -162,6 +162,17 @@ impl Circuit {
         v
     }
 
+    /// Writes into `at` (indexed by qubit) each measured qubit's first position in the
+    /// measured list, as a search would find it; other entries are left as they are, and
+    /// qubits past the end of `at` are skipped.
+    pub fn first_positions(&self, at: &mut [usize]) {
+        for (i, &q) in self.measured.iter().enumerate().rev() {
+            if let Some(slot) = at.get_mut(q) {
+                *slot = i;
+            }
+        }
+    }
+
     /// The blocks: connected components of the measured qubits under this circuit's
     /// two-qubit gates, each sorted, in order of their first measured qubit. Qubits a
     /// two-qubit gate joins to a measured qubit are included even if unmeasured, so a

@@ -176,9 +176,7 @@ fn circuit_terms(
             slot[q] = (b as u32, j as u8);
         }
     }
-    for (i, &m) in c.measured.iter().enumerate().rev() {
-        at[m] = i;
-    }
+    c.first_positions(at);
     let states = ideal_states(c, &blocks, slot);
     let n = c.measured.len();
     // (ideal distribution, its best overlap, positions as read, positions reversed)
